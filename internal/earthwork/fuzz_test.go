@@ -31,3 +31,28 @@ func FuzzReconcile(f *testing.F) {
 		}
 	})
 }
+
+func FuzzFactors(f *testing.F) {
+	f.Add(25.0, 25.0, 100.0, 1.11, 0.95)
+	f.Add(math.NaN(), -1.0, math.Inf(1), 0.0, -1.0)
+	f.Fuzz(func(t *testing.T, shrink, swell, v, loose, comp float64) {
+		for _, c := range []Convention{BankBasis, CompactedBasis} {
+			if sf, err := ShrinkFactor(shrink, c); err == nil && (sf <= 0 || sf > 1) {
+				t.Fatalf("ShrinkFactor(%v) = %v", shrink, sf)
+			} else if err != nil && !errors.Is(err, valid.ErrInput) {
+				t.Fatal(err)
+			}
+		}
+		if sw, err := SwellFactor(swell); err == nil && sw < 1 {
+			t.Fatalf("SwellFactor(%v) = %v", swell, sw)
+		} else if err != nil && !errors.Is(err, valid.ErrInput) {
+			t.Fatal(err)
+		}
+		fs := Factors{Loose: loose, Compacted: comp}
+		if out, err := fs.Convert(v, Bank, Loose); err == nil && (math.IsNaN(out) || out < 0) {
+			t.Fatalf("Convert = %v", out)
+		} else if err != nil && !errors.Is(err, valid.ErrInput) {
+			t.Fatal(err)
+		}
+	})
+}

@@ -74,6 +74,10 @@ type Verdict string
 const (
 	Pass Verdict = "pass"
 	Fail Verdict = "fail"
+	// Pending is the verdict of a test whose reference is not known yet
+	// (a zero Reference): its densities and flags are computed, and it is
+	// graded when the reference arrives.
+	Pending Verdict = "pending"
 )
 
 // Finding is one reason for a failing verdict, or one flag for a reviewer.
@@ -134,31 +138,49 @@ type Result struct {
 }
 
 // Grade computes relative compaction and moisture deviation and decides the
-// verdict against the spec. It returns a *valid.FieldError for an impossible
-// input (no reference, a dry density above the solids' density).
+// verdict against the spec; with a zero Reference the verdict is Pending and
+// only the flags that need no reference are raised. It returns a
+// *valid.FieldError for an impossible input (a negative maximum dry
+// density, a dry density above the solids' density).
 func Grade(in Input) (Result, error) {
 	t, ref := in.Test, in.Reference
 	if err := valid.First(valid.Positive("dry_density", t.DryDensity), valid.Range("moisture", t.Moisture, 0, soil.MaxMoisture, " %"),
-		valid.Positive("max_dry_density", ref.MaxDryDensity), valid.Positive("optimum_moisture", ref.OptimumMoisture),
 		valid.NonNegative("suspect_compaction", in.Spec.SuspectCompaction), valid.NonNegative("lift_thickness", in.LiftThickness)); err != nil {
 		return Result{}, fmt.Errorf("qc: grade: %w", err)
 	}
-	r := Result{WetDensity: t.WetDensity, DryDensity: t.DryDensity, Moisture: t.Moisture,
-		MaxDryDensity: ref.MaxDryDensity, OptimumMoisture: ref.OptimumMoisture}
+	r := Result{WetDensity: t.WetDensity, DryDensity: t.DryDensity, Moisture: t.Moisture, Verdict: Pending}
+	if ref != (Reference{}) {
+		if err := r.grade(in); err != nil {
+			return Result{}, err
+		}
+	}
+	if err := r.plausibility(in); err != nil {
+		return Result{}, err
+	}
+	return r, nil
+}
+
+// grade compares the test with its reference and spec.
+func (r *Result) grade(in Input) error {
+	ref := in.Reference
+	if err := valid.First(valid.Positive("max_dry_density", ref.MaxDryDensity), valid.Positive("optimum_moisture", ref.OptimumMoisture)); err != nil {
+		return fmt.Errorf("qc: grade: %w", err)
+	}
+	r.MaxDryDensity, r.OptimumMoisture = ref.MaxDryDensity, ref.OptimumMoisture
 	if in.Oversize != nil && in.Oversize.Percent > 0 {
 		water := in.Water
 		if water == 0 {
-			return Result{}, fmt.Errorf("qc: grade: %w", valid.Missing("water_density", "is required for an oversize correction"))
+			return fmt.Errorf("qc: grade: %w", valid.Missing("water_density", "is required for an oversize correction"))
 		}
 		mdd, omc, err := soil.CorrectForOversize(ref.MaxDryDensity, ref.OptimumMoisture, *in.Oversize, water)
 		if err != nil {
-			return Result{}, fmt.Errorf("qc: grade: %w", err)
+			return fmt.Errorf("qc: grade: %w", err)
 		}
 		r.MaxDryDensity, r.OptimumMoisture = mdd, omc
 		if ref.Procedure != nil {
 			ok, err := ref.Procedure.InScope(in.Oversize.Percent)
 			if err != nil {
-				return Result{}, fmt.Errorf("qc: grade: %w", err)
+				return fmt.Errorf("qc: grade: %w", err)
 			}
 			if !ok {
 				sc, _ := ref.Procedure.Scope()
@@ -192,21 +214,8 @@ func Grade(in Input) (Result, error) {
 	if len(r.Reasons) > 0 {
 		r.Verdict = Fail
 	}
-
-	if in.Gs != 0 {
-		if in.Water == 0 {
-			return Result{}, fmt.Errorf("qc: grade: %w", valid.Missing("water_density", "is required with gs"))
-		}
-		ph, err := soil.PhaseRelations(r.DryDensity, r.Moisture, in.Gs, in.Water)
-		if err != nil {
-			return Result{}, fmt.Errorf("qc: grade: %w", err)
-		}
-		r.ZeroAirVoids, r.Saturation = ph.ZeroAirVoids, ph.Saturation
-		if r.DryDensity > ph.ZeroAirVoids {
-			r.flag(AboveZeroAirVoids, fmt.Sprintf("dry density lies above the zero-air-voids density (%s) for Gs %.2f at this moisture: check the moisture, Gs and reference",
-				show(in.Units, soil.Density, ph.ZeroAirVoids), in.Gs))
-			r.flag(SaturationOver100, fmt.Sprintf("computed degree of saturation is %.1f %%, which is impossible; the inputs do not agree", ph.Saturation))
-		}
+	if ref.NotBracketed {
+		r.flag(ReferenceNotBracketed, "the reference curve's points do not bracket its peak; its maximum dry density and optimum moisture are uncertain")
 	}
 	suspect := in.Spec.SuspectCompaction
 	if suspect == 0 {
@@ -215,17 +224,35 @@ func Grade(in Input) (Result, error) {
 	if r.RelativeCompaction > suspect {
 		r.flag(CompactionSuspectHigh, fmt.Sprintf("relative compaction %.1f %% is above %.0f %%: check the reference, the material and the reading", r.RelativeCompaction, suspect))
 	}
+	return nil
+}
+
+// plausibility raises the flags that do not need a reference.
+func (r *Result) plausibility(in Input) error {
+	t := in.Test
+	if in.Gs != 0 {
+		if in.Water == 0 {
+			return fmt.Errorf("qc: grade: %w", valid.Missing("water_density", "is required with gs"))
+		}
+		ph, err := soil.PhaseRelations(r.DryDensity, r.Moisture, in.Gs, in.Water)
+		if err != nil {
+			return fmt.Errorf("qc: grade: %w", err)
+		}
+		r.ZeroAirVoids, r.Saturation = ph.ZeroAirVoids, ph.Saturation
+		if r.DryDensity > ph.ZeroAirVoids {
+			r.flag(AboveZeroAirVoids, fmt.Sprintf("dry density lies above the zero-air-voids density (%s) for Gs %.2f at this moisture: check the moisture, Gs and reference",
+				show(in.Units, soil.Density, ph.ZeroAirVoids), in.Gs))
+			r.flag(SaturationOver100, fmt.Sprintf("computed degree of saturation is %.1f %%, which is impossible; the inputs do not agree", ph.Saturation))
+		}
+	}
 	if (t.Method == soil.NuclearDirect || t.Method == soil.NuclearBackscatter) && !t.MoistureCorrected {
 		r.flag(NuclearMoistureUncorrected, "nuclear moisture is used as read, without a correction for this material (ASTM D6938); confirm with an oven-dry moisture")
-	}
-	if ref.NotBracketed {
-		r.flag(ReferenceNotBracketed, "the reference curve's points do not bracket its peak; its maximum dry density and optimum moisture are uncertain")
 	}
 	if in.LiftThickness > 0 && t.ProbeDepth > in.LiftThickness+1e-9 {
 		r.flag(ProbeDeeperThanLift, fmt.Sprintf("probe depth %s is deeper than the lift (%s): the reading includes material below the lift",
 			show(in.Units, soil.Depth, t.ProbeDepth), show(in.Units, soil.Depth, in.LiftThickness)))
 	}
-	return r, nil
+	return nil
 }
 
 func (r *Result) flag(code, msg string) { r.Flags = append(r.Flags, Finding{code, msg}) }

@@ -293,3 +293,18 @@ func TestLotBadInput(t *testing.T) {
 	near(t, "zero spread PWL_L", lot.PWLLower, 100, 1e-9)
 	near(t, "zero spread PWL_U (mean on the limit)", lot.PWLUpper, 50, 1e-9)
 }
+
+// A test whose reference has not arrived is pending, with its flags.
+func TestGradePending(t *testing.T) {
+	r, err := Grade(Input{Test: soil.InPlace{Method: soil.NuclearDirect, DryDensity: pcf(125), Moisture: 13},
+		Gs: 2.65, Water: soil.Water624, Spec: Spec{MinCompaction: ptr(MustLimit("95"))}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if r.Verdict != Pending || r.RelativeCompaction != 0 || len(r.Reasons) != 0 {
+		t.Errorf("no reference: verdict %v RC %v reasons %v, want pending", r.Verdict, r.RelativeCompaction, r.Reasons)
+	}
+	if !hasCode(r.Flags, AboveZeroAirVoids) || !hasCode(r.Flags, NuclearMoistureUncorrected) {
+		t.Errorf("pending test lost its flags: %v", r.Flags)
+	}
+}

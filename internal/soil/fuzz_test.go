@@ -120,3 +120,35 @@ func FuzzOversizeAndOnePoint(f *testing.F) {
 		}
 	})
 }
+
+func FuzzCalibrationsAndCorrections(f *testing.F) {
+	f.Add(1e-3, 1.45, 1e-3, 1.46, 12.07, 13.5, 20.0, true)
+	f.Add(0.0, -1.0, math.NaN(), 1.0, 0.0, 200.0, -10.0, false)
+	f.Fuzz(func(t *testing.T, v1, m1, v2, m2, gauge, oven, temp float64, offset bool) {
+		if d, err := SandDensity([]SandCalibration{{v1, m1}, {v2, m2}}); err == nil && (d <= 0 || math.IsNaN(d)) {
+			t.Fatalf("SandDensity = %v", d)
+		} else if err != nil && !errors.Is(err, valid.ErrInput) {
+			t.Fatal(err)
+		}
+		k := Factor
+		if offset {
+			k = Offset
+		}
+		c, err := DeriveCorrection(k, []MoisturePair{{gauge, oven}})
+		if err != nil && !errors.Is(err, valid.ErrInput) {
+			t.Fatal(err)
+		}
+		if err == nil {
+			if w, err := c.Apply(gauge); err == nil && (w < 0 || w > MaxMoisture) {
+				t.Fatalf("corrected moisture %v", w)
+			} else if err != nil && !errors.Is(err, valid.ErrInput) {
+				t.Fatal(err)
+			}
+		}
+		if w, err := WaterAt(temp); err == nil && (w < 990 || w > 1000) {
+			t.Fatalf("WaterAt(%v) = %v", temp, w)
+		} else if err != nil && !errors.Is(err, valid.ErrInput) {
+			t.Fatal(err)
+		}
+	})
+}

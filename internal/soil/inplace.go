@@ -77,8 +77,10 @@ const DefaultReadingAgreement = 32.0
 // sec. 1.1). Nuclear gauges hold licensed radioactive sources: their use,
 // transport and storage follow the licensee's radiation-safety programme.
 type Nuclear struct {
-	Backscatter bool    // surface geometry; otherwise direct transmission
-	ProbeDepth  float64 // direct transmission depth, m (up to 300 mm)
+	Backscatter bool // surface geometry; otherwise direct transmission
+	// ProbeDepth is the direct-transmission depth, m (up to 300 mm / 12 in);
+	// zero when it was not recorded (then the lift-depth check cannot run).
+	ProbeDepth float64
 	// Readings holds one reading, or two taken with the gauge turned 90
 	// degrees, which are averaged when their wet densities agree within
 	// Agreement.
@@ -99,7 +101,7 @@ func (n Nuclear) Compute() (InPlace, error) {
 		if n.ProbeDepth != 0 {
 			return InPlace{}, fmt.Errorf("soil: nuclear: %w", valid.Fail("probe_depth", n.ProbeDepth, "must be zero in backscatter"))
 		}
-	} else {
+	} else if n.ProbeDepth != 0 {
 		if err := valid.Positive("probe_depth", n.ProbeDepth); err != nil {
 			return InPlace{}, fmt.Errorf("soil: nuclear: %w", err)
 		}

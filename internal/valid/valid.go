@@ -15,16 +15,16 @@ var ErrInput = errors.New("invalid input")
 
 // FieldError names the input field, the value given and the rule it breaks.
 type FieldError struct {
-	Field string  // the input's name, in snake case as the command line and JSON spell it
-	Value float64 // the value given (NaN when the rule is about presence)
-	Rule  string  // the rule broken, in plain words
+	Field string // the input's name, in snake case as the command line and JSON spell it
+	Value string // the value given, formatted; empty when the rule is about presence
+	Rule  string // the rule broken, in plain words
 }
 
 func (e *FieldError) Error() string {
-	if math.IsNaN(e.Value) {
+	if e.Value == "" {
 		return fmt.Sprintf("%s: %s", e.Field, e.Rule)
 	}
-	return fmt.Sprintf("%s = %s: %s", e.Field, strconv.FormatFloat(e.Value, 'g', -1, 64), e.Rule)
+	return fmt.Sprintf("%s = %s: %s", e.Field, e.Value, e.Rule)
 }
 
 // Unwrap lets errors.Is(err, ErrInput) hold.
@@ -32,18 +32,18 @@ func (e *FieldError) Unwrap() error { return ErrInput }
 
 // Fail returns a *FieldError for field with value v and rule.
 func Fail(field string, v float64, rule string) error {
-	return &FieldError{Field: field, Value: v, Rule: rule}
+	return &FieldError{Field: field, Value: strconv.FormatFloat(v, 'g', -1, 64), Rule: rule}
 }
 
 // Missing returns a *FieldError saying field is required.
 func Missing(field, rule string) error {
-	return &FieldError{Field: field, Value: math.NaN(), Rule: rule}
+	return &FieldError{Field: field, Rule: rule}
 }
 
 // Finite fails when v is NaN or infinite.
 func Finite(field string, v float64) error {
 	if math.IsNaN(v) || math.IsInf(v, 0) {
-		return &FieldError{Field: field, Value: v, Rule: "must be a finite number"}
+		return Fail(field, v, "must be a finite number")
 	}
 	return nil
 }

@@ -1,0 +1,38 @@
+// Package cli is the tamp command line: the commands inspectors, office
+// staff and QA managers run, built on spf13/cobra (help and shell completion
+// for bash, zsh, fish and PowerShell come with it). cmd/tamp only calls Run.
+package cli
+
+import (
+	"context"
+	"io"
+
+	"github.com/spf13/cobra"
+)
+
+// Run executes the tamp command line with args (without the program name),
+// writing results to stdout and diagnostics to stderr. It returns the error
+// that ended the command; the caller prints it and exits non-zero.
+func Run(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	root := newRoot()
+	root.SetArgs(args)
+	root.SetOut(stdout)
+	root.SetErr(stderr)
+	return root.ExecuteContext(ctx)
+}
+
+func newRoot() *cobra.Command {
+	root := &cobra.Command{
+		Use:   "tamp",
+		Short: "Field density quality control for earthwork",
+		Long: `tamp records in-place density tests of compacted fill, grades them against their
+laboratory reference and specification, and keeps the project's record.
+
+Results support, and never replace, review by qualified personnel; the project's
+specifications and local codes govern every acceptance limit.`,
+		SilenceUsage:  true,
+		SilenceErrors: true,
+	}
+	root.AddCommand(newCalc())
+	return root
+}
