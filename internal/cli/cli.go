@@ -1,6 +1,3 @@
-// Package cli is the tamp command line: the commands inspectors, office
-// staff and QA managers run, built on spf13/cobra (help and shell completion
-// for bash, zsh, fish and PowerShell come with it). cmd/tamp only calls Run.
 package cli
 
 import (

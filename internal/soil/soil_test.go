@@ -468,3 +468,21 @@ func TestBadInputNamesField(t *testing.T) {
 		})
 	}
 }
+
+// Report MDD to 0.1 pcf and optimum to 0.1 % ([pub] ASTM D698); AASHTO
+// T 99 / T 180 have methods A-D ([pub] T 99-17).
+func TestReportingAndAASHTOMethods(t *testing.T) {
+	if US.Places(Density) != 1 || US.Places(Percent) != 1 {
+		t.Errorf("US places: density %d, percent %d; want 1 and 1", US.Places(Density), US.Places(Percent))
+	}
+	for _, s := range []Standard{AASHTOT99, AASHTOT180} {
+		for _, m := range []string{"A", "B", "C", "D"} {
+			if _, err := (Procedure{Standard: s, Method: m}).Scope(); err != nil {
+				t.Errorf("%s method %s: %v", s, m, err)
+			}
+		}
+		if _, err := (Procedure{Standard: s, Method: "E"}).Scope(); err == nil {
+			t.Errorf("%s method E accepted", s)
+		}
+	}
+}

@@ -1,0 +1,55 @@
+// Package cli is the tamp command line: the commands inspectors, office
+// staff and QA managers run, built on spf13/cobra (help and shell completion
+// for bash, zsh, fish and PowerShell come with it). cmd/tamp only calls Run.
+//
+// # tamp calc
+//
+// tamp calc computes with no project or server, so an inspector can check a
+// number on the fill and a script can grade a test. Its flags and JSON
+// fields are fixed so that others can script them.
+//
+// tamp calc test takes the readings of one in-place density test. The
+// method follows from the readings given:
+//
+//   - Sand cone (ASTM D1556, AASHTO T 191). A hole is dug in the lift and the
+//     soil from it weighed (--soil-mass). Calibrated sand poured through a cone
+//     fills the hole; the sand that left the jug (--sand-used) less what fills
+//     the cone and base plate (--cone-correction) is the sand in the hole, and
+//     that divided by the sand's bulk density (--sand-density, from its
+//     calibration) is the hole's volume. Wet density is soil mass over hole
+//     volume.
+//   - Nuclear gauge (ASTM D6938). The gauge reads the wet density and the
+//     mass of water per unit volume M (--water-per-volume); dry density is wet
+//     less M and moisture is M over dry. The gauge's moisture depends on the
+//     material (hydrogen bound in minerals or organics reads as water), so it
+//     is corrected by an offset found from oven-dry comparisons
+//     (--moisture-offset); an uncorrected reading is flagged. Nuclear gauges
+//     are licensed radioactive sources: their use, transport and storage follow
+//     the licensee's radiation-safety programme.
+//   - A wet density measured by any other means, with its moisture
+//     (--wet-density --moisture); the drive cylinder (ASTM D2937) and rubber
+//     balloon (ASTM D2167) give such a wet density from a known volume.
+//
+// Dry density is wet density / (1 + w). Against a laboratory reference
+// (--mdd maximum dry density, --omc optimum moisture, from a standard or
+// modified compaction test) the test's relative compaction is dry density
+// over maximum dry density, and its moisture deviation is moisture less
+// optimum, in points. Where the field material holds particles larger than
+// the laboratory method's sieve (--oversize-percent), the reference is
+// corrected to the whole material first (ASTM D4718, AASHTO T 224). With the
+// specific gravity of the solids (--gs), the zero-air-voids density is
+// computed and a test lying above it is flagged: it would need more than
+// 100 % saturation, so a reading, the moisture or the reference is wrong.
+//
+// The verdict is pass when the relative compaction meets --min-rc and the
+// deviation lies in --moisture-window, each decided on the value rounded to
+// the last place of the limit as written (AASHTO R 11 / ASTM E29).
+//
+// tamp calc volume relates the compacted volume placed, the bank volume
+// taken from borrow and the loose volume hauled through dry density, with
+// shrinkage and swell defined in words beside the figures. tamp calc pwl
+// estimates a lot's percent within limits.
+//
+// Results support, and never replace, review by qualified personnel; the
+// project's specifications and local codes govern every acceptance limit.
+package cli
