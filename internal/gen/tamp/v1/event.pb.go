@@ -942,8 +942,11 @@ type ProjectSetUp struct {
 	// Largest difference between a device clock and the server's, in seconds,
 	// before the device's events are flagged; zero means five minutes.
 	ClockSkewLimitSeconds int64 `protobuf:"varint,5,opt,name=clock_skew_limit_seconds,json=clockSkewLimitSeconds,proto3" json:"clock_skew_limit_seconds,omitempty"`
-	unknownFields         protoimpl.UnknownFields
-	sizeCache             protoimpl.SizeCache
+	// IANA time zone of the site (e.g. "America/Denver"); a test's day, and
+	// the day of a gauge's standard count, are taken in it. Empty means UTC.
+	TimeZone      string `protobuf:"bytes,6,opt,name=time_zone,json=timeZone,proto3" json:"time_zone,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
 }
 
 func (x *ProjectSetUp) Reset() {
@@ -1009,6 +1012,13 @@ func (x *ProjectSetUp) GetClockSkewLimitSeconds() int64 {
 		return x.ClockSkewLimitSeconds
 	}
 	return 0
+}
+
+func (x *ProjectSetUp) GetTimeZone() string {
+	if x != nil {
+		return x.TimeZone
+	}
+	return ""
 }
 
 // SpecDefined defines an acceptance specification. A spec never changes: a
@@ -3421,13 +3431,14 @@ const file_tamp_v1_event_proto_rawDesc = "" +
 	"\vtest_voided\x18\x1b \x01(\v2\x13.tamp.v1.TestVoidedH\x00R\n" +
 	"testVoided\x12<\n" +
 	"\rtest_reviewed\x18\x1c \x01(\v2\x15.tamp.v1.TestReviewedH\x00R\ftestReviewedB\x06\n" +
-	"\x04kind\"\xfc\x01\n" +
+	"\x04kind\"\x99\x02\n" +
 	"\fProjectSetUp\x12\x12\n" +
 	"\x04name\x18\x01 \x01(\tR\x04name\x12)\n" +
 	"\x05units\x18\x02 \x01(\x0e2\x13.tamp.v1.UnitSystemR\x05units\x12#\n" +
 	"\rwater_density\x18\x03 \x01(\x01R\fwaterDensity\x12O\n" +
 	"\x14shrinkage_convention\x18\x04 \x01(\x0e2\x1c.tamp.v1.ShrinkageConventionR\x13shrinkageConvention\x127\n" +
-	"\x18clock_skew_limit_seconds\x18\x05 \x01(\x03R\x15clockSkewLimitSeconds\"\xbf\x02\n" +
+	"\x18clock_skew_limit_seconds\x18\x05 \x01(\x03R\x15clockSkewLimitSeconds\x12\x1b\n" +
+	"\ttime_zone\x18\x06 \x01(\tR\btimeZone\"\xbf\x02\n" +
 	"\vSpecDefined\x12\x17\n" +
 	"\aspec_id\x18\x01 \x01(\tR\x06specId\x12\x12\n" +
 	"\x04name\x18\x02 \x01(\tR\x04name\x12%\n" +

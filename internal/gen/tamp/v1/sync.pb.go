@@ -584,7 +584,10 @@ type PullResponse struct {
 	// The device's public keys known to the server, by device id, for
 	// devices that signed events in this chunk, so the device can verify
 	// signatures offline.
-	DeviceKeys    map[string][]byte `protobuf:"bytes,3,rep,name=device_keys,json=deviceKeys,proto3" json:"device_keys,omitempty" protobuf_key:"bytes,1,opt,name=key" protobuf_val:"bytes,2,opt,name=value"`
+	DeviceKeys map[string][]byte `protobuf:"bytes,3,rep,name=device_keys,json=deviceKeys,proto3" json:"device_keys,omitempty" protobuf_key:"bytes,1,opt,name=key" protobuf_val:"bytes,2,opt,name=value"`
+	// The server's own chain point at the request's cursor, sent in the first
+	// chunk, so the device can tell a rewritten history from an altered event.
+	Anchor        *Checkpoint `protobuf:"bytes,4,opt,name=anchor,proto3" json:"anchor,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -640,6 +643,13 @@ func (x *PullResponse) GetDeviceKeys() map[string][]byte {
 	return nil
 }
 
+func (x *PullResponse) GetAnchor() *Checkpoint {
+	if x != nil {
+		return x.Anchor
+	}
+	return nil
+}
+
 var File_tamp_v1_sync_proto protoreflect.FileDescriptor
 
 const file_tamp_v1_sync_proto_rawDesc = "" +
@@ -677,12 +687,13 @@ const file_tamp_v1_sync_proto_rawDesc = "" +
 	"\vLedgerEntry\x12\x1a\n" +
 	"\bsequence\x18\x01 \x01(\x04R\bsequence\x12$\n" +
 	"\x05event\x18\x02 \x01(\v2\x0e.tamp.v1.EventR\x05event\x12\x12\n" +
-	"\x04hash\x18\x03 \x01(\fR\x04hash\"\xee\x01\n" +
+	"\x04hash\x18\x03 \x01(\fR\x04hash\"\x9b\x02\n" +
 	"\fPullResponse\x12.\n" +
 	"\aentries\x18\x01 \x03(\v2\x14.tamp.v1.LedgerEntryR\aentries\x12'\n" +
 	"\x04head\x18\x02 \x01(\v2\x13.tamp.v1.CheckpointR\x04head\x12F\n" +
 	"\vdevice_keys\x18\x03 \x03(\v2%.tamp.v1.PullResponse.DeviceKeysEntryR\n" +
-	"deviceKeys\x1a=\n" +
+	"deviceKeys\x12+\n" +
+	"\x06anchor\x18\x04 \x01(\v2\x13.tamp.v1.CheckpointR\x06anchor\x1a=\n" +
 	"\x0fDeviceKeysEntry\x12\x10\n" +
 	"\x03key\x18\x01 \x01(\tR\x03key\x12\x14\n" +
 	"\x05value\x18\x02 \x01(\fR\x05value:\x028\x01*\x97\x01\n" +
@@ -745,15 +756,16 @@ var file_tamp_v1_sync_proto_depIdxs = []int32{
 	7,  // 7: tamp.v1.PullResponse.entries:type_name -> tamp.v1.LedgerEntry
 	2,  // 8: tamp.v1.PullResponse.head:type_name -> tamp.v1.Checkpoint
 	9,  // 9: tamp.v1.PullResponse.device_keys:type_name -> tamp.v1.PullResponse.DeviceKeysEntry
-	3,  // 10: tamp.v1.SyncService.Push:input_type -> tamp.v1.PushRequest
-	6,  // 11: tamp.v1.SyncService.Pull:input_type -> tamp.v1.PullRequest
-	5,  // 12: tamp.v1.SyncService.Push:output_type -> tamp.v1.PushResponse
-	8,  // 13: tamp.v1.SyncService.Pull:output_type -> tamp.v1.PullResponse
-	12, // [12:14] is the sub-list for method output_type
-	10, // [10:12] is the sub-list for method input_type
-	10, // [10:10] is the sub-list for extension type_name
-	10, // [10:10] is the sub-list for extension extendee
-	0,  // [0:10] is the sub-list for field type_name
+	2,  // 10: tamp.v1.PullResponse.anchor:type_name -> tamp.v1.Checkpoint
+	3,  // 11: tamp.v1.SyncService.Push:input_type -> tamp.v1.PushRequest
+	6,  // 12: tamp.v1.SyncService.Pull:input_type -> tamp.v1.PullRequest
+	5,  // 13: tamp.v1.SyncService.Push:output_type -> tamp.v1.PushResponse
+	8,  // 14: tamp.v1.SyncService.Pull:output_type -> tamp.v1.PullResponse
+	13, // [13:15] is the sub-list for method output_type
+	11, // [11:13] is the sub-list for method input_type
+	11, // [11:11] is the sub-list for extension type_name
+	11, // [11:11] is the sub-list for extension extendee
+	0,  // [0:11] is the sub-list for field type_name
 }
 
 func init() { file_tamp_v1_sync_proto_init() }

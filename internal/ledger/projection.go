@@ -1,0 +1,352 @@
+package ledger
+
+import (
+	"bytes"
+	"cmp"
+	"fmt"
+	"slices"
+	"time"
+)
+
+// order is the deterministic order of events everywhere a rule must pick
+// one: hybrid time, then device id, then event id.
+func order(a, b *Event) int {
+	if c := a.HLC.Compare(b.HLC); c != 0 {
+		return c
+	}
+	if c := cmp.Compare(a.Device, b.Device); c != 0 {
+		return c
+	}
+	return cmp.Compare(a.ID, b.ID)
+}
+
+// Status is what Apply did with an event.
+type Status int
+
+// The outcomes of Apply.
+const (
+	// Applied: the event is new and takes effect.
+	Applied Status = iota + 1
+	// Duplicate: the event was already held; nothing changed.
+	Duplicate
+	// Waiting: the event is held but refers to records this replica has not
+	// seen; it takes effect as they arrive (a test is shown as pending).
+	Waiting
+)
+
+func (s Status) String() string {
+	switch s {
+	case Applied:
+		return "applied"
+	case Duplicate:
+		return "duplicate"
+	case Waiting:
+		return "waiting"
+	}
+	return fmt.Sprintf("Status(%d)", int(s))
+}
+
+// Outcome is the result of applying one event.
+type Outcome struct {
+	Status  Status
+	Missing []string // record ids the event refers to that are not held
+}
+
+// Projection is a project's state computed from a set of events. The state
+// depends only on the set: any replicas holding the same events show the
+// same state, whatever order and however often the events arrived. Every
+// record's state is recomputed from all events about it whenever one
+// arrives. A Projection is not safe for concurrent use.
+type Projection struct {
+	project string
+	now     func() time.Time
+
+	events   map[string]*Signed
+	byRecord map[string][]*Event // record id ("" for the project) -> events about it
+	deps     map[string]map[string]bool
+	retests  map[string]map[string]bool // test id -> tests that name it in retest_of
+
+	setup       *SetUp
+	specs       map[string]*Spec
+	refs        map[string]*Reference
+	equipment   map[string]*Equipment
+	corrections map[string]*Correction
+	borrow      map[string]*BorrowSource
+	placements  map[string]*Placement
+	hauls       map[string]*Haul
+	tests       map[string]*Test
+}
+
+// NewProjection returns an empty projection of a project.
+func NewProjection(project string) *Projection {
+	return &Projection{
+		project: project, events: map[string]*Signed{}, byRecord: map[string][]*Event{},
+		deps: map[string]map[string]bool{}, retests: map[string]map[string]bool{},
+		specs: map[string]*Spec{}, refs: map[string]*Reference{}, equipment: map[string]*Equipment{},
+		corrections: map[string]*Correction{}, borrow: map[string]*BorrowSource{}, placements: map[string]*Placement{},
+		hauls: map[string]*Haul{}, tests: map[string]*Test{},
+	}
+}
+
+// Project returns the project id.
+func (p *Projection) Project() string { return p.project }
+
+// Len returns the number of events held.
+func (p *Projection) Len() int { return len(p.events) }
+
+// Has reports whether the event is held.
+func (p *Projection) Has(eventID string) bool { _, ok := p.events[eventID]; return ok }
+
+// Event returns a held event.
+func (p *Projection) Event(eventID string) (Signed, bool) {
+	s, ok := p.events[eventID]
+	if !ok {
+		return Signed{}, false
+	}
+	return *s, true
+}
+
+// Apply adds a verified event to the set. An event already held with the
+// same bytes is a Duplicate. It returns a *Rejection (WrongProject,
+// ConflictingID for an event id reused with other bytes, or what Validate
+// returns) and then changes nothing.
+func (p *Projection) Apply(s Signed) (Outcome, error) {
+	e := &s.Event
+	if e.Project != p.project {
+		return Outcome{}, reject(WrongProject, "project_id", fmt.Sprintf("the event belongs to project %s, not %s", e.Project, p.project))
+	}
+	if old, ok := p.events[e.ID]; ok {
+		if bytes.Equal(old.Body, s.Body) {
+			return Outcome{Status: Duplicate, Missing: p.Missing(e)}, nil
+		}
+		return Outcome{}, reject(ConflictingID, "event_id", "event "+e.ID+" is already held with other content")
+	}
+	if err := Validate(*e); err != nil {
+		return Outcome{}, err
+	}
+	held := s
+	p.events[e.ID] = &held
+	e = &held.Event
+	key := recordOf(e)
+	p.byRecord[key] = append(p.byRecord[key], e)
+	if tr, ok := e.Kind.(*TestRecorded); ok && tr.RetestOf != "" {
+		if p.retests[tr.RetestOf] == nil {
+			p.retests[tr.RetestOf] = map[string]bool{}
+		}
+		p.retests[tr.RetestOf][tr.TestID] = true
+	}
+	p.recompute(key, e.Kind)
+	out := Outcome{Status: Applied, Missing: p.Missing(e)}
+	if len(out.Missing) > 0 {
+		out.Status = Waiting
+	}
+	return out, nil
+}
+
+// recordOf returns the id of the record an event is about.
+func recordOf(e *Event) string {
+	switch k := e.Kind.(type) {
+	case *SpecDefined:
+		return k.ID
+	case *ReferenceAdded:
+		return k.ID
+	case *EquipmentRegistered:
+		return k.ID
+	case *StandardCountRecorded:
+		return k.EquipmentID
+	case *MoistureCorrectionSet:
+		return k.ID
+	case *BorrowSourceMeasured:
+		return k.ID
+	case *LiftPlacementRecorded:
+		return k.ID
+	case *HaulRecorded:
+		return k.ID
+	case *TestRecorded:
+		return k.TestID
+	case *TestCorrected:
+		return k.TestID
+	case *TestVoided:
+		return k.TestID
+	case *TestReviewed:
+		return k.TestID
+	}
+	return "" // the project set-up
+}
+
+// refsOf returns the ids of the records an event refers to (not the one it
+// is about).
+func refsOf(e *Event) []string {
+	var ids []string
+	add := func(vs ...string) {
+		for _, v := range vs {
+			if v != "" {
+				ids = append(ids, v)
+			}
+		}
+	}
+	content := func(c TestContent) {
+		add(c.ReferenceID, c.SpecID, c.EquipmentID, c.PlacementID)
+		if c.Readings.Nuclear != nil {
+			add(c.Readings.Nuclear.CorrectionID)
+		}
+	}
+	switch k := e.Kind.(type) {
+	case *StandardCountRecorded:
+		add(k.EquipmentID)
+	case *MoistureCorrectionSet:
+		add(k.EquipmentID, k.ReferenceID)
+	case *BorrowSourceMeasured:
+		add(k.ReferenceID)
+	case *LiftPlacementRecorded:
+		add(k.BorrowSourceID)
+	case *HaulRecorded:
+		add(k.BorrowSourceID, k.PlacementID)
+	case *TestRecorded:
+		content(k.Content)
+		add(k.RetestOf)
+	case *TestCorrected:
+		add(k.TestID, k.Supersedes)
+		content(k.Content)
+	case *TestVoided:
+		add(k.TestID)
+	case *TestReviewed:
+		add(k.TestID, k.Revision)
+	}
+	return ids
+}
+
+// Missing returns the records e refers to that this replica does not hold:
+// for revision ids, the revision must be part of its test's history.
+func (p *Projection) Missing(e *Event) []string {
+	var out []string
+	for _, id := range refsOf(e) {
+		if !p.holds(id) {
+			out = append(out, id)
+		}
+	}
+	return out
+}
+
+func (p *Projection) holds(id string) bool {
+	if _, ok := p.specs[id]; ok {
+		return true
+	}
+	if _, ok := p.refs[id]; ok {
+		return true
+	}
+	if _, ok := p.equipment[id]; ok {
+		return true
+	}
+	if _, ok := p.corrections[id]; ok {
+		return true
+	}
+	if _, ok := p.borrow[id]; ok {
+		return true
+	}
+	if _, ok := p.placements[id]; ok {
+		return true
+	}
+	if _, ok := p.tests[id]; ok {
+		return true
+	}
+	if s, ok := p.events[id]; ok { // a revision: held and connected to its test
+		var testID string
+		switch k := s.Event.Kind.(type) {
+		case *TestRecorded:
+			testID = k.TestID
+		case *TestCorrected:
+			testID = k.TestID
+		default:
+			return false
+		}
+		if t, ok := p.tests[testID]; ok {
+			return t.hasRevision(id)
+		}
+	}
+	return false
+}
+
+func (p *Projection) addDep(on, test string) {
+	if on == "" {
+		return
+	}
+	if p.deps[on] == nil {
+		p.deps[on] = map[string]bool{}
+	}
+	p.deps[on][test] = true
+}
+
+// recompute rebuilds the record key from its events, then the tests that
+// depend on it.
+func (p *Projection) recompute(key string, kind Kind) {
+	evs := p.byRecord[key]
+	slices.SortFunc(evs, order)
+	switch kind.(type) {
+	case *ProjectSetUp:
+		p.setup = buildSetUp(evs)
+		for id := range p.tests { // units, water and time zone grade every test
+			p.recomputeTest(id, false)
+		}
+		return
+	case *TestRecorded, *TestCorrected, *TestVoided, *TestReviewed:
+		p.recomputeTest(key, true)
+		return
+	case *SpecDefined:
+		p.specs = setOrDelete(p.specs, key, buildSpec(evs))
+	case *ReferenceAdded:
+		p.refs = setOrDelete(p.refs, key, buildReference(evs))
+	case *EquipmentRegistered, *StandardCountRecorded:
+		p.equipment = setOrDelete(p.equipment, key, buildEquipment(evs))
+	case *MoistureCorrectionSet:
+		p.corrections = setOrDelete(p.corrections, key, buildCorrection(evs))
+	case *BorrowSourceMeasured:
+		p.borrow = setOrDelete(p.borrow, key, p.buildBorrow(evs))
+	case *LiftPlacementRecorded:
+		p.placements = setOrDelete(p.placements, key, buildPlacement(evs))
+	case *HaulRecorded:
+		p.hauls = setOrDelete(p.hauls, key, buildHaul(evs))
+	}
+	for dep := range p.deps[key] {
+		p.recomputeTest(dep, true)
+	}
+}
+
+func setOrDelete[T any](m map[string]*T, key string, v *T) map[string]*T {
+	if v == nil {
+		delete(m, key)
+	} else {
+		m[key] = v
+	}
+	return m
+}
+
+// recomputeTest rebuilds a test; with cascade, the tests that retest it
+// too, since whether a retest retests a failure depends on the test it
+// names (one level is enough: a test's verdict never depends on its retests).
+func (p *Projection) recomputeTest(id string, cascade bool) {
+	t := p.buildTest(p.byRecord[id])
+	if cascade {
+		defer func() {
+			for r := range p.retests[id] {
+				p.recomputeTest(r, false)
+			}
+		}()
+	}
+	if t == nil {
+		delete(p.tests, id)
+		return
+	}
+	for _, r := range t.Revisions {
+		c := r.Content
+		p.addDep(c.ReferenceID, id)
+		p.addDep(c.SpecID, id)
+		p.addDep(c.EquipmentID, id)
+		p.addDep(c.PlacementID, id)
+		if c.Readings.Nuclear != nil {
+			p.addDep(c.Readings.Nuclear.CorrectionID, id)
+		}
+	}
+	p.addDep(t.RetestOf, id)
+	p.tests[id] = t
+}

@@ -1,0 +1,137 @@
+package ledger
+
+import (
+	"crypto/ed25519"
+	"fmt"
+
+	"google.golang.org/protobuf/proto"
+
+	pb "tamp/internal/gen/tamp/v1"
+)
+
+// signingContext is prefixed to the body before signing, so a signature
+// over an event can never be mistaken for one over anything else.
+const signingContext = "tamp.v1.EventBody\x00"
+
+// MaxEventBytes is the largest encoded event accepted.
+const MaxEventBytes = 256 << 10
+
+// Signed is an event with the exact bytes its device signed.
+type Signed struct {
+	Event     Event
+	Body      []byte // deterministic protobuf encoding of the body, as signed
+	Signature []byte // Ed25519 over signingContext || Body
+}
+
+var deterministic = proto.MarshalOptions{Deterministic: true}
+
+// EncodeBody returns the canonical bytes of e: the deterministic protobuf
+// encoding of its body.
+func EncodeBody(e Event) ([]byte, error) {
+	b, err := ToProto(e)
+	if err != nil {
+		return nil, err
+	}
+	return deterministic.Marshal(b)
+}
+
+// Seal validates e, encodes it canonically and signs it with the device key.
+// It returns a *Rejection when e breaks a rule.
+func Seal(e Event, key ed25519.PrivateKey) (Signed, error) {
+	if err := Validate(e); err != nil {
+		return Signed{}, err
+	}
+	body, err := EncodeBody(e)
+	if err != nil {
+		return Signed{}, fmt.Errorf("ledger: seal %s: %w", e.ID, err)
+	}
+	if len(body) > MaxEventBytes {
+		return Signed{}, reject(Malformed, "", fmt.Sprintf("the event encodes to %d bytes, above the limit of %d", len(body), MaxEventBytes))
+	}
+	return Signed{Event: e, Body: body, Signature: ed25519.Sign(key, signed(body))}, nil
+}
+
+func signed(body []byte) []byte {
+	return append([]byte(signingContext), body...)
+}
+
+// Bytes returns the event's envelope encoding: its stored form, and the
+// "event bytes" of the hash chain.
+func (s Signed) Bytes() []byte {
+	b, err := deterministic.Marshal(s.Proto())
+	if err != nil { // a message of two byte fields always marshals
+		panic(fmt.Sprintf("ledger: marshal envelope: %v", err))
+	}
+	return b
+}
+
+// Proto returns the envelope as it travels.
+func (s Signed) Proto() *pb.Event { return &pb.Event{Body: s.Body, Signature: s.Signature} }
+
+// Verify checks the signature with the device's public key. It returns a
+// *Rejection with BadSignature when it does not verify.
+func (s Signed) Verify(pub ed25519.PublicKey) error {
+	if len(pub) != ed25519.PublicKeySize {
+		return reject(BadSignature, "device_id", "no valid public key is known for device "+s.Event.Device)
+	}
+	if !ed25519.Verify(pub, signed(s.Body), s.Signature) {
+		return reject(BadSignature, "signature", fmt.Sprintf("the signature of event %s does not verify with device %s's key", s.Event.ID, s.Event.Device))
+	}
+	return nil
+}
+
+// Decode decodes an envelope's bytes without verifying its signature.
+func Decode(envelope []byte) (Signed, error) {
+	if len(envelope) > MaxEventBytes+ed25519.SignatureSize+16 {
+		return Signed{}, reject(Malformed, "", fmt.Sprintf("the event is %d bytes, above the limit", len(envelope)))
+	}
+	var m pb.Event
+	if err := proto.Unmarshal(envelope, &m); err != nil {
+		return Signed{}, &Rejection{Reason: Malformed, Detail: "the event does not decode", Err: err}
+	}
+	return FromEnvelope(&m)
+}
+
+// FromEnvelope decodes a received envelope's body without verifying its
+// signature.
+func FromEnvelope(m *pb.Event) (Signed, error) {
+	if len(m.GetBody()) > MaxEventBytes {
+		return Signed{}, reject(Malformed, "body", fmt.Sprintf("the body is %d bytes, above the limit of %d", len(m.GetBody()), MaxEventBytes))
+	}
+	if len(m.GetSignature()) != ed25519.SignatureSize {
+		return Signed{}, reject(BadSignature, "signature", fmt.Sprintf("a signature is %d bytes, not %d", ed25519.SignatureSize, len(m.GetSignature())))
+	}
+	var b pb.EventBody
+	if err := proto.Unmarshal(m.GetBody(), &b); err != nil {
+		return Signed{}, &Rejection{Reason: Malformed, Field: "body", Detail: "the event body does not decode", Err: err}
+	}
+	e, err := FromProto(&b)
+	if err != nil {
+		return Signed{}, err
+	}
+	return Signed{Event: e, Body: m.GetBody(), Signature: m.GetSignature()}, nil
+}
+
+// KeyFunc returns a device's public key, and whether it is known.
+type KeyFunc func(device string) (ed25519.PublicKey, bool)
+
+// Open decodes an envelope, verifies its signature with the key keys gives
+// for its device, and validates it: what a replica does with every event it
+// receives. Errors are *Rejection values.
+func Open(m *pb.Event, keys KeyFunc) (Signed, error) {
+	s, err := FromEnvelope(m)
+	if err != nil {
+		return Signed{}, err
+	}
+	pub, ok := keys(s.Event.Device)
+	if !ok {
+		return Signed{}, reject(BadSignature, "device_id", "device "+s.Event.Device+" is not enrolled")
+	}
+	if err := s.Verify(pub); err != nil {
+		return Signed{}, err
+	}
+	if err := Validate(s.Event); err != nil {
+		return Signed{}, err
+	}
+	return s, nil
+}
