@@ -90,7 +90,9 @@ func (f *fixture) emit(name string, k Kind) Signed {
 
 func pcf(v float64) float64 { return v * soil.PoundPerCubicFoot }
 
-func pt(w, drypcf float64) soil.CurvePoint { return soil.CurvePoint{Moisture: w, DryDensity: pcf(drypcf)} }
+func pt(w, drypcf float64) soil.CurvePoint {
+	return soil.CurvePoint{Moisture: w, DryDensity: pcf(drypcf)}
+}
 
 func (f *fixture) setUp() *ProjectSetUp {
 	return &ProjectSetUp{Name: "Cedar Flats levee, reach 2", Units: soil.US, WaterDensity: soil.Water624, TimeZone: "America/Denver"}
@@ -103,8 +105,8 @@ func (f *fixture) spec() *SpecDefined {
 func (f *fixture) reference() *ReferenceAdded {
 	return &ReferenceAdded{ID: f.id(true), Material: "brown silty sand", LabSampleID: "L-104",
 		Procedure: soil.Procedure{Standard: soil.ASTMD698, Method: "A", Edition: 2012},
-		Points: []soil.CurvePoint{pt(9.5, 108.2), pt(11.6, 112.9), pt(13.4, 115.8), pt(15.1, 113.7), pt(17.0, 109.1)},
-		Gs:     2.66}
+		Points:    []soil.CurvePoint{pt(9.5, 108.2), pt(11.6, 112.9), pt(13.4, 115.8), pt(15.1, 113.7), pt(17.0, 109.1)},
+		Gs:        2.66}
 }
 
 // sandCone returns readings whose dry density is dry pcf at moisture w.

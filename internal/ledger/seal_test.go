@@ -1,0 +1,193 @@
+package ledger
+
+import (
+	"crypto/ed25519"
+	"errors"
+	"testing"
+	"time"
+
+	"google.golang.org/protobuf/proto"
+
+	pb "tamp/internal/gen/tamp/v1"
+)
+
+func TestSealOpen(t *testing.T) {
+	f := newFixture(t, 10)
+	s := f.emit("ann", f.test("", "", 110, 12))
+	got, err := Open(s.Proto(), f.keys)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if got.Event.ID != s.Event.ID || string(got.Body) != string(s.Body) {
+		t.Errorf("Open returned another event")
+	}
+	d, err := Decode(s.Bytes())
+	if err != nil || d.Event.ID != s.Event.ID {
+		t.Errorf("Decode(Bytes()) = %v, %v", d.Event.ID, err)
+	}
+}
+
+func TestForgedSignature(t *testing.T) {
+	f := newFixture(t, 11)
+	ann, bob := f.device("ann"), f.device("bob")
+	s := f.emit("ann", f.spec())
+	// Signed by another device's key but claiming ann's device.
+	forged := s
+	forged.Signature = ed25519.Sign(bob.key, signed(s.Body))
+	if _, err := Open(forged.Proto(), f.keys); ReasonOf(err) != BadSignature {
+		t.Errorf("signature by another device's key: %v, want bad_signature", err)
+	}
+	if err := s.Verify(ann.key.Public().(ed25519.PublicKey)); err != nil {
+		t.Errorf("genuine signature: %v", err)
+	}
+	if _, err := Open(s.Proto(), func(string) (ed25519.PublicKey, bool) { return nil, false }); ReasonOf(err) != BadSignature {
+		t.Errorf("unknown device: %v", err)
+	}
+	short := s.Proto()
+	short.Signature = short.Signature[:10]
+	if _, err := Open(short, f.keys); ReasonOf(err) != BadSignature {
+		t.Errorf("truncated signature: %v", err)
+	}
+}
+
+func TestEditedBodyDetected(t *testing.T) {
+	f := newFixture(t, 12)
+	test := f.test("", "", 110, 12)
+	s := f.emit("ann", test)
+	// Change the soil mass inside the signed body and re-encode it.
+	var b pb.EventBody
+	if err := proto.Unmarshal(s.Body, &b); err != nil {
+		t.Fatal(err)
+	}
+	b.GetTestRecorded().GetContent().GetReadings().GetSandCone().SoilMass *= 1.05
+	edited, err := deterministic.Marshal(&b)
+	if err != nil {
+		t.Fatal(err)
+	}
+	m := &pb.Event{Body: edited, Signature: s.Signature}
+	if _, err := Open(m, f.keys); ReasonOf(err) != BadSignature {
+		t.Errorf("edited body: %v, want bad_signature", err)
+	}
+	// In a chain, the edit breaks the link even if a signature were forged.
+	log := NewLog(f.project, 1)
+	e1 := log.Append(s.Bytes())
+	e1.Event = (&Signed{Body: edited, Signature: s.Signature}).Bytes()
+	if err := NewVerifier(Start(f.project, 1)).Verify([]Entry{e1}); !errors.Is(err, ErrChainBroken) {
+		t.Errorf("edited event in the chain: %v, want ErrChainBroken", err)
+	}
+}
+
+func TestMalformedAndUnknownKind(t *testing.T) {
+	if _, err := Decode([]byte{0xff, 0xff, 0xff}); ReasonOf(err) != Malformed {
+		t.Errorf("garbage: %v", err)
+	}
+	f := newFixture(t, 13)
+	d := f.device("ann")
+	body, _ := deterministic.Marshal(&pb.EventBody{EventId: f.id(true), ProjectId: f.project, AuthorId: d.user, DeviceId: d.id, DeviceSeq: 1,
+		Hlc: &pb.HybridTime{WallMicros: 1}})
+	m := &pb.Event{Body: body, Signature: ed25519.Sign(d.key, signed(body))}
+	if _, err := Open(m, f.keys); ReasonOf(err) != UnknownKind {
+		t.Errorf("no kind: %v", err)
+	}
+	// A body from a newer version: an unknown field number where the kind would be.
+	future := append(append([]byte{}, body...), 0xfa, 0x07, 0x00) // field 127, length-delimited, empty
+	m = &pb.Event{Body: future, Signature: ed25519.Sign(d.key, signed(future))}
+	if _, err := Open(m, f.keys); ReasonOf(err) != UnknownKind {
+		t.Errorf("unknown kind from a newer version: %v", err)
+	}
+}
+
+func TestChainVerification(t *testing.T) {
+	f := newFixture(t, 14)
+	log := NewLog(f.project, 3)
+	for range 10 {
+		log.Append(f.emit("ann", f.spec()).Bytes())
+	}
+	all := log.After(0, 0)
+	v := NewVerifier(Start(f.project, 3))
+	if err := v.Verify(all[:4]); err != nil {
+		t.Fatal(err)
+	}
+	if err := v.Verify(all[4:]); err != nil {
+		t.Fatal(err)
+	}
+	if v.At() != log.Head() {
+		t.Errorf("verified %+v, head %+v", v.At(), log.Head())
+	}
+
+	// Reordered.
+	swapped := []Entry{all[1], all[0]}
+	if err := NewVerifier(Start(f.project, 3)).Verify(swapped); !errors.Is(err, ErrChainGap) {
+		t.Errorf("reordered: %v", err)
+	}
+	// An entry left out.
+	if err := NewVerifier(Start(f.project, 3)).Verify([]Entry{all[0], all[2]}); !errors.Is(err, ErrChainGap) {
+		t.Errorf("gap: %v", err)
+	}
+	// Truncated: the server now holds 6 events, the device verified 10.
+	short := NewLog(f.project, 3)
+	for _, e := range all[:6] {
+		short.Append(e.Event)
+	}
+	if err := v.CheckHead(short.Head()); !errors.Is(err, ErrRolledBack) {
+		t.Errorf("truncated server: %v", err)
+	}
+	// Rolled-back epoch.
+	old := short.Head()
+	old.Epoch = 2
+	if err := v.CheckHead(old); !errors.Is(err, ErrEpochRolledBack) {
+		t.Errorf("older epoch: %v", err)
+	}
+	// Rewritten history: same length, other content.
+	rewritten := NewLog(f.project, 3)
+	for i, e := range all {
+		if i == 5 {
+			rewritten.Append(f.emit("mallory", f.spec()).Bytes())
+			continue
+		}
+		rewritten.Append(e.Event)
+	}
+	if err := v.CheckHead(rewritten.Head()); !errors.Is(err, ErrForked) {
+		t.Errorf("rewritten, same length: %v", err)
+	}
+	// Rewritten and extended: the anchor at the verified point differs, and
+	// the next entry does not link.
+	rewritten.Append(f.emit("ann", f.spec()).Bytes())
+	anchor := Checkpoint{Project: f.project, Epoch: 3, Seq: 10, Hash: rewritten.After(9, 1)[0].Hash}
+	if err := v.CheckAnchor(anchor); !errors.Is(err, ErrForked) {
+		t.Errorf("rewritten, extended, anchor: %v", err)
+	}
+	if err := v.Verify(rewritten.After(10, 0)); !errors.Is(err, ErrChainBroken) {
+		t.Errorf("rewritten, extended, next entry: %v", err)
+	}
+	if v.At() != log.Head() {
+		t.Error("a failed verification moved the verified point")
+	}
+	// Another project's chain cannot be spliced in.
+	if Genesis(f.project) == Genesis(newFixture(t, 15).project) {
+		t.Error("two projects share a genesis hash")
+	}
+}
+
+func TestClock(t *testing.T) {
+	f := newFixture(t, 16)
+	wall := f.wall
+	c := NewClock(func() time.Time { return wall }, HLC{})
+	a := c.Now()
+	b := c.Now()
+	if b.Compare(a) <= 0 {
+		t.Errorf("same wall time: %v then %v", a, b)
+	}
+	c.Observe(HLC{Wall: a.Wall + 5_000_000, Logical: 3})
+	d := c.Now()
+	if d.Compare(HLC{Wall: a.Wall + 5_000_000, Logical: 3}) <= 0 {
+		t.Errorf("after observing a clock ahead: %v", d)
+	}
+	wall = wall.Add(-time.Hour) // the device clock is set back
+	if e := c.Now(); e.Compare(d) <= 0 {
+		t.Errorf("clock set back: %v after %v", e, d)
+	}
+	if r := NewClock(func() time.Time { return wall }, c.Last()).Now(); r.Compare(c.Last()) <= 0 {
+		t.Error("a restarted clock ran backwards")
+	}
+}
