@@ -410,3 +410,10 @@ func contentFromProto(c *pb.TestContent) TestContent {
 	}
 	return out
 }
+
+// ResultsOf returns the results a device reports beside its readings.
+func ResultsOf(r qc.Result) *Results {
+	return &Results{WetDensity: r.WetDensity, DryDensity: r.DryDensity, Moisture: r.Moisture, MaxDryDensity: r.MaxDryDensity,
+		OptimumMoisture: r.OptimumMoisture, RelativeCompaction: r.RelativeCompaction, MoistureDeviation: r.MoistureDeviation,
+		Verdict: r.Verdict, Reasons: r.Reasons, Flags: r.Flags}
+}

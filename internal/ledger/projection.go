@@ -127,7 +127,7 @@ func (p *Projection) Apply(s Signed) (Outcome, error) {
 	held := s
 	p.events[e.ID] = &held
 	e = &held.Event
-	key := recordOf(e)
+	key := RecordID(e.Kind)
 	p.byRecord[key] = append(p.byRecord[key], e)
 	if tr, ok := e.Kind.(*TestRecorded); ok && tr.RetestOf != "" {
 		if p.retests[tr.RetestOf] == nil {
@@ -143,9 +143,10 @@ func (p *Projection) Apply(s Signed) (Outcome, error) {
 	return out, nil
 }
 
-// recordOf returns the id of the record an event is about.
-func recordOf(e *Event) string {
-	switch k := e.Kind.(type) {
+// RecordID returns the id of the record an event of kind k is about: the
+// spec, reference, equipment, test... ("" for the project set-up).
+func RecordID(k Kind) string {
+	switch k := k.(type) {
 	case *SpecDefined:
 		return k.ID
 	case *ReferenceAdded:

@@ -148,7 +148,7 @@ func (p *Projection) buildTest(evs []*Event) *Test {
 	if t == nil {
 		return nil
 	}
-	t.Day = t.DeviceTime.In(p.location()).Format(time.DateOnly)
+	t.Day = p.Day(t.DeviceTime)
 
 	// Attach corrections whose base is held; repeat until none attaches, so
 	// the result does not depend on the order corrections arrived in.
@@ -249,76 +249,100 @@ func (p *Projection) units() soil.System {
 	return soil.SI
 }
 
-// grade recomputes a test's results from its current revision's readings,
-// against the reference and spec that revision names.
-func (p *Projection) grade(t *Test) {
-	c := t.Content
-	var missing []string
+// Assessment is the grade of one revision's content: the recomputed result,
+// the review flags it raises, the records it names that are not held, and
+// the arithmetic's steps.
+type Assessment struct {
+	Result  qc.Result
+	Flags   []qc.Finding
+	Missing []string
+	Steps   []soil.Step
+}
+
+// Assess grades test content as this projection would: against the
+// reference and spec it names, on day (YYYY-MM-DD, for the gauge checks),
+// as a retest of retestOf when that is set. A device calls it to show a
+// result before it records the test.
+func (p *Projection) Assess(c TestContent, day, retestOf string) Assessment {
+	var a Assessment
+	flag := func(code, msg string) { a.Flags = append(a.Flags, qc.Finding{Code: code, Message: msg}) }
 	var corr *soil.MoistureCorrection
 	if n := c.Readings.Nuclear; n != nil && n.CorrectionID != "" {
 		if k, ok := p.corrections[n.CorrectionID]; ok {
 			corr = &k.Correction
 		} else {
-			missing = append(missing, n.CorrectionID)
+			a.Missing = append(a.Missing, n.CorrectionID)
 		}
 	}
 	inplace, err := c.Readings.Compute(corr)
 	if err != nil {
-		t.Result = qc.Result{Verdict: qc.Pending}
-		t.flag(CannotGrade, err.Error())
-		return
+		a.Result = qc.Result{Verdict: qc.Pending}
+		flag(CannotGrade, err.Error())
+		return a
 	}
+	a.Steps = inplace.Steps
 	in := qc.Input{Test: inplace, Water: p.water(), Units: p.units(), LiftThickness: c.LiftThickness, Oversize: c.Oversize}
 	ref, refOK := p.refs[c.ReferenceID]
 	if refOK {
 		in.Reference, in.Gs = ref.qc(), ref.Gs
 	} else if c.ReferenceID != "" {
-		missing = append(missing, c.ReferenceID)
+		a.Missing = append(a.Missing, c.ReferenceID)
 	}
 	spec, specOK := p.specs[c.SpecID]
 	if specOK {
 		in.Spec = spec.QC()
 	} else if c.SpecID != "" {
-		missing = append(missing, c.SpecID)
+		a.Missing = append(a.Missing, c.SpecID)
 	}
 	res, err := qc.Grade(in)
 	if err != nil {
 		in.Reference, in.Oversize = qc.Reference{}, nil
 		res, _ = qc.Grade(in)
-		t.flag(CannotGrade, err.Error())
+		flag(CannotGrade, err.Error())
 	}
-	if !refOK || !specOK || len(missing) > 0 {
+	if !refOK || !specOK || len(a.Missing) > 0 {
 		res.Verdict, res.Reasons = qc.Pending, nil
 	}
-	t.Result = res
+	a.Result = res
 
 	if c.EquipmentID != "" {
 		if eq, ok := p.equipment[c.EquipmentID]; !ok {
-			missing = append(missing, c.EquipmentID)
+			a.Missing = append(a.Missing, c.EquipmentID)
 		} else if eq.Kind == NuclearGauge {
-			if eq.CalibrationLapsedOn(t.Day) {
-				t.flag(GaugeCalibrationLapsed, fmt.Sprintf("gauge %s's calibration was due %s, before the test on %s", eq.SerialNumber, eq.CalibrationDue, t.Day))
+			if eq.CalibrationLapsedOn(day) {
+				flag(GaugeCalibrationLapsed, fmt.Sprintf("gauge %s's calibration was due %s, before the test on %s", eq.SerialNumber, eq.CalibrationDue, day))
 			}
-			if !eq.CountAcceptedOn(t.Day) {
-				t.flag(NoStandardCount, fmt.Sprintf("no accepted standard count of gauge %s is recorded for %s", eq.SerialNumber, t.Day))
+			if !eq.CountAcceptedOn(day) {
+				flag(NoStandardCount, fmt.Sprintf("no accepted standard count of gauge %s is recorded for %s", eq.SerialNumber, day))
 			}
 		}
 	}
 	if c.PlacementID != "" {
 		if _, ok := p.placements[c.PlacementID]; !ok {
-			missing = append(missing, c.PlacementID)
+			a.Missing = append(a.Missing, c.PlacementID)
 		}
 	}
-	if t.RetestOf != "" {
-		if orig, ok := p.tests[t.RetestOf]; !ok {
-			missing = append(missing, t.RetestOf)
+	if retestOf != "" {
+		if orig, ok := p.tests[retestOf]; !ok {
+			a.Missing = append(a.Missing, retestOf)
 		} else if orig.Result.Verdict == qc.Pass {
-			t.flag(RetestOfPassingTest, fmt.Sprintf("test %s, which this retests, passed", t.RetestOf))
+			flag(RetestOfPassingTest, fmt.Sprintf("test %s, which this retests, passed", retestOf))
 		}
 	}
-	t.Missing = missing
-	if d := c.DeviceResults; d != nil {
-		if msg := mismatch(d, &res); msg != "" {
+	return a
+}
+
+// Day returns the date (YYYY-MM-DD) of t in the project's time zone.
+func (p *Projection) Day(t time.Time) string { return t.In(p.location()).Format(time.DateOnly) }
+
+// grade recomputes a test's results from its current revision's readings
+// and flags a device result that disagrees.
+func (p *Projection) grade(t *Test) {
+	a := p.Assess(t.Content, t.Day, t.RetestOf)
+	t.Result, t.Missing = a.Result, a.Missing
+	t.Flags = append(t.Flags, a.Flags...)
+	if d := t.Content.DeviceResults; d != nil {
+		if msg := mismatch(d, &a.Result); msg != "" {
 			t.flag(DeviceResultMismatch, msg)
 		}
 	}

@@ -1,0 +1,161 @@
+package client
+
+import (
+	"context"
+	"fmt"
+	"slices"
+	"time"
+
+	"tamp/internal/ledger"
+	"tamp/internal/qc"
+)
+
+// Test returns a test with its whole history: every revision, voids and
+// reviews.
+func (s *Store) Test(project, testID string) (*ledger.Test, error) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	t, ok := s.view(project).Test(testID)
+	if !ok {
+		return nil, fmt.Errorf("client: test %s: %w", testID, ErrNotFound)
+	}
+	return t, nil
+}
+
+// TestsOn returns the tests taken on day (YYYY-MM-DD, the project's time
+// zone), in the order they were taken.
+func (s *Store) TestsOn(project, day string) []*ledger.Test {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	var out []*ledger.Test
+	for _, t := range s.view(project).Tests() {
+		if t.Day == day {
+			out = append(out, t)
+		}
+	}
+	slices.SortFunc(out, func(a, b *ledger.Test) int { return a.HLC.Compare(b.HLC) })
+	return out
+}
+
+// Today returns the tests taken today.
+func (s *Store) Today(project string) []*ledger.Test {
+	s.mu.Lock()
+	day := s.view(project).Day(s.now())
+	s.mu.Unlock()
+	return s.TestsOn(project, day)
+}
+
+// OpenFailures returns the failing tests that still need a retest: failing,
+// not voided, and with no retest that has been graded (a retest that failed
+// is itself listed; a retest that passed closes the failure). Oldest first.
+func (s *Store) OpenFailures(project string) []*ledger.Test {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	v := s.view(project)
+	var out []*ledger.Test
+	for _, t := range v.Tests() {
+		if t.Result.Verdict != qc.Fail || t.Voided() {
+			continue
+		}
+		closed := false
+		for _, id := range v.RetestsOf(t.ID) {
+			r, _ := v.Test(id)
+			if !r.Voided() && (r.Result.Verdict == qc.Pass || r.Result.Verdict == qc.Fail) {
+				closed = true
+			}
+		}
+		if !closed {
+			out = append(out, t)
+		}
+	}
+	slices.SortFunc(out, func(a, b *ledger.Test) int { return a.HLC.Compare(b.HLC) })
+	return out
+}
+
+// Outbox is the state of the device's unsent entries.
+type Outbox struct {
+	Pending int       // entries not yet accepted by the server
+	Oldest  time.Time // when the oldest was made; zero when none
+}
+
+// Age returns how long the oldest pending entry has waited at now.
+func (o Outbox) Age(now time.Time) time.Duration {
+	if o.Pending == 0 {
+		return 0
+	}
+	return now.Sub(o.Oldest)
+}
+
+// Outbox returns the count and age of the entries not yet accepted.
+func (s *Store) Outbox(ctx context.Context) (Outbox, error) {
+	var o Outbox
+	var oldest *int64
+	err := s.db.Reader().QueryRowContext(ctx, `SELECT COUNT(*), MIN(created_micros) FROM events
+		WHERE origin = 'local' AND status IN ('pending', 'waiting')`).Scan(&o.Pending, &oldest)
+	if err != nil {
+		return Outbox{}, fmt.Errorf("client: outbox: %w", err)
+	}
+	if oldest != nil {
+		o.Oldest = time.UnixMicro(*oldest).UTC()
+	}
+	return o, nil
+}
+
+// Rejected is an entry the server refused, kept for the user.
+type Rejected struct {
+	EventID  string
+	Project  string
+	Kind     string
+	RecordID string // the test, spec... it concerns
+	Reason   string // machine-readable reason
+	Message  string // the server's words
+	Created  time.Time
+}
+
+// Rejected returns the entries the server refused that the user has not
+// discarded, oldest first.
+func (s *Store) Rejected(ctx context.Context) ([]Rejected, error) {
+	rows, err := s.db.Reader().QueryContext(ctx, `SELECT event_id, project_id, kind, record_id, reason, message, created_micros
+		FROM events WHERE origin = 'local' AND status = 'rejected' ORDER BY created_micros, event_id`)
+	if err != nil {
+		return nil, fmt.Errorf("client: rejected: %w", err)
+	}
+	defer rows.Close()
+	var out []Rejected
+	for rows.Next() {
+		var r Rejected
+		var created int64
+		if err := rows.Scan(&r.EventID, &r.Project, &r.Kind, &r.RecordID, &r.Reason, &r.Message, &created); err != nil {
+			return nil, fmt.Errorf("client: rejected: %w", err)
+		}
+		r.Created = time.UnixMicro(created).UTC()
+		out = append(out, r)
+	}
+	return out, rows.Err()
+}
+
+// Discard sets aside a rejected entry once the user has dealt with it. The
+// entry stays in the store, marked discarded. It returns ErrNotRejected for
+// an entry that was not rejected.
+func (s *Store) Discard(ctx context.Context, eventID string) error {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	res, err := s.db.Writer().ExecContext(ctx, `UPDATE events SET status = 'discarded' WHERE event_id = ? AND status = 'rejected'`, eventID)
+	if err != nil {
+		return fmt.Errorf("client: discard %s: %w", eventID, err)
+	}
+	if n, _ := res.RowsAffected(); n == 0 {
+		return fmt.Errorf("client: discard %s: %w", eventID, ErrNotRejected)
+	}
+	return nil
+}
+
+// markRejected records the server's refusal of a local entry and rebuilds
+// the views without it. Call with s.mu held.
+func (s *Store) markRejected(ctx context.Context, eventID, reason, message string) error {
+	if _, err := s.db.Writer().ExecContext(ctx, `UPDATE events SET status = 'rejected', reason = ?, message = ? WHERE event_id = ? AND origin = 'local'`,
+		reason, message, eventID); err != nil {
+		return fmt.Errorf("client: mark %s rejected: %w", eventID, err)
+	}
+	return s.loadViews(ctx)
+}

@@ -1,0 +1,276 @@
+package client
+
+import (
+	"context"
+	"crypto/ed25519"
+	"crypto/rand"
+	"database/sql"
+	"embed"
+	"errors"
+	"fmt"
+	"io"
+	"io/fs"
+	"slices"
+	"sync"
+	"time"
+
+	"github.com/google/uuid"
+
+	pb "tamp/internal/gen/tamp/v1"
+	"tamp/internal/ledger"
+	"tamp/internal/sqlite"
+)
+
+//go:embed migrations/*.sql
+var migrationFiles embed.FS
+
+func sub(f embed.FS) fs.FS {
+	m, err := fs.Sub(f, "migrations")
+	if err != nil {
+		panic(err) // the directory is embedded above
+	}
+	return m
+}
+
+// Options configure Open.
+type Options struct {
+	// User is the user entries are signed for. It is kept in the store;
+	// empty keeps the one stored.
+	User string
+	// Synchronous is the store's durability: sqlite.Full (the default)
+	// survives power loss, which field devices suffer; sqlite.Normal is
+	// faster and survives a crash of the program but not of the power.
+	Synchronous sqlite.Synchronous
+	// Now is the clock (time.Now when nil); Rand the source of keys and ids
+	// (crypto/rand when nil). Tests pin both.
+	Now  func() time.Time
+	Rand io.Reader
+}
+
+// Store is a device's local store: its identity, every event it holds, and
+// the project views computed from them. It is safe for concurrent use.
+type Store struct {
+	db   *sqlite.DB
+	now  func() time.Time
+	rand io.Reader
+
+	mu       sync.Mutex
+	closed   bool
+	deviceID string
+	key      ed25519.PrivateKey
+	user     string
+	seq      uint64
+	clock    *ledger.Clock
+	views    map[string]*ledger.Projection
+}
+
+// Open opens the store at path, creating it (and the device's key) on first
+// use, migrating its schema, and rebuilding the project views from its
+// events.
+func Open(ctx context.Context, path string, opts Options) (*Store, error) {
+	s := &Store{now: opts.Now, rand: opts.Rand, views: map[string]*ledger.Projection{}}
+	if s.now == nil {
+		s.now = time.Now
+	}
+	if s.rand == nil {
+		s.rand = rand.Reader
+	}
+	db, err := sqlite.Open(ctx, path, sqlite.Options{Synchronous: opts.Synchronous}, sub(migrationFiles))
+	if err != nil {
+		return nil, fmt.Errorf("client: open: %w", err)
+	}
+	s.db = db
+	if err := s.loadIdentity(ctx, opts.User); err != nil {
+		db.Close()
+		return nil, err
+	}
+	if err := s.loadViews(ctx); err != nil {
+		db.Close()
+		return nil, err
+	}
+	return s, nil
+}
+
+// Close closes the store.
+func (s *Store) Close() error {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	if s.closed {
+		return nil
+	}
+	s.closed = true
+	return s.db.Close()
+}
+
+// DeviceID returns the device's id.
+func (s *Store) DeviceID() string { return s.deviceID }
+
+// PublicKey returns the device's Ed25519 public key, which the server
+// registers at enrolment.
+func (s *Store) PublicKey() ed25519.PublicKey { return s.key.Public().(ed25519.PublicKey) }
+
+// User returns the user entries are signed for.
+func (s *Store) User() string {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.user
+}
+
+func (s *Store) loadIdentity(ctx context.Context, user string) error {
+	var seed []byte
+	var wall int64
+	var logical uint32
+	err := s.db.Writer().QueryRowContext(ctx, `SELECT device_id, private_key, user_id, last_seq, hlc_wall, hlc_logical FROM device WHERE id = 1`).
+		Scan(&s.deviceID, &seed, &s.user, &s.seq, &wall, &logical)
+	switch {
+	case errors.Is(err, sql.ErrNoRows):
+		seed = make([]byte, ed25519.SeedSize)
+		if _, err := io.ReadFull(s.rand, seed); err != nil {
+			return fmt.Errorf("client: generate device key: %w", err)
+		}
+		id, err := uuid.NewV7FromReader(s.rand)
+		if err != nil {
+			return fmt.Errorf("client: generate device id: %w", err)
+		}
+		s.deviceID, s.user = id.String(), user
+		if _, err := s.db.Writer().ExecContext(ctx, `INSERT INTO device (id, device_id, private_key, user_id, last_seq, hlc_wall, hlc_logical)
+			VALUES (1, ?, ?, ?, 0, 0, 0)`, s.deviceID, seed, s.user); err != nil {
+			return fmt.Errorf("client: store device identity: %w", err)
+		}
+	case err != nil:
+		return fmt.Errorf("client: load device identity: %w", err)
+	case user != "" && user != s.user:
+		if _, err := s.db.Writer().ExecContext(ctx, `UPDATE device SET user_id = ? WHERE id = 1`, user); err != nil {
+			return fmt.Errorf("client: set user: %w", err)
+		}
+		s.user = user
+	}
+	if len(seed) != ed25519.SeedSize {
+		return fmt.Errorf("client: the stored device key is %d bytes, not %d", len(seed), ed25519.SeedSize)
+	}
+	s.key = ed25519.NewKeyFromSeed(seed)
+	s.clock = ledger.NewClock(s.now, ledger.HLC{Wall: wall, Logical: logical})
+	return nil
+}
+
+// loadViews rebuilds every project's view from the events held, leaving out
+// events the server rejected and those the user discarded.
+func (s *Store) loadViews(ctx context.Context) error {
+	rows, err := s.db.Reader().QueryContext(ctx, `SELECT body, signature FROM events
+		WHERE status NOT IN ('rejected', 'discarded') ORDER BY hlc_wall, hlc_logical, device_id, event_id`)
+	if err != nil {
+		return fmt.Errorf("client: load events: %w", err)
+	}
+	defer rows.Close()
+	views := map[string]*ledger.Projection{}
+	for rows.Next() {
+		var body, sig []byte
+		if err := rows.Scan(&body, &sig); err != nil {
+			return fmt.Errorf("client: load events: %w", err)
+		}
+		sg, err := ledger.FromEnvelope(&pb.Event{Body: body, Signature: sig})
+		if err != nil {
+			return fmt.Errorf("client: stored event does not decode: %w", err)
+		}
+		if sg.Event.Device == s.deviceID {
+			if err := sg.Verify(s.PublicKey()); err != nil {
+				return fmt.Errorf("client: stored event %s: %w", sg.Event.ID, err)
+			}
+		}
+		v := views[sg.Event.Project]
+		if v == nil {
+			v = ledger.NewProjection(sg.Event.Project)
+			views[sg.Event.Project] = v
+		}
+		if _, err := v.Apply(sg); err != nil {
+			return fmt.Errorf("client: stored event %s: %w", sg.Event.ID, err)
+		}
+		s.clock.Observe(sg.Event.HLC)
+	}
+	if err := rows.Err(); err != nil {
+		return fmt.Errorf("client: load events: %w", err)
+	}
+	s.views = views
+	return nil
+}
+
+// view returns a project's view, creating an empty one. Call with s.mu held.
+func (s *Store) view(project string) *ledger.Projection {
+	v := s.views[project]
+	if v == nil {
+		v = ledger.NewProjection(project)
+		s.views[project] = v
+	}
+	return v
+}
+
+// Projects returns the ids of the projects the device holds events of.
+func (s *Store) Projects() []string {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	var out []string
+	for id, v := range s.views {
+		if v.Len() > 0 {
+			out = append(out, id)
+		}
+	}
+	slices.Sort(out)
+	return out
+}
+
+// NewID returns a new UUIDv7 for a record the caller is about to create.
+func (s *Store) NewID() string {
+	id, err := uuid.NewV7FromReader(s.rand)
+	if err != nil {
+		panic(fmt.Sprintf("client: new id: %v", err)) // the reader failed: nothing sound can follow
+	}
+	return id.String()
+}
+
+// Record signs and stores one event of kind k on project, in one
+// transaction with the device's counters, and applies it to the project's
+// view. It is the primitive under the test methods, and records every other
+// kind (a spec, a reference, a placement). A kind that breaks a rule gets an
+// error wrapping ErrInvalid and a *ledger.Rejection naming the field.
+func (s *Store) Record(ctx context.Context, project string, k ledger.Kind) (ledger.Signed, ledger.Outcome, error) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.record(ctx, project, k)
+}
+
+func (s *Store) record(ctx context.Context, project string, k ledger.Kind) (ledger.Signed, ledger.Outcome, error) {
+	if s.closed {
+		return ledger.Signed{}, ledger.Outcome{}, ErrClosed
+	}
+	if s.user == "" {
+		return ledger.Signed{}, ledger.Outcome{}, ErrNoUser
+	}
+	now := s.now().UTC().Truncate(time.Microsecond)
+	e := ledger.Event{ID: s.NewID(), Project: project, Author: s.user, Device: s.deviceID, DeviceSeq: s.seq + 1,
+		HLC: s.clock.Now(), DeviceTime: now, Kind: k}
+	signed, err := ledger.Seal(e, s.key)
+	if err != nil {
+		return ledger.Signed{}, ledger.Outcome{}, fmt.Errorf("%w: %w", ErrInvalid, err)
+	}
+	err = s.db.Tx(ctx, func(tx *sql.Tx) error {
+		if _, err := tx.ExecContext(ctx, `INSERT INTO events (event_id, project_id, device_id, device_seq, kind, record_id,
+			hlc_wall, hlc_logical, body, signature, origin, status, created_micros)
+			VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 'local', 'pending', ?)`,
+			e.ID, project, s.deviceID, e.DeviceSeq, k.KindName(), ledger.RecordID(k), e.HLC.Wall, e.HLC.Logical,
+			signed.Body, signed.Signature, now.UnixMicro()); err != nil {
+			return err
+		}
+		_, err := tx.ExecContext(ctx, `UPDATE device SET last_seq = ?, hlc_wall = ?, hlc_logical = ? WHERE id = 1`,
+			e.DeviceSeq, e.HLC.Wall, e.HLC.Logical)
+		return err
+	})
+	if err != nil {
+		return ledger.Signed{}, ledger.Outcome{}, fmt.Errorf("client: record %s: %w", k.KindName(), err)
+	}
+	s.seq = e.DeviceSeq
+	out, err := s.view(project).Apply(signed)
+	if err != nil { // Seal validated it and its id is new: this is a bug, and the event is stored
+		return signed, out, fmt.Errorf("client: apply %s: %w", e.ID, err)
+	}
+	return signed, out, nil
+}

@@ -1,0 +1,314 @@
+package client
+
+import (
+	"context"
+	"errors"
+	"math/rand/v2"
+	"path/filepath"
+	"testing"
+	"time"
+
+	"tamp/internal/ledger"
+	"tamp/internal/qc"
+	"tamp/internal/soil"
+)
+
+// clock is a settable test clock.
+type clock struct{ t time.Time }
+
+func (c *clock) now() time.Time { return c.t }
+
+type seeded struct{ r *rand.ChaCha8 }
+
+func (s seeded) Read(p []byte) (int, error) { return s.r.Read(p) }
+
+func newSeeded(seed byte) seeded {
+	var k [32]byte
+	k[0] = seed
+	return seeded{rand.NewChaCha8(k)}
+}
+
+type env struct {
+	t       *testing.T
+	path    string
+	clock   *clock
+	store   *Store
+	project string
+	spec    string
+	ref     string
+	mdd     float64 // pcf
+	omc     float64
+}
+
+func pcf(v float64) float64 { return v * soil.PoundPerCubicFoot }
+
+// newEnv opens a store on a temporary file with a project, a spec and a
+// reference, as a device holds them after its first sync.
+func newEnv(t *testing.T, user string) *env {
+	t.Helper()
+	e := &env{t: t, path: filepath.Join(t.TempDir(), "device.db"),
+		clock: &clock{time.Date(2026, 9, 14, 13, 30, 0, 0, time.UTC)}}
+	e.open(user)
+	e.project = e.store.NewID()
+	ctx := context.Background()
+	e.rec(&ledger.ProjectSetUp{Name: "Juniper Wash detention basin", Units: soil.US, WaterDensity: soil.Water624, TimeZone: "America/Denver"})
+	e.spec, e.ref = e.store.NewID(), e.store.NewID()
+	e.rec(&ledger.SpecDefined{ID: e.spec, Name: "basin embankment", MinCompaction: "95", MoistureLow: "-2", MoistureHigh: "2"})
+	e.rec(&ledger.ReferenceAdded{ID: e.ref, Material: "tan clayey sand", Procedure: soil.Procedure{Standard: soil.ASTMD698, Method: "A", Edition: 2012},
+		MaxDryDensity: pcf(116.0), OptimumMoisture: 13.5})
+	e.mdd, e.omc = 116.0, 13.5
+	_ = ctx
+	return e
+}
+
+func (e *env) open(user string) {
+	e.t.Helper()
+	s, err := Open(context.Background(), e.path, Options{User: user, Now: e.clock.now, Rand: newSeeded(7)})
+	if err != nil {
+		e.t.Fatal(err)
+	}
+	e.store = s
+	e.t.Cleanup(func() { s.Close() })
+}
+
+func (e *env) rec(k ledger.Kind) ledger.Signed {
+	e.t.Helper()
+	e.clock.t = e.clock.t.Add(time.Minute)
+	s, _, err := e.store.Record(context.Background(), e.project, k)
+	if err != nil {
+		e.t.Fatal(err)
+	}
+	return s
+}
+
+// sandCone gives readings of dry density dry pcf at moisture w.
+func sandCone(dry, w float64) ledger.Readings {
+	sd := pcf(99.0)
+	used, cone := 7.00*soil.Pound, 0.53*soil.Pound
+	vol := (used - cone) / sd
+	return ledger.Readings{SandCone: &soil.SandCone{SandDensity: sd, SandUsed: used, ConeCorrection: cone,
+		SoilMass: pcf(dry) * (1 + w/100) * vol, Moisture: w}}
+}
+
+func (e *env) test(dry, w float64) TestResult {
+	e.t.Helper()
+	e.clock.t = e.clock.t.Add(20 * time.Minute)
+	r, err := e.store.RecordTest(context.Background(), TestInput{Project: e.project, Readings: sandCone(dry, w),
+		ReferenceID: e.ref, SpecID: e.spec, Feature: "embankment", LiftNumber: 6, LiftThickness: 8 * soil.Inch,
+		Location: ledger.Location{Station: 410 * soil.Foot, Offset: 15 * soil.Foot}})
+	if err != nil {
+		e.t.Fatal(err)
+	}
+	return r
+}
+
+func TestRecordTestResultAtOnce(t *testing.T) {
+	e := newEnv(t, "ines")
+	r := e.test(111.6, 12.0) // C1: RC 96.2 %, -1.5 points -> pass
+	if r.Result.Verdict != qc.Pass {
+		t.Fatalf("verdict = %v %v", r.Result.Verdict, r.Result.Reasons)
+	}
+	if got := r.Result.RelativeCompaction; got < 96.15 || got > 96.25 {
+		t.Errorf("RC = %v, want 96.2 (C1)", got)
+	}
+	if len(r.Steps) == 0 {
+		t.Error("no arithmetic steps returned")
+	}
+	tt, err := e.store.Test(e.project, r.TestID)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if tt.Content.DeviceResults == nil || tt.Content.DeviceResults.Verdict != qc.Pass || hasFlag(tt.Flags, ledger.DeviceResultMismatch) {
+		t.Errorf("device results travel with the test and agree: %+v flags %v", tt.Content.DeviceResults, tt.Flags)
+	}
+}
+
+func hasFlag(fs []qc.Finding, code string) bool {
+	for _, f := range fs {
+		if f.Code == code {
+			return true
+		}
+	}
+	return false
+}
+
+func TestPendingUntilReferenceArrives(t *testing.T) {
+	e := newEnv(t, "ines")
+	ref := e.store.NewID()
+	r, err := e.store.RecordTest(context.Background(), TestInput{Project: e.project, Readings: sandCone(110, 12), ReferenceID: ref, SpecID: e.spec})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if r.Result.Verdict != qc.Pending || len(r.Missing) != 1 || r.Missing[0] != ref {
+		t.Fatalf("without its reference: %v, missing %v", r.Result.Verdict, r.Missing)
+	}
+	e.rec(&ledger.ReferenceAdded{ID: ref, Material: "new borrow", Procedure: soil.Procedure{Standard: soil.ASTMD698, Method: "A"},
+		MaxDryDensity: pcf(118), OptimumMoisture: 12.5})
+	tt, _ := e.store.Test(e.project, r.TestID)
+	if tt.Result.Verdict != qc.Fail { // 110 / 118 = 93.2 %
+		t.Errorf("after the reference arrived: %v", tt.Result.Verdict)
+	}
+}
+
+func TestCorrectVoidRetestRules(t *testing.T) {
+	e := newEnv(t, "ines")
+	ctx := context.Background()
+	pass := e.test(112, 13)
+	fail := e.test(104, 13)
+	if fail.Result.Verdict != qc.Fail {
+		t.Fatalf("104 pcf: %v", fail.Result.Verdict)
+	}
+	if _, err := e.store.CorrectTest(ctx, e.project, fail.TestID, " ", func(*ledger.TestContent) {}); !errors.Is(err, ErrReasonRequired) {
+		t.Errorf("correction without a reason: %v", err)
+	}
+	if err := e.store.VoidTest(ctx, e.project, fail.TestID, ""); !errors.Is(err, ErrReasonRequired) {
+		t.Errorf("void without a reason: %v", err)
+	}
+	if _, err := e.store.RecordRetest(ctx, e.project, pass.TestID, RetestInput{Readings: sandCone(113, 13)}); !errors.Is(err, ErrNotFailing) {
+		t.Errorf("retest of a passing test: %v", err)
+	}
+	if _, err := e.store.CorrectTest(ctx, e.project, e.store.NewID(), "x", func(*ledger.TestContent) {}); !errors.Is(err, ErrNotFound) {
+		t.Errorf("correction of an unknown test: %v", err)
+	}
+	// Another user on the same device may not edit ines's test.
+	e.store.Close()
+	e.open("omar")
+	if _, err := e.store.CorrectTest(ctx, e.project, fail.TestID, "typo", func(*ledger.TestContent) {}); !errors.Is(err, ErrNotAuthor) {
+		t.Errorf("correction by another user: %v", err)
+	}
+	if err := e.store.VoidTest(ctx, e.project, fail.TestID, "not mine"); !errors.Is(err, ErrNotAuthor) {
+		t.Errorf("void by another user: %v", err)
+	}
+	e.store.Close()
+	e.open("ines")
+	if err := e.store.VoidTest(ctx, e.project, pass.TestID, "tested the wrong lift"); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := e.store.CorrectTest(ctx, e.project, pass.TestID, "typo", func(*ledger.TestContent) {}); !errors.Is(err, ErrVoided) {
+		t.Errorf("correction of a voided test: %v", err)
+	}
+	bad, err := e.store.CorrectTest(ctx, e.project, fail.TestID, "soil mass", func(c *ledger.TestContent) { c.Readings.SandCone.SoilMass = -2 })
+	var rej *ledger.Rejection
+	if !errors.Is(err, ErrInvalid) || !errors.As(err, &rej) || rej.Field != "readings.soil_mass" {
+		t.Errorf("impossible correction: %+v %v", bad, err)
+	}
+	tt, _ := e.store.Test(e.project, fail.TestID)
+	if len(tt.Revisions) != 1 {
+		t.Errorf("a refused correction left %d revisions", len(tt.Revisions))
+	}
+}
+
+func TestOutboxAndRejected(t *testing.T) {
+	e := newEnv(t, "ines")
+	ctx := context.Background()
+	start := e.clock.t
+	r := e.test(112, 13)
+	o, err := e.store.Outbox(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if o.Pending != 4 || !o.Oldest.Equal(start.Add(-2*time.Minute)) {
+		t.Errorf("outbox = %+v, want 4 entries, oldest at %v", o, start.Add(-2*time.Minute))
+	}
+	if age := o.Age(e.clock.t); age != 22*time.Minute {
+		t.Errorf("age = %v", age)
+	}
+	ev, _ := e.store.Test(e.project, r.TestID)
+	e.store.mu.Lock()
+	err = e.store.markRejected(ctx, ev.Current, "permission_denied", "inspector is not a member of this project")
+	e.store.mu.Unlock()
+	if err != nil {
+		t.Fatal(err)
+	}
+	rs, err := e.store.Rejected(ctx)
+	if err != nil || len(rs) != 1 || rs[0].RecordID != r.TestID || rs[0].Reason != "permission_denied" {
+		t.Fatalf("rejected = %+v, %v", rs, err)
+	}
+	if _, err := e.store.Test(e.project, r.TestID); !errors.Is(err, ErrNotFound) {
+		t.Errorf("a rejected test still shows in the view: %v", err)
+	}
+	// It survives a restart.
+	e.store.Close()
+	e.open("")
+	rs, _ = e.store.Rejected(ctx)
+	if len(rs) != 1 {
+		t.Fatalf("after reopening: %d rejected", len(rs))
+	}
+	if err := e.store.Discard(ctx, rs[0].EventID); err != nil {
+		t.Fatal(err)
+	}
+	if err := e.store.Discard(ctx, rs[0].EventID); !errors.Is(err, ErrNotRejected) {
+		t.Errorf("second discard: %v", err)
+	}
+	if rs, _ := e.store.Rejected(ctx); len(rs) != 0 {
+		t.Errorf("after discard: %+v", rs)
+	}
+}
+
+func TestIdentityAndCountersPersist(t *testing.T) {
+	e := newEnv(t, "ines")
+	id, key := e.store.DeviceID(), e.store.PublicKey()
+	a := e.rec(&ledger.TestVoided{TestID: e.store.NewID(), Reason: "x"})
+	e.store.Close()
+	e.clock.t = e.clock.t.Add(-time.Hour) // the device clock is set back
+	e.open("")
+	if e.store.DeviceID() != id || !e.store.PublicKey().Equal(key) || e.store.User() != "ines" {
+		t.Fatal("identity changed across reopen")
+	}
+	b := e.rec(&ledger.TestVoided{TestID: e.store.NewID(), Reason: "y"})
+	if b.Event.DeviceSeq != a.Event.DeviceSeq+1 {
+		t.Errorf("device seq %d after %d", b.Event.DeviceSeq, a.Event.DeviceSeq)
+	}
+	if b.Event.HLC.Compare(a.Event.HLC) <= 0 {
+		t.Errorf("hybrid time ran backwards across a restart: %v after %v", b.Event.HLC, a.Event.HLC)
+	}
+}
+
+func TestMultipleProjects(t *testing.T) {
+	e := newEnv(t, "ines")
+	other := e.store.NewID()
+	if _, _, err := e.store.Record(context.Background(), other, &ledger.ProjectSetUp{Name: "Ridge Road widening", Units: soil.SI}); err != nil {
+		t.Fatal(err)
+	}
+	e.test(112, 13)
+	if ps := e.store.Projects(); len(ps) != 2 {
+		t.Errorf("projects = %v", ps)
+	}
+	if n := len(e.store.Today(other)); n != 0 {
+		t.Errorf("the other project shows %d tests", n)
+	}
+	if n := len(e.store.Today(e.project)); n != 1 {
+		t.Errorf("today = %d tests", n)
+	}
+}
+
+func TestEquipmentChecks(t *testing.T) {
+	e := newEnv(t, "ines")
+	ctx := context.Background()
+	gauge := e.store.NewID()
+	e.rec(&ledger.EquipmentRegistered{ID: gauge, Kind: ledger.NuclearGauge, Model: "MD-9", SerialNumber: "G-4410", CalibrationDue: "2026-09-01"})
+	nuclear := ledger.Readings{Nuclear: &ledger.NuclearReadings{ProbeDepth: 6 * soil.Inch, OvenMoisture: ptr(13.0),
+		Counts: []soil.NuclearReading{{WetDensity: pcf(126.5), WaterPerVolume: pcf(14.1)}}}}
+	in := TestInput{Project: e.project, Readings: nuclear, ReferenceID: e.ref, SpecID: e.spec, EquipmentID: gauge, LiftThickness: 8 * soil.Inch}
+	r, err := e.store.RecordTest(ctx, in)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !hasFlag(r.Flags, ledger.GaugeCalibrationLapsed) || !hasFlag(r.Flags, ledger.NoStandardCount) {
+		t.Errorf("lapsed gauge without a count: flags %v", r.Flags)
+	}
+	day := "2026-09-14"
+	if err := e.store.RecordStandardCount(ctx, e.project, ledger.StandardCountRecorded{EquipmentID: gauge, Date: day, DensityCount: 2790, MoistureCount: 655, Accepted: true}); err != nil {
+		t.Fatal(err)
+	}
+	e.rec(&ledger.EquipmentRegistered{ID: gauge, Kind: ledger.NuclearGauge, Model: "MD-9", SerialNumber: "G-4410", CalibrationDue: "2027-09-01"})
+	r, err = e.store.RecordTest(ctx, in)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if hasFlag(r.Flags, ledger.GaugeCalibrationLapsed) || hasFlag(r.Flags, ledger.NoStandardCount) {
+		t.Errorf("calibrated gauge with a count: flags %v", r.Flags)
+	}
+}
+
+func ptr(v float64) *float64 { return &v }
