@@ -159,3 +159,11 @@ func (s *Store) markRejected(ctx context.Context, eventID, reason, message strin
 	}
 	return s.loadViews(ctx)
 }
+
+// Digest returns a hash of the project's view: two replicas holding the
+// same events have the same digest.
+func (s *Store) Digest(project string) ledger.Hash {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.view(project).Digest()
+}

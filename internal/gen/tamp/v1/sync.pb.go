@@ -243,8 +243,12 @@ type PushRequest struct {
 	// The device's wall clock when it sent the batch, microseconds since
 	// 1970-01-01 UTC, for clock-skew checks.
 	DeviceTimeMicros int64 `protobuf:"varint,3,opt,name=device_time_micros,json=deviceTimeMicros,proto3" json:"device_time_micros,omitempty"`
-	unknownFields    protoimpl.UnknownFields
-	sizeCache        protoimpl.SizeCache
+	// The chain point the device last verified, so the server learns when its
+	// own history no longer contains it (it was restored from an older copy)
+	// and opens a new epoch.
+	Verified      *Checkpoint `protobuf:"bytes,4,opt,name=verified,proto3" json:"verified,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
 }
 
 func (x *PushRequest) Reset() {
@@ -296,6 +300,13 @@ func (x *PushRequest) GetDeviceTimeMicros() int64 {
 		return x.DeviceTimeMicros
 	}
 	return 0
+}
+
+func (x *PushRequest) GetVerified() *Checkpoint {
+	if x != nil {
+		return x.Verified
+	}
+	return nil
 }
 
 // PushOutcome is the outcome of one pushed event.
@@ -395,9 +406,12 @@ type PushResponse struct {
 	// One outcome per event.
 	Outcomes []*PushOutcome `protobuf:"bytes,1,rep,name=outcomes,proto3" json:"outcomes,omitempty"`
 	// The ledger's head after the batch.
-	Head          *Checkpoint `protobuf:"bytes,2,opt,name=head,proto3" json:"head,omitempty"`
-	unknownFields protoimpl.UnknownFields
-	sizeCache     protoimpl.SizeCache
+	Head *Checkpoint `protobuf:"bytes,2,opt,name=head,proto3" json:"head,omitempty"`
+	// The device's clock minus the server's when the batch arrived,
+	// microseconds; beyond the project's limit the batch's events are flagged.
+	ClockSkewMicros int64 `protobuf:"varint,3,opt,name=clock_skew_micros,json=clockSkewMicros,proto3" json:"clock_skew_micros,omitempty"`
+	unknownFields   protoimpl.UnknownFields
+	sizeCache       protoimpl.SizeCache
 }
 
 func (x *PushResponse) Reset() {
@@ -444,6 +458,13 @@ func (x *PushResponse) GetHead() *Checkpoint {
 	return nil
 }
 
+func (x *PushResponse) GetClockSkewMicros() int64 {
+	if x != nil {
+		return x.ClockSkewMicros
+	}
+	return 0
+}
+
 // PullRequest asks for a project's ledger after a cursor.
 type PullRequest struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
@@ -454,9 +475,13 @@ type PullRequest struct {
 	After *Checkpoint `protobuf:"bytes,2,opt,name=after,proto3" json:"after,omitempty"`
 	// Largest number of events per chunk the device wants; zero lets the
 	// server choose.
-	MaxEvents     uint32 `protobuf:"varint,3,opt,name=max_events,json=maxEvents,proto3" json:"max_events,omitempty"`
-	unknownFields protoimpl.UnknownFields
-	sizeCache     protoimpl.SizeCache
+	MaxEvents uint32 `protobuf:"varint,3,opt,name=max_events,json=maxEvents,proto3" json:"max_events,omitempty"`
+	// On a first pull (no cursor), send the project's reference data (set-up,
+	// specs, references, equipment, corrections) first, so the device can
+	// grade tests offline before the history arrives.
+	ReferenceDataFirst bool `protobuf:"varint,4,opt,name=reference_data_first,json=referenceDataFirst,proto3" json:"reference_data_first,omitempty"`
+	unknownFields      protoimpl.UnknownFields
+	sizeCache          protoimpl.SizeCache
 }
 
 func (x *PullRequest) Reset() {
@@ -508,6 +533,13 @@ func (x *PullRequest) GetMaxEvents() uint32 {
 		return x.MaxEvents
 	}
 	return 0
+}
+
+func (x *PullRequest) GetReferenceDataFirst() bool {
+	if x != nil {
+		return x.ReferenceDataFirst
+	}
+	return false
 }
 
 // LedgerEntry is one event at its place in the chain.
@@ -587,7 +619,10 @@ type PullResponse struct {
 	DeviceKeys map[string][]byte `protobuf:"bytes,3,rep,name=device_keys,json=deviceKeys,proto3" json:"device_keys,omitempty" protobuf_key:"bytes,1,opt,name=key" protobuf_val:"bytes,2,opt,name=value"`
 	// The server's own chain point at the request's cursor, sent in the first
 	// chunk, so the device can tell a rewritten history from an altered event.
-	Anchor        *Checkpoint `protobuf:"bytes,4,opt,name=anchor,proto3" json:"anchor,omitempty"`
+	Anchor *Checkpoint `protobuf:"bytes,4,opt,name=anchor,proto3" json:"anchor,omitempty"`
+	// The entries are the project's reference data, sent ahead of the chain
+	// and out of its order: verify their signatures, not the chain.
+	ReferenceData bool `protobuf:"varint,5,opt,name=reference_data,json=referenceData,proto3" json:"reference_data,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -650,6 +685,13 @@ func (x *PullResponse) GetAnchor() *Checkpoint {
 	return nil
 }
 
+func (x *PullResponse) GetReferenceData() bool {
+	if x != nil {
+		return x.ReferenceData
+	}
+	return false
+}
+
 var File_tamp_v1_sync_proto protoreflect.FileDescriptor
 
 const file_tamp_v1_sync_proto_rawDesc = "" +
@@ -661,12 +703,13 @@ const file_tamp_v1_sync_proto_rawDesc = "" +
 	"project_id\x18\x01 \x01(\tR\tprojectId\x12\x14\n" +
 	"\x05epoch\x18\x02 \x01(\x04R\x05epoch\x12\x1a\n" +
 	"\bsequence\x18\x03 \x01(\x04R\bsequence\x12\x12\n" +
-	"\x04hash\x18\x04 \x01(\fR\x04hash\"\x82\x01\n" +
+	"\x04hash\x18\x04 \x01(\fR\x04hash\"\xb3\x01\n" +
 	"\vPushRequest\x12\x1d\n" +
 	"\n" +
 	"project_id\x18\x01 \x01(\tR\tprojectId\x12&\n" +
 	"\x06events\x18\x02 \x03(\v2\x0e.tamp.v1.EventR\x06events\x12,\n" +
-	"\x12device_time_micros\x18\x03 \x01(\x03R\x10deviceTimeMicros\"\xdb\x01\n" +
+	"\x12device_time_micros\x18\x03 \x01(\x03R\x10deviceTimeMicros\x12/\n" +
+	"\bverified\x18\x04 \x01(\v2\x13.tamp.v1.CheckpointR\bverified\"\xdb\x01\n" +
 	"\vPushOutcome\x12\x19\n" +
 	"\bevent_id\x18\x01 \x01(\tR\aeventId\x12+\n" +
 	"\x06status\x18\x02 \x01(\x0e2\x13.tamp.v1.PushStatusR\x06status\x12\x1a\n" +
@@ -674,26 +717,29 @@ const file_tamp_v1_sync_proto_rawDesc = "" +
 	"\x06reason\x18\x04 \x01(\x0e2\x15.tamp.v1.RejectReasonR\x06reason\x12\x18\n" +
 	"\amessage\x18\x05 \x01(\tR\amessage\x12\x1f\n" +
 	"\vwaiting_for\x18\x06 \x03(\tR\n" +
-	"waitingFor\"i\n" +
+	"waitingFor\"\x95\x01\n" +
 	"\fPushResponse\x120\n" +
 	"\boutcomes\x18\x01 \x03(\v2\x14.tamp.v1.PushOutcomeR\boutcomes\x12'\n" +
-	"\x04head\x18\x02 \x01(\v2\x13.tamp.v1.CheckpointR\x04head\"v\n" +
+	"\x04head\x18\x02 \x01(\v2\x13.tamp.v1.CheckpointR\x04head\x12*\n" +
+	"\x11clock_skew_micros\x18\x03 \x01(\x03R\x0fclockSkewMicros\"\xa8\x01\n" +
 	"\vPullRequest\x12\x1d\n" +
 	"\n" +
 	"project_id\x18\x01 \x01(\tR\tprojectId\x12)\n" +
 	"\x05after\x18\x02 \x01(\v2\x13.tamp.v1.CheckpointR\x05after\x12\x1d\n" +
 	"\n" +
-	"max_events\x18\x03 \x01(\rR\tmaxEvents\"c\n" +
+	"max_events\x18\x03 \x01(\rR\tmaxEvents\x120\n" +
+	"\x14reference_data_first\x18\x04 \x01(\bR\x12referenceDataFirst\"c\n" +
 	"\vLedgerEntry\x12\x1a\n" +
 	"\bsequence\x18\x01 \x01(\x04R\bsequence\x12$\n" +
 	"\x05event\x18\x02 \x01(\v2\x0e.tamp.v1.EventR\x05event\x12\x12\n" +
-	"\x04hash\x18\x03 \x01(\fR\x04hash\"\x9b\x02\n" +
+	"\x04hash\x18\x03 \x01(\fR\x04hash\"\xc2\x02\n" +
 	"\fPullResponse\x12.\n" +
 	"\aentries\x18\x01 \x03(\v2\x14.tamp.v1.LedgerEntryR\aentries\x12'\n" +
 	"\x04head\x18\x02 \x01(\v2\x13.tamp.v1.CheckpointR\x04head\x12F\n" +
 	"\vdevice_keys\x18\x03 \x03(\v2%.tamp.v1.PullResponse.DeviceKeysEntryR\n" +
 	"deviceKeys\x12+\n" +
-	"\x06anchor\x18\x04 \x01(\v2\x13.tamp.v1.CheckpointR\x06anchor\x1a=\n" +
+	"\x06anchor\x18\x04 \x01(\v2\x13.tamp.v1.CheckpointR\x06anchor\x12%\n" +
+	"\x0ereference_data\x18\x05 \x01(\bR\rreferenceData\x1a=\n" +
 	"\x0fDeviceKeysEntry\x12\x10\n" +
 	"\x03key\x18\x01 \x01(\tR\x03key\x12\x14\n" +
 	"\x05value\x18\x02 \x01(\fR\x05value:\x028\x01*\x97\x01\n" +
@@ -747,25 +793,26 @@ var file_tamp_v1_sync_proto_goTypes = []any{
 }
 var file_tamp_v1_sync_proto_depIdxs = []int32{
 	10, // 0: tamp.v1.PushRequest.events:type_name -> tamp.v1.Event
-	0,  // 1: tamp.v1.PushOutcome.status:type_name -> tamp.v1.PushStatus
-	1,  // 2: tamp.v1.PushOutcome.reason:type_name -> tamp.v1.RejectReason
-	4,  // 3: tamp.v1.PushResponse.outcomes:type_name -> tamp.v1.PushOutcome
-	2,  // 4: tamp.v1.PushResponse.head:type_name -> tamp.v1.Checkpoint
-	2,  // 5: tamp.v1.PullRequest.after:type_name -> tamp.v1.Checkpoint
-	10, // 6: tamp.v1.LedgerEntry.event:type_name -> tamp.v1.Event
-	7,  // 7: tamp.v1.PullResponse.entries:type_name -> tamp.v1.LedgerEntry
-	2,  // 8: tamp.v1.PullResponse.head:type_name -> tamp.v1.Checkpoint
-	9,  // 9: tamp.v1.PullResponse.device_keys:type_name -> tamp.v1.PullResponse.DeviceKeysEntry
-	2,  // 10: tamp.v1.PullResponse.anchor:type_name -> tamp.v1.Checkpoint
-	3,  // 11: tamp.v1.SyncService.Push:input_type -> tamp.v1.PushRequest
-	6,  // 12: tamp.v1.SyncService.Pull:input_type -> tamp.v1.PullRequest
-	5,  // 13: tamp.v1.SyncService.Push:output_type -> tamp.v1.PushResponse
-	8,  // 14: tamp.v1.SyncService.Pull:output_type -> tamp.v1.PullResponse
-	13, // [13:15] is the sub-list for method output_type
-	11, // [11:13] is the sub-list for method input_type
-	11, // [11:11] is the sub-list for extension type_name
-	11, // [11:11] is the sub-list for extension extendee
-	0,  // [0:11] is the sub-list for field type_name
+	2,  // 1: tamp.v1.PushRequest.verified:type_name -> tamp.v1.Checkpoint
+	0,  // 2: tamp.v1.PushOutcome.status:type_name -> tamp.v1.PushStatus
+	1,  // 3: tamp.v1.PushOutcome.reason:type_name -> tamp.v1.RejectReason
+	4,  // 4: tamp.v1.PushResponse.outcomes:type_name -> tamp.v1.PushOutcome
+	2,  // 5: tamp.v1.PushResponse.head:type_name -> tamp.v1.Checkpoint
+	2,  // 6: tamp.v1.PullRequest.after:type_name -> tamp.v1.Checkpoint
+	10, // 7: tamp.v1.LedgerEntry.event:type_name -> tamp.v1.Event
+	7,  // 8: tamp.v1.PullResponse.entries:type_name -> tamp.v1.LedgerEntry
+	2,  // 9: tamp.v1.PullResponse.head:type_name -> tamp.v1.Checkpoint
+	9,  // 10: tamp.v1.PullResponse.device_keys:type_name -> tamp.v1.PullResponse.DeviceKeysEntry
+	2,  // 11: tamp.v1.PullResponse.anchor:type_name -> tamp.v1.Checkpoint
+	3,  // 12: tamp.v1.SyncService.Push:input_type -> tamp.v1.PushRequest
+	6,  // 13: tamp.v1.SyncService.Pull:input_type -> tamp.v1.PullRequest
+	5,  // 14: tamp.v1.SyncService.Push:output_type -> tamp.v1.PushResponse
+	8,  // 15: tamp.v1.SyncService.Pull:output_type -> tamp.v1.PullResponse
+	14, // [14:16] is the sub-list for method output_type
+	12, // [12:14] is the sub-list for method input_type
+	12, // [12:12] is the sub-list for extension type_name
+	12, // [12:12] is the sub-list for extension extendee
+	0,  // [0:12] is the sub-list for field type_name
 }
 
 func init() { file_tamp_v1_sync_proto_init() }

@@ -1,0 +1,584 @@
+package client
+
+import (
+	"context"
+	"crypto/ed25519"
+	"database/sql"
+	"errors"
+	"fmt"
+	"io"
+	"math/rand/v2"
+	"time"
+
+	"google.golang.org/grpc"
+	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/metadata"
+	"google.golang.org/grpc/status"
+
+	pb "tamp/internal/gen/tamp/v1"
+	"tamp/internal/ledger"
+)
+
+// ErrFork is returned (wrapped with the chain error that shows it) when the
+// server's ledger no longer contains the point this device verified: it was
+// restored from an older copy or rewritten. The device has pushed back
+// everything it holds; the next sync continues in the server's new epoch.
+var ErrFork = errors.New("client: the server's ledger forked from what this device verified")
+
+// Enroll registers the device with a server using a one-time code, keeping
+// the bearer token and the user the server enrolled it for.
+func (s *Store) Enroll(ctx context.Context, conn grpc.ClientConnInterface, code, name string) error {
+	resp, err := pb.NewAdminServiceClient(conn).EnrollDevice(ctx, &pb.EnrollDeviceRequest{
+		Code: code, DeviceId: s.deviceID, PublicKey: s.PublicKey(), DeviceName: name})
+	if err != nil {
+		return fmt.Errorf("client: enrol: %w", err)
+	}
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	if _, err := s.db.Writer().ExecContext(ctx, `UPDATE device SET token = ?, user_id = ? WHERE id = 1`, resp.GetToken(), resp.GetUserId()); err != nil {
+		return fmt.Errorf("client: store token: %w", err)
+	}
+	s.user = resp.GetUserId()
+	return nil
+}
+
+func (s *Store) token(ctx context.Context) (string, error) {
+	var t string
+	if err := s.db.Reader().QueryRowContext(ctx, `SELECT token FROM device WHERE id = 1`).Scan(&t); err != nil {
+		return "", fmt.Errorf("client: token: %w", err)
+	}
+	return t, nil
+}
+
+// Progress reports how far a sync has gone, for a progress bar.
+type Progress struct {
+	Phase  string // "push" or "pull"
+	Events int    // events sent or received so far in this phase
+	Bytes  int64  // their encoded size
+	Total  int    // events to push (push phase; zero when unknown)
+}
+
+// SyncOptions configure Sync. The zero value is usable.
+type SyncOptions struct {
+	BatchSize   int                 // events per push (default 500)
+	Progress    func(Progress)      // called after every batch and chunk
+	MaxAttempts int                 // per call, retrying Unavailable (default 6)
+	BaseDelay   time.Duration       // first retry delay (default 200 ms), doubling with jitter
+	MaxDelay    time.Duration       // longest retry delay (default 5 s)
+	Sleep       func(time.Duration) // time.Sleep when nil; tests shorten it
+}
+
+func (o *SyncOptions) defaults() {
+	if o.BatchSize <= 0 {
+		o.BatchSize = 500
+	}
+	if o.MaxAttempts <= 0 {
+		o.MaxAttempts = 6
+	}
+	if o.BaseDelay <= 0 {
+		o.BaseDelay = 200 * time.Millisecond
+	}
+	if o.MaxDelay <= 0 {
+		o.MaxDelay = 5 * time.Second
+	}
+}
+
+// SyncReport says what a sync did.
+type SyncReport struct {
+	Accepted, AlreadyPresent, Waiting, Rejected int // outcomes of pushed events
+	Pulled                                      int // events received and applied
+	Head                                        ledger.Checkpoint
+	ClockSkew                                   time.Duration // device clock minus server clock
+	Repushed                                    int           // events pushed back after a fork or a new epoch
+}
+
+// SyncStatus is what a user interface shows about a project's sync.
+type SyncStatus struct {
+	LastSuccess time.Time
+	LastAttempt time.Time
+	LastError   string
+	Verified    ledger.Checkpoint
+	Outbox      Outbox
+}
+
+// Status returns a project's sync status.
+func (s *Store) Status(ctx context.Context, project string) (SyncStatus, error) {
+	var st SyncStatus
+	cp, err := s.checkpoint(ctx, project)
+	if err != nil {
+		return st, err
+	}
+	st.Verified = cp
+	var ok, at int64
+	err = s.db.Reader().QueryRowContext(ctx, `SELECT last_success_micros, last_attempt_micros, last_error FROM sync_state WHERE project_id = ?`, project).
+		Scan(&ok, &at, &st.LastError)
+	if err != nil && !errors.Is(err, sql.ErrNoRows) {
+		return st, fmt.Errorf("client: sync status: %w", err)
+	}
+	if ok > 0 {
+		st.LastSuccess = time.UnixMicro(ok).UTC()
+	}
+	if at > 0 {
+		st.LastAttempt = time.UnixMicro(at).UTC()
+	}
+	var oldest sql.NullInt64
+	if err := s.db.Reader().QueryRowContext(ctx, `SELECT COUNT(*), MIN(created_micros) FROM events
+		WHERE origin = 'local' AND status IN ('pending', 'waiting') AND project_id = ?`, project).Scan(&st.Outbox.Pending, &oldest); err != nil {
+		return st, fmt.Errorf("client: sync status: %w", err)
+	}
+	if oldest.Valid {
+		st.Outbox.Oldest = time.UnixMicro(oldest.Int64).UTC()
+	}
+	return st, nil
+}
+
+func (s *Store) checkpoint(ctx context.Context, project string) (ledger.Checkpoint, error) {
+	cp := ledger.Checkpoint{Project: project}
+	var h []byte
+	err := s.db.Reader().QueryRowContext(ctx, `SELECT epoch, seq, hash FROM sync_state WHERE project_id = ?`, project).Scan(&cp.Epoch, &cp.Seq, &h)
+	if errors.Is(err, sql.ErrNoRows) || len(h) == 0 {
+		return ledger.Start(project, cp.Epoch), nil
+	}
+	if err != nil {
+		return cp, fmt.Errorf("client: checkpoint: %w", err)
+	}
+	copy(cp.Hash[:], h)
+	return cp, nil
+}
+
+func saveCheckpoint(ctx context.Context, tx *sql.Tx, cp ledger.Checkpoint) error {
+	_, err := tx.ExecContext(ctx, `INSERT INTO sync_state (project_id, epoch, seq, hash) VALUES (?, ?, ?, ?)
+		ON CONFLICT (project_id) DO UPDATE SET epoch = excluded.epoch, seq = excluded.seq, hash = excluded.hash`,
+		cp.Project, cp.Epoch, cp.Seq, cp.Hash[:])
+	return err
+}
+
+func (s *Store) noteAttempt(ctx context.Context, project string, syncErr error) {
+	now := s.now().UnixMicro()
+	msg := ""
+	if syncErr != nil {
+		msg = syncErr.Error()
+	}
+	q := `INSERT INTO sync_state (project_id, last_attempt_micros, last_error) VALUES (?, ?, ?)
+		ON CONFLICT (project_id) DO UPDATE SET last_attempt_micros = excluded.last_attempt_micros, last_error = excluded.last_error`
+	if syncErr == nil {
+		q = `INSERT INTO sync_state (project_id, last_attempt_micros, last_error, last_success_micros) VALUES (?, ?, ?, ?)
+		ON CONFLICT (project_id) DO UPDATE SET last_attempt_micros = excluded.last_attempt_micros, last_error = '',
+		last_success_micros = excluded.last_success_micros`
+	}
+	args := []any{project, now, msg}
+	if syncErr == nil {
+		args = append(args, now)
+	}
+	if _, err := s.db.Writer().ExecContext(ctx, q, args...); err != nil {
+		_ = err // the status is advisory; the sync's own error is what the caller gets
+	}
+}
+
+// retry runs call, retrying on Unavailable (and Aborted, which asks for the
+// whole exchange again) with exponential backoff and jitter, until it
+// succeeds, fails otherwise, or the context ends.
+func retry(ctx context.Context, o SyncOptions, call func() error) error {
+	delay := o.BaseDelay
+	sleep := o.Sleep
+	if sleep == nil {
+		sleep = time.Sleep
+	}
+	var err error
+	for attempt := 1; ; attempt++ {
+		if err = call(); err == nil {
+			return nil
+		}
+		c := status.Code(err)
+		if (c != codes.Unavailable && c != codes.Aborted) || attempt >= o.MaxAttempts {
+			return err
+		}
+		if ctx.Err() != nil {
+			return ctx.Err()
+		}
+		sleep(delay/2 + rand.N(delay/2+1))
+		delay = min(2*delay, o.MaxDelay)
+	}
+}
+
+// Sync pushes the project's outbox to the server, then pulls and verifies
+// the ledger after the last verified point, applying it to the project's
+// view. A cut connection is retried; what was verified and applied before
+// a cut is kept, so the next attempt resumes. When the server's ledger no
+// longer holds the verified point, Sync pushes back everything the device
+// holds and returns ErrFork.
+func (s *Store) Sync(ctx context.Context, conn grpc.ClientConnInterface, project string, opts SyncOptions) (SyncReport, error) {
+	opts.defaults()
+	rep, err := s.sync(ctx, conn, project, opts)
+	s.noteAttempt(context.WithoutCancel(ctx), project, err)
+	return rep, err
+}
+
+func (s *Store) sync(ctx context.Context, conn grpc.ClientConnInterface, project string, opts SyncOptions) (SyncReport, error) {
+	var rep SyncReport
+	token, err := s.token(ctx)
+	if err != nil {
+		return rep, err
+	}
+	if token == "" {
+		return rep, fmt.Errorf("client: sync: the device is not enrolled")
+	}
+	ctx = metadata.AppendToOutgoingContext(ctx, "authorization", "Bearer "+token)
+	sc := pb.NewSyncServiceClient(conn)
+	cp, err := s.checkpoint(ctx, project)
+	if err != nil {
+		return rep, err
+	}
+	head, err := s.pushOutbox(ctx, sc, project, cp, opts, &rep)
+	if err != nil {
+		return rep, err
+	}
+	if cp.Epoch != 0 && head.Epoch > cp.Epoch {
+		// The server opened a new epoch: it may have lost events. Push back
+		// everything this device holds and verify the new epoch from its start.
+		if err := s.repushAll(ctx, sc, project, opts, &rep); err != nil {
+			return rep, err
+		}
+		cp = ledger.Start(project, head.Epoch)
+		if err := s.resetCheckpoint(ctx, cp); err != nil {
+			return rep, err
+		}
+	}
+	for range 3 {
+		err = retry(ctx, opts, func() error { return s.pull(ctx, sc, project, opts, &rep) })
+		var ne *newEpoch
+		if !errors.As(err, &ne) {
+			break
+		}
+		if err := s.repushAll(ctx, sc, project, opts, &rep); err != nil {
+			return rep, err
+		}
+		if err := s.resetCheckpoint(ctx, ledger.Start(project, ne.epoch)); err != nil {
+			return rep, err
+		}
+	}
+	var fork *forkError
+	if errors.As(err, &fork) {
+		if rerr := s.repushAll(ctx, sc, project, opts, &rep); rerr != nil {
+			return rep, errors.Join(err, rerr)
+		}
+		return rep, fmt.Errorf("%w: %w", ErrFork, fork.err)
+	}
+	return rep, err
+}
+
+func (s *Store) resetCheckpoint(ctx context.Context, cp ledger.Checkpoint) error {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.db.Tx(ctx, func(tx *sql.Tx) error { return saveCheckpoint(ctx, tx, cp) })
+}
+
+type outboxEvent struct {
+	id        string
+	body, sig []byte
+}
+
+func (s *Store) outbox(ctx context.Context, project string, all bool) ([]outboxEvent, error) {
+	q := `SELECT event_id, body, signature FROM events WHERE project_id = ? AND origin = 'local' AND status IN ('pending', 'waiting')
+		ORDER BY device_seq`
+	if all {
+		q = `SELECT event_id, body, signature FROM events WHERE project_id = ? AND status NOT IN ('rejected', 'discarded')
+		ORDER BY hlc_wall, hlc_logical, device_id, event_id`
+	}
+	rows, err := s.db.Reader().QueryContext(ctx, q, project)
+	if err != nil {
+		return nil, fmt.Errorf("client: outbox: %w", err)
+	}
+	defer rows.Close()
+	var out []outboxEvent
+	for rows.Next() {
+		var e outboxEvent
+		if err := rows.Scan(&e.id, &e.body, &e.sig); err != nil {
+			return nil, fmt.Errorf("client: outbox: %w", err)
+		}
+		out = append(out, e)
+	}
+	return out, rows.Err()
+}
+
+var reasonNames = map[pb.RejectReason]string{}
+
+func init() {
+	for v, name := range pb.RejectReason_name {
+		reasonNames[pb.RejectReason(v)] = name
+	}
+}
+
+// pushOutbox pushes the pending and waiting events in batches, again while
+// events that waited for others get accepted, and records each outcome.
+func (s *Store) pushOutbox(ctx context.Context, sc pb.SyncServiceClient, project string, cp ledger.Checkpoint, opts SyncOptions, rep *SyncReport) (ledger.Checkpoint, error) {
+	var head ledger.Checkpoint
+	for round := 0; round < 8; round++ {
+		events, err := s.outbox(ctx, project, false)
+		if err != nil {
+			return head, err
+		}
+		accepted := 0
+		var sent int
+		var bytes int64
+		waitingLeft := 0
+		for start := 0; start < len(events) || (start == 0 && round == 0); start += opts.BatchSize {
+			batch := events[start:min(len(events), start+opts.BatchSize)]
+			req := &pb.PushRequest{ProjectId: project, DeviceTimeMicros: s.now().UnixMicro(), Verified: checkpointTo(cp)}
+			for _, e := range batch {
+				req.Events = append(req.Events, &pb.Event{Body: e.body, Signature: e.sig})
+				bytes += int64(len(e.body) + len(e.sig))
+			}
+			var resp *pb.PushResponse
+			if err := retry(ctx, opts, func() (err error) { resp, err = sc.Push(ctx, req); return err }); err != nil {
+				return head, fmt.Errorf("client: push: %w", err)
+			}
+			head = checkpointFrom(resp.GetHead())
+			rep.ClockSkew = time.Duration(resp.GetClockSkewMicros()) * time.Microsecond
+			n, w, err := s.recordOutcomes(ctx, resp.GetOutcomes(), rep)
+			if err != nil {
+				return head, err
+			}
+			accepted += n
+			waitingLeft += w
+			sent += len(batch)
+			if opts.Progress != nil {
+				opts.Progress(Progress{Phase: "push", Events: sent, Bytes: bytes, Total: len(events)})
+			}
+			if len(events) == 0 {
+				break
+			}
+		}
+		if waitingLeft == 0 || accepted == 0 {
+			break
+		}
+	}
+	return head, nil
+}
+
+// recordOutcomes stores what the server said of each pushed event.
+func (s *Store) recordOutcomes(ctx context.Context, outs []*pb.PushOutcome, rep *SyncReport) (accepted, waiting int, err error) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	anyRejected := false
+	err = s.db.Tx(ctx, func(tx *sql.Tx) error {
+		for _, o := range outs {
+			var q string
+			args := []any{}
+			switch o.GetStatus() {
+			case pb.PushStatus_PUSH_STATUS_ACCEPTED, pb.PushStatus_PUSH_STATUS_ALREADY_PRESENT:
+				if o.GetStatus() == pb.PushStatus_PUSH_STATUS_ACCEPTED {
+					rep.Accepted++
+					accepted++
+				} else {
+					rep.AlreadyPresent++
+				}
+				q, args = `UPDATE events SET status = 'accepted', server_seq = ?, reason = '', message = '' WHERE event_id = ? AND status != 'discarded'`,
+					[]any{o.GetSequence(), o.GetEventId()}
+			case pb.PushStatus_PUSH_STATUS_WAITING:
+				rep.Waiting++
+				waiting++
+				q, args = `UPDATE events SET status = 'waiting', message = ? WHERE event_id = ? AND origin = 'local' AND status IN ('pending', 'waiting')`,
+					[]any{o.GetMessage(), o.GetEventId()}
+			case pb.PushStatus_PUSH_STATUS_REJECTED:
+				rep.Rejected++
+				anyRejected = true
+				q, args = `UPDATE events SET status = 'rejected', reason = ?, message = ? WHERE event_id = ? AND origin = 'local' AND status IN ('pending', 'waiting')`,
+					[]any{reasonNames[o.GetReason()], o.GetMessage(), o.GetEventId()}
+			default:
+				continue
+			}
+			if _, err := tx.ExecContext(ctx, q, args...); err != nil {
+				return fmt.Errorf("client: record outcome of %s: %w", o.GetEventId(), err)
+			}
+		}
+		return nil
+	})
+	if err == nil && anyRejected {
+		err = s.loadViews(ctx)
+	}
+	return accepted, waiting, err
+}
+
+// repushAll pushes every event the device holds of a project, its own and
+// those it received, so a server that lost events gets them back.
+func (s *Store) repushAll(ctx context.Context, sc pb.SyncServiceClient, project string, opts SyncOptions, rep *SyncReport) error {
+	events, err := s.outbox(ctx, project, true)
+	if err != nil {
+		return err
+	}
+	for start := 0; start < len(events); start += opts.BatchSize {
+		batch := events[start:min(len(events), start+opts.BatchSize)]
+		req := &pb.PushRequest{ProjectId: project, DeviceTimeMicros: s.now().UnixMicro()}
+		for _, e := range batch {
+			req.Events = append(req.Events, &pb.Event{Body: e.body, Signature: e.sig})
+		}
+		var resp *pb.PushResponse
+		if err := retry(ctx, opts, func() (err error) { resp, err = sc.Push(ctx, req); return err }); err != nil {
+			return fmt.Errorf("client: push back: %w", err)
+		}
+		var scratch SyncReport
+		if _, _, err := s.recordOutcomes(ctx, resp.GetOutcomes(), &scratch); err != nil {
+			return err
+		}
+		rep.Repushed += scratch.Accepted
+	}
+	return nil
+}
+
+type forkError struct{ err error }
+
+// newEpoch says the server opened a new epoch since the device verified.
+type newEpoch struct{ epoch uint64 }
+
+func (n *newEpoch) Error() string { return fmt.Sprintf("the server opened epoch %d", n.epoch) }
+
+func (f *forkError) Error() string { return f.err.Error() }
+
+// pull streams the ledger after the verified point, verifying each chunk
+// and applying it in one transaction with the new checkpoint.
+func (s *Store) pull(ctx context.Context, sc pb.SyncServiceClient, project string, opts SyncOptions, rep *SyncReport) error {
+	cp, err := s.checkpoint(ctx, project)
+	if err != nil {
+		return err
+	}
+	stream, err := sc.Pull(ctx, &pb.PullRequest{ProjectId: project, After: checkpointTo(cp), ReferenceDataFirst: cp.Seq == 0})
+	if err != nil {
+		return err
+	}
+	v := ledger.NewVerifier(cp)
+	checked := false
+	var received int
+	var bytes int64
+	for {
+		resp, err := stream.Recv()
+		if err == io.EOF {
+			break
+		}
+		if err != nil {
+			return err
+		}
+		if a := resp.GetAnchor(); a != nil && !checked {
+			anchor := checkpointFrom(a)
+			switch {
+			case cp.Epoch == 0: // a first sync: verify from the start
+				cp = ledger.Start(project, anchor.Epoch)
+				v = ledger.NewVerifier(cp)
+			case anchor.Epoch > cp.Epoch:
+				return &newEpoch{anchor.Epoch}
+			default:
+				if err := v.CheckHead(anchor); err != nil {
+					return &forkError{err}
+				}
+				if err := v.CheckAnchor(anchor); err != nil {
+					return &forkError{err}
+				}
+			}
+			checked = true
+		}
+		entries := resp.GetEntries()
+		if len(entries) == 0 {
+			continue
+		}
+		keys := func(dev string) (ed25519.PublicKey, bool) {
+			if dev == s.deviceID {
+				return s.PublicKey(), true
+			}
+			k, ok := resp.GetDeviceKeys()[dev]
+			return ed25519.PublicKey(k), ok && len(k) == ed25519.PublicKeySize
+		}
+		var chain []ledger.Entry
+		var signed []ledger.Signed
+		var seqs []uint64
+		for _, e := range entries {
+			sg, err := ledger.Open(e.GetEvent(), keys)
+			if err != nil {
+				return &forkError{fmt.Errorf("event %d from the server: %w", e.GetSequence(), err)}
+			}
+			var h ledger.Hash
+			copy(h[:], e.GetHash())
+			chain = append(chain, ledger.Entry{Seq: e.GetSequence(), Event: sg.Bytes(), Hash: h})
+			signed = append(signed, sg)
+			seqs = append(seqs, e.GetSequence())
+			bytes += int64(len(sg.Body) + len(sg.Signature))
+		}
+		if !resp.GetReferenceData() {
+			if err := v.Verify(chain); err != nil {
+				return &forkError{err}
+			}
+		} else {
+			seqs = nil // out of chain order: keep no sequence for them yet
+		}
+		if err := s.applyPulled(ctx, project, signed, seqs, v.At(), !resp.GetReferenceData()); err != nil {
+			return err
+		}
+		received += len(signed)
+		rep.Pulled += len(signed)
+		if opts.Progress != nil {
+			opts.Progress(Progress{Phase: "pull", Events: received, Bytes: bytes})
+		}
+	}
+	rep.Head = v.At()
+	if !checked {
+		return fmt.Errorf("client: pull: the server sent no anchor")
+	}
+	return s.resetCheckpointIfNew(ctx, v.At())
+}
+
+func (s *Store) resetCheckpointIfNew(ctx context.Context, cp ledger.Checkpoint) error {
+	cur, err := s.checkpoint(ctx, cp.Project)
+	if err != nil || cur == cp {
+		return err
+	}
+	return s.resetCheckpoint(ctx, cp)
+}
+
+// applyPulled stores and applies pulled events, with the new checkpoint
+// when they are chain entries, in one transaction.
+func (s *Store) applyPulled(ctx context.Context, project string, evs []ledger.Signed, seqs []uint64, cp ledger.Checkpoint, chained bool) error {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	err := s.db.Tx(ctx, func(tx *sql.Tx) error {
+		for i, sg := range evs {
+			e := sg.Event
+			var seq any
+			if seqs != nil {
+				seq = seqs[i]
+			}
+			if _, err := tx.ExecContext(ctx, `INSERT INTO events (event_id, project_id, device_id, device_seq, kind, record_id,
+				hlc_wall, hlc_logical, body, signature, origin, status, server_seq, created_micros)
+				VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 'remote', 'accepted', ?, ?)
+				ON CONFLICT (event_id) DO UPDATE SET server_seq = COALESCE(excluded.server_seq, server_seq),
+				status = CASE WHEN status IN ('pending', 'waiting') THEN 'accepted' ELSE status END`,
+				e.ID, project, e.Device, e.DeviceSeq, e.Kind.KindName(), ledger.RecordID(e.Kind), e.HLC.Wall, e.HLC.Logical,
+				sg.Body, sg.Signature, seq, s.now().UnixMicro()); err != nil {
+				return fmt.Errorf("client: store pulled %s: %w", e.ID, err)
+			}
+		}
+		if chained {
+			return saveCheckpoint(ctx, tx, cp)
+		}
+		return nil
+	})
+	if err != nil {
+		return err
+	}
+	v := s.view(project)
+	for _, sg := range evs {
+		if _, err := v.Apply(sg); err != nil && ledger.ReasonOf(err) != ledger.ConflictingID {
+			return fmt.Errorf("client: apply pulled %s: %w", sg.Event.ID, err)
+		}
+		s.clock.Observe(sg.Event.HLC)
+	}
+	return nil
+}
+
+func checkpointTo(c ledger.Checkpoint) *pb.Checkpoint {
+	return &pb.Checkpoint{ProjectId: c.Project, Epoch: c.Epoch, Sequence: c.Seq, Hash: c.Hash[:]}
+}
+
+func checkpointFrom(c *pb.Checkpoint) ledger.Checkpoint {
+	cp := ledger.Checkpoint{Project: c.GetProjectId(), Epoch: c.GetEpoch(), Seq: c.GetSequence()}
+	copy(cp.Hash[:], c.GetHash())
+	return cp
+}

@@ -1,0 +1,164 @@
+package server_test
+
+import (
+	"context"
+	"sync"
+	"testing"
+
+	"tamp/client"
+	"tamp/internal/ledger"
+	"tamp/internal/qc"
+)
+
+// Three devices record offline, sync in turn and concurrently, and all hold
+// the server's ledger: the same head hash and the same state.
+func TestThreeDevicesConverge(t *testing.T) {
+	c := startCluster(t, t.TempDir())
+	project := c.newProject("Sagebrush Flats pad")
+	qa, ann, bo := c.device("quinn"), c.device("ann"), c.device("bo")
+	cc := c.conn("")
+	spec, ref := setUp(t, qa, project)
+	// The inspectors record before the reference data reaches them: their
+	// tests are pending, and their pushes wait for the reference.
+	record(t, ann, project, spec, ref, 12, 0)
+	record(t, bo, project, spec, ref, 9, 0.5)
+	for _, tt := range ann.Today(project) {
+		if tt.Result.Verdict != qc.Pending {
+			t.Fatalf("offline test without its reference: %v", tt.Result.Verdict)
+		}
+	}
+	rep := syncOK(t, ann, cc, project)
+	if rep.Waiting != 12 || rep.Accepted != 0 {
+		t.Errorf("ann's first sync: %+v, want 12 waiting for the reference", rep)
+	}
+	syncOK(t, qa, cc, project)
+	rep = syncOK(t, ann, cc, project)
+	if rep.Accepted != 12 {
+		t.Errorf("ann's second sync: %+v, want 12 accepted", rep)
+	}
+	syncOK(t, bo, cc, project)
+	for _, s := range []*client.Store{qa, ann} {
+		syncOK(t, s, cc, project)
+	}
+	head := c.head()
+	if head.Seq != 3+12+9 {
+		t.Errorf("server holds %d events, want 24", head.Seq)
+	}
+	for name, s := range map[string]*client.Store{"qa": qa, "ann": ann, "bo": bo} {
+		if v := verified(t, s, project); v != head {
+			t.Errorf("%s verified %d %s, server head %d %s", name, v.Seq, v.Hash, head.Seq, head.Hash)
+		}
+		if s.Digest(project) != c.digest() {
+			t.Errorf("%s's state differs from the server's", name)
+		}
+		if o, _ := s.Outbox(context.Background()); o.Pending != 0 {
+			t.Errorf("%s has %d pending", name, o.Pending)
+		}
+	}
+	for _, tt := range bo.Today(project) {
+		if tt.Result.Verdict == qc.Pending {
+			t.Errorf("after sync a test is still pending: %s", tt.ID)
+		}
+	}
+
+	// Now all three record more and sync at the same time, twice.
+	record(t, ann, project, spec, ref, 20, 1)
+	record(t, bo, project, spec, ref, 20, 2)
+	record(t, qa, project, spec, ref, 5, 3)
+	for range 2 {
+		var wg sync.WaitGroup
+		for _, s := range []*client.Store{qa, ann, bo} {
+			wg.Add(1)
+			go func() {
+				defer wg.Done()
+				if _, err := s.Sync(context.Background(), c.conn(""), project, client.SyncOptions{}); err != nil {
+					t.Error(err)
+				}
+			}()
+		}
+		wg.Wait()
+	}
+	head = c.head()
+	if head.Seq != 24+45 {
+		t.Errorf("server holds %d events, want 69", head.Seq)
+	}
+	for _, s := range []*client.Store{qa, ann, bo} {
+		if v := verified(t, s, project); v != head {
+			t.Errorf("after concurrent syncs a device verified %d, head %d", v.Seq, head.Seq)
+		}
+		if s.Digest(project) != c.digest() {
+			t.Error("after concurrent syncs a device's state differs")
+		}
+	}
+}
+
+// A new device gets the reference data first and then the history, and can
+// grade offline afterwards.
+func TestNewDeviceGetsEverything(t *testing.T) {
+	c := startCluster(t, t.TempDir())
+	project := c.newProject("Sagebrush Flats pad")
+	qa, ann := c.device("quinn"), c.device("ann")
+	cc := c.conn("")
+	spec, ref := setUp(t, qa, project)
+	syncOK(t, qa, cc, project)
+	record(t, ann, project, spec, ref, 5, 0)
+	syncOK(t, ann, cc, project)
+	cy := c.device("cy")
+	var phases []string
+	rep, err := cy.Sync(context.Background(), cc, project, client.SyncOptions{Progress: func(p client.Progress) { phases = append(phases, p.Phase) }})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if rep.Pulled < 8 || len(phases) == 0 {
+		t.Errorf("new device pulled %d, progress %v", rep.Pulled, phases)
+	}
+	r, err := cy.RecordTest(context.Background(), client.TestInput{Project: project, SpecID: spec, ReferenceID: ref, Readings: sandCone(112, 13)})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if r.Result.Verdict != qc.Pass {
+		t.Errorf("a test on the new device, offline: %v", r.Result.Verdict)
+	}
+	if len(cy.Today(project)) != 6 {
+		t.Errorf("the new device shows %d of today's tests, want 6", len(cy.Today(project)))
+	}
+}
+
+// The server recomputes every result; a device that reports numbers its
+// readings do not give is flagged on the server.
+func TestServerFlagsTamperedResult(t *testing.T) {
+	c := startCluster(t, t.TempDir())
+	project := c.newProject("Sagebrush Flats pad")
+	qa, ann := c.device("quinn"), c.device("ann")
+	cc := c.conn("")
+	spec, ref := setUp(t, qa, project)
+	syncOK(t, qa, cc, project)
+	syncOK(t, ann, cc, project)
+	id := ann.NewID()
+	// 100 pcf against 116 is 86 %: a fail, reported as a pass at 97 %.
+	tampered := &ledger.TestRecorded{TestID: id, Content: ledger.TestContent{Readings: sandCone(100, 13), SpecID: spec, ReferenceID: ref,
+		DeviceResults: &ledger.Results{WetDensity: pcf(100) * 1.13, DryDensity: pcf(112.5), Moisture: 13, RelativeCompaction: 97, Verdict: qc.Pass}}}
+	if _, _, err := ann.Record(context.Background(), project, tampered); err != nil {
+		t.Fatal(err)
+	}
+	syncOK(t, ann, cc, project)
+	err := c.srv.Inspect(context.Background(), project, func(p *ledger.Projection) {
+		tt, ok := p.Test(id)
+		if !ok {
+			t.Fatal("test not on the server")
+		}
+		if tt.Result.Verdict != qc.Fail {
+			t.Errorf("server verdict %v, want the recomputed fail", tt.Result.Verdict)
+		}
+		found := false
+		for _, f := range tt.Flags {
+			found = found || f.Code == ledger.DeviceResultMismatch
+		}
+		if !found {
+			t.Errorf("flags %v, want %s", tt.Flags, ledger.DeviceResultMismatch)
+		}
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+}

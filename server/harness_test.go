@@ -1,0 +1,201 @@
+package server_test
+
+import (
+	"context"
+	"io"
+	"log/slog"
+	"net"
+	"path/filepath"
+	"testing"
+	"time"
+
+	"google.golang.org/grpc"
+	"google.golang.org/grpc/credentials/insecure"
+
+	"tamp/client"
+	"tamp/internal/ledger"
+	"tamp/internal/soil"
+	"tamp/internal/sqlite"
+	"tamp/server"
+	"tamp/server/sqlitestore"
+)
+
+// cluster is a real server on 127.0.0.1:0 over a temporary data directory.
+type cluster struct {
+	t       *testing.T
+	dir     string
+	store   *sqlitestore.Store
+	srv     *server.Server
+	g       *grpc.Server
+	addr    string
+	project string
+	done    chan struct{}
+}
+
+func startCluster(t *testing.T, dir string) *cluster {
+	t.Helper()
+	c := &cluster{t: t, dir: dir}
+	c.start("")
+	return c
+}
+
+func (c *cluster) start(addr string) {
+	c.t.Helper()
+	st, err := sqlitestore.Open(context.Background(), filepath.Join(c.dir, "ledger.db"), sqlite.Normal)
+	if err != nil {
+		c.t.Fatal(err)
+	}
+	c.store = st
+	c.srv = server.New(server.Options{Store: st, Logger: slog.New(slog.NewTextHandler(io.Discard, nil))})
+	c.g = grpc.NewServer(grpc.UnaryInterceptor(c.srv.UnaryInterceptor), grpc.StreamInterceptor(c.srv.StreamInterceptor))
+	c.srv.Register(c.g)
+	if addr == "" {
+		addr = "127.0.0.1:0"
+	}
+	var lis net.Listener
+	for i := 0; ; i++ { // a restart reuses the port, which may linger briefly
+		lis, err = net.Listen("tcp", addr)
+		if err == nil || i > 50 {
+			break
+		}
+		time.Sleep(20 * time.Millisecond)
+	}
+	if err != nil {
+		c.t.Fatal(err)
+	}
+	c.addr = lis.Addr().String()
+	c.done = make(chan struct{})
+	go func() { defer close(c.done); _ = c.g.Serve(lis) }()
+	c.t.Cleanup(c.stop)
+}
+
+func (c *cluster) stop() {
+	if c.g == nil {
+		return
+	}
+	c.g.GracefulStop()
+	<-c.done
+	c.store.Close()
+	c.g = nil
+}
+
+func (c *cluster) conn(addr string) *grpc.ClientConn {
+	c.t.Helper()
+	if addr == "" {
+		addr = c.addr
+	}
+	cc, err := grpc.NewClient(addr, grpc.WithTransportCredentials(insecure.NewCredentials()))
+	if err != nil {
+		c.t.Fatal(err)
+	}
+	c.t.Cleanup(func() { cc.Close() })
+	return cc
+}
+
+// device opens a store and enrols it for a new user.
+func (c *cluster) device(name string) *client.Store {
+	c.t.Helper()
+	ctx := context.Background()
+	s, err := client.Open(ctx, filepath.Join(c.t.TempDir(), name+".db"), client.Options{Synchronous: sqlite.Normal})
+	if err != nil {
+		c.t.Fatal(err)
+	}
+	c.t.Cleanup(func() { s.Close() })
+	user, err := c.srv.AddUser(ctx, name)
+	if err != nil {
+		c.t.Fatal(err)
+	}
+	code, _, err := c.srv.IssueEnrollmentCode(ctx, user)
+	if err != nil {
+		c.t.Fatal(err)
+	}
+	if err := s.Enroll(ctx, c.conn(""), code, name+"'s tablet"); err != nil {
+		c.t.Fatal(err)
+	}
+	return s
+}
+
+func (c *cluster) newProject(name string) string {
+	c.t.Helper()
+	id, err := c.srv.CreateProject(context.Background(), name)
+	if err != nil {
+		c.t.Fatal(err)
+	}
+	c.project = id
+	return id
+}
+
+func (c *cluster) head() ledger.Checkpoint {
+	c.t.Helper()
+	h, err := c.store.Head(context.Background(), c.project)
+	if err != nil {
+		c.t.Fatal(err)
+	}
+	return h
+}
+
+func (c *cluster) digest() ledger.Hash {
+	c.t.Helper()
+	var d ledger.Hash
+	if err := c.srv.Inspect(context.Background(), c.project, func(p *ledger.Projection) { d = p.Digest() }); err != nil {
+		c.t.Fatal(err)
+	}
+	return d
+}
+
+func pcf(v float64) float64 { return v * soil.PoundPerCubicFoot }
+
+func sandCone(dry, w float64) ledger.Readings {
+	sd := pcf(99.0)
+	used, cone := 7.00*soil.Pound, 0.53*soil.Pound
+	vol := (used - cone) / sd
+	return ledger.Readings{SandCone: &soil.SandCone{SandDensity: sd, SandUsed: used, ConeCorrection: cone,
+		SoilMass: pcf(dry) * (1 + w/100) * vol, Moisture: w}}
+}
+
+// setUp has the QA device define the project's reference data.
+func setUp(t *testing.T, qa *client.Store, project string) (spec, ref string) {
+	t.Helper()
+	ctx := context.Background()
+	spec, ref = qa.NewID(), qa.NewID()
+	for _, k := range []ledger.Kind{
+		&ledger.ProjectSetUp{Name: "Sagebrush Flats pad", Units: soil.US, WaterDensity: soil.Water624},
+		&ledger.SpecDefined{ID: spec, Name: "pad fill", MinCompaction: "95", MoistureLow: "-2", MoistureHigh: "2"},
+		&ledger.ReferenceAdded{ID: ref, Material: "crushed fines", Procedure: soil.Procedure{Standard: soil.ASTMD698, Method: "A"},
+			MaxDryDensity: pcf(116), OptimumMoisture: 13.5},
+	} {
+		if _, _, err := qa.Record(ctx, project, k); err != nil {
+			t.Fatal(err)
+		}
+	}
+	return spec, ref
+}
+
+func record(t *testing.T, s *client.Store, project, spec, ref string, n int, seed float64) {
+	t.Helper()
+	for i := range n {
+		if _, err := s.RecordTest(context.Background(), client.TestInput{Project: project, SpecID: spec, ReferenceID: ref,
+			Readings: sandCone(104+float64((i*7)%14)+seed, 12.5), Feature: "pad", LiftNumber: uint32(i%5 + 1)}); err != nil {
+			t.Fatal(err)
+		}
+	}
+}
+
+func syncOK(t *testing.T, s *client.Store, cc *grpc.ClientConn, project string) client.SyncReport {
+	t.Helper()
+	rep, err := s.Sync(context.Background(), cc, project, client.SyncOptions{Sleep: func(time.Duration) {}})
+	if err != nil {
+		t.Fatalf("sync: %v", err)
+	}
+	return rep
+}
+
+func verified(t *testing.T, s *client.Store, project string) ledger.Checkpoint {
+	t.Helper()
+	st, err := s.Status(context.Background(), project)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return st.Verified
+}
+

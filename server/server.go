@@ -1,0 +1,628 @@
+package server
+
+import (
+	"context"
+	"crypto/ed25519"
+	"crypto/rand"
+	"crypto/sha256"
+	"crypto/subtle"
+	"encoding/base64"
+	"errors"
+	"fmt"
+	"io"
+	"log/slog"
+	"runtime"
+	"strings"
+	"sync"
+	"time"
+
+	"github.com/google/uuid"
+	"google.golang.org/grpc"
+	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/metadata"
+	"google.golang.org/grpc/status"
+
+	pb "tamp/internal/gen/tamp/v1"
+	"tamp/internal/ledger"
+)
+
+// Options configure a Server.
+type Options struct {
+	Store  Store
+	Now    func() time.Time // time.Now when nil
+	Rand   io.Reader        // crypto/rand when nil
+	Logger *slog.Logger     // slog.Default() when nil
+	// ChunkSize is the largest number of events in one pulled chunk
+	// (default 500); MaxBatch the largest pushed batch (default 2000).
+	ChunkSize int
+	MaxBatch  int
+	// ClockSkewLimit is the device clock skew beyond which a push's events
+	// are flagged (default 5 minutes).
+	ClockSkewLimit time.Duration
+	// CodeLifetime is how long an enrolment code stays valid (default 24 h).
+	CodeLifetime time.Duration
+}
+
+// Server implements the sync and administration services over a Store. It
+// keeps each project's projection in memory, loaded on first use, and
+// serialises writes to one project. It is safe for concurrent use.
+type Server struct {
+	pb.UnimplementedSyncServiceServer
+
+	opts Options
+	log  *slog.Logger
+
+	mu       sync.Mutex
+	projects map[string]*project
+	keys     sync.Map // device id -> ed25519.PublicKey
+}
+
+type project struct {
+	mu     sync.Mutex
+	view   *ledger.Projection
+	loaded bool
+}
+
+// New returns a server over opts.Store.
+func New(opts Options) *Server {
+	if opts.Now == nil {
+		opts.Now = time.Now
+	}
+	if opts.Rand == nil {
+		opts.Rand = rand.Reader
+	}
+	if opts.Logger == nil {
+		opts.Logger = slog.Default()
+	}
+	if opts.ChunkSize <= 0 {
+		opts.ChunkSize = 500
+	}
+	if opts.MaxBatch <= 0 {
+		opts.MaxBatch = 2000
+	}
+	if opts.ClockSkewLimit <= 0 {
+		opts.ClockSkewLimit = ledger.DefaultClockSkewLimit
+	}
+	if opts.CodeLifetime <= 0 {
+		opts.CodeLifetime = 24 * time.Hour
+	}
+	return &Server{opts: opts, log: opts.Logger, projects: map[string]*project{}}
+}
+
+// Register registers the server's services on g.
+func (s *Server) Register(g *grpc.Server) {
+	pb.RegisterSyncServiceServer(g, s)
+	pb.RegisterAdminServiceServer(g, &adminService{s: s})
+}
+
+// adminService implements the administration service.
+type adminService struct {
+	pb.UnimplementedAdminServiceServer
+	s *Server
+}
+
+func (s *Server) newID() string {
+	id, err := uuid.NewV7FromReader(s.opts.Rand)
+	if err != nil {
+		panic(fmt.Sprintf("server: new id: %v", err))
+	}
+	return id.String()
+}
+
+func (s *Server) secret() string {
+	b := make([]byte, 32)
+	if _, err := io.ReadFull(s.opts.Rand, b); err != nil {
+		panic(fmt.Sprintf("server: random: %v", err))
+	}
+	return base64.RawURLEncoding.EncodeToString(b)
+}
+
+func hash(secret string) []byte {
+	h := sha256.Sum256([]byte(secret))
+	return h[:]
+}
+
+// CreateProject creates a project ledger and returns its id.
+func (s *Server) CreateProject(ctx context.Context, name string) (string, error) {
+	id := s.newID()
+	if err := s.opts.Store.CreateProject(ctx, id, name, s.opts.Now()); err != nil {
+		return "", err
+	}
+	return id, nil
+}
+
+// AddUser creates a user and returns its id.
+func (s *Server) AddUser(ctx context.Context, name string) (string, error) {
+	id := s.newID()
+	if err := s.opts.Store.AddUser(ctx, id, name, s.opts.Now()); err != nil {
+		return "", err
+	}
+	return id, nil
+}
+
+// IssueEnrollmentCode returns a one-time code that enrols one device for
+// user, valid for the server's code lifetime.
+func (s *Server) IssueEnrollmentCode(ctx context.Context, user string) (string, time.Time, error) {
+	code := s.secret()
+	exp := s.opts.Now().Add(s.opts.CodeLifetime)
+	if err := s.opts.Store.AddEnrollmentCode(ctx, hash(code), user, exp); err != nil {
+		return "", time.Time{}, err
+	}
+	return code, exp, nil
+}
+
+// EnrollDevice registers a device's key with a one-time code and returns
+// its bearer token, of which the server keeps only the hash.
+func (a *adminService) EnrollDevice(ctx context.Context, req *pb.EnrollDeviceRequest) (*pb.EnrollDeviceResponse, error) {
+	s := a.s
+	if len(req.GetPublicKey()) != ed25519.PublicKeySize {
+		return nil, status.Error(codes.InvalidArgument, "public_key: must be a 32-byte Ed25519 key")
+	}
+	if _, err := uuid.Parse(req.GetDeviceId()); err != nil {
+		return nil, status.Error(codes.InvalidArgument, "device_id: must be a UUID")
+	}
+	token := s.secret()
+	d, err := s.opts.Store.Enroll(ctx, hash(req.GetCode()), Device{ID: req.GetDeviceId(), Name: req.GetDeviceName(), PublicKey: req.GetPublicKey()},
+		hash(token), s.opts.Now())
+	if err != nil {
+		if errors.Is(err, ErrCodeInvalid) {
+			return nil, status.Error(codes.Unauthenticated, "code: the enrolment code is unknown, already used or expired")
+		}
+		return nil, s.internal(ctx, "enrol", err)
+	}
+	s.log.InfoContext(ctx, "device enrolled", "device", d.ID, "user", d.UserID)
+	return &pb.EnrollDeviceResponse{Token: token, UserId: d.UserID}, nil
+}
+
+// internal logs err and returns a generic Internal status.
+func (s *Server) internal(ctx context.Context, op string, err error) error {
+	s.log.ErrorContext(ctx, "internal error", "op", op, "err", err)
+	return status.Error(codes.Internal, "internal error; the server logged the cause")
+}
+
+type deviceKey struct{}
+
+// DeviceFrom returns the authenticated device of a call.
+func DeviceFrom(ctx context.Context) (Device, bool) {
+	d, ok := ctx.Value(deviceKey{}).(Device)
+	return d, ok
+}
+
+// unauthenticated lists the methods callable without a token.
+var unauthenticated = map[string]bool{
+	pb.AdminService_EnrollDevice_FullMethodName: true,
+	"/grpc.health.v1.Health/Check":              true,
+	"/grpc.health.v1.Health/Watch":              true,
+}
+
+func (s *Server) authenticate(ctx context.Context, method string) (context.Context, error) {
+	if unauthenticated[method] || strings.HasPrefix(method, "/grpc.reflection.") {
+		return ctx, nil
+	}
+	md, _ := metadata.FromIncomingContext(ctx)
+	vals := md.Get("authorization")
+	if len(vals) != 1 || !strings.HasPrefix(vals[0], "Bearer ") {
+		return nil, status.Error(codes.Unauthenticated, "authorization: a bearer token is required")
+	}
+	token := strings.TrimPrefix(vals[0], "Bearer ")
+	th := hash(token)
+	d, err := s.opts.Store.DeviceByToken(ctx, th)
+	if errors.Is(err, ErrNoDevice) {
+		return nil, status.Error(codes.Unauthenticated, "authorization: the token is not valid")
+	}
+	if err != nil {
+		return nil, s.internal(ctx, "authenticate", err)
+	}
+	// The lookup was by hash; compare again in constant time.
+	if subtle.ConstantTimeCompare(hash(token), th) != 1 {
+		return nil, status.Error(codes.Unauthenticated, "authorization: the token is not valid")
+	}
+	if d.Revoked {
+		return nil, status.Error(codes.Unauthenticated, "authorization: this device was revoked")
+	}
+	return context.WithValue(ctx, deviceKey{}, d), nil
+}
+
+// UnaryInterceptor authenticates unary calls.
+func (s *Server) UnaryInterceptor(ctx context.Context, req any, info *grpc.UnaryServerInfo, h grpc.UnaryHandler) (any, error) {
+	ctx, err := s.authenticate(ctx, info.FullMethod)
+	if err != nil {
+		return nil, err
+	}
+	return h(ctx, req)
+}
+
+type authedStream struct {
+	grpc.ServerStream
+	ctx context.Context
+}
+
+func (a authedStream) Context() context.Context { return a.ctx }
+
+// StreamInterceptor authenticates streaming calls.
+func (s *Server) StreamInterceptor(srv any, ss grpc.ServerStream, info *grpc.StreamServerInfo, h grpc.StreamHandler) error {
+	ctx, err := s.authenticate(ss.Context(), info.FullMethod)
+	if err != nil {
+		return err
+	}
+	return h(srv, authedStream{ss, ctx})
+}
+
+// project returns a project's state, loading its projection on first use.
+func (s *Server) project(ctx context.Context, id string) (*project, error) {
+	s.mu.Lock()
+	p := s.projects[id]
+	if p == nil {
+		p = &project{}
+		s.projects[id] = p
+	}
+	s.mu.Unlock()
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	if p.loaded {
+		return p, nil
+	}
+	if _, err := s.opts.Store.Head(ctx, id); err != nil {
+		return nil, err
+	}
+	view := ledger.NewProjection(id)
+	var seq uint64
+	for {
+		entries, err := s.opts.Store.After(ctx, id, seq, 1000)
+		if err != nil {
+			return nil, err
+		}
+		for _, e := range entries {
+			sg, err := ledger.Decode(e.Event)
+			if err != nil {
+				return nil, fmt.Errorf("server: stored event %d of %s: %w", e.Seq, id, err)
+			}
+			if _, err := view.Apply(sg); err != nil {
+				return nil, fmt.Errorf("server: stored event %d of %s: %w", e.Seq, id, err)
+			}
+		}
+		if len(entries) < 1000 {
+			break
+		}
+		seq = entries[len(entries)-1].Seq
+	}
+	p.view, p.loaded = view, true
+	return p, nil
+}
+
+// Inspect runs fn with a project's projection, under the project's lock.
+func (s *Server) Inspect(ctx context.Context, id string, fn func(*ledger.Projection)) error {
+	p, err := s.project(ctx, id)
+	if err != nil {
+		return err
+	}
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	fn(p.view)
+	return nil
+}
+
+// Forget drops the projections held in memory, so the next call reloads them
+// from the store (after the store was replaced, in tests of restores).
+func (s *Server) Forget() {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	s.projects = map[string]*project{}
+}
+
+func (s *Server) key(ctx context.Context, device string) (ed25519.PublicKey, bool) {
+	if k, ok := s.keys.Load(device); ok {
+		return k.(ed25519.PublicKey), true
+	}
+	d, err := s.opts.Store.Device(ctx, device)
+	if err != nil {
+		return nil, false
+	}
+	s.keys.Store(device, d.PublicKey)
+	return d.PublicKey, true
+}
+
+func projectErr(s *Server, ctx context.Context, id string, err error) error {
+	if errors.Is(err, ErrNoProject) {
+		return status.Errorf(codes.NotFound, "project_id: no project %s on this server", id)
+	}
+	return s.internal(ctx, "load project", err)
+}
+
+func checkpointFrom(c *pb.Checkpoint) ledger.Checkpoint {
+	cp := ledger.Checkpoint{Project: c.GetProjectId(), Epoch: c.GetEpoch(), Seq: c.GetSequence()}
+	copy(cp.Hash[:], c.GetHash())
+	return cp
+}
+
+func checkpointTo(c ledger.Checkpoint) *pb.Checkpoint {
+	return &pb.Checkpoint{ProjectId: c.Project, Epoch: c.Epoch, Sequence: c.Seq, Hash: c.Hash[:]}
+}
+
+// decoded is one pushed event after decoding and verification.
+type decoded struct {
+	signed ledger.Signed
+	err    error
+}
+
+// verifyAll decodes, verifies and validates events on all cores.
+func (s *Server) verifyAll(ctx context.Context, events []*pb.Event) []decoded {
+	out := make([]decoded, len(events))
+	workers := min(runtime.GOMAXPROCS(0), max(1, len(events)/64))
+	var wg sync.WaitGroup
+	for w := range workers {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for i := w; i < len(events); i += workers {
+				sg, err := ledger.Open(events[i], func(dev string) (ed25519.PublicKey, bool) { return s.key(ctx, dev) })
+				out[i] = decoded{sg, err}
+			}
+		}()
+	}
+	wg.Wait()
+	return out
+}
+
+var reasonToProto = map[ledger.Reason]pb.RejectReason{
+	ledger.Malformed: pb.RejectReason_REJECT_REASON_MALFORMED, ledger.UnknownKind: pb.RejectReason_REJECT_REASON_UNKNOWN_KIND,
+	ledger.BadSignature: pb.RejectReason_REJECT_REASON_BAD_SIGNATURE, ledger.InvalidField: pb.RejectReason_REJECT_REASON_INVALID_FIELD,
+	ledger.ImpossibleReadings: pb.RejectReason_REJECT_REASON_IMPOSSIBLE_READINGS, ledger.WrongProject: pb.RejectReason_REJECT_REASON_WRONG_PROJECT,
+	ledger.ConflictingID: pb.RejectReason_REJECT_REASON_CONFLICTING_ID, ledger.PermissionDenied: pb.RejectReason_REJECT_REASON_PERMISSION_DENIED,
+}
+
+func rejected(id string, err error) *pb.PushOutcome {
+	var r *ledger.Rejection
+	reason := pb.RejectReason_REJECT_REASON_MALFORMED
+	msg := "the event could not be read"
+	if errors.As(err, &r) {
+		reason, msg = reasonToProto[r.Reason], strings.TrimPrefix(r.Error(), "ledger: ")
+	}
+	return &pb.PushOutcome{EventId: id, Status: pb.PushStatus_PUSH_STATUS_REJECTED, Reason: reason, Message: msg}
+}
+
+// Push appends a batch of events to a project's ledger.
+func (s *Server) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushResponse, error) {
+	if n := len(req.GetEvents()); n > s.opts.MaxBatch {
+		return nil, status.Errorf(codes.InvalidArgument, "events: a batch holds at most %d events, not %d", s.opts.MaxBatch, n)
+	}
+	p, err := s.project(ctx, req.GetProjectId())
+	if err != nil {
+		return nil, projectErr(s, ctx, req.GetProjectId(), err)
+	}
+	now := s.opts.Now()
+	var skew int64
+	if t := req.GetDeviceTimeMicros(); t != 0 {
+		skew = t - now.UnixMicro()
+	}
+	items := s.verifyAll(ctx, req.GetEvents())
+
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	head, err := s.opts.Store.Head(ctx, req.GetProjectId())
+	if err != nil {
+		return nil, projectErr(s, ctx, req.GetProjectId(), err)
+	}
+	if head, err = s.checkVerified(ctx, head, req.GetVerified()); err != nil {
+		return nil, s.internal(ctx, "epoch", err)
+	}
+	var ids []string
+	for _, it := range items {
+		if it.err == nil {
+			ids = append(ids, it.signed.Event.ID)
+		}
+	}
+	present, err := s.opts.Store.Sequences(ctx, req.GetProjectId(), ids)
+	if err != nil {
+		return nil, s.internal(ctx, "look up events", err)
+	}
+	skewed := skew > s.skewLimit(p).Microseconds() || -skew > s.skewLimit(p).Microseconds()
+	resp := &pb.PushResponse{ClockSkewMicros: skew}
+	var rows []Row
+	var accepted []ledger.Signed
+	inBatch := map[string]uint64{} // event and record ids accepted in this batch
+	next := head
+	for i, it := range items {
+		id := ""
+		if it.err == nil {
+			id = it.signed.Event.ID
+		} else if sg, err := ledger.FromEnvelope(req.GetEvents()[i]); err == nil {
+			id = sg.Event.ID
+		}
+		if it.err != nil {
+			resp.Outcomes = append(resp.Outcomes, rejected(id, it.err))
+			continue
+		}
+		e := it.signed.Event
+		if e.Project != req.GetProjectId() {
+			resp.Outcomes = append(resp.Outcomes, rejected(id, &ledger.Rejection{Reason: ledger.WrongProject, Field: "project_id",
+				Detail: "the event belongs to project " + e.Project}))
+			continue
+		}
+		if seq, ok := present[id]; ok {
+			resp.Outcomes = append(resp.Outcomes, &pb.PushOutcome{EventId: id, Status: pb.PushStatus_PUSH_STATUS_ALREADY_PRESENT, Sequence: seq})
+			continue
+		}
+		if seq, ok := inBatch[id]; ok {
+			resp.Outcomes = append(resp.Outcomes, &pb.PushOutcome{EventId: id, Status: pb.PushStatus_PUSH_STATUS_ALREADY_PRESENT, Sequence: seq})
+			continue
+		}
+		var waiting []string
+		for _, m := range p.view.Missing(&e) {
+			if _, ok := inBatch[m]; !ok {
+				waiting = append(waiting, m)
+			}
+		}
+		if len(waiting) > 0 {
+			resp.Outcomes = append(resp.Outcomes, &pb.PushOutcome{EventId: id, Status: pb.PushStatus_PUSH_STATUS_WAITING, WaitingFor: waiting,
+				Message: "refers to records the server has not received yet: " + strings.Join(waiting, ", ")})
+			continue
+		}
+		env := it.signed.Bytes()
+		next.Seq++
+		next.Hash = ledger.Link(next.Hash, next.Seq, env)
+		row := Row{Seq: next.Seq, EventID: id, DeviceID: e.Device, DeviceSeq: e.DeviceSeq, Kind: e.Kind.KindName(),
+			RecordID: ledger.RecordID(e.Kind), Envelope: env, Hash: next.Hash, Received: now}
+		if skewed {
+			row.SkewMicros = skew
+		}
+		rows = append(rows, row)
+		accepted = append(accepted, it.signed)
+		inBatch[id] = next.Seq
+		if r := ledger.RecordID(e.Kind); r != "" {
+			inBatch[r] = next.Seq
+		}
+		resp.Outcomes = append(resp.Outcomes, &pb.PushOutcome{EventId: id, Status: pb.PushStatus_PUSH_STATUS_ACCEPTED, Sequence: next.Seq})
+	}
+	if err := s.opts.Store.Append(ctx, req.GetProjectId(), head, rows); err != nil {
+		if errors.Is(err, ErrConflict) {
+			return nil, status.Error(codes.Aborted, "the ledger moved during the push; push again")
+		}
+		return nil, s.internal(ctx, "append", err)
+	}
+	for _, sg := range accepted {
+		if _, err := p.view.Apply(sg); err != nil {
+			// The event is stored; the projection is rebuilt on the next load.
+			s.log.ErrorContext(ctx, "apply accepted event", "event", sg.Event.ID, "err", err)
+			p.loaded = false
+		}
+	}
+	if skewed {
+		s.log.WarnContext(ctx, "device clock skew beyond the limit", "project", req.GetProjectId(), "skew", time.Duration(skew)*time.Microsecond,
+			"events", len(rows))
+	}
+	resp.Head = checkpointTo(next)
+	s.log.InfoContext(ctx, "push", "project", req.GetProjectId(), "events", len(items), "accepted", len(rows), "head", next.Seq)
+	return resp, nil
+}
+
+func (s *Server) skewLimit(p *project) time.Duration {
+	if su := p.view.SetUp(); su != nil && su.ClockSkewLimit > 0 {
+		return su.ClockSkewLimit
+	}
+	return s.opts.ClockSkewLimit
+}
+
+// checkVerified opens a new epoch when a device has verified a point that
+// this ledger does not contain: the ledger was restored from an older copy
+// or rewritten, and devices must re-push what it lost.
+func (s *Server) checkVerified(ctx context.Context, head ledger.Checkpoint, v *pb.Checkpoint) (ledger.Checkpoint, error) {
+	if v == nil || v.GetSequence() == 0 {
+		return head, nil
+	}
+	cp := checkpointFrom(v)
+	lost := false
+	switch {
+	case cp.Epoch > head.Epoch:
+		lost = true
+	case cp.Epoch == head.Epoch:
+		h, ok, err := s.opts.Store.HashAt(ctx, head.Project, cp.Seq)
+		if err != nil {
+			return head, err
+		}
+		lost = !ok || h != cp.Hash
+	}
+	if !lost {
+		return head, nil
+	}
+	epoch := max(head.Epoch, cp.Epoch) + 1
+	if err := s.opts.Store.SetEpoch(ctx, head.Project, epoch); err != nil {
+		return head, err
+	}
+	s.log.WarnContext(ctx, "a device verified a point this ledger lacks: opening a new epoch", "project", head.Project,
+		"device_seq", cp.Seq, "ledger_seq", head.Seq, "epoch", epoch)
+	head.Epoch = epoch
+	return head, nil
+}
+
+// Pull streams a project's ledger after the request's cursor.
+func (s *Server) Pull(req *pb.PullRequest, stream grpc.ServerStreamingServer[pb.PullResponse]) error {
+	ctx := stream.Context()
+	if _, err := s.project(ctx, req.GetProjectId()); err != nil {
+		return projectErr(s, ctx, req.GetProjectId(), err)
+	}
+	head, err := s.opts.Store.Head(ctx, req.GetProjectId())
+	if err != nil {
+		return projectErr(s, ctx, req.GetProjectId(), err)
+	}
+	cursor := req.GetAfter().GetSequence()
+	if req.GetAfter().GetEpoch() != head.Epoch {
+		cursor = min(cursor, head.Seq) // the device decides what a new epoch means; anchor where it can compare
+	}
+	at := min(cursor, head.Seq)
+	h, _, err := s.opts.Store.HashAt(ctx, req.GetProjectId(), at)
+	if err != nil {
+		return s.internal(ctx, "anchor", err)
+	}
+	anchor := checkpointTo(ledger.Checkpoint{Project: head.Project, Epoch: head.Epoch, Seq: at, Hash: h})
+	chunk := s.opts.ChunkSize
+	if m := int(req.GetMaxEvents()); m > 0 && m < chunk {
+		chunk = m
+	}
+	if req.GetReferenceDataFirst() && cursor == 0 {
+		ref, err := s.opts.Store.ReferenceData(ctx, req.GetProjectId())
+		if err != nil {
+			return s.internal(ctx, "reference data", err)
+		}
+		for start := 0; start < len(ref); start += chunk {
+			part := ref[start:min(len(ref), start+chunk)]
+			if err := stream.Send(&pb.PullResponse{Entries: s.entries(part), DeviceKeys: s.keysOf(ctx, part), ReferenceData: true, Anchor: anchor}); err != nil {
+				return err
+			}
+		}
+	}
+	first := true
+	for cursor < head.Seq || first {
+		entries, err := s.opts.Store.After(ctx, req.GetProjectId(), cursor, min(chunk, int(head.Seq-cursor)))
+		if err != nil {
+			return s.internal(ctx, "read ledger", err)
+		}
+		resp := &pb.PullResponse{Entries: s.entries(entries), DeviceKeys: s.keysOf(ctx, entries),
+			Head: checkpointTo(ledger.Checkpoint{Project: head.Project, Epoch: head.Epoch, Seq: at, Hash: h})}
+		if len(entries) > 0 {
+			last := entries[len(entries)-1]
+			cursor = last.Seq
+			resp.Head = checkpointTo(ledger.Checkpoint{Project: head.Project, Epoch: head.Epoch, Seq: last.Seq, Hash: last.Hash})
+		}
+		if first {
+			resp.Anchor = anchor
+			first = false
+		}
+		if err := stream.Send(resp); err != nil {
+			return err
+		}
+		if len(entries) == 0 {
+			break
+		}
+	}
+	return nil
+}
+
+func (s *Server) entries(es []ledger.Entry) []*pb.LedgerEntry {
+	out := make([]*pb.LedgerEntry, 0, len(es))
+	for _, e := range es {
+		sg, err := ledger.Decode(e.Event)
+		if err != nil { // stored events decoded when they were appended
+			continue
+		}
+		out = append(out, &pb.LedgerEntry{Sequence: e.Seq, Event: sg.Proto(), Hash: e.Hash[:]})
+	}
+	return out
+}
+
+func (s *Server) keysOf(ctx context.Context, es []ledger.Entry) map[string][]byte {
+	out := map[string][]byte{}
+	for _, e := range es {
+		sg, err := ledger.Decode(e.Event)
+		if err != nil {
+			continue
+		}
+		if _, ok := out[sg.Event.Device]; ok {
+			continue
+		}
+		if k, ok := s.key(ctx, sg.Event.Device); ok {
+			out[sg.Event.Device] = k
+		}
+	}
+	return out
+}

@@ -1,0 +1,276 @@
+// Package sqlitestore is the SQLite store of the tamp server: the project
+// ledgers and the devices, in one database file through modernc.org/sqlite
+// (WAL, one writer connection, embedded migrations).
+package sqlitestore
+
+import (
+	"context"
+	"database/sql"
+	"embed"
+	"errors"
+	"fmt"
+	"io/fs"
+	"strings"
+	"time"
+
+	"tamp/internal/ledger"
+	"tamp/internal/sqlite"
+	"tamp/server"
+)
+
+//go:embed migrations/*.sql
+var migrationFiles embed.FS
+
+// Store is a server.Store over one SQLite file. It is safe for concurrent use.
+type Store struct {
+	db *sqlite.DB
+}
+
+var _ server.Store = (*Store)(nil)
+
+// Open opens (creating) the store at path.
+func Open(ctx context.Context, path string, sync sqlite.Synchronous) (*Store, error) {
+	m, err := fs.Sub(migrationFiles, "migrations")
+	if err != nil {
+		return nil, err
+	}
+	db, err := sqlite.Open(ctx, path, sqlite.Options{Synchronous: sync, Readers: 8}, m)
+	if err != nil {
+		return nil, fmt.Errorf("sqlitestore: %w", err)
+	}
+	return &Store{db: db}, nil
+}
+
+// Close closes the store.
+func (s *Store) Close() error { return s.db.Close() }
+
+// DB returns the underlying database, for tests and benchmarks.
+func (s *Store) DB() *sqlite.DB { return s.db }
+
+func (s *Store) CreateProject(ctx context.Context, id, name string, now time.Time) error {
+	g := ledger.Genesis(id)
+	_, err := s.db.Writer().ExecContext(ctx, `INSERT INTO projects (project_id, name, epoch, head_seq, head_hash, created_micros)
+		VALUES (?, ?, 1, 0, ?, ?)`, id, name, g[:], now.UnixMicro())
+	if err != nil {
+		return fmt.Errorf("sqlitestore: create project %s: %w", id, err)
+	}
+	return nil
+}
+
+func (s *Store) Head(ctx context.Context, project string) (ledger.Checkpoint, error) {
+	return head(ctx, s.db.Reader(), project)
+}
+
+type queryer interface {
+	QueryRowContext(ctx context.Context, query string, args ...any) *sql.Row
+}
+
+func head(ctx context.Context, q queryer, project string) (ledger.Checkpoint, error) {
+	cp := ledger.Checkpoint{Project: project}
+	var h []byte
+	err := q.QueryRowContext(ctx, `SELECT epoch, head_seq, head_hash FROM projects WHERE project_id = ?`, project).Scan(&cp.Epoch, &cp.Seq, &h)
+	if errors.Is(err, sql.ErrNoRows) {
+		return cp, fmt.Errorf("sqlitestore: project %s: %w", project, server.ErrNoProject)
+	}
+	if err != nil {
+		return cp, fmt.Errorf("sqlitestore: head of %s: %w", project, err)
+	}
+	copy(cp.Hash[:], h)
+	return cp, nil
+}
+
+func (s *Store) After(ctx context.Context, project string, seq uint64, limit int) ([]ledger.Entry, error) {
+	rows, err := s.db.Reader().QueryContext(ctx, `SELECT seq, envelope, hash FROM ledger WHERE project_id = ? AND seq > ? ORDER BY seq LIMIT ?`,
+		project, seq, limit)
+	if err != nil {
+		return nil, fmt.Errorf("sqlitestore: read %s after %d: %w", project, seq, err)
+	}
+	return scanEntries(rows)
+}
+
+func scanEntries(rows *sql.Rows) ([]ledger.Entry, error) {
+	defer rows.Close()
+	var out []ledger.Entry
+	for rows.Next() {
+		var e ledger.Entry
+		var h []byte
+		if err := rows.Scan(&e.Seq, &e.Event, &h); err != nil {
+			return nil, fmt.Errorf("sqlitestore: scan entry: %w", err)
+		}
+		copy(e.Hash[:], h)
+		out = append(out, e)
+	}
+	if err := rows.Err(); err != nil {
+		return nil, fmt.Errorf("sqlitestore: scan entries: %w", err)
+	}
+	return out, nil
+}
+
+func (s *Store) HashAt(ctx context.Context, project string, seq uint64) (ledger.Hash, bool, error) {
+	if seq == 0 {
+		return ledger.Genesis(project), true, nil
+	}
+	var h []byte
+	err := s.db.Reader().QueryRowContext(ctx, `SELECT hash FROM ledger WHERE project_id = ? AND seq = ?`, project, seq).Scan(&h)
+	if errors.Is(err, sql.ErrNoRows) {
+		return ledger.Hash{}, false, nil
+	}
+	if err != nil {
+		return ledger.Hash{}, false, fmt.Errorf("sqlitestore: hash at %d: %w", seq, err)
+	}
+	var out ledger.Hash
+	copy(out[:], h)
+	return out, true, nil
+}
+
+func (s *Store) Sequences(ctx context.Context, project string, ids []string) (map[string]uint64, error) {
+	out := map[string]uint64{}
+	for start := 0; start < len(ids); start += 500 {
+		chunk := ids[start:min(len(ids), start+500)]
+		args := []any{project}
+		for _, id := range chunk {
+			args = append(args, id)
+		}
+		rows, err := s.db.Reader().QueryContext(ctx, `SELECT event_id, seq FROM ledger WHERE project_id = ? AND event_id IN (?`+
+			strings.Repeat(",?", len(chunk)-1)+`)`, args...)
+		if err != nil {
+			return nil, fmt.Errorf("sqlitestore: look up events: %w", err)
+		}
+		for rows.Next() {
+			var id string
+			var seq uint64
+			if err := rows.Scan(&id, &seq); err != nil {
+				rows.Close()
+				return nil, fmt.Errorf("sqlitestore: look up events: %w", err)
+			}
+			out[id] = seq
+		}
+		rows.Close()
+		if err := rows.Err(); err != nil {
+			return nil, fmt.Errorf("sqlitestore: look up events: %w", err)
+		}
+	}
+	return out, nil
+}
+
+func (s *Store) Append(ctx context.Context, project string, h ledger.Checkpoint, rows []server.Row) error {
+	if len(rows) == 0 {
+		return nil
+	}
+	return s.db.Tx(ctx, func(tx *sql.Tx) error {
+		cur, err := head(ctx, tx, project)
+		if err != nil {
+			return err
+		}
+		if cur != h {
+			return fmt.Errorf("sqlitestore: append to %s: head is %d/%d, expected %d/%d: %w", project, cur.Epoch, cur.Seq, h.Epoch, h.Seq, server.ErrConflict)
+		}
+		ins, err := tx.PrepareContext(ctx, `INSERT INTO ledger (project_id, seq, event_id, device_id, device_seq, kind, record_id,
+			envelope, hash, clock_skew_micros, received_micros) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`)
+		if err != nil {
+			return err
+		}
+		defer ins.Close()
+		mark, err := tx.PrepareContext(ctx, `INSERT INTO device_marks (project_id, device_id, high_seq) VALUES (?, ?, ?)
+			ON CONFLICT (project_id, device_id) DO UPDATE SET high_seq = max(high_seq, excluded.high_seq)`)
+		if err != nil {
+			return err
+		}
+		defer mark.Close()
+		for _, r := range rows {
+			if _, err := ins.ExecContext(ctx, project, r.Seq, r.EventID, r.DeviceID, r.DeviceSeq, r.Kind, r.RecordID,
+				r.Envelope, r.Hash[:], r.SkewMicros, r.Received.UnixMicro()); err != nil {
+				return fmt.Errorf("sqlitestore: append %s: %w", r.EventID, err)
+			}
+			if _, err := mark.ExecContext(ctx, project, r.DeviceID, r.DeviceSeq); err != nil {
+				return fmt.Errorf("sqlitestore: device mark: %w", err)
+			}
+		}
+		last := rows[len(rows)-1]
+		_, err = tx.ExecContext(ctx, `UPDATE projects SET head_seq = ?, head_hash = ? WHERE project_id = ?`, last.Seq, last.Hash[:], project)
+		return err
+	})
+}
+
+func (s *Store) SetEpoch(ctx context.Context, project string, epoch uint64) error {
+	res, err := s.db.Writer().ExecContext(ctx, `UPDATE projects SET epoch = ? WHERE project_id = ? AND epoch < ?`, epoch, project, epoch)
+	if err != nil {
+		return fmt.Errorf("sqlitestore: set epoch: %w", err)
+	}
+	if n, _ := res.RowsAffected(); n == 0 {
+		return fmt.Errorf("sqlitestore: set epoch %d of %s: %w", epoch, project, server.ErrConflict)
+	}
+	return nil
+}
+
+func (s *Store) ReferenceData(ctx context.Context, project string) ([]ledger.Entry, error) {
+	rows, err := s.db.Reader().QueryContext(ctx, `SELECT seq, envelope, hash FROM ledger WHERE project_id = ?
+		AND kind IN ('project_set_up', 'spec_defined', 'reference_added', 'equipment_registered', 'standard_count_recorded', 'moisture_correction_set')
+		ORDER BY seq`, project)
+	if err != nil {
+		return nil, fmt.Errorf("sqlitestore: reference data: %w", err)
+	}
+	return scanEntries(rows)
+}
+
+func (s *Store) AddUser(ctx context.Context, id, name string, now time.Time) error {
+	if _, err := s.db.Writer().ExecContext(ctx, `INSERT INTO users (user_id, name, created_micros) VALUES (?, ?, ?)`, id, name, now.UnixMicro()); err != nil {
+		return fmt.Errorf("sqlitestore: add user: %w", err)
+	}
+	return nil
+}
+
+func (s *Store) AddEnrollmentCode(ctx context.Context, codeHash []byte, user string, expires time.Time) error {
+	if _, err := s.db.Writer().ExecContext(ctx, `INSERT INTO enrollment_codes (code_hash, user_id, expires_micros) VALUES (?, ?, ?)`,
+		codeHash, user, expires.UnixMicro()); err != nil {
+		return fmt.Errorf("sqlitestore: add enrolment code: %w", err)
+	}
+	return nil
+}
+
+func (s *Store) Enroll(ctx context.Context, codeHash []byte, d server.Device, tokenHash []byte, now time.Time) (server.Device, error) {
+	err := s.db.Tx(ctx, func(tx *sql.Tx) error {
+		res, err := tx.ExecContext(ctx, `UPDATE enrollment_codes SET used_micros = ? WHERE code_hash = ? AND used_micros IS NULL AND expires_micros > ?`,
+			now.UnixMicro(), codeHash, now.UnixMicro())
+		if err != nil {
+			return err
+		}
+		if n, _ := res.RowsAffected(); n == 0 {
+			return server.ErrCodeInvalid
+		}
+		if err := tx.QueryRowContext(ctx, `SELECT user_id FROM enrollment_codes WHERE code_hash = ?`, codeHash).Scan(&d.UserID); err != nil {
+			return err
+		}
+		_, err = tx.ExecContext(ctx, `INSERT INTO devices (device_id, user_id, name, public_key, token_hash, enrolled_micros) VALUES (?, ?, ?, ?, ?, ?)`,
+			d.ID, d.UserID, d.Name, []byte(d.PublicKey), tokenHash, now.UnixMicro())
+		return err
+	})
+	if err != nil {
+		return server.Device{}, fmt.Errorf("sqlitestore: enrol %s: %w", d.ID, err)
+	}
+	return d, nil
+}
+
+func (s *Store) device(ctx context.Context, where string, arg any) (server.Device, error) {
+	var d server.Device
+	var key []byte
+	var revoked sql.NullInt64
+	err := s.db.Reader().QueryRowContext(ctx, `SELECT device_id, user_id, name, public_key, revoked_micros FROM devices WHERE `+where, arg).
+		Scan(&d.ID, &d.UserID, &d.Name, &key, &revoked)
+	if errors.Is(err, sql.ErrNoRows) {
+		return d, server.ErrNoDevice
+	}
+	if err != nil {
+		return d, fmt.Errorf("sqlitestore: device: %w", err)
+	}
+	d.PublicKey, d.Revoked = key, revoked.Valid
+	return d, nil
+}
+
+func (s *Store) DeviceByToken(ctx context.Context, tokenHash []byte) (server.Device, error) {
+	return s.device(ctx, "token_hash = ?", tokenHash)
+}
+
+func (s *Store) Device(ctx context.Context, id string) (server.Device, error) {
+	return s.device(ctx, "device_id = ?", id)
+}
