@@ -90,6 +90,7 @@ type SyncReport struct {
 	Head                                        ledger.Checkpoint
 	ClockSkew                                   time.Duration // device clock minus server clock
 	Repushed                                    int           // events pushed back after a fork or a new epoch
+	NewEpoch                                    uint64        // the server's new epoch, when it opened one
 }
 
 // SyncStatus is what a user interface shows about a project's sync.
@@ -225,46 +226,55 @@ func (s *Store) sync(ctx context.Context, conn grpc.ClientConnInterface, project
 	}
 	ctx = metadata.AppendToOutgoingContext(ctx, "authorization", "Bearer "+token)
 	sc := pb.NewSyncServiceClient(conn)
+	if err := s.pullPhase(ctx, sc, project, opts, &rep); err != nil {
+		return rep, err
+	}
 	cp, err := s.checkpoint(ctx, project)
 	if err != nil {
 		return rep, err
 	}
-	head, err := s.pushOutbox(ctx, sc, project, cp, opts, &rep)
-	if err != nil {
+	if _, err := s.pushOutbox(ctx, sc, project, cp, opts, &rep); err != nil {
 		return rep, err
 	}
-	if cp.Epoch != 0 && head.Epoch > cp.Epoch {
-		// The server opened a new epoch: it may have lost events. Push back
-		// everything this device holds and verify the new epoch from its start.
-		if err := s.repushAll(ctx, sc, project, opts, &rep); err != nil {
-			return rep, err
-		}
-		cp = ledger.Start(project, head.Epoch)
-		if err := s.resetCheckpoint(ctx, cp); err != nil {
-			return rep, err
-		}
-	}
+	return rep, s.pullPhase(ctx, sc, project, opts, &rep)
+}
+
+// pullPhase pulls the ledger's delta. When the server opened a new epoch
+// it pushes back everything the device holds and verifies the new epoch from
+// its start. When the server's ledger no longer holds the verified point, it
+// refuses to pull over it: it pushes back everything, takes up the new epoch
+// the server opens for it, and returns ErrFork.
+func (s *Store) pullPhase(ctx context.Context, sc pb.SyncServiceClient, project string, opts SyncOptions, rep *SyncReport) error {
+	var err error
 	for range 3 {
-		err = retry(ctx, opts, func() error { return s.pull(ctx, sc, project, opts, &rep) })
+		err = retry(ctx, opts, func() error { return s.pull(ctx, sc, project, opts, rep) })
 		var ne *newEpoch
 		if !errors.As(err, &ne) {
 			break
 		}
-		if err := s.repushAll(ctx, sc, project, opts, &rep); err != nil {
-			return rep, err
+		if _, err := s.repushAll(ctx, sc, project, opts, rep); err != nil {
+			return err
 		}
+		rep.NewEpoch = ne.epoch
 		if err := s.resetCheckpoint(ctx, ledger.Start(project, ne.epoch)); err != nil {
-			return rep, err
+			return err
 		}
 	}
 	var fork *forkError
-	if errors.As(err, &fork) {
-		if rerr := s.repushAll(ctx, sc, project, opts, &rep); rerr != nil {
-			return rep, errors.Join(err, rerr)
-		}
-		return rep, fmt.Errorf("%w: %w", ErrFork, fork.err)
+	if !errors.As(err, &fork) {
+		return err
 	}
-	return rep, err
+	head, rerr := s.repushAll(ctx, sc, project, opts, rep)
+	if rerr != nil {
+		return errors.Join(fmt.Errorf("%w: %w", ErrFork, fork.err), rerr)
+	}
+	if head.Epoch > 0 {
+		rep.NewEpoch = head.Epoch
+		if err := s.resetCheckpoint(ctx, ledger.Start(project, head.Epoch)); err != nil {
+			return err
+		}
+	}
+	return fmt.Errorf("%w: %w", ErrFork, fork.err)
 }
 
 func (s *Store) resetCheckpoint(ctx context.Context, cp ledger.Checkpoint) error {
@@ -401,29 +411,40 @@ func (s *Store) recordOutcomes(ctx context.Context, outs []*pb.PushOutcome, rep 
 }
 
 // repushAll pushes every event the device holds of a project, its own and
-// those it received, so a server that lost events gets them back.
-func (s *Store) repushAll(ctx context.Context, sc pb.SyncServiceClient, project string, opts SyncOptions, rep *SyncReport) error {
+// those it received, so a server that lost events gets them back. It tells
+// the server the point it had verified, so a server that lacks it opens a
+// new epoch; it returns the server's head.
+func (s *Store) repushAll(ctx context.Context, sc pb.SyncServiceClient, project string, opts SyncOptions, rep *SyncReport) (ledger.Checkpoint, error) {
+	var head ledger.Checkpoint
+	cp, err := s.checkpoint(ctx, project)
+	if err != nil {
+		return head, err
+	}
 	events, err := s.outbox(ctx, project, true)
 	if err != nil {
-		return err
+		return head, err
 	}
-	for start := 0; start < len(events); start += opts.BatchSize {
+	for start := 0; start < len(events) || start == 0; start += opts.BatchSize {
 		batch := events[start:min(len(events), start+opts.BatchSize)]
-		req := &pb.PushRequest{ProjectId: project, DeviceTimeMicros: s.now().UnixMicro()}
+		req := &pb.PushRequest{ProjectId: project, DeviceTimeMicros: s.now().UnixMicro(), Verified: checkpointTo(cp)}
 		for _, e := range batch {
 			req.Events = append(req.Events, &pb.Event{Body: e.body, Signature: e.sig})
 		}
 		var resp *pb.PushResponse
 		if err := retry(ctx, opts, func() (err error) { resp, err = sc.Push(ctx, req); return err }); err != nil {
-			return fmt.Errorf("client: push back: %w", err)
+			return head, fmt.Errorf("client: push back: %w", err)
 		}
+		head = checkpointFrom(resp.GetHead())
 		var scratch SyncReport
 		if _, _, err := s.recordOutcomes(ctx, resp.GetOutcomes(), &scratch); err != nil {
-			return err
+			return head, err
 		}
 		rep.Repushed += scratch.Accepted
+		if len(events) == 0 {
+			break
+		}
 	}
-	return nil
+	return head, nil
 }
 
 type forkError struct{ err error }

@@ -79,12 +79,12 @@ func (c *cluster) stop() {
 	c.g = nil
 }
 
-func (c *cluster) conn(addr string) *grpc.ClientConn {
+func (c *cluster) conn(addr string, opts ...grpc.DialOption) *grpc.ClientConn {
 	c.t.Helper()
 	if addr == "" {
 		addr = c.addr
 	}
-	cc, err := grpc.NewClient(addr, grpc.WithTransportCredentials(insecure.NewCredentials()))
+	cc, err := grpc.NewClient(addr, append([]grpc.DialOption{grpc.WithTransportCredentials(insecure.NewCredentials())}, opts...)...)
 	if err != nil {
 		c.t.Fatal(err)
 	}
@@ -198,4 +198,3 @@ func verified(t *testing.T, s *client.Store, project string) ledger.Checkpoint {
 	}
 	return st.Verified
 }
-
