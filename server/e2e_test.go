@@ -2,8 +2,10 @@ package server_test
 
 import (
 	"context"
+	"path/filepath"
 	"sync"
 	"testing"
+	"time"
 
 	"tamp/client"
 	"tamp/internal/ledger"
@@ -160,5 +162,44 @@ func TestServerFlagsTamperedResult(t *testing.T) {
 	})
 	if err != nil {
 		t.Fatal(err)
+	}
+}
+
+// A device whose clock is off by more than the limit has its skew recorded
+// and its pushed events flagged.
+func TestClockSkewFlagged(t *testing.T) {
+	c := startCluster(t, t.TempDir())
+	project := c.newProject("Sagebrush Flats pad")
+	ctx := context.Background()
+	fast := time.Now().Add(12 * time.Minute)
+	s, err := client.Open(ctx, filepath.Join(t.TempDir(), "fast.db"), client.Options{Now: func() time.Time { return fast }})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer s.Close()
+	user, _ := c.srv.AddUser(ctx, "fay")
+	code, _, _ := c.srv.IssueEnrollmentCode(ctx, user)
+	if err := s.Enroll(ctx, c.conn(""), code, "fay's tablet"); err != nil {
+		t.Fatal(err)
+	}
+	ok := c.device("gus")
+	record(t, s, project, "", "", 2, 0)
+	record(t, ok, project, "", "", 2, 0)
+	rep := syncOK(t, s, c.conn(""), project)
+	syncOK(t, ok, c.conn(""), project)
+	if rep.ClockSkew < 11*time.Minute || rep.ClockSkew > 13*time.Minute {
+		t.Errorf("reported skew %v, want about 12 minutes", rep.ClockSkew)
+	}
+	skews, err := c.store.ClockSkews(ctx, project)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(skews) != 2 {
+		t.Errorf("%d events flagged for clock skew, want fay's 2: %v", len(skews), skews)
+	}
+	for _, tt := range s.Today(project) {
+		if _, ok := skews[tt.Current]; !ok {
+			t.Errorf("fay's test %s not flagged", tt.ID)
+		}
 	}
 }

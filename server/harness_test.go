@@ -22,7 +22,7 @@ import (
 
 // cluster is a real server on 127.0.0.1:0 over a temporary data directory.
 type cluster struct {
-	t       *testing.T
+	tb      testing.TB
 	dir     string
 	store   *sqlitestore.Store
 	srv     *server.Server
@@ -32,18 +32,18 @@ type cluster struct {
 	done    chan struct{}
 }
 
-func startCluster(t *testing.T, dir string) *cluster {
+func startCluster(t testing.TB, dir string) *cluster {
 	t.Helper()
-	c := &cluster{t: t, dir: dir}
+	c := &cluster{tb: t, dir: dir}
 	c.start("")
 	return c
 }
 
 func (c *cluster) start(addr string) {
-	c.t.Helper()
+	c.tb.Helper()
 	st, err := sqlitestore.Open(context.Background(), filepath.Join(c.dir, "ledger.db"), sqlite.Normal)
 	if err != nil {
-		c.t.Fatal(err)
+		c.tb.Fatal(err)
 	}
 	c.store = st
 	c.srv = server.New(server.Options{Store: st, Logger: slog.New(slog.NewTextHandler(io.Discard, nil))})
@@ -61,12 +61,12 @@ func (c *cluster) start(addr string) {
 		time.Sleep(20 * time.Millisecond)
 	}
 	if err != nil {
-		c.t.Fatal(err)
+		c.tb.Fatal(err)
 	}
 	c.addr = lis.Addr().String()
 	c.done = make(chan struct{})
 	go func() { defer close(c.done); _ = c.g.Serve(lis) }()
-	c.t.Cleanup(c.stop)
+	c.tb.Cleanup(c.stop)
 }
 
 func (c *cluster) stop() {
@@ -80,65 +80,65 @@ func (c *cluster) stop() {
 }
 
 func (c *cluster) conn(addr string, opts ...grpc.DialOption) *grpc.ClientConn {
-	c.t.Helper()
+	c.tb.Helper()
 	if addr == "" {
 		addr = c.addr
 	}
 	cc, err := grpc.NewClient(addr, append([]grpc.DialOption{grpc.WithTransportCredentials(insecure.NewCredentials())}, opts...)...)
 	if err != nil {
-		c.t.Fatal(err)
+		c.tb.Fatal(err)
 	}
-	c.t.Cleanup(func() { cc.Close() })
+	c.tb.Cleanup(func() { cc.Close() })
 	return cc
 }
 
 // device opens a store and enrols it for a new user.
 func (c *cluster) device(name string) *client.Store {
-	c.t.Helper()
+	c.tb.Helper()
 	ctx := context.Background()
-	s, err := client.Open(ctx, filepath.Join(c.t.TempDir(), name+".db"), client.Options{Synchronous: sqlite.Normal})
+	s, err := client.Open(ctx, filepath.Join(c.tb.TempDir(), name+".db"), client.Options{Synchronous: sqlite.Normal})
 	if err != nil {
-		c.t.Fatal(err)
+		c.tb.Fatal(err)
 	}
-	c.t.Cleanup(func() { s.Close() })
+	c.tb.Cleanup(func() { s.Close() })
 	user, err := c.srv.AddUser(ctx, name)
 	if err != nil {
-		c.t.Fatal(err)
+		c.tb.Fatal(err)
 	}
 	code, _, err := c.srv.IssueEnrollmentCode(ctx, user)
 	if err != nil {
-		c.t.Fatal(err)
+		c.tb.Fatal(err)
 	}
 	if err := s.Enroll(ctx, c.conn(""), code, name+"'s tablet"); err != nil {
-		c.t.Fatal(err)
+		c.tb.Fatal(err)
 	}
 	return s
 }
 
 func (c *cluster) newProject(name string) string {
-	c.t.Helper()
+	c.tb.Helper()
 	id, err := c.srv.CreateProject(context.Background(), name)
 	if err != nil {
-		c.t.Fatal(err)
+		c.tb.Fatal(err)
 	}
 	c.project = id
 	return id
 }
 
 func (c *cluster) head() ledger.Checkpoint {
-	c.t.Helper()
+	c.tb.Helper()
 	h, err := c.store.Head(context.Background(), c.project)
 	if err != nil {
-		c.t.Fatal(err)
+		c.tb.Fatal(err)
 	}
 	return h
 }
 
 func (c *cluster) digest() ledger.Hash {
-	c.t.Helper()
+	c.tb.Helper()
 	var d ledger.Hash
 	if err := c.srv.Inspect(context.Background(), c.project, func(p *ledger.Projection) { d = p.Digest() }); err != nil {
-		c.t.Fatal(err)
+		c.tb.Fatal(err)
 	}
 	return d
 }

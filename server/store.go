@@ -30,6 +30,9 @@ type Store interface {
 	Append(ctx context.Context, project string, head ledger.Checkpoint, rows []Row) error
 	// SetEpoch opens a new epoch of a project's ledger.
 	SetEpoch(ctx context.Context, project string, epoch uint64) error
+	// ClockSkews returns, for the events appended with a device clock skew
+	// beyond the limit, the skew in microseconds, by event id.
+	ClockSkews(ctx context.Context, project string) (map[string]int64, error)
 	// ReferenceData returns the entries of reference kinds (set-up, specs,
 	// references, equipment, corrections), in order.
 	ReferenceData(ctx context.Context, project string) ([]ledger.Entry, error)

@@ -177,12 +177,16 @@ func (s *Store) Append(ctx context.Context, project string, h ledger.Checkpoint,
 			return err
 		}
 		defer mark.Close()
+		high := map[string]uint64{}
 		for _, r := range rows {
 			if _, err := ins.ExecContext(ctx, project, r.Seq, r.EventID, r.DeviceID, r.DeviceSeq, r.Kind, r.RecordID,
 				r.Envelope, r.Hash[:], r.SkewMicros, r.Received.UnixMicro()); err != nil {
 				return fmt.Errorf("sqlitestore: append %s: %w", r.EventID, err)
 			}
-			if _, err := mark.ExecContext(ctx, project, r.DeviceID, r.DeviceSeq); err != nil {
+			high[r.DeviceID] = max(high[r.DeviceID], r.DeviceSeq)
+		}
+		for dev, seq := range high {
+			if _, err := mark.ExecContext(ctx, project, dev, seq); err != nil {
 				return fmt.Errorf("sqlitestore: device mark: %w", err)
 			}
 		}
@@ -211,6 +215,24 @@ func (s *Store) ReferenceData(ctx context.Context, project string) ([]ledger.Ent
 		return nil, fmt.Errorf("sqlitestore: reference data: %w", err)
 	}
 	return scanEntries(rows)
+}
+
+func (s *Store) ClockSkews(ctx context.Context, project string) (map[string]int64, error) {
+	rows, err := s.db.Reader().QueryContext(ctx, `SELECT event_id, clock_skew_micros FROM ledger WHERE project_id = ? AND clock_skew_micros != 0`, project)
+	if err != nil {
+		return nil, fmt.Errorf("sqlitestore: clock skews: %w", err)
+	}
+	defer rows.Close()
+	out := map[string]int64{}
+	for rows.Next() {
+		var id string
+		var skew int64
+		if err := rows.Scan(&id, &skew); err != nil {
+			return nil, fmt.Errorf("sqlitestore: clock skews: %w", err)
+		}
+		out[id] = skew
+	}
+	return out, rows.Err()
 }
 
 func (s *Store) AddUser(ctx context.Context, id, name string, now time.Time) error {

@@ -1,0 +1,185 @@
+// Package daemon is the tampd command: the sync server's daemon. cmd/tampd
+// only calls Run.
+package daemon
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"log/slog"
+	"net"
+	"os"
+	"path/filepath"
+	"time"
+
+	"github.com/spf13/cobra"
+	"google.golang.org/grpc"
+	"google.golang.org/grpc/credentials"
+	"google.golang.org/grpc/health"
+	healthpb "google.golang.org/grpc/health/grpc_health_v1"
+	"google.golang.org/grpc/keepalive"
+	"google.golang.org/grpc/reflection"
+
+	"tamp/internal/sqlite"
+	"tamp/server"
+	"tamp/server/sqlitestore"
+)
+
+// Run executes tampd with args (without the program name). It returns when
+// the command ends; serve ends when ctx is cancelled, after finishing the
+// calls in flight.
+func Run(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	root := &cobra.Command{
+		Use:           "tampd",
+		Short:         "The tamp sync server",
+		SilenceUsage:  true,
+		SilenceErrors: true,
+	}
+	root.AddCommand(newServe(stdout, stderr))
+	root.SetArgs(args)
+	root.SetOut(stdout)
+	root.SetErr(stderr)
+	return root.ExecuteContext(ctx)
+}
+
+// Limits of the server's transport.
+const (
+	maxMessage    = 32 << 20 // bytes in one message
+	callDeadline  = 2 * time.Minute
+	shutdownGrace = 30 * time.Second
+)
+
+type serveFlags struct {
+	data, listen      string
+	tlsCert, tlsKey   string
+	insecure          bool
+	logFormat         string
+	synchronousNormal bool
+}
+
+func newServe(stdout, stderr io.Writer) *cobra.Command {
+	var f serveFlags
+	c := &cobra.Command{
+		Use:   "serve",
+		Short: "Serve the sync and administration services over a data directory",
+		Long: `Serve the sync and administration services of the project ledgers kept in the
+data directory (created if missing). Plain gRPC is allowed on a loopback
+address; any other address needs --tls-cert and --tls-key, or --insecure.
+SIGINT or SIGTERM stops the server after the calls in flight have finished.`,
+		Args: cobra.NoArgs,
+		RunE: func(cmd *cobra.Command, _ []string) error { return serve(cmd.Context(), f, stdout, stderr) },
+	}
+	fl := c.Flags()
+	fl.StringVar(&f.data, "data", "", "data directory (required)")
+	fl.StringVar(&f.listen, "listen", "127.0.0.1:7420", "address to listen on")
+	fl.StringVar(&f.tlsCert, "tls-cert", "", "TLS certificate file (PEM)")
+	fl.StringVar(&f.tlsKey, "tls-key", "", "TLS private key file (PEM)")
+	fl.BoolVar(&f.insecure, "insecure", false, "allow plain gRPC on a non-loopback address (warned on every start)")
+	fl.StringVar(&f.logFormat, "log-format", "json", "log format: json or text")
+	fl.BoolVar(&f.synchronousNormal, "synchronous-normal", false, "use synchronous=NORMAL (faster; may lose the last writes on power loss)")
+	_ = c.MarkFlagRequired("data")
+	return c
+}
+
+func isLoopback(addr string) bool {
+	host, _, err := net.SplitHostPort(addr)
+	if err != nil {
+		return false
+	}
+	if host == "localhost" {
+		return true
+	}
+	ip := net.ParseIP(host)
+	return ip != nil && ip.IsLoopback()
+}
+
+func serve(ctx context.Context, f serveFlags, stdout, stderr io.Writer) error {
+	var handler slog.Handler
+	switch f.logFormat {
+	case "json":
+		handler = slog.NewJSONHandler(stderr, nil)
+	case "text":
+		handler = slog.NewTextHandler(stderr, nil)
+	default:
+		return fmt.Errorf("--log-format: must be json or text, not %q", f.logFormat)
+	}
+	log := slog.New(handler)
+	var opts []grpc.ServerOption
+	switch {
+	case f.tlsCert != "" || f.tlsKey != "":
+		creds, err := credentials.NewServerTLSFromFile(f.tlsCert, f.tlsKey)
+		if err != nil {
+			return fmt.Errorf("--tls-cert/--tls-key: %w", err)
+		}
+		opts = append(opts, grpc.Creds(creds))
+	case !isLoopback(f.listen) && !f.insecure:
+		return fmt.Errorf("--listen %s: a non-loopback address needs --tls-cert and --tls-key (or --insecure)", f.listen)
+	case !isLoopback(f.listen):
+		log.Warn("serving plain gRPC on a non-loopback address: tokens and records cross the network unencrypted", "listen", f.listen)
+	}
+	if err := os.MkdirAll(f.data, 0o700); err != nil {
+		return fmt.Errorf("--data: %w", err)
+	}
+	sync := sqlite.Full
+	if f.synchronousNormal {
+		sync = sqlite.Normal
+	}
+	st, err := sqlitestore.Open(ctx, filepath.Join(f.data, "ledger.db"), sync)
+	if err != nil {
+		return err
+	}
+	defer st.Close()
+	srv := server.New(server.Options{Store: st, Logger: log})
+	opts = append(opts,
+		grpc.ChainUnaryInterceptor(deadline, srv.UnaryInterceptor),
+		grpc.ChainStreamInterceptor(srv.StreamInterceptor),
+		grpc.MaxRecvMsgSize(maxMessage), grpc.MaxSendMsgSize(maxMessage),
+		grpc.KeepaliveParams(keepalive.ServerParameters{Time: 2 * time.Minute, Timeout: 20 * time.Second, MaxConnectionIdle: 30 * time.Minute}),
+		grpc.KeepaliveEnforcementPolicy(keepalive.EnforcementPolicy{MinTime: 20 * time.Second, PermitWithoutStream: true}),
+	)
+	g := grpc.NewServer(opts...)
+	srv.Register(g)
+	hs := health.NewServer()
+	healthpb.RegisterHealthServer(g, hs)
+	reflection.Register(g)
+
+	lis, err := net.Listen("tcp", f.listen)
+	if err != nil {
+		return fmt.Errorf("--listen: %w", err)
+	}
+	fmt.Fprintf(stdout, "tampd: listening on %s\n", lis.Addr())
+	log.Info("serving", "listen", lis.Addr().String(), "data", f.data, "tls", f.tlsCert != "")
+	served := make(chan error, 1)
+	go func() { served <- g.Serve(lis) }()
+	select {
+	case err := <-served:
+		return err
+	case <-ctx.Done():
+	}
+	log.Info("shutting down: finishing calls in flight")
+	hs.Shutdown()
+	stopped := make(chan struct{})
+	go func() { g.GracefulStop(); close(stopped) }()
+	select {
+	case <-stopped:
+	case <-time.After(shutdownGrace):
+		log.Warn("calls still in flight after the grace period; stopping")
+		g.Stop()
+	}
+	if err := <-served; err != nil && !errors.Is(err, grpc.ErrServerStopped) {
+		return err
+	}
+	log.Info("stopped")
+	return nil
+}
+
+// deadline gives every unary call without a deadline the server's own.
+func deadline(ctx context.Context, req any, _ *grpc.UnaryServerInfo, h grpc.UnaryHandler) (any, error) {
+	if _, ok := ctx.Deadline(); !ok {
+		var cancel context.CancelFunc
+		ctx, cancel = context.WithTimeout(ctx, callDeadline)
+		defer cancel()
+	}
+	return h(ctx, req)
+}

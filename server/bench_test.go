@@ -1,0 +1,134 @@
+package server_test
+
+import (
+	"context"
+	"crypto/ed25519"
+	"database/sql"
+	"path/filepath"
+	"sync"
+	"testing"
+	"time"
+
+	"github.com/google/uuid"
+	"google.golang.org/grpc/metadata"
+
+	pb "tamp/internal/gen/tamp/v1"
+	"tamp/internal/ledger"
+	"tamp/internal/sqlite"
+	"tamp/server/sqlitestore"
+)
+
+const benchBatch = 500
+
+// BenchmarkPush measures push throughput in events per second through the
+// real gRPC path (decode, signature check, validation, projection, append
+// with the hash chain), and in the same run the raw SQLite insert rate of
+// the same rows in batches of the same size, and reports their ratio.
+func BenchmarkPush(b *testing.B) {
+	c := startCluster(b, b.TempDir())
+	ctx := context.Background()
+	project, _ := c.srv.CreateProject(ctx, "bench")
+	cc := c.conn("")
+	// Two devices push at once, as a crew does at day's end: one verifies
+	// signatures while the other's batch is being appended.
+	type pusher struct {
+		ctx     context.Context
+		batches [][]ledger.Signed
+	}
+	var pushers []pusher
+	for d := range 2 {
+		user, _ := c.srv.AddUser(ctx, "bench")
+		code, _, _ := c.srv.IssueEnrollmentCode(ctx, user)
+		pub, key, _ := ed25519.GenerateKey(nil)
+		dev := uuid.Must(uuid.NewV7()).String()
+		resp, err := pb.NewAdminServiceClient(cc).EnrollDevice(ctx, &pb.EnrollDeviceRequest{Code: code, DeviceId: dev, PublicKey: pub})
+		if err != nil {
+			b.Fatal(err)
+		}
+		p := pusher{ctx: metadata.AppendToOutgoingContext(ctx, "authorization", "Bearer "+resp.GetToken())}
+		// Sign every event before the clock starts; each device pushes half.
+		var seq uint64
+		for range (b.N + 1 - d) / 2 {
+			var batch []ledger.Signed
+			for range benchBatch {
+				seq++
+				e := ledger.Event{ID: uuid.Must(uuid.NewV7()).String(), Project: project, Author: user, Device: dev, DeviceSeq: seq,
+					HLC: ledger.HLC{Wall: time.Now().UnixMicro(), Logical: uint32(seq)}, DeviceTime: time.Now().UTC().Truncate(time.Microsecond),
+					Kind: &ledger.TestRecorded{TestID: uuid.Must(uuid.NewV7()).String(), Content: ledger.TestContent{Readings: sandCone(110, 12), Feature: "pad"}}}
+				s, err := ledger.Seal(e, key)
+				if err != nil {
+					b.Fatal(err)
+				}
+				batch = append(batch, s)
+			}
+			p.batches = append(p.batches, batch)
+		}
+		pushers = append(pushers, p)
+	}
+	sc := pb.NewSyncServiceClient(cc)
+	b.ResetTimer()
+	start := time.Now()
+	var wg sync.WaitGroup
+	for _, p := range pushers {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for _, batch := range p.batches {
+				req := &pb.PushRequest{ProjectId: project}
+				for _, s := range batch {
+					req.Events = append(req.Events, s.Proto())
+				}
+				r, err := sc.Push(p.ctx, req)
+				if err != nil {
+					b.Error(err)
+					return
+				}
+				if n := len(r.GetOutcomes()); n != benchBatch || r.GetOutcomes()[0].GetStatus() != pb.PushStatus_PUSH_STATUS_ACCEPTED {
+					b.Errorf("outcomes: %d, first %v", n, r.GetOutcomes()[0])
+					return
+				}
+			}
+		}()
+	}
+	wg.Wait()
+	batches := append(pushers[0].batches, pushers[1].batches...)
+	pushRate := float64(b.N*benchBatch) / time.Since(start).Seconds()
+	b.StopTimer()
+
+	// The same rows, inserted straight into a fresh store's ledger table.
+	raw, err := sqlitestore.Open(ctx, filepath.Join(b.TempDir(), "raw.db"), sqlite.Normal)
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer raw.Close()
+	if err := raw.CreateProject(ctx, project, "bench", time.Now()); err != nil {
+		b.Fatal(err)
+	}
+	start = time.Now()
+	n := uint64(0)
+	for _, batch := range batches {
+		err := raw.DB().Tx(ctx, func(tx *sql.Tx) error {
+			ins, err := tx.Prepare(`INSERT INTO ledger (project_id, seq, event_id, device_id, device_seq, kind, record_id, envelope, hash, received_micros)
+				VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`)
+			if err != nil {
+				return err
+			}
+			defer ins.Close()
+			for _, s := range batch {
+				n++
+				var h ledger.Hash
+				if _, err := ins.Exec(project, n, s.Event.ID, s.Event.Device, s.Event.DeviceSeq, "test_recorded", ledger.RecordID(s.Event.Kind), s.Bytes(), h[:], 0); err != nil {
+					return err
+				}
+			}
+			return nil
+		})
+		if err != nil {
+			b.Fatal(err)
+		}
+	}
+	rawRate := float64(n) / time.Since(start).Seconds()
+	b.ReportMetric(pushRate, "push-events/s")
+	b.ReportMetric(rawRate, "raw-rows/s")
+	b.ReportMetric(pushRate/rawRate, "push/raw")
+}

@@ -1,0 +1,47 @@
+// Package server is the tamp sync server: the gRPC sync and administration
+// services over a Store of project ledgers (package sqlitestore is the
+// embedded SQLite one).
+//
+// # Push
+//
+// A device pushes a batch of signed events. The server decodes each,
+// verifies its signature with the authoring device's registered key (on all
+// cores), validates it, and appends the accepted ones in one transaction,
+// each with its project sequence number and chain hash
+// h(n) = SHA-256(h(n-1) || n || event bytes), and the device's high-water
+// mark. The reply gives every event's outcome: accepted with its sequence,
+// already present (appending is idempotent on the event id), waiting (it
+// refers to a record the server has not received; the device retries it),
+// or rejected with a reason. A rejected event never blocks the others. The
+// server keeps each project's projection in memory and so recomputes every
+// test's result from its raw readings as it arrives, flagging device
+// results that disagree.
+//
+// # Pull
+//
+// Pull streams a project's ledger after the device's cursor in bounded
+// chunks, each with the chain hashes and the keys of the devices that signed
+// its events. The first chunk carries the server's chain point at the
+// cursor (the anchor), so a device detects a server restored from an older
+// copy or a rewritten history before it takes anything. A first pull can
+// ask for the reference data (set-up, specs, references, equipment) ahead of
+// the history, so a new device can grade offline as soon as it has them.
+//
+// # Epochs
+//
+// A device sends the chain point it last verified with each push. When the
+// server's ledger does not contain that point, the server opens a new
+// epoch: devices that see it push back everything they hold, and verify
+// the new epoch from its start, so no acknowledged event is lost.
+//
+// # Clock skew
+//
+// Each push carries the device's clock. A difference from the server's
+// beyond the project's limit (five minutes unless the set-up says otherwise)
+// is logged, returned to the device, and recorded on every event of that
+// push for review.
+//
+// The Store interface is narrow so that a PostgreSQL store can serve a
+// deployment of several servers; the in-memory projections assume one server
+// per project until then.
+package server
