@@ -62,6 +62,7 @@ type Store struct {
 	seq      uint64
 	clock    *ledger.Clock
 	views    map[string]*ledger.Projection
+	enrolled []string
 }
 
 // Open opens the store at path, creating it (and the device's key) on first

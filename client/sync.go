@@ -8,6 +8,8 @@ import (
 	"fmt"
 	"io"
 	"math/rand/v2"
+	"slices"
+	"strings"
 	"time"
 
 	"google.golang.org/grpc"
@@ -25,6 +27,10 @@ import (
 // everything it holds; the next sync continues in the server's new epoch.
 var ErrFork = errors.New("client: the server's ledger forked from what this device verified")
 
+// ErrRevoked is returned by Sync when the server says this device was
+// revoked. Its pending entries stay in the store and are listed by Outbox.
+var ErrRevoked = errors.New("client: the server revoked this device")
+
 // Enroll registers the device with a server using a one-time code, keeping
 // the bearer token and the user the server enrolled it for.
 func (s *Store) Enroll(ctx context.Context, conn grpc.ClientConnInterface, code, name string) error {
@@ -39,7 +45,15 @@ func (s *Store) Enroll(ctx context.Context, conn grpc.ClientConnInterface, code,
 		return fmt.Errorf("client: store token: %w", err)
 	}
 	s.user = resp.GetUserId()
+	s.enrolled = resp.GetProjectIds()
 	return nil
+}
+
+// EnrolledProjects returns the projects the server listed at enrolment.
+func (s *Store) EnrolledProjects() []string {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return slices.Clone(s.enrolled)
 }
 
 func (s *Store) token(ctx context.Context) (string, error) {
@@ -211,6 +225,9 @@ func retry(ctx context.Context, o SyncOptions, call func() error) error {
 func (s *Store) Sync(ctx context.Context, conn grpc.ClientConnInterface, project string, opts SyncOptions) (SyncReport, error) {
 	opts.defaults()
 	rep, err := s.sync(ctx, conn, project, opts)
+	if status.Code(err) == codes.Unauthenticated && strings.Contains(err.Error(), "revoked") {
+		err = fmt.Errorf("%w: %w", ErrRevoked, err)
+	}
 	s.noteAttempt(context.WithoutCancel(ctx), project, err)
 	return rep, err
 }

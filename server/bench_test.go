@@ -15,6 +15,7 @@ import (
 	pb "tamp/internal/gen/tamp/v1"
 	"tamp/internal/ledger"
 	"tamp/internal/sqlite"
+	"tamp/server"
 	"tamp/server/sqlitestore"
 )
 
@@ -37,7 +38,10 @@ func BenchmarkPush(b *testing.B) {
 	}
 	var pushers []pusher
 	for d := range 2 {
-		user, _ := c.srv.AddUser(ctx, "bench")
+		user, _ := c.srv.AddUser(ctx, "bench", false)
+		if err := c.srv.AddMember(ctx, project, user, server.Inspector); err != nil {
+			b.Fatal(err)
+		}
 		code, _, _ := c.srv.IssueEnrollmentCode(ctx, user)
 		pub, key, _ := ed25519.GenerateKey(nil)
 		dev := uuid.Must(uuid.NewV7()).String()

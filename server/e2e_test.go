@@ -10,6 +10,7 @@ import (
 	"tamp/client"
 	"tamp/internal/ledger"
 	"tamp/internal/qc"
+	"tamp/server"
 )
 
 // Three devices record offline, sync in turn and concurrently, and all hold
@@ -17,9 +18,9 @@ import (
 func TestThreeDevicesConverge(t *testing.T) {
 	c := startCluster(t, t.TempDir())
 	project := c.newProject("Sagebrush Flats pad")
-	qa, ann, bo := c.device("quinn"), c.device("ann"), c.device("bo")
+	qa, ann, bo := c.device("quinn", server.QA), c.device("ann", server.Inspector), c.device("bo", server.Inspector)
 	cc := c.conn("")
-	spec, ref := setUp(t, qa, project)
+	spec, ref := setUp(t, c, qa, project)
 	// The inspectors record before the reference data reaches them: their
 	// tests are pending, and their pushes wait for the reference.
 	record(t, ann, project, spec, ref, 12, 0)
@@ -66,7 +67,11 @@ func TestThreeDevicesConverge(t *testing.T) {
 	// Now all three record more and sync at the same time, twice.
 	record(t, ann, project, spec, ref, 20, 1)
 	record(t, bo, project, spec, ref, 20, 2)
-	record(t, qa, project, spec, ref, 5, 3)
+	for range 5 {
+		if _, _, err := qa.Record(context.Background(), project, &ledger.SpecDefined{ID: qa.NewID(), Name: "trench backfill", MinCompaction: "90"}); err != nil {
+			t.Fatal(err)
+		}
+	}
 	for range 2 {
 		var wg sync.WaitGroup
 		for _, s := range []*client.Store{qa, ann, bo} {
@@ -99,13 +104,13 @@ func TestThreeDevicesConverge(t *testing.T) {
 func TestNewDeviceGetsEverything(t *testing.T) {
 	c := startCluster(t, t.TempDir())
 	project := c.newProject("Sagebrush Flats pad")
-	qa, ann := c.device("quinn"), c.device("ann")
+	qa, ann := c.device("quinn", server.QA), c.device("ann", server.Inspector)
 	cc := c.conn("")
-	spec, ref := setUp(t, qa, project)
+	spec, ref := setUp(t, c, qa, project)
 	syncOK(t, qa, cc, project)
 	record(t, ann, project, spec, ref, 5, 0)
 	syncOK(t, ann, cc, project)
-	cy := c.device("cy")
+	cy := c.device("cy", server.Inspector)
 	var phases []string
 	rep, err := cy.Sync(context.Background(), cc, project, client.SyncOptions{Progress: func(p client.Progress) { phases = append(phases, p.Phase) }})
 	if err != nil {
@@ -131,9 +136,9 @@ func TestNewDeviceGetsEverything(t *testing.T) {
 func TestServerFlagsTamperedResult(t *testing.T) {
 	c := startCluster(t, t.TempDir())
 	project := c.newProject("Sagebrush Flats pad")
-	qa, ann := c.device("quinn"), c.device("ann")
+	qa, ann := c.device("quinn", server.QA), c.device("ann", server.Inspector)
 	cc := c.conn("")
-	spec, ref := setUp(t, qa, project)
+	spec, ref := setUp(t, c, qa, project)
 	syncOK(t, qa, cc, project)
 	syncOK(t, ann, cc, project)
 	id := ann.NewID()
@@ -177,12 +182,15 @@ func TestClockSkewFlagged(t *testing.T) {
 		t.Fatal(err)
 	}
 	defer s.Close()
-	user, _ := c.srv.AddUser(ctx, "fay")
+	user, _ := c.srv.AddUser(ctx, "fay", false)
+	if err := c.srv.AddMember(ctx, project, user, server.Inspector); err != nil {
+		t.Fatal(err)
+	}
 	code, _, _ := c.srv.IssueEnrollmentCode(ctx, user)
 	if err := s.Enroll(ctx, c.conn(""), code, "fay's tablet"); err != nil {
 		t.Fatal(err)
 	}
-	ok := c.device("gus")
+	ok := c.device("gus", server.Inspector)
 	record(t, s, project, "", "", 2, 0)
 	record(t, ok, project, "", "", 2, 0)
 	rep := syncOK(t, s, c.conn(""), project)

@@ -8,4 +8,5 @@ var (
 	ErrNoDevice    = errors.New("server: no such device")
 	ErrCodeInvalid = errors.New("server: enrolment code is unknown, used or expired")
 	ErrConflict    = errors.New("server: the ledger moved; retry")
+	ErrNoUser      = errors.New("server: no such user")
 )

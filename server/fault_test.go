@@ -17,6 +17,7 @@ import (
 
 	"tamp/client"
 	"tamp/internal/ledger"
+	"tamp/server"
 )
 
 // cutProxy forwards TCP connections to a target and cuts each one after a
@@ -99,8 +100,8 @@ func TestCutConnections(t *testing.T) {
 	}
 	c := startCluster(t, t.TempDir())
 	project := c.newProject("Sagebrush Flats pad")
-	qa, ann, bo := c.device("quinn"), c.device("ann"), c.device("bo")
-	spec, ref := setUp(t, qa, project)
+	qa, ann, bo := c.device("quinn", server.QA), c.device("ann", server.Inspector), c.device("bo", server.Inspector)
+	spec, ref := setUp(t, c, qa, project)
 	syncOK(t, qa, c.conn(""), project)
 	proxy := newCutProxy(t, c.addr, 42, 6_000)
 	cut := c.conn(proxy.addr(), grpc.WithConnectParams(grpc.ConnectParams{
@@ -173,8 +174,8 @@ func TestRestoredFromBackup(t *testing.T) {
 	dir := t.TempDir()
 	c := startCluster(t, dir)
 	project := c.newProject("Sagebrush Flats pad")
-	qa, ann, bo := c.device("quinn"), c.device("ann"), c.device("bo")
-	spec, ref := setUp(t, qa, project)
+	qa, ann, bo := c.device("quinn", server.QA), c.device("ann", server.Inspector), c.device("bo", server.Inspector)
+	spec, ref := setUp(t, c, qa, project)
 	for _, s := range []*client.Store{qa, ann, bo} {
 		syncOK(t, s, c.conn(""), project)
 	}

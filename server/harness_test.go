@@ -2,6 +2,7 @@ package server_test
 
 import (
 	"context"
+	"crypto/sha256"
 	"io"
 	"log/slog"
 	"net"
@@ -30,6 +31,12 @@ type cluster struct {
 	addr    string
 	project string
 	done    chan struct{}
+	extra   []grpc.ServerOption
+}
+
+func hashOf(secret string) []byte {
+	h := sha256.Sum256([]byte(secret))
+	return h[:]
 }
 
 func startCluster(t testing.TB, dir string) *cluster {
@@ -47,7 +54,8 @@ func (c *cluster) start(addr string) {
 	}
 	c.store = st
 	c.srv = server.New(server.Options{Store: st, Logger: slog.New(slog.NewTextHandler(io.Discard, nil))})
-	c.g = grpc.NewServer(grpc.UnaryInterceptor(c.srv.UnaryInterceptor), grpc.StreamInterceptor(c.srv.StreamInterceptor))
+	c.g = grpc.NewServer(append([]grpc.ServerOption{grpc.UnaryInterceptor(c.srv.UnaryInterceptor),
+		grpc.StreamInterceptor(c.srv.StreamInterceptor)}, c.extra...)...)
 	c.srv.Register(c.g)
 	if addr == "" {
 		addr = "127.0.0.1:0"
@@ -92,8 +100,9 @@ func (c *cluster) conn(addr string, opts ...grpc.DialOption) *grpc.ClientConn {
 	return cc
 }
 
-// device opens a store and enrols it for a new user.
-func (c *cluster) device(name string) *client.Store {
+// device opens a store and enrols it for a new user with a role on the
+// cluster's project.
+func (c *cluster) device(name string, role server.Role) *client.Store {
 	c.tb.Helper()
 	ctx := context.Background()
 	s, err := client.Open(ctx, filepath.Join(c.tb.TempDir(), name+".db"), client.Options{Synchronous: sqlite.Normal})
@@ -101,8 +110,11 @@ func (c *cluster) device(name string) *client.Store {
 		c.tb.Fatal(err)
 	}
 	c.tb.Cleanup(func() { s.Close() })
-	user, err := c.srv.AddUser(ctx, name)
+	user, err := c.srv.AddUser(ctx, name, false)
 	if err != nil {
+		c.tb.Fatal(err)
+	}
+	if err := c.srv.AddMember(ctx, c.project, user, role); err != nil {
 		c.tb.Fatal(err)
 	}
 	code, _, err := c.srv.IssueEnrollmentCode(ctx, user)
@@ -153,13 +165,18 @@ func sandCone(dry, w float64) ledger.Readings {
 		SoilMass: pcf(dry) * (1 + w/100) * vol, Moisture: w}}
 }
 
-// setUp has the QA device define the project's reference data.
-func setUp(t *testing.T, qa *client.Store, project string) (spec, ref string) {
+// setUp has an administrator set the project up and the QA device define
+// its reference data; the administrator's device syncs.
+func setUp(t *testing.T, c *cluster, qa *client.Store, project string) (spec, ref string) {
 	t.Helper()
 	ctx := context.Background()
+	admin := c.device("ada", server.Admin)
+	if _, _, err := admin.Record(ctx, project, &ledger.ProjectSetUp{Name: "Sagebrush Flats pad", Units: soil.US, WaterDensity: soil.Water624}); err != nil {
+		t.Fatal(err)
+	}
+	syncOK(t, admin, c.conn(""), project)
 	spec, ref = qa.NewID(), qa.NewID()
 	for _, k := range []ledger.Kind{
-		&ledger.ProjectSetUp{Name: "Sagebrush Flats pad", Units: soil.US, WaterDensity: soil.Water624},
 		&ledger.SpecDefined{ID: spec, Name: "pad fill", MinCompaction: "95", MoistureLow: "-2", MoistureHigh: "2"},
 		&ledger.ReferenceAdded{ID: ref, Material: "crushed fines", Procedure: soil.Procedure{Standard: soil.ASTMD698, Method: "A"},
 			MaxDryDensity: pcf(116), OptimumMoisture: 13.5},

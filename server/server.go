@@ -41,6 +41,10 @@ type Options struct {
 	ClockSkewLimit time.Duration
 	// CodeLifetime is how long an enrolment code stays valid (default 24 h).
 	CodeLifetime time.Duration
+	// PushRate and PushBurst limit each device's pushes: PushRate a second
+	// on average, PushBurst at once (defaults 20 and 60).
+	PushRate  float64
+	PushBurst int
 }
 
 // Server implements the sync and administration services over a Store. It
@@ -55,6 +59,7 @@ type Server struct {
 	mu       sync.Mutex
 	projects map[string]*project
 	keys     sync.Map // device id -> ed25519.PublicKey
+	limits   *limiter
 }
 
 type project struct {
@@ -86,7 +91,14 @@ func New(opts Options) *Server {
 	if opts.CodeLifetime <= 0 {
 		opts.CodeLifetime = 24 * time.Hour
 	}
-	return &Server{opts: opts, log: opts.Logger, projects: map[string]*project{}}
+	if opts.PushRate <= 0 {
+		opts.PushRate = 20
+	}
+	if opts.PushBurst <= 0 {
+		opts.PushBurst = 60
+	}
+	return &Server{opts: opts, log: opts.Logger, projects: map[string]*project{},
+		limits: &limiter{rate: opts.PushRate, burst: float64(opts.PushBurst), buckets: map[string]*bucket{}}}
 }
 
 // Register registers the server's services on g.
@@ -132,12 +144,41 @@ func (s *Server) CreateProject(ctx context.Context, name string) (string, error)
 }
 
 // AddUser creates a user and returns its id.
-func (s *Server) AddUser(ctx context.Context, name string) (string, error) {
+func (s *Server) AddUser(ctx context.Context, name string, serverAdmin bool) (string, error) {
 	id := s.newID()
-	if err := s.opts.Store.AddUser(ctx, id, name, s.opts.Now()); err != nil {
+	if err := s.opts.Store.AddUser(ctx, id, name, serverAdmin, s.opts.Now()); err != nil {
 		return "", err
 	}
 	return id, nil
+}
+
+// AddMember gives a user a role on a project.
+func (s *Server) AddMember(ctx context.Context, project, user string, role Role) error {
+	if !validRole(role) {
+		return fmt.Errorf("server: role %q: must be inspector, office, qa or admin", role)
+	}
+	if _, err := s.opts.Store.Head(ctx, project); err != nil {
+		return err
+	}
+	return s.opts.Store.SetMember(ctx, project, user, role)
+}
+
+// Bootstrap creates the first administrator of an empty server and returns
+// its id and a one-time enrolment code for its device. It refuses a server
+// that already has users.
+func (s *Server) Bootstrap(ctx context.Context, name string) (user, code string, expires time.Time, err error) {
+	n, err := s.opts.Store.CountUsers(ctx)
+	if err != nil {
+		return "", "", time.Time{}, err
+	}
+	if n > 0 {
+		return "", "", time.Time{}, fmt.Errorf("server: already initialised: %d users exist", n)
+	}
+	if user, err = s.AddUser(ctx, name, true); err != nil {
+		return "", "", time.Time{}, err
+	}
+	code, expires, err = s.IssueEnrollmentCode(ctx, user)
+	return user, code, expires, err
 }
 
 // IssueEnrollmentCode returns a one-time code that enrols one device for
@@ -171,7 +212,11 @@ func (a *adminService) EnrollDevice(ctx context.Context, req *pb.EnrollDeviceReq
 		return nil, s.internal(ctx, "enrol", err)
 	}
 	s.log.InfoContext(ctx, "device enrolled", "device", d.ID, "user", d.UserID)
-	return &pb.EnrollDeviceResponse{Token: token, UserId: d.UserID}, nil
+	projects, err := s.opts.Store.ProjectsOf(ctx, d.UserID)
+	if err != nil {
+		return nil, s.internal(ctx, "enrol", err)
+	}
+	return &pb.EnrollDeviceResponse{Token: token, UserId: d.UserID, ProjectIds: projects}, nil
 }
 
 // internal logs err and returns a generic Internal status.
@@ -384,7 +429,14 @@ func rejected(id string, err error) *pb.PushOutcome {
 // Push appends a batch of events to a project's ledger.
 func (s *Server) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushResponse, error) {
 	if n := len(req.GetEvents()); n > s.opts.MaxBatch {
-		return nil, status.Errorf(codes.InvalidArgument, "events: a batch holds at most %d events, not %d", s.opts.MaxBatch, n)
+		return nil, status.Errorf(codes.ResourceExhausted, "events: a batch holds at most %d events, not %d", s.opts.MaxBatch, n)
+	}
+	dev, err := s.requireMember(ctx, req.GetProjectId())
+	if err != nil {
+		return nil, err
+	}
+	if !s.limits.allow(dev.ID, s.opts.Now()) {
+		return nil, status.Errorf(codes.ResourceExhausted, "rate: device %s pushes faster than %.0f batches a second; slow down", dev.ID, s.opts.PushRate)
 	}
 	p, err := s.project(ctx, req.GetProjectId())
 	if err != nil {
@@ -422,6 +474,7 @@ func (s *Server) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushRespons
 	var accepted []ledger.Signed
 	inBatch := map[string]uint64{} // event and record ids accepted in this batch
 	next := head
+	auth := s.authorizer(ctx, req.GetProjectId(), p.view)
 	for i, it := range items {
 		id := ""
 		if it.err == nil {
@@ -445,6 +498,14 @@ func (s *Server) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushRespons
 		}
 		if seq, ok := inBatch[id]; ok {
 			resp.Outcomes = append(resp.Outcomes, &pb.PushOutcome{EventId: id, Status: pb.PushStatus_PUSH_STATUS_ALREADY_PRESENT, Sequence: seq})
+			continue
+		}
+		deny, err := auth.check(e)
+		if err != nil {
+			return nil, s.internal(ctx, "authorize", err)
+		}
+		if deny != nil {
+			resp.Outcomes = append(resp.Outcomes, rejected(id, deny))
 			continue
 		}
 		var waiting []string
@@ -538,6 +599,9 @@ func (s *Server) checkVerified(ctx context.Context, head ledger.Checkpoint, v *p
 // Pull streams a project's ledger after the request's cursor.
 func (s *Server) Pull(req *pb.PullRequest, stream grpc.ServerStreamingServer[pb.PullResponse]) error {
 	ctx := stream.Context()
+	if _, err := s.requireMember(ctx, req.GetProjectId()); err != nil {
+		return err
+	}
 	if _, err := s.project(ctx, req.GetProjectId()); err != nil {
 		return projectErr(s, ctx, req.GetProjectId(), err)
 	}

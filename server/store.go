@@ -37,8 +37,25 @@ type Store interface {
 	// references, equipment, corrections), in order.
 	ReferenceData(ctx context.Context, project string) ([]ledger.Entry, error)
 
-	// AddUser creates a user.
-	AddUser(ctx context.Context, id, name string, now time.Time) error
+	// AddUser creates a user; a server administrator may create projects
+	// and manage all of them.
+	AddUser(ctx context.Context, id, name string, serverAdmin bool, now time.Time) error
+	// User returns a user.
+	User(ctx context.Context, id string) (User, error)
+	// CountUsers returns how many users exist.
+	CountUsers(ctx context.Context) (int, error)
+	// SetMember gives a user a role on a project (replacing any other).
+	SetMember(ctx context.Context, project, user string, role Role) error
+	// Role returns a user's role on a project, or "" when not a member.
+	Role(ctx context.Context, project, user string) (Role, error)
+	// Members lists a project's members.
+	Members(ctx context.Context, project string) ([]Member, error)
+	// Devices lists devices, of one user or (user "") all.
+	Devices(ctx context.Context, user string) ([]Device, error)
+	// Revoke revokes a device.
+	Revoke(ctx context.Context, device string, now time.Time) error
+	// ProjectsOf lists the projects a user is a member of.
+	ProjectsOf(ctx context.Context, user string) ([]string, error)
 	// AddEnrollmentCode stores the hash of a one-time code for a user's device.
 	AddEnrollmentCode(ctx context.Context, codeHash []byte, user string, expires time.Time) error
 	// Enroll uses up a code and registers the device with its token's hash.
@@ -61,6 +78,30 @@ type Row struct {
 	Hash       ledger.Hash
 	SkewMicros int64 // the pushing device's clock skew, when beyond the limit
 	Received   time.Time
+}
+
+// User is a person with an account.
+type User struct {
+	ID          string
+	Name        string
+	ServerAdmin bool
+}
+
+// Role is what a member may do on a project.
+type Role string
+
+// The roles.
+const (
+	Inspector Role = "inspector" // records, corrects and voids their own tests, logs retests and equipment checks
+	Office    Role = "office"    // records placements and hauls, registers equipment, reviews tests
+	QA        Role = "qa"        // defines specs, references, borrow sources and corrections; reviews; audits
+	Admin     Role = "admin"     // manages membership and devices, sets the project up
+)
+
+// Member is a user's role on a project.
+type Member struct {
+	User
+	Role Role
 }
 
 // Device is an enrolled device.

@@ -235,11 +235,121 @@ func (s *Store) ClockSkews(ctx context.Context, project string) (map[string]int6
 	return out, rows.Err()
 }
 
-func (s *Store) AddUser(ctx context.Context, id, name string, now time.Time) error {
-	if _, err := s.db.Writer().ExecContext(ctx, `INSERT INTO users (user_id, name, created_micros) VALUES (?, ?, ?)`, id, name, now.UnixMicro()); err != nil {
+func (s *Store) AddUser(ctx context.Context, id, name string, serverAdmin bool, now time.Time) error {
+	if _, err := s.db.Writer().ExecContext(ctx, `INSERT INTO users (user_id, name, server_admin, created_micros) VALUES (?, ?, ?, ?)`,
+		id, name, serverAdmin, now.UnixMicro()); err != nil {
 		return fmt.Errorf("sqlitestore: add user: %w", err)
 	}
 	return nil
+}
+
+func (s *Store) User(ctx context.Context, id string) (server.User, error) {
+	u := server.User{ID: id}
+	err := s.db.Reader().QueryRowContext(ctx, `SELECT name, server_admin FROM users WHERE user_id = ?`, id).Scan(&u.Name, &u.ServerAdmin)
+	if errors.Is(err, sql.ErrNoRows) {
+		return u, fmt.Errorf("sqlitestore: user %s: %w", id, server.ErrNoUser)
+	}
+	if err != nil {
+		return u, fmt.Errorf("sqlitestore: user %s: %w", id, err)
+	}
+	return u, nil
+}
+
+func (s *Store) CountUsers(ctx context.Context) (int, error) {
+	var n int
+	if err := s.db.Reader().QueryRowContext(ctx, `SELECT COUNT(*) FROM users`).Scan(&n); err != nil {
+		return 0, fmt.Errorf("sqlitestore: count users: %w", err)
+	}
+	return n, nil
+}
+
+func (s *Store) SetMember(ctx context.Context, project, user string, role server.Role) error {
+	if _, err := s.db.Writer().ExecContext(ctx, `INSERT INTO members (project_id, user_id, role) VALUES (?, ?, ?)
+		ON CONFLICT (project_id, user_id) DO UPDATE SET role = excluded.role`, project, user, string(role)); err != nil {
+		return fmt.Errorf("sqlitestore: set member: %w", err)
+	}
+	return nil
+}
+
+func (s *Store) Role(ctx context.Context, project, user string) (server.Role, error) {
+	var r string
+	err := s.db.Reader().QueryRowContext(ctx, `SELECT role FROM members WHERE project_id = ? AND user_id = ?`, project, user).Scan(&r)
+	if errors.Is(err, sql.ErrNoRows) {
+		return "", nil
+	}
+	if err != nil {
+		return "", fmt.Errorf("sqlitestore: role: %w", err)
+	}
+	return server.Role(r), nil
+}
+
+func (s *Store) Members(ctx context.Context, project string) ([]server.Member, error) {
+	rows, err := s.db.Reader().QueryContext(ctx, `SELECT u.user_id, u.name, u.server_admin, m.role FROM members m JOIN users u USING (user_id)
+		WHERE m.project_id = ? ORDER BY u.name, u.user_id`, project)
+	if err != nil {
+		return nil, fmt.Errorf("sqlitestore: members: %w", err)
+	}
+	defer rows.Close()
+	var out []server.Member
+	for rows.Next() {
+		var m server.Member
+		var role string
+		if err := rows.Scan(&m.ID, &m.Name, &m.ServerAdmin, &role); err != nil {
+			return nil, fmt.Errorf("sqlitestore: members: %w", err)
+		}
+		m.Role = server.Role(role)
+		out = append(out, m)
+	}
+	return out, rows.Err()
+}
+
+func (s *Store) Devices(ctx context.Context, user string) ([]server.Device, error) {
+	rows, err := s.db.Reader().QueryContext(ctx, `SELECT device_id, user_id, name, public_key, revoked_micros FROM devices
+		WHERE ? = '' OR user_id = ? ORDER BY enrolled_micros, device_id`, user, user)
+	if err != nil {
+		return nil, fmt.Errorf("sqlitestore: devices: %w", err)
+	}
+	defer rows.Close()
+	var out []server.Device
+	for rows.Next() {
+		var d server.Device
+		var key []byte
+		var revoked sql.NullInt64
+		if err := rows.Scan(&d.ID, &d.UserID, &d.Name, &key, &revoked); err != nil {
+			return nil, fmt.Errorf("sqlitestore: devices: %w", err)
+		}
+		d.PublicKey, d.Revoked = key, revoked.Valid
+		out = append(out, d)
+	}
+	return out, rows.Err()
+}
+
+func (s *Store) Revoke(ctx context.Context, device string, now time.Time) error {
+	res, err := s.db.Writer().ExecContext(ctx, `UPDATE devices SET revoked_micros = COALESCE(revoked_micros, ?) WHERE device_id = ?`, now.UnixMicro(), device)
+	if err != nil {
+		return fmt.Errorf("sqlitestore: revoke: %w", err)
+	}
+	if n, _ := res.RowsAffected(); n == 0 {
+		return fmt.Errorf("sqlitestore: revoke %s: %w", device, server.ErrNoDevice)
+	}
+	return nil
+}
+
+func (s *Store) ProjectsOf(ctx context.Context, user string) ([]string, error) {
+	rows, err := s.db.Reader().QueryContext(ctx, `SELECT project_id FROM members WHERE user_id = ? ORDER BY project_id`, user)
+	if err != nil {
+		return nil, fmt.Errorf("sqlitestore: projects of %s: %w", user, err)
+	}
+	defer rows.Close()
+	var out []string
+	for rows.Next() {
+		var id string
+		if err := rows.Scan(&id); err != nil {
+			return nil, fmt.Errorf("sqlitestore: projects of %s: %w", user, err)
+		}
+		out = append(out, id)
+	}
+	return out, rows.Err()
 }
 
 func (s *Store) AddEnrollmentCode(ctx context.Context, codeHash []byte, user string, expires time.Time) error {

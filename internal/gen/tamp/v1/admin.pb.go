@@ -638,7 +638,10 @@ type EnrollDeviceResponse struct {
 	// The bearer token; the server keeps only its hash.
 	Token string `protobuf:"bytes,1,opt,name=token,proto3" json:"token,omitempty"`
 	// The user the device is enrolled for.
-	UserId        string `protobuf:"bytes,2,opt,name=user_id,json=userId,proto3" json:"user_id,omitempty"`
+	UserId string `protobuf:"bytes,2,opt,name=user_id,json=userId,proto3" json:"user_id,omitempty"`
+	// The projects the user is a member of, whose reference data the device
+	// pulls next.
+	ProjectIds    []string `protobuf:"bytes,3,rep,name=project_ids,json=projectIds,proto3" json:"project_ids,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -685,6 +688,13 @@ func (x *EnrollDeviceResponse) GetUserId() string {
 		return x.UserId
 	}
 	return ""
+}
+
+func (x *EnrollDeviceResponse) GetProjectIds() []string {
+	if x != nil {
+		return x.ProjectIds
+	}
+	return nil
 }
 
 // RevokeDeviceRequest revokes a device.
@@ -1001,10 +1011,12 @@ const file_tamp_v1_admin_proto_rawDesc = "" +
 	"\n" +
 	"public_key\x18\x03 \x01(\fR\tpublicKey\x12\x1f\n" +
 	"\vdevice_name\x18\x04 \x01(\tR\n" +
-	"deviceName\"E\n" +
+	"deviceName\"f\n" +
 	"\x14EnrollDeviceResponse\x12\x14\n" +
 	"\x05token\x18\x01 \x01(\tR\x05token\x12\x17\n" +
-	"\auser_id\x18\x02 \x01(\tR\x06userId\"J\n" +
+	"\auser_id\x18\x02 \x01(\tR\x06userId\x12\x1f\n" +
+	"\vproject_ids\x18\x03 \x03(\tR\n" +
+	"projectIds\"J\n" +
 	"\x13RevokeDeviceRequest\x12\x1b\n" +
 	"\tdevice_id\x18\x01 \x01(\tR\bdeviceId\x12\x16\n" +
 	"\x06reason\x18\x02 \x01(\tR\x06reason\"=\n" +
