@@ -15,6 +15,7 @@ import (
 	"time"
 
 	"github.com/google/uuid"
+	"google.golang.org/grpc/metadata"
 
 	pb "tamp/internal/gen/tamp/v1"
 	"tamp/internal/ledger"
@@ -274,4 +275,41 @@ func (s *Store) record(ctx context.Context, project string, k ledger.Kind) (ledg
 		return signed, out, fmt.Errorf("client: apply %s: %w", e.ID, err)
 	}
 	return signed, out, nil
+}
+
+// Setting returns a stored setting ("" when unset).
+func (s *Store) Setting(ctx context.Context, key string) (string, error) {
+	var v string
+	err := s.db.Reader().QueryRowContext(ctx, `SELECT value FROM settings WHERE key = ?`, key).Scan(&v)
+	if errors.Is(err, sql.ErrNoRows) {
+		return "", nil
+	}
+	if err != nil {
+		return "", fmt.Errorf("client: setting %s: %w", key, err)
+	}
+	return v, nil
+}
+
+// SetSetting stores a setting.
+func (s *Store) SetSetting(ctx context.Context, key, value string) error {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	if _, err := s.db.Writer().ExecContext(ctx, `INSERT INTO settings (key, value) VALUES (?, ?)
+		ON CONFLICT (key) DO UPDATE SET value = excluded.value`, key, value); err != nil {
+		return fmt.Errorf("client: set %s: %w", key, err)
+	}
+	return nil
+}
+
+// CallContext returns ctx carrying the device's bearer token, for calls of
+// the server's services that the store does not wrap (administration).
+func (s *Store) CallContext(ctx context.Context) (context.Context, error) {
+	token, err := s.token(ctx)
+	if err != nil {
+		return nil, err
+	}
+	if token == "" {
+		return nil, fmt.Errorf("client: the device is not enrolled")
+	}
+	return metadata.AppendToOutgoingContext(ctx, "authorization", "Bearer "+token), nil
 }

@@ -14,7 +14,6 @@ import (
 
 	"google.golang.org/grpc"
 	"google.golang.org/grpc/codes"
-	"google.golang.org/grpc/metadata"
 	"google.golang.org/grpc/status"
 
 	pb "tamp/internal/gen/tamp/v1"
@@ -234,14 +233,10 @@ func (s *Store) Sync(ctx context.Context, conn grpc.ClientConnInterface, project
 
 func (s *Store) sync(ctx context.Context, conn grpc.ClientConnInterface, project string, opts SyncOptions) (SyncReport, error) {
 	var rep SyncReport
-	token, err := s.token(ctx)
+	ctx, err := s.CallContext(ctx)
 	if err != nil {
 		return rep, err
 	}
-	if token == "" {
-		return rep, fmt.Errorf("client: sync: the device is not enrolled")
-	}
-	ctx = metadata.AppendToOutgoingContext(ctx, "authorization", "Bearer "+token)
 	sc := pb.NewSyncServiceClient(conn)
 	if err := s.pullPhase(ctx, sc, project, opts, &rep); err != nil {
 		return rep, err

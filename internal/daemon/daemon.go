@@ -36,7 +36,7 @@ func Run(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		SilenceUsage:  true,
 		SilenceErrors: true,
 	}
-	root.AddCommand(newServe(stdout, stderr))
+	root.AddCommand(newServe(stdout, stderr), newInit(stdout))
 	root.SetArgs(args)
 	root.SetOut(stdout)
 	root.SetErr(stderr)
@@ -79,6 +79,42 @@ SIGINT or SIGTERM stops the server after the calls in flight have finished.`,
 	fl.StringVar(&f.logFormat, "log-format", "json", "log format: json or text")
 	fl.BoolVar(&f.synchronousNormal, "synchronous-normal", false, "use synchronous=NORMAL (faster; may lose the last writes on power loss)")
 	_ = c.MarkFlagRequired("data")
+	return c
+}
+
+func newInit(stdout io.Writer) *cobra.Command {
+	var data, admin string
+	c := &cobra.Command{
+		Use:   "init",
+		Short: "Create a server's data directory and its first administrator",
+		Long: `Create the ledger in the data directory and a first administrator, and print a
+one-time code that enrols the administrator's device (tamp enroll). Everything
+after that is done from tamp admin. init refuses a data directory that already
+has users.`,
+		Args: cobra.NoArgs,
+		RunE: func(cmd *cobra.Command, _ []string) error {
+			if data == "" {
+				return fmt.Errorf("--data: is required")
+			}
+			if err := os.MkdirAll(data, 0o700); err != nil {
+				return fmt.Errorf("--data: %w", err)
+			}
+			st, err := sqlitestore.Open(cmd.Context(), filepath.Join(data, "ledger.db"), sqlite.Full)
+			if err != nil {
+				return err
+			}
+			defer st.Close()
+			srv := server.New(server.Options{Store: st, Logger: slog.New(slog.NewTextHandler(io.Discard, nil))})
+			user, code, exp, err := srv.Bootstrap(cmd.Context(), admin)
+			if err != nil {
+				return err
+			}
+			fmt.Fprintf(stdout, "administrator %s (%s)\nenrolment code: %s\nexpires: %s\n", user, admin, code, exp.UTC().Format(time.RFC3339))
+			return nil
+		},
+	}
+	c.Flags().StringVar(&data, "data", "", "data directory (required)")
+	c.Flags().StringVar(&admin, "admin", "administrator", "the first administrator's name")
 	return c
 }
 

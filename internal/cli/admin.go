@@ -1,0 +1,170 @@
+package cli
+
+import (
+	"context"
+	"fmt"
+	"io"
+	"strings"
+	"time"
+
+	"github.com/spf13/cobra"
+
+	pb "tamp/internal/gen/tamp/v1"
+)
+
+var roleNames = map[string]pb.Role{"inspector": pb.Role_ROLE_INSPECTOR, "office": pb.Role_ROLE_OFFICE, "qa": pb.Role_ROLE_QA, "admin": pb.Role_ROLE_ADMIN}
+
+func roleName(r pb.Role) string {
+	for n, x := range roleNames {
+		if x == r {
+			return n
+		}
+	}
+	return "?"
+}
+
+// adminCall opens the store, dials, and runs fn with the admin client and
+// an authorised context.
+func adminCall(cmd *cobra.Command, f *deviceFlags, fn func(ctx context.Context, ac pb.AdminServiceClient, out io.Writer) error) error {
+	ctx := cmd.Context()
+	s, err := f.open(ctx)
+	if err != nil {
+		return err
+	}
+	defer s.Close()
+	cc, err := f.dial(ctx, s)
+	if err != nil {
+		return err
+	}
+	defer cc.Close()
+	actx, err := s.CallContext(ctx)
+	if err != nil {
+		return err
+	}
+	return fn(actx, pb.NewAdminServiceClient(cc), cmd.OutOrStdout())
+}
+
+func newAdmin() *cobra.Command {
+	var f deviceFlags
+	c := &cobra.Command{
+		Use:   "admin",
+		Short: "Manage projects, members and devices (administrators)",
+		Long: `Manage projects, their members and devices on the server this device is enrolled
+with. Each command prints one line per result, tab-separated, for scripts.`,
+	}
+	f.register(c)
+
+	var name string
+	create := &cobra.Command{
+		Use: "create-project", Short: "Create a project (server administrators)", Args: cobra.NoArgs,
+		RunE: func(cmd *cobra.Command, _ []string) error {
+			return adminCall(cmd, &f, func(ctx context.Context, ac pb.AdminServiceClient, out io.Writer) error {
+				r, err := ac.CreateProject(ctx, &pb.CreateProjectRequest{Name: name})
+				if err != nil {
+					return err
+				}
+				_, err = fmt.Fprintln(out, r.GetProjectId())
+				return err
+			})
+		},
+	}
+	create.Flags().StringVar(&name, "name", "", "the project's name")
+
+	var project, user, newUser, role string
+	add := &cobra.Command{
+		Use: "add-member", Short: "Give a user a role on a project", Args: cobra.NoArgs,
+		Example: `  tamp admin add-member --project P --new-user "R. Okafor" --role inspector`,
+		RunE: func(cmd *cobra.Command, _ []string) error {
+			r, ok := roleNames[role]
+			if !ok {
+				return fmt.Errorf("--role: must be inspector, office, qa or admin, not %q", role)
+			}
+			return adminCall(cmd, &f, func(ctx context.Context, ac pb.AdminServiceClient, out io.Writer) error {
+				resp, err := ac.AddMember(ctx, &pb.AddMemberRequest{ProjectId: project, UserId: user, UserName: newUser, Role: r})
+				if err != nil {
+					return err
+				}
+				_, err = fmt.Fprintln(out, resp.GetUserId())
+				return err
+			})
+		},
+	}
+	add.Flags().StringVar(&project, "project", "", "the project")
+	add.Flags().StringVar(&user, "user", "", "an existing user's id")
+	add.Flags().StringVar(&newUser, "new-user", "", "the name of a new user to create")
+	add.Flags().StringVar(&role, "role", "", "inspector, office, qa or admin")
+	_ = add.RegisterFlagCompletionFunc("role", cobra.FixedCompletions([]string{"inspector", "office", "qa", "admin"}, cobra.ShellCompDirectiveNoFileComp))
+
+	members := &cobra.Command{
+		Use: "members", Short: "List a project's members", Args: cobra.NoArgs,
+		RunE: func(cmd *cobra.Command, _ []string) error {
+			return adminCall(cmd, &f, func(ctx context.Context, ac pb.AdminServiceClient, out io.Writer) error {
+				r, err := ac.ListMembers(ctx, &pb.ListMembersRequest{ProjectId: project})
+				if err != nil {
+					return err
+				}
+				for _, m := range r.GetMembers() {
+					fmt.Fprintf(out, "%s\t%s\t%s\n", m.GetUserId(), roleName(m.GetRole()), m.GetUserName())
+				}
+				return nil
+			})
+		},
+	}
+	members.Flags().StringVar(&project, "project", "", "the project")
+
+	code := &cobra.Command{
+		Use: "issue-code", Short: "Issue a one-time code to enrol a user's device", Args: cobra.NoArgs,
+		RunE: func(cmd *cobra.Command, _ []string) error {
+			return adminCall(cmd, &f, func(ctx context.Context, ac pb.AdminServiceClient, out io.Writer) error {
+				r, err := ac.IssueEnrollmentCode(ctx, &pb.IssueEnrollmentCodeRequest{UserId: user})
+				if err != nil {
+					return err
+				}
+				_, err = fmt.Fprintf(out, "%s\texpires %s\n", r.GetCode(), time.UnixMicro(r.GetExpiresMicros()).UTC().Format(time.RFC3339))
+				return err
+			})
+		},
+	}
+	code.Flags().StringVar(&user, "user", "", "the user whose device will be enrolled")
+
+	var device, reason string
+	revoke := &cobra.Command{
+		Use: "revoke-device", Short: "Revoke a device: its token stops working at once", Args: cobra.NoArgs,
+		RunE: func(cmd *cobra.Command, _ []string) error {
+			return adminCall(cmd, &f, func(ctx context.Context, ac pb.AdminServiceClient, out io.Writer) error {
+				r, err := ac.RevokeDevice(ctx, &pb.RevokeDeviceRequest{DeviceId: device, Reason: reason})
+				if err != nil {
+					return err
+				}
+				_, err = fmt.Fprintf(out, "revoked %s at %s\n", device, time.UnixMicro(r.GetRevokedMicros()).UTC().Format(time.RFC3339))
+				return err
+			})
+		},
+	}
+	revoke.Flags().StringVar(&device, "device", "", "the device")
+	revoke.Flags().StringVar(&reason, "reason", "", "why, for the log")
+
+	devices := &cobra.Command{
+		Use: "devices", Short: "List enrolled devices", Args: cobra.NoArgs,
+		RunE: func(cmd *cobra.Command, _ []string) error {
+			return adminCall(cmd, &f, func(ctx context.Context, ac pb.AdminServiceClient, out io.Writer) error {
+				r, err := ac.ListDevices(ctx, &pb.ListDevicesRequest{UserId: user})
+				if err != nil {
+					return err
+				}
+				for _, d := range r.GetDevices() {
+					state := "active"
+					if d.GetRevoked() {
+						state = "revoked"
+					}
+					fmt.Fprintf(out, "%s\t%s\t%s\t%s\n", d.GetDeviceId(), d.GetUserId(), state, strings.TrimSpace(d.GetDeviceName()))
+				}
+				return nil
+			})
+		},
+	}
+	devices.Flags().StringVar(&user, "user", "", "only this user's devices")
+
+	c.AddCommand(create, add, members, code, revoke, devices)
+	return c
+}

@@ -1,0 +1,112 @@
+package cli
+
+import (
+	"bufio"
+	"context"
+	"io"
+	"path/filepath"
+	"strings"
+	"testing"
+	"time"
+
+	"tamp/internal/daemon"
+)
+
+// startServer runs tampd init and serve in-process on 127.0.0.1:0 and
+// returns the address and the administrator's enrolment code.
+func startServer(t *testing.T) (addr, code string) {
+	t.Helper()
+	data := t.TempDir()
+	var out strings.Builder
+	if err := daemon.Run(context.Background(), []string{"init", "--data", data, "--admin", "Rosa"}, &out, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	for _, l := range strings.Split(out.String(), "\n") {
+		if c, ok := strings.CutPrefix(l, "enrolment code: "); ok {
+			code = c
+		}
+	}
+	if err := daemon.Run(context.Background(), []string{"init", "--data", data}, io.Discard, io.Discard); err == nil {
+		t.Error("a second init succeeded")
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	r, w := io.Pipe()
+	done := make(chan error, 1)
+	go func() {
+		done <- daemon.Run(ctx, []string{"serve", "--data", data, "--listen", "127.0.0.1:0", "--log-format", "text"}, w, io.Discard)
+		w.Close()
+	}()
+	line, err := bufio.NewReader(r).ReadString('\n')
+	if err != nil {
+		t.Fatal(err)
+	}
+	go io.Copy(io.Discard, r)
+	t.Cleanup(func() {
+		cancel()
+		select {
+		case <-done:
+		case <-time.After(30 * time.Second):
+			t.Error("tampd did not stop")
+		}
+	})
+	return strings.TrimSpace(strings.TrimPrefix(line, "tampd: listening on ")), code
+}
+
+func must(t *testing.T, args ...string) string {
+	t.Helper()
+	out, errOut, err := run(t, args...)
+	if err != nil {
+		t.Fatalf("tamp %s: %v\n%s", strings.Join(args, " "), err, errOut)
+	}
+	return strings.TrimSpace(out)
+}
+
+// The administrator enrols, creates a project, adds an inspector and issues
+// the inspector's code; the inspector enrols and syncs; the administrator
+// lists and revokes the inspector's device, whose next sync is refused.
+func TestAdminFlow(t *testing.T) {
+	addr, code := startServer(t)
+	adminStore := filepath.Join(t.TempDir(), "admin.db")
+	inspStore := filepath.Join(t.TempDir(), "insp.db")
+	out := must(t, "enroll", "--store", adminStore, "--server", addr, "--plaintext", "--code", code, "--name", "office laptop")
+	if !strings.Contains(out, "enrolled device") {
+		t.Fatalf("enroll: %s", out)
+	}
+	if _, _, err := run(t, "enroll", "--store", filepath.Join(t.TempDir(), "x.db"), "--server", addr, "--plaintext", "--code", code); err == nil ||
+		!strings.Contains(err.Error(), "already used") {
+		t.Errorf("second use of the code: %v", err)
+	}
+	project := must(t, "admin", "--store", adminStore, "create-project", "--name", "Larkspur Creek levee")
+	user := must(t, "admin", "--store", adminStore, "add-member", "--project", project, "--new-user", "Tomas", "--role", "inspector")
+	members := must(t, "admin", "--store", adminStore, "members", "--project", project)
+	if !strings.Contains(members, user+"\tinspector\tTomas") || !strings.Contains(members, "\tadmin\tRosa") {
+		t.Errorf("members:\n%s", members)
+	}
+	issued := must(t, "admin", "--store", adminStore, "issue-code", "--user", user)
+	inspCode, _, _ := strings.Cut(issued, "\t")
+	out = must(t, "enroll", "--store", inspStore, "--server", addr, "--plaintext", "--code", inspCode)
+	if !strings.Contains(out, "project "+project) {
+		t.Errorf("the inspector's enrolment did not pull the project: %s", out)
+	}
+	if _, _, err := run(t, "admin", "--store", inspStore, "create-project", "--name", "mine"); err == nil || !strings.Contains(err.Error(), "server_admin") {
+		t.Errorf("an inspector created a project: %v", err)
+	}
+	devices := must(t, "admin", "--store", adminStore, "devices")
+	var inspDevice string
+	for _, l := range strings.Split(devices, "\n") {
+		if f := strings.Split(l, "\t"); len(f) >= 3 && f[1] == user {
+			inspDevice = f[0]
+		}
+	}
+	if inspDevice == "" {
+		t.Fatalf("devices:\n%s", devices)
+	}
+	must(t, "sync", "--store", inspStore, "--project", project)
+	must(t, "admin", "--store", adminStore, "revoke-device", "--device", inspDevice, "--reason", "tablet lost")
+	if _, _, err := run(t, "sync", "--store", inspStore, "--project", project); err == nil || !strings.Contains(err.Error(), "revoked") {
+		t.Errorf("sync after revocation: %v", err)
+	}
+	if d := must(t, "admin", "--store", adminStore, "devices", "--user", user); !strings.Contains(d, "revoked") {
+		t.Errorf("devices after revocation: %s", d)
+	}
+}

@@ -1,0 +1,166 @@
+package cli
+
+import (
+	"context"
+	"fmt"
+	"os"
+	"path/filepath"
+
+	"github.com/spf13/cobra"
+	"google.golang.org/grpc"
+
+	"tamp/client"
+)
+
+// deviceFlags are the flags of every command that uses the device's store
+// and the server.
+type deviceFlags struct {
+	store     string
+	server    string
+	ca        string
+	plaintext bool
+}
+
+func (f *deviceFlags) register(c *cobra.Command) {
+	fl := c.PersistentFlags()
+	fl.StringVar(&f.store, "store", defaultStore(), "the device's store file")
+	fl.StringVar(&f.server, "server", "", "server address host:port (default: the one given at enrolment)")
+	fl.StringVar(&f.ca, "ca", "", "PEM file of the CA the server's certificate chains to (default: the system roots)")
+	fl.BoolVar(&f.plaintext, "plaintext", false, "connect without TLS (loopback addresses only)")
+}
+
+func defaultStore() string {
+	if d := os.Getenv("TAMP_STORE"); d != "" {
+		return d
+	}
+	dir, err := os.UserConfigDir()
+	if err != nil {
+		return "tamp-device.db"
+	}
+	return filepath.Join(dir, "tamp", "device.db")
+}
+
+// open opens the device's store.
+func (f *deviceFlags) open(ctx context.Context) (*client.Store, error) {
+	if err := os.MkdirAll(filepath.Dir(f.store), 0o700); err != nil {
+		return nil, fmt.Errorf("--store: %w", err)
+	}
+	return client.Open(ctx, f.store, client.Options{})
+}
+
+// dial connects to the server named by the flags or the store's settings.
+func (f *deviceFlags) dial(ctx context.Context, s *client.Store) (*grpc.ClientConn, error) {
+	addr, ca, plain := f.server, f.ca, f.plaintext
+	if addr == "" {
+		var err error
+		if addr, err = s.Setting(ctx, "server"); err != nil {
+			return nil, err
+		}
+		if ca == "" {
+			ca, _ = s.Setting(ctx, "ca_file")
+		}
+		if !plain {
+			p, _ := s.Setting(ctx, "plaintext")
+			plain = p == "true"
+		}
+	}
+	if addr == "" {
+		return nil, fmt.Errorf("--server: no server given and none stored; enrol first (tamp enroll --server ADDR --code CODE)")
+	}
+	return client.Dial(addr, client.DialOptions{CAFile: ca, Plaintext: plain})
+}
+
+func newEnroll() *cobra.Command {
+	var f deviceFlags
+	var code, name string
+	c := &cobra.Command{
+		Use:   "enroll",
+		Short: "Enrol this device with a server using a one-time code",
+		Long: `Enrol this device with a tamp server: register its key with the one-time code an
+administrator issued, keep the token the server returns, and pull the reference
+data (specs, references, equipment) of the user's projects so tests can be
+graded offline.`,
+		Example: `  tamp enroll --server tamp.example.net:7420 --code K3Q... --ca site-ca.pem`,
+		Args:    cobra.NoArgs,
+		RunE: func(cmd *cobra.Command, _ []string) error {
+			ctx := cmd.Context()
+			if f.server == "" || code == "" {
+				return fmt.Errorf("--server and --code are required")
+			}
+			s, err := f.open(ctx)
+			if err != nil {
+				return err
+			}
+			defer s.Close()
+			cc, err := f.dial(ctx, s)
+			if err != nil {
+				return err
+			}
+			defer cc.Close()
+			if err := s.Enroll(ctx, cc, code, name); err != nil {
+				return err
+			}
+			for k, v := range map[string]string{"server": f.server, "ca_file": f.ca, "plaintext": fmt.Sprint(f.plaintext)} {
+				if err := s.SetSetting(ctx, k, v); err != nil {
+					return err
+				}
+			}
+			out := cmd.OutOrStdout()
+			fmt.Fprintf(out, "enrolled device %s for user %s\n", s.DeviceID(), s.User())
+			for _, p := range s.EnrolledProjects() {
+				rep, err := s.Sync(ctx, cc, p, client.SyncOptions{})
+				if err != nil {
+					return fmt.Errorf("pull project %s: %w", p, err)
+				}
+				fmt.Fprintf(out, "project %s: %d entries pulled\n", p, rep.Pulled)
+			}
+			return nil
+		},
+	}
+	f.register(c)
+	c.Flags().StringVar(&code, "code", "", "the one-time enrolment code")
+	c.Flags().StringVar(&name, "name", "", "a name for this device, e.g. \"tablet 3\"")
+	return c
+}
+
+func newSync() *cobra.Command {
+	var f deviceFlags
+	var project string
+	c := &cobra.Command{
+		Use:   "sync",
+		Short: "Push this device's entries and pull the project's ledger",
+		Args:  cobra.NoArgs,
+		RunE: func(cmd *cobra.Command, _ []string) error {
+			ctx := cmd.Context()
+			s, err := f.open(ctx)
+			if err != nil {
+				return err
+			}
+			defer s.Close()
+			cc, err := f.dial(ctx, s)
+			if err != nil {
+				return err
+			}
+			defer cc.Close()
+			projects := s.Projects()
+			if project != "" {
+				projects = []string{project}
+			}
+			for _, p := range projects {
+				rep, err := s.Sync(ctx, cc, p, client.SyncOptions{Progress: func(pr client.Progress) {
+					fmt.Fprintf(cmd.ErrOrStderr(), "\r%s: %s %d events, %d bytes   ", p, pr.Phase, pr.Events, pr.Bytes)
+				}})
+				fmt.Fprintln(cmd.ErrOrStderr())
+				if err != nil {
+					return fmt.Errorf("project %s: %w", p, err)
+				}
+				fmt.Fprintf(cmd.OutOrStdout(), "project %s: %d accepted, %d already there, %d waiting, %d rejected, %d pulled; verified to %d\n",
+					p, rep.Accepted, rep.AlreadyPresent, rep.Waiting, rep.Rejected, rep.Pulled, rep.Head.Seq)
+			}
+			return nil
+		},
+	}
+	f.register(c)
+	c.Flags().StringVar(&project, "project", "", "the project (default: every project on this device)")
+	return c
+}
