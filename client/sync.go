@@ -346,7 +346,7 @@ func (s *Store) pushOutbox(ctx context.Context, sc pb.SyncServiceClient, project
 		waitingLeft := 0
 		for start := 0; start < len(events) || (start == 0 && round == 0); start += opts.BatchSize {
 			batch := events[start:min(len(events), start+opts.BatchSize)]
-			req := &pb.PushRequest{ProjectId: project, DeviceTimeMicros: s.now().UnixMicro(), Verified: checkpointTo(cp)}
+			req := &pb.PushRequest{ProjectId: project, DeviceTimeMicros: s.now().UnixMicro(), Verified: ledger.CheckpointToProto(cp)}
 			for _, e := range batch {
 				req.Events = append(req.Events, &pb.Event{Body: e.body, Signature: e.sig})
 				bytes += int64(len(e.body) + len(e.sig))
@@ -355,7 +355,7 @@ func (s *Store) pushOutbox(ctx context.Context, sc pb.SyncServiceClient, project
 			if err := retry(ctx, opts, func() (err error) { resp, err = sc.Push(ctx, req); return err }); err != nil {
 				return head, fmt.Errorf("client: push: %w", err)
 			}
-			head = checkpointFrom(resp.GetHead())
+			head = ledger.CheckpointFromProto(resp.GetHead())
 			rep.ClockSkew = time.Duration(resp.GetClockSkewMicros()) * time.Microsecond
 			n, w, err := s.recordOutcomes(ctx, resp.GetOutcomes(), rep)
 			if err != nil {
@@ -438,7 +438,7 @@ func (s *Store) repushAll(ctx context.Context, sc pb.SyncServiceClient, project 
 	}
 	for start := 0; start < len(events) || start == 0; start += opts.BatchSize {
 		batch := events[start:min(len(events), start+opts.BatchSize)]
-		req := &pb.PushRequest{ProjectId: project, DeviceTimeMicros: s.now().UnixMicro(), Verified: checkpointTo(cp)}
+		req := &pb.PushRequest{ProjectId: project, DeviceTimeMicros: s.now().UnixMicro(), Verified: ledger.CheckpointToProto(cp)}
 		for _, e := range batch {
 			req.Events = append(req.Events, &pb.Event{Body: e.body, Signature: e.sig})
 		}
@@ -446,7 +446,7 @@ func (s *Store) repushAll(ctx context.Context, sc pb.SyncServiceClient, project 
 		if err := retry(ctx, opts, func() (err error) { resp, err = sc.Push(ctx, req); return err }); err != nil {
 			return head, fmt.Errorf("client: push back: %w", err)
 		}
-		head = checkpointFrom(resp.GetHead())
+		head = ledger.CheckpointFromProto(resp.GetHead())
 		var scratch SyncReport
 		if _, _, err := s.recordOutcomes(ctx, resp.GetOutcomes(), &scratch); err != nil {
 			return head, err
@@ -475,7 +475,7 @@ func (s *Store) pull(ctx context.Context, sc pb.SyncServiceClient, project strin
 	if err != nil {
 		return err
 	}
-	stream, err := sc.Pull(ctx, &pb.PullRequest{ProjectId: project, After: checkpointTo(cp), ReferenceDataFirst: cp.Seq == 0})
+	stream, err := sc.Pull(ctx, &pb.PullRequest{ProjectId: project, After: ledger.CheckpointToProto(cp), ReferenceDataFirst: cp.Seq == 0})
 	if err != nil {
 		return err
 	}
@@ -492,7 +492,7 @@ func (s *Store) pull(ctx context.Context, sc pb.SyncServiceClient, project strin
 			return err
 		}
 		if a := resp.GetAnchor(); a != nil && !checked {
-			anchor := checkpointFrom(a)
+			anchor := ledger.CheckpointFromProto(a)
 			switch {
 			case cp.Epoch == 0: // a first sync: verify from the start
 				cp = ledger.Start(project, anchor.Epoch)
@@ -604,14 +604,4 @@ func (s *Store) applyPulled(ctx context.Context, project string, evs []ledger.Si
 		s.clock.Observe(sg.Event.HLC)
 	}
 	return nil
-}
-
-func checkpointTo(c ledger.Checkpoint) *pb.Checkpoint {
-	return &pb.Checkpoint{ProjectId: c.Project, Epoch: c.Epoch, Sequence: c.Seq, Hash: c.Hash[:]}
-}
-
-func checkpointFrom(c *pb.Checkpoint) ledger.Checkpoint {
-	cp := ledger.Checkpoint{Project: c.GetProjectId(), Epoch: c.GetEpoch(), Seq: c.GetSequence()}
-	copy(cp.Hash[:], c.GetHash())
-	return cp
 }

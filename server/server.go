@@ -374,16 +374,6 @@ func projectErr(s *Server, ctx context.Context, id string, err error) error {
 	return s.internal(ctx, "load project", err)
 }
 
-func checkpointFrom(c *pb.Checkpoint) ledger.Checkpoint {
-	cp := ledger.Checkpoint{Project: c.GetProjectId(), Epoch: c.GetEpoch(), Seq: c.GetSequence()}
-	copy(cp.Hash[:], c.GetHash())
-	return cp
-}
-
-func checkpointTo(c ledger.Checkpoint) *pb.Checkpoint {
-	return &pb.Checkpoint{ProjectId: c.Project, Epoch: c.Epoch, Sequence: c.Seq, Hash: c.Hash[:]}
-}
-
 // decoded is one pushed event after decoding and verification.
 type decoded struct {
 	signed ledger.Signed
@@ -552,7 +542,7 @@ func (s *Server) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushRespons
 		s.log.WarnContext(ctx, "device clock skew beyond the limit", "project", req.GetProjectId(), "skew", time.Duration(skew)*time.Microsecond,
 			"events", len(rows))
 	}
-	resp.Head = checkpointTo(next)
+	resp.Head = ledger.CheckpointToProto(next)
 	s.log.InfoContext(ctx, "push", "project", req.GetProjectId(), "events", len(items), "accepted", len(rows), "head", next.Seq)
 	return resp, nil
 }
@@ -571,7 +561,7 @@ func (s *Server) checkVerified(ctx context.Context, head ledger.Checkpoint, v *p
 	if v == nil || v.GetSequence() == 0 {
 		return head, nil
 	}
-	cp := checkpointFrom(v)
+	cp := ledger.CheckpointFromProto(v)
 	lost := false
 	switch {
 	case cp.Epoch > head.Epoch:
@@ -618,7 +608,7 @@ func (s *Server) Pull(req *pb.PullRequest, stream grpc.ServerStreamingServer[pb.
 	if err != nil {
 		return s.internal(ctx, "anchor", err)
 	}
-	anchor := checkpointTo(ledger.Checkpoint{Project: head.Project, Epoch: head.Epoch, Seq: at, Hash: h})
+	anchor := ledger.CheckpointToProto(ledger.Checkpoint{Project: head.Project, Epoch: head.Epoch, Seq: at, Hash: h})
 	chunk := s.opts.ChunkSize
 	if m := int(req.GetMaxEvents()); m > 0 && m < chunk {
 		chunk = m
@@ -642,11 +632,11 @@ func (s *Server) Pull(req *pb.PullRequest, stream grpc.ServerStreamingServer[pb.
 			return s.internal(ctx, "read ledger", err)
 		}
 		resp := &pb.PullResponse{Entries: s.entries(entries), DeviceKeys: s.keysOf(ctx, entries),
-			Head: checkpointTo(ledger.Checkpoint{Project: head.Project, Epoch: head.Epoch, Seq: at, Hash: h})}
+			Head: ledger.CheckpointToProto(ledger.Checkpoint{Project: head.Project, Epoch: head.Epoch, Seq: at, Hash: h})}
 		if len(entries) > 0 {
 			last := entries[len(entries)-1]
 			cursor = last.Seq
-			resp.Head = checkpointTo(ledger.Checkpoint{Project: head.Project, Epoch: head.Epoch, Seq: last.Seq, Hash: last.Hash})
+			resp.Head = ledger.CheckpointToProto(ledger.Checkpoint{Project: head.Project, Epoch: head.Epoch, Seq: last.Seq, Hash: last.Hash})
 		}
 		if first {
 			resp.Anchor = anchor

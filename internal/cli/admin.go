@@ -27,16 +27,11 @@ func roleName(r pb.Role) string {
 // an authorised context.
 func adminCall(cmd *cobra.Command, f *deviceFlags, fn func(ctx context.Context, ac pb.AdminServiceClient, out io.Writer) error) error {
 	ctx := cmd.Context()
-	s, err := f.open(ctx)
+	s, cc, done, err := f.connect(ctx)
 	if err != nil {
 		return err
 	}
-	defer s.Close()
-	cc, err := f.dial(ctx, s)
-	if err != nil {
-		return err
-	}
-	defer cc.Close()
+	defer done()
 	actx, err := s.CallContext(ctx)
 	if err != nil {
 		return err

@@ -70,6 +70,20 @@ func (f *deviceFlags) dial(ctx context.Context, s *client.Store) (*grpc.ClientCo
 	return client.Dial(addr, client.DialOptions{CAFile: ca, Plaintext: plain})
 }
 
+// connect opens the store and dials the server; done closes both.
+func (f *deviceFlags) connect(ctx context.Context) (s *client.Store, cc *grpc.ClientConn, done func(), err error) {
+	s, err = f.open(ctx)
+	if err != nil {
+		return nil, nil, nil, err
+	}
+	cc, err = f.dial(ctx, s)
+	if err != nil {
+		s.Close()
+		return nil, nil, nil, err
+	}
+	return s, cc, func() { cc.Close(); s.Close() }, nil
+}
+
 func newEnroll() *cobra.Command {
 	var f deviceFlags
 	var code, name string
@@ -87,16 +101,11 @@ graded offline.`,
 			if f.server == "" || code == "" {
 				return fmt.Errorf("--server and --code are required")
 			}
-			s, err := f.open(ctx)
+			s, cc, done, err := f.connect(ctx)
 			if err != nil {
 				return err
 			}
-			defer s.Close()
-			cc, err := f.dial(ctx, s)
-			if err != nil {
-				return err
-			}
-			defer cc.Close()
+			defer done()
 			if err := s.Enroll(ctx, cc, code, name); err != nil {
 				return err
 			}
@@ -132,16 +141,11 @@ func newSync() *cobra.Command {
 		Args:  cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, _ []string) error {
 			ctx := cmd.Context()
-			s, err := f.open(ctx)
+			s, cc, done, err := f.connect(ctx)
 			if err != nil {
 				return err
 			}
-			defer s.Close()
-			cc, err := f.dial(ctx, s)
-			if err != nil {
-				return err
-			}
-			defer cc.Close()
+			defer done()
 			projects := s.Projects()
 			if project != "" {
 				projects = []string{project}

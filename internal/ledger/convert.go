@@ -417,3 +417,15 @@ func ResultsOf(r qc.Result) *Results {
 		OptimumMoisture: r.OptimumMoisture, RelativeCompaction: r.RelativeCompaction, MoistureDeviation: r.MoistureDeviation,
 		Verdict: r.Verdict, Reasons: r.Reasons, Flags: r.Flags}
 }
+
+// CheckpointToProto converts a chain point.
+func CheckpointToProto(c Checkpoint) *pb.Checkpoint {
+	return &pb.Checkpoint{ProjectId: c.Project, Epoch: c.Epoch, Sequence: c.Seq, Hash: c.Hash[:]}
+}
+
+// CheckpointFromProto converts a chain point.
+func CheckpointFromProto(c *pb.Checkpoint) Checkpoint {
+	cp := Checkpoint{Project: c.GetProjectId(), Epoch: c.GetEpoch(), Seq: c.GetSequence()}
+	copy(cp.Hash[:], c.GetHash())
+	return cp
+}
