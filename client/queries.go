@@ -46,7 +46,8 @@ func (s *Store) Today(project string) []*ledger.Test {
 }
 
 // OpenFailures returns the failing tests that still need a retest: failing,
-// not voided, and with no retest that has been graded (a retest that failed
+// not voided, not accepted as they stand by QA, and with no retest that has
+// been graded (a retest that failed
 // is itself listed; a retest that passed closes the failure). Oldest first.
 func (s *Store) OpenFailures(project string) []*ledger.Test {
 	s.mu.Lock()
@@ -54,7 +55,7 @@ func (s *Store) OpenFailures(project string) []*ledger.Test {
 	v := s.view(project)
 	var out []*ledger.Test
 	for _, t := range v.Tests() {
-		if t.Result.Verdict != qc.Fail || t.Voided() {
+		if t.Result.Verdict != qc.Fail || t.Voided() || t.ExceptionAccepted() {
 			continue
 		}
 		closed := false

@@ -312,3 +312,16 @@ func TestEquipmentChecks(t *testing.T) {
 }
 
 func ptr(v float64) *float64 { return &v }
+
+func TestExceptionClosesFailure(t *testing.T) {
+	e := newEnv(t, "ines")
+	fail := e.test(104, 13)
+	if n := len(e.store.OpenFailures(e.project)); n != 1 {
+		t.Fatalf("open failures = %d", n)
+	}
+	tt, _ := e.store.Test(e.project, fail.TestID)
+	e.rec(&ledger.ExceptionAccepted{TestID: fail.TestID, Revision: tt.Current, Reason: "accepted by the engineer of record"})
+	if n := len(e.store.OpenFailures(e.project)); n != 0 {
+		t.Errorf("open failures after an accepted exception = %d", n)
+	}
+}

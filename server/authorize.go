@@ -32,6 +32,7 @@ var entryRoles = map[string][]Role{
 	"test_corrected":          {Inspector},
 	"test_voided":             {Inspector},
 	"test_reviewed":           {Office, QA},
+	"exception_accepted":      {QA},
 }
 
 // EntryRoles returns the roles that may make an entry of kind.

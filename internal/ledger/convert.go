@@ -80,6 +80,8 @@ func ToProto(e Event) (*pb.EventBody, error) {
 		b.Kind = &pb.EventBody_TestReviewed{TestReviewed: &pb.TestReviewed{
 			TestId: k.TestID, Revision: k.Revision, Decision: pb.ReviewDecision(k.Decision), Comment: k.Comment,
 		}}
+	case *ExceptionAccepted:
+		b.Kind = &pb.EventBody_ExceptionAccepted{ExceptionAccepted: &pb.ExceptionAccepted{TestId: k.TestID, Revision: k.Revision, Reason: k.Reason}}
 	default:
 		return nil, fmt.Errorf("ledger: encode event %s: %w", e.ID, reject(UnknownKind, "kind", fmt.Sprintf("unknown event kind %T", e.Kind)))
 	}
@@ -155,6 +157,9 @@ func FromProto(b *pb.EventBody) (Event, error) {
 	case *pb.EventBody_TestReviewed:
 		m := k.TestReviewed
 		e.Kind = &TestReviewed{TestID: m.GetTestId(), Revision: m.GetRevision(), Decision: Decision(m.GetDecision()), Comment: m.GetComment()}
+	case *pb.EventBody_ExceptionAccepted:
+		m := k.ExceptionAccepted
+		e.Kind = &ExceptionAccepted{TestID: m.GetTestId(), Revision: m.GetRevision(), Reason: m.GetReason()}
 	default:
 		return Event{}, reject(UnknownKind, "kind", "the event holds no kind this version of tamp knows")
 	}

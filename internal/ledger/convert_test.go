@@ -66,7 +66,8 @@ func everyKind(f *fixture) []Kind {
 
 func TestProtoRoundTrip(t *testing.T) {
 	f := newFixture(t, 20)
-	for _, k := range everyKind(f) {
+	kinds := append(everyKind(f), &ExceptionAccepted{TestID: f.id(true), Revision: f.id(true), Reason: "accepted by the engineer of record, memo 14"})
+	for _, k := range kinds {
 		t.Run(k.KindName(), func(t *testing.T) {
 			s := f.emit("ann", k)
 			var b pb.EventBody

@@ -24,7 +24,8 @@ type Event struct {
 // Kind is the payload of an event: *ProjectSetUp, *SpecDefined,
 // *ReferenceAdded, *EquipmentRegistered, *StandardCountRecorded,
 // *MoistureCorrectionSet, *BorrowSourceMeasured, *LiftPlacementRecorded,
-// *HaulRecorded, *TestRecorded, *TestCorrected, *TestVoided or *TestReviewed.
+// *HaulRecorded, *TestRecorded, *TestCorrected, *TestVoided, *TestReviewed or
+// *ExceptionAccepted.
 type Kind interface {
 	// KindName is the kind's name in snake case, as reports show it.
 	KindName() string
@@ -244,6 +245,15 @@ type TestReviewed struct {
 	Comment  string
 }
 
+// ExceptionAccepted is a QA manager's acceptance of a failing test as it
+// stands, with the reason.
+type ExceptionAccepted struct {
+	TestID   string
+	Revision string // event id of the revision accepted
+	Reason   string
+}
+
+func (*ExceptionAccepted) KindName() string     { return "exception_accepted" }
 func (*ProjectSetUp) KindName() string          { return "project_set_up" }
 func (*SpecDefined) KindName() string           { return "spec_defined" }
 func (*ReferenceAdded) KindName() string        { return "reference_added" }

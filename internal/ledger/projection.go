@@ -171,6 +171,8 @@ func RecordID(k Kind) string {
 		return k.TestID
 	case *TestReviewed:
 		return k.TestID
+	case *ExceptionAccepted:
+		return k.TestID
 	}
 	return "" // the project set-up
 }
@@ -212,6 +214,8 @@ func refsOf(e *Event) []string {
 	case *TestVoided:
 		add(k.TestID)
 	case *TestReviewed:
+		add(k.TestID, k.Revision)
+	case *ExceptionAccepted:
 		add(k.TestID, k.Revision)
 	}
 	return ids
@@ -290,7 +294,7 @@ func (p *Projection) recompute(key string, kind Kind) {
 			p.recomputeTest(id, false)
 		}
 		return
-	case *TestRecorded, *TestCorrected, *TestVoided, *TestReviewed:
+	case *TestRecorded, *TestCorrected, *TestVoided, *TestReviewed, *ExceptionAccepted:
 		p.recomputeTest(key, true)
 		return
 	case *SpecDefined:

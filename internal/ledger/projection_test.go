@@ -249,3 +249,33 @@ func TestApplyRefusals(t *testing.T) {
 		t.Error("a refused event changed the state")
 	}
 }
+
+func TestExceptionAccepted(t *testing.T) {
+	f := newFixture(t, 30)
+	p := NewProjection(f.project)
+	spec, ref := f.spec(), f.reference()
+	apply(t, p, f.emit("qa", spec), f.emit("qa", ref))
+	fail := f.test(ref.ID, spec.ID, 95, 12)
+	rec := f.emit("ann", fail)
+	apply(t, p, rec)
+	tt, _ := p.Test(fail.TestID)
+	if tt.Result.Verdict != qc.Fail || tt.ExceptionAccepted() {
+		t.Fatalf("before: %v, exception %v", tt.Result.Verdict, tt.ExceptionAccepted())
+	}
+	apply(t, p, f.emit("qa", &ExceptionAccepted{TestID: fail.TestID, Revision: rec.Event.ID, Reason: "engineer of record accepts 93 % in the toe berm"}))
+	tt, _ = p.Test(fail.TestID)
+	if !tt.ExceptionAccepted() || tt.Result.Verdict != qc.Fail {
+		t.Errorf("after: exception %v, verdict %v (the failure stays in the record)", tt.ExceptionAccepted(), tt.Result.Verdict)
+	}
+	// A correction makes a new revision the exception does not cover.
+	c := fail.Content
+	apply(t, p, f.emit("ann", &TestCorrected{TestID: fail.TestID, Supersedes: rec.Event.ID, Reason: "typo", Content: c}))
+	tt, _ = p.Test(fail.TestID)
+	if tt.ExceptionAccepted() {
+		t.Error("an exception of an earlier revision covers the correction")
+	}
+	if err := Validate(Event{ID: f.id(true), Project: f.project, Author: "qa", Device: "d", DeviceSeq: 1, HLC: HLC{Wall: 1},
+		Kind: &ExceptionAccepted{TestID: fail.TestID, Revision: rec.Event.ID}}); ReasonOf(err) != InvalidField {
+		t.Errorf("exception without a reason: %v", err)
+	}
+}

@@ -73,6 +73,10 @@ func history(f *fixture, rng *rand.Rand) []Signed {
 	for range rng.IntN(3) {
 		emit(dev(), &TestVoided{TestID: tests[rng.IntN(len(tests))].TestID, Reason: "wrong lift"})
 	}
+	for range rng.IntN(2) {
+		r := revs[rng.IntN(len(revs))]
+		emit("qa", &ExceptionAccepted{TestID: r.test, Revision: r.event, Reason: "accepted as it stands"})
+	}
 	for range rng.IntN(6) {
 		r := revs[rng.IntN(len(revs))]
 		d := Approve

@@ -42,6 +42,14 @@ type Review struct {
 	Comment  string
 }
 
+// Exception is a QA manager's acceptance of a failing revision.
+type Exception struct {
+	EventID  string
+	Author   string
+	Revision string
+	Reason   string
+}
+
 // Void is one voiding of a test.
 type Void struct {
 	EventID string
@@ -93,12 +101,26 @@ type Test struct {
 	Voids        []Void   `json:",omitempty"`
 	Reviews      []Review `json:",omitempty"`
 	ReviewStatus ReviewStatus
+	// Exceptions are QA acceptances; one of the current revision closes the
+	// test's failure without a retest.
+	Exceptions []Exception `json:",omitempty"`
 	// Flags are for review: conflicts, disagreements, equipment; the
 	// result's own flags are in Result.Flags.
 	Flags []qc.Finding `json:",omitempty"`
 	// Missing are the records the current revision names that this replica
 	// does not hold; while any is missing the verdict is pending.
 	Missing []string `json:",omitempty"`
+}
+
+// ExceptionAccepted reports whether QA accepted the current revision as it
+// stands.
+func (t *Test) ExceptionAccepted() bool {
+	for _, x := range t.Exceptions {
+		if x.Revision == t.Current {
+			return true
+		}
+	}
+	return false
 }
 
 // Voided reports whether the test was voided.
@@ -206,6 +228,8 @@ func (p *Projection) buildTest(evs []*Event) *Test {
 		switch k := e.Kind.(type) {
 		case *TestVoided:
 			t.Voids = append(t.Voids, Void{EventID: e.ID, Author: e.Author, Reason: k.Reason})
+		case *ExceptionAccepted:
+			t.Exceptions = append(t.Exceptions, Exception{EventID: e.ID, Author: e.Author, Revision: k.Revision, Reason: k.Reason})
 		case *TestReviewed:
 			t.Reviews = append(t.Reviews, Review{EventID: e.ID, Author: e.Author, HLC: e.HLC, Revision: k.Revision, Decision: k.Decision, Comment: k.Comment})
 			if e.Author == t.Author {

@@ -85,6 +85,8 @@ func Validate(e Event) error {
 			return reject(InvalidField, "decision", "must be approve or return")
 		}
 		return nil
+	case *ExceptionAccepted:
+		return firstErr(checkID("test_id", k.TestID, false), checkID("revision", k.Revision, true), required("reason", k.Reason))
 	case nil:
 		return reject(UnknownKind, "kind", "the event holds no kind")
 	}

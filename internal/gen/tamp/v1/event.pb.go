@@ -623,6 +623,7 @@ type EventBody struct {
 	//	*EventBody_TestCorrected
 	//	*EventBody_TestVoided
 	//	*EventBody_TestReviewed
+	//	*EventBody_ExceptionAccepted
 	Kind          isEventBody_Kind `protobuf_oneof:"kind"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
@@ -831,6 +832,15 @@ func (x *EventBody) GetTestReviewed() *TestReviewed {
 	return nil
 }
 
+func (x *EventBody) GetExceptionAccepted() *ExceptionAccepted {
+	if x != nil {
+		if x, ok := x.Kind.(*EventBody_ExceptionAccepted); ok {
+			return x.ExceptionAccepted
+		}
+	}
+	return nil
+}
+
 type isEventBody_Kind interface {
 	isEventBody_Kind()
 }
@@ -900,6 +910,11 @@ type EventBody_TestReviewed struct {
 	TestReviewed *TestReviewed `protobuf:"bytes,28,opt,name=test_reviewed,json=testReviewed,proto3,oneof"`
 }
 
+type EventBody_ExceptionAccepted struct {
+	// A QA manager's acceptance of a failing test as it stands.
+	ExceptionAccepted *ExceptionAccepted `protobuf:"bytes,29,opt,name=exception_accepted,json=exceptionAccepted,proto3,oneof"`
+}
+
 func (*EventBody_ProjectSetUp) isEventBody_Kind() {}
 
 func (*EventBody_SpecDefined) isEventBody_Kind() {}
@@ -925,6 +940,8 @@ func (*EventBody_TestCorrected) isEventBody_Kind() {}
 func (*EventBody_TestVoided) isEventBody_Kind() {}
 
 func (*EventBody_TestReviewed) isEventBody_Kind() {}
+
+func (*EventBody_ExceptionAccepted) isEventBody_Kind() {}
 
 // ProjectSetUp names a project and fixes its conventions. A later set-up
 // replaces an earlier one (the latest by hybrid time wins).
@@ -3394,6 +3411,72 @@ func (x *TestReviewed) GetComment() string {
 	return ""
 }
 
+// ExceptionAccepted records a QA manager's acceptance of a failing test as
+// it stands, without a passing retest (for example a deviation the
+// engineer of record allowed). The failure stays in the record.
+type ExceptionAccepted struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The failing test.
+	TestId string `protobuf:"bytes,1,opt,name=test_id,json=testId,proto3" json:"test_id,omitempty"`
+	// Event id of the revision accepted.
+	Revision string `protobuf:"bytes,2,opt,name=revision,proto3" json:"revision,omitempty"`
+	// Why, and on whose authority; required.
+	Reason        string `protobuf:"bytes,3,opt,name=reason,proto3" json:"reason,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *ExceptionAccepted) Reset() {
+	*x = ExceptionAccepted{}
+	mi := &file_tamp_v1_event_proto_msgTypes[32]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *ExceptionAccepted) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*ExceptionAccepted) ProtoMessage() {}
+
+func (x *ExceptionAccepted) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_event_proto_msgTypes[32]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use ExceptionAccepted.ProtoReflect.Descriptor instead.
+func (*ExceptionAccepted) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{32}
+}
+
+func (x *ExceptionAccepted) GetTestId() string {
+	if x != nil {
+		return x.TestId
+	}
+	return ""
+}
+
+func (x *ExceptionAccepted) GetRevision() string {
+	if x != nil {
+		return x.Revision
+	}
+	return ""
+}
+
+func (x *ExceptionAccepted) GetReason() string {
+	if x != nil {
+		return x.Reason
+	}
+	return ""
+}
+
 var File_tamp_v1_event_proto protoreflect.FileDescriptor
 
 const file_tamp_v1_event_proto_rawDesc = "" +
@@ -3406,7 +3489,7 @@ const file_tamp_v1_event_proto_rawDesc = "" +
 	"HybridTime\x12\x1f\n" +
 	"\vwall_micros\x18\x01 \x01(\x03R\n" +
 	"wallMicros\x12\x18\n" +
-	"\alogical\x18\x02 \x01(\rR\alogical\"\xa4\t\n" +
+	"\alogical\x18\x02 \x01(\rR\alogical\"\xf1\t\n" +
 	"\tEventBody\x12\x19\n" +
 	"\bevent_id\x18\x01 \x01(\tR\aeventId\x12\x1d\n" +
 	"\n" +
@@ -3430,7 +3513,8 @@ const file_tamp_v1_event_proto_rawDesc = "" +
 	"\x0etest_corrected\x18\x1a \x01(\v2\x16.tamp.v1.TestCorrectedH\x00R\rtestCorrected\x126\n" +
 	"\vtest_voided\x18\x1b \x01(\v2\x13.tamp.v1.TestVoidedH\x00R\n" +
 	"testVoided\x12<\n" +
-	"\rtest_reviewed\x18\x1c \x01(\v2\x15.tamp.v1.TestReviewedH\x00R\ftestReviewedB\x06\n" +
+	"\rtest_reviewed\x18\x1c \x01(\v2\x15.tamp.v1.TestReviewedH\x00R\ftestReviewed\x12K\n" +
+	"\x12exception_accepted\x18\x1d \x01(\v2\x1a.tamp.v1.ExceptionAcceptedH\x00R\x11exceptionAcceptedB\x06\n" +
 	"\x04kind\"\x99\x02\n" +
 	"\fProjectSetUp\x12\x12\n" +
 	"\x04name\x18\x01 \x01(\tR\x04name\x12)\n" +
@@ -3627,7 +3711,11 @@ const file_tamp_v1_event_proto_rawDesc = "" +
 	"\atest_id\x18\x01 \x01(\tR\x06testId\x12\x1a\n" +
 	"\brevision\x18\x02 \x01(\tR\brevision\x123\n" +
 	"\bdecision\x18\x03 \x01(\x0e2\x17.tamp.v1.ReviewDecisionR\bdecision\x12\x18\n" +
-	"\acomment\x18\x04 \x01(\tR\acomment*Q\n" +
+	"\acomment\x18\x04 \x01(\tR\acomment\"`\n" +
+	"\x11ExceptionAccepted\x12\x17\n" +
+	"\atest_id\x18\x01 \x01(\tR\x06testId\x12\x1a\n" +
+	"\brevision\x18\x02 \x01(\tR\brevision\x12\x16\n" +
+	"\x06reason\x18\x03 \x01(\tR\x06reason*Q\n" +
 	"\n" +
 	"UnitSystem\x12\x1b\n" +
 	"\x17UNIT_SYSTEM_UNSPECIFIED\x10\x00\x12\x12\n" +
@@ -3681,7 +3769,7 @@ func file_tamp_v1_event_proto_rawDescGZIP() []byte {
 }
 
 var file_tamp_v1_event_proto_enumTypes = make([]protoimpl.EnumInfo, 8)
-var file_tamp_v1_event_proto_msgTypes = make([]protoimpl.MessageInfo, 32)
+var file_tamp_v1_event_proto_msgTypes = make([]protoimpl.MessageInfo, 33)
 var file_tamp_v1_event_proto_goTypes = []any{
 	(UnitSystem)(0),               // 0: tamp.v1.UnitSystem
 	(ShrinkageConvention)(0),      // 1: tamp.v1.ShrinkageConvention
@@ -3723,6 +3811,7 @@ var file_tamp_v1_event_proto_goTypes = []any{
 	(*TestCorrected)(nil),         // 37: tamp.v1.TestCorrected
 	(*TestVoided)(nil),            // 38: tamp.v1.TestVoided
 	(*TestReviewed)(nil),          // 39: tamp.v1.TestReviewed
+	(*ExceptionAccepted)(nil),     // 40: tamp.v1.ExceptionAccepted
 }
 var file_tamp_v1_event_proto_depIdxs = []int32{
 	9,  // 0: tamp.v1.EventBody.hlc:type_name -> tamp.v1.HybridTime
@@ -3739,38 +3828,39 @@ var file_tamp_v1_event_proto_depIdxs = []int32{
 	37, // 11: tamp.v1.EventBody.test_corrected:type_name -> tamp.v1.TestCorrected
 	38, // 12: tamp.v1.EventBody.test_voided:type_name -> tamp.v1.TestVoided
 	39, // 13: tamp.v1.EventBody.test_reviewed:type_name -> tamp.v1.TestReviewed
-	0,  // 14: tamp.v1.ProjectSetUp.units:type_name -> tamp.v1.UnitSystem
-	1,  // 15: tamp.v1.ProjectSetUp.shrinkage_convention:type_name -> tamp.v1.ShrinkageConvention
-	2,  // 16: tamp.v1.SpecDefined.moisture_basis:type_name -> tamp.v1.MoistureBasis
-	3,  // 17: tamp.v1.ReferenceAdded.standard:type_name -> tamp.v1.CompactionStandard
-	13, // 18: tamp.v1.ReferenceAdded.points:type_name -> tamp.v1.CurvePoint
-	4,  // 19: tamp.v1.EquipmentRegistered.kind:type_name -> tamp.v1.EquipmentKind
-	5,  // 20: tamp.v1.MoistureCorrectionSet.kind:type_name -> tamp.v1.CorrectionKind
-	17, // 21: tamp.v1.MoistureCorrectionSet.pairs:type_name -> tamp.v1.MoisturePair
-	29, // 22: tamp.v1.BorrowSourceMeasured.bank_tests:type_name -> tamp.v1.Readings
-	20, // 23: tamp.v1.LiftPlacementRecorded.stations:type_name -> tamp.v1.StationRange
-	23, // 24: tamp.v1.NuclearReadings.counts:type_name -> tamp.v1.NuclearCount
-	24, // 25: tamp.v1.Readings.nuclear:type_name -> tamp.v1.NuclearReadings
-	25, // 26: tamp.v1.Readings.sand_cone:type_name -> tamp.v1.SandConeReadings
-	26, // 27: tamp.v1.Readings.drive_cylinder:type_name -> tamp.v1.DriveCylinderReadings
-	27, // 28: tamp.v1.Readings.rubber_balloon:type_name -> tamp.v1.RubberBalloonReadings
-	28, // 29: tamp.v1.Readings.wet_density:type_name -> tamp.v1.WetDensityReadings
-	30, // 30: tamp.v1.Location.position:type_name -> tamp.v1.GeoPosition
-	6,  // 31: tamp.v1.Results.verdict:type_name -> tamp.v1.Verdict
-	33, // 32: tamp.v1.Results.reasons:type_name -> tamp.v1.Finding
-	33, // 33: tamp.v1.Results.flags:type_name -> tamp.v1.Finding
-	29, // 34: tamp.v1.TestContent.readings:type_name -> tamp.v1.Readings
-	31, // 35: tamp.v1.TestContent.location:type_name -> tamp.v1.Location
-	32, // 36: tamp.v1.TestContent.oversize:type_name -> tamp.v1.Oversize
-	34, // 37: tamp.v1.TestContent.device_results:type_name -> tamp.v1.Results
-	35, // 38: tamp.v1.TestRecorded.content:type_name -> tamp.v1.TestContent
-	35, // 39: tamp.v1.TestCorrected.content:type_name -> tamp.v1.TestContent
-	7,  // 40: tamp.v1.TestReviewed.decision:type_name -> tamp.v1.ReviewDecision
-	41, // [41:41] is the sub-list for method output_type
-	41, // [41:41] is the sub-list for method input_type
-	41, // [41:41] is the sub-list for extension type_name
-	41, // [41:41] is the sub-list for extension extendee
-	0,  // [0:41] is the sub-list for field type_name
+	40, // 14: tamp.v1.EventBody.exception_accepted:type_name -> tamp.v1.ExceptionAccepted
+	0,  // 15: tamp.v1.ProjectSetUp.units:type_name -> tamp.v1.UnitSystem
+	1,  // 16: tamp.v1.ProjectSetUp.shrinkage_convention:type_name -> tamp.v1.ShrinkageConvention
+	2,  // 17: tamp.v1.SpecDefined.moisture_basis:type_name -> tamp.v1.MoistureBasis
+	3,  // 18: tamp.v1.ReferenceAdded.standard:type_name -> tamp.v1.CompactionStandard
+	13, // 19: tamp.v1.ReferenceAdded.points:type_name -> tamp.v1.CurvePoint
+	4,  // 20: tamp.v1.EquipmentRegistered.kind:type_name -> tamp.v1.EquipmentKind
+	5,  // 21: tamp.v1.MoistureCorrectionSet.kind:type_name -> tamp.v1.CorrectionKind
+	17, // 22: tamp.v1.MoistureCorrectionSet.pairs:type_name -> tamp.v1.MoisturePair
+	29, // 23: tamp.v1.BorrowSourceMeasured.bank_tests:type_name -> tamp.v1.Readings
+	20, // 24: tamp.v1.LiftPlacementRecorded.stations:type_name -> tamp.v1.StationRange
+	23, // 25: tamp.v1.NuclearReadings.counts:type_name -> tamp.v1.NuclearCount
+	24, // 26: tamp.v1.Readings.nuclear:type_name -> tamp.v1.NuclearReadings
+	25, // 27: tamp.v1.Readings.sand_cone:type_name -> tamp.v1.SandConeReadings
+	26, // 28: tamp.v1.Readings.drive_cylinder:type_name -> tamp.v1.DriveCylinderReadings
+	27, // 29: tamp.v1.Readings.rubber_balloon:type_name -> tamp.v1.RubberBalloonReadings
+	28, // 30: tamp.v1.Readings.wet_density:type_name -> tamp.v1.WetDensityReadings
+	30, // 31: tamp.v1.Location.position:type_name -> tamp.v1.GeoPosition
+	6,  // 32: tamp.v1.Results.verdict:type_name -> tamp.v1.Verdict
+	33, // 33: tamp.v1.Results.reasons:type_name -> tamp.v1.Finding
+	33, // 34: tamp.v1.Results.flags:type_name -> tamp.v1.Finding
+	29, // 35: tamp.v1.TestContent.readings:type_name -> tamp.v1.Readings
+	31, // 36: tamp.v1.TestContent.location:type_name -> tamp.v1.Location
+	32, // 37: tamp.v1.TestContent.oversize:type_name -> tamp.v1.Oversize
+	34, // 38: tamp.v1.TestContent.device_results:type_name -> tamp.v1.Results
+	35, // 39: tamp.v1.TestRecorded.content:type_name -> tamp.v1.TestContent
+	35, // 40: tamp.v1.TestCorrected.content:type_name -> tamp.v1.TestContent
+	7,  // 41: tamp.v1.TestReviewed.decision:type_name -> tamp.v1.ReviewDecision
+	42, // [42:42] is the sub-list for method output_type
+	42, // [42:42] is the sub-list for method input_type
+	42, // [42:42] is the sub-list for extension type_name
+	42, // [42:42] is the sub-list for extension extendee
+	0,  // [0:42] is the sub-list for field type_name
 }
 
 func init() { file_tamp_v1_event_proto_init() }
@@ -3792,6 +3882,7 @@ func file_tamp_v1_event_proto_init() {
 		(*EventBody_TestCorrected)(nil),
 		(*EventBody_TestVoided)(nil),
 		(*EventBody_TestReviewed)(nil),
+		(*EventBody_ExceptionAccepted)(nil),
 	}
 	file_tamp_v1_event_proto_msgTypes[16].OneofWrappers = []any{}
 	file_tamp_v1_event_proto_msgTypes[21].OneofWrappers = []any{
@@ -3807,7 +3898,7 @@ func file_tamp_v1_event_proto_init() {
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_tamp_v1_event_proto_rawDesc), len(file_tamp_v1_event_proto_rawDesc)),
 			NumEnums:      8,
-			NumMessages:   32,
+			NumMessages:   33,
 			NumExtensions: 0,
 			NumServices:   0,
 		},
