@@ -380,18 +380,35 @@ type decoded struct {
 	err    error
 }
 
-// verifyAll decodes, verifies and validates events on all cores.
+// verifyAll decodes, verifies and validates events, checking signatures in
+// batches on all cores.
 func (s *Server) verifyAll(ctx context.Context, events []*pb.Event) []decoded {
 	out := make([]decoded, len(events))
+	keys := func(dev string) (ed25519.PublicKey, bool) { return s.key(ctx, dev) }
 	workers := min(runtime.GOMAXPROCS(0), max(1, len(events)/64))
+	per := (len(events) + workers - 1) / workers
 	var wg sync.WaitGroup
-	for w := range workers {
+	for lo := 0; lo < len(events); lo += per {
+		hi := min(len(events), lo+per)
 		wg.Add(1)
 		go func() {
 			defer wg.Done()
-			for i := w; i < len(events); i += workers {
-				sg, err := ledger.Open(events[i], func(dev string) (ed25519.PublicKey, bool) { return s.key(ctx, dev) })
-				out[i] = decoded{sg, err}
+			var good []int
+			var signed []ledger.Signed
+			for i := lo; i < hi; i++ {
+				sg, err := ledger.FromEnvelope(events[i])
+				out[i] = decoded{signed: sg, err: err}
+				if err == nil {
+					good = append(good, i)
+					signed = append(signed, sg)
+				}
+			}
+			for j, err := range ledger.VerifyBatch(signed, keys) {
+				i := good[j]
+				if err == nil {
+					err = ledger.Validate(out[i].signed.Event)
+				}
+				out[i].err = err
 			}
 		}()
 	}
@@ -532,7 +549,7 @@ func (s *Server) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushRespons
 		return nil, s.internal(ctx, "append", err)
 	}
 	for _, sg := range accepted {
-		if _, err := p.view.Apply(sg); err != nil {
+		if _, err := p.view.ApplyValidated(sg); err != nil {
 			// The event is stored; the projection is rebuilt on the next load.
 			s.log.ErrorContext(ctx, "apply accepted event", "event", sg.Event.ID, "err", err)
 			p.loaded = false

@@ -110,7 +110,13 @@ func (p *Projection) Event(eventID string) (Signed, bool) {
 // same bytes is a Duplicate. It returns a *Rejection (WrongProject,
 // ConflictingID for an event id reused with other bytes, or what Validate
 // returns) and then changes nothing.
-func (p *Projection) Apply(s Signed) (Outcome, error) {
+func (p *Projection) Apply(s Signed) (Outcome, error) { return p.apply(s, true) }
+
+// ApplyValidated is Apply for an event the caller has just validated (with
+// Validate or Open): it skips validating it again.
+func (p *Projection) ApplyValidated(s Signed) (Outcome, error) { return p.apply(s, false) }
+
+func (p *Projection) apply(s Signed, validate bool) (Outcome, error) {
 	e := &s.Event
 	if e.Project != p.project {
 		return Outcome{}, reject(WrongProject, "project_id", fmt.Sprintf("the event belongs to project %s, not %s", e.Project, p.project))
@@ -121,8 +127,10 @@ func (p *Projection) Apply(s Signed) (Outcome, error) {
 		}
 		return Outcome{}, reject(ConflictingID, "event_id", "event "+e.ID+" is already held with other content")
 	}
-	if err := Validate(*e); err != nil {
-		return Outcome{}, err
+	if validate {
+		if err := Validate(*e); err != nil {
+			return Outcome{}, err
+		}
 	}
 	held := s
 	p.events[e.ID] = &held

@@ -4,6 +4,7 @@ import (
 	"crypto/ed25519"
 	"fmt"
 
+	voi "github.com/oasisprotocol/curve25519-voi/primitives/ed25519"
 	"google.golang.org/protobuf/proto"
 
 	pb "tamp/internal/gen/tamp/v1"
@@ -68,16 +69,63 @@ func (s Signed) Bytes() []byte {
 // Proto returns the envelope as it travels.
 func (s Signed) Proto() *pb.Event { return &pb.Event{Body: s.Body, Signature: s.Signature} }
 
+// Signatures are verified under the rules of ZIP 215, with which single and
+// batch verification give the same answer for every signature (the
+// standard library's cofactorless check can disagree with any batch check
+// on crafted signatures, which would let one replica accept what another
+// refuses). Every signature Ed25519 signing produces verifies under them.
+var verifyOptions = &voi.Options{Verify: voi.VerifyOptionsZIP_215}
+
 // Verify checks the signature with the device's public key. It returns a
 // *Rejection with BadSignature when it does not verify.
 func (s Signed) Verify(pub ed25519.PublicKey) error {
 	if len(pub) != ed25519.PublicKeySize {
 		return reject(BadSignature, "device_id", "no valid public key is known for device "+s.Event.Device)
 	}
-	if !ed25519.Verify(pub, signed(s.Body), s.Signature) {
-		return reject(BadSignature, "signature", fmt.Sprintf("the signature of event %s does not verify with device %s's key", s.Event.ID, s.Event.Device))
+	if !voi.VerifyWithOptions(voi.PublicKey(pub), signed(s.Body), s.Signature, verifyOptions) {
+		return s.badSignature()
 	}
 	return nil
+}
+
+func (s Signed) badSignature() error {
+	return reject(BadSignature, "signature", fmt.Sprintf("the signature of event %s does not verify with device %s's key", s.Event.ID, s.Event.Device))
+}
+
+// VerifyBatch checks the signatures of many events at once, several times
+// faster than one by one when all are good; keys gives each device's key.
+// It returns one error per event, nil where the signature verifies, with the
+// same answers Verify gives.
+func VerifyBatch(evs []Signed, keys KeyFunc) []error {
+	errs := make([]error, len(evs))
+	bv := voi.NewBatchVerifier()
+	expanded := map[string]*voi.ExpandedPublicKey{} // a device's key is decompressed once
+	var idx []int
+	for i, s := range evs {
+		x, ok := expanded[s.Event.Device]
+		if !ok {
+			if pub, known := keys(s.Event.Device); known && len(pub) == ed25519.PublicKeySize {
+				x, _ = voi.NewExpandedPublicKey(voi.PublicKey(pub))
+			}
+			expanded[s.Event.Device] = x
+		}
+		if x == nil {
+			errs[i] = reject(BadSignature, "device_id", "device "+s.Event.Device+" is not enrolled or its key is not valid")
+			continue
+		}
+		bv.AddExpandedWithOptions(x, signed(s.Body), s.Signature, verifyOptions)
+		idx = append(idx, i)
+	}
+	if len(idx) == 0 {
+		return errs
+	}
+	_, valid := bv.Verify(nil)
+	for j, i := range idx {
+		if !valid[j] {
+			errs[i] = evs[i].badSignature()
+		}
+	}
+	return errs
 }
 
 // Decode decodes an envelope's bytes without verifying its signature.
