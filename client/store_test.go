@@ -36,8 +36,6 @@ type env struct {
 	project string
 	spec    string
 	ref     string
-	mdd     float64 // pcf
-	omc     float64
 }
 
 func pcf(v float64) float64 { return v * soil.PoundPerCubicFoot }
@@ -50,14 +48,11 @@ func newEnv(t *testing.T, user string) *env {
 		clock: &clock{time.Date(2026, 9, 14, 13, 30, 0, 0, time.UTC)}}
 	e.open(user)
 	e.project = e.store.NewID()
-	ctx := context.Background()
 	e.rec(&ledger.ProjectSetUp{Name: "Juniper Wash detention basin", Units: soil.US, WaterDensity: soil.Water624, TimeZone: "America/Denver"})
 	e.spec, e.ref = e.store.NewID(), e.store.NewID()
 	e.rec(&ledger.SpecDefined{ID: e.spec, Name: "basin embankment", MinCompaction: "95", MoistureLow: "-2", MoistureHigh: "2"})
 	e.rec(&ledger.ReferenceAdded{ID: e.ref, Material: "tan clayey sand", Procedure: soil.Procedure{Standard: soil.ASTMD698, Method: "A", Edition: 2012},
 		MaxDryDensity: pcf(116.0), OptimumMoisture: 13.5})
-	e.mdd, e.omc = 116.0, 13.5
-	_ = ctx
 	return e
 }
 

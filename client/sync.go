@@ -167,7 +167,7 @@ func saveCheckpoint(ctx context.Context, tx *sql.Tx, cp ledger.Checkpoint) error
 	return err
 }
 
-func (s *Store) noteAttempt(ctx context.Context, project string, syncErr error) {
+func (s *Store) noteAttempt(ctx context.Context, project string, syncErr error) error {
 	now := s.now().UnixMicro()
 	msg := ""
 	if syncErr != nil {
@@ -185,8 +185,9 @@ func (s *Store) noteAttempt(ctx context.Context, project string, syncErr error) 
 		args = append(args, now)
 	}
 	if _, err := s.db.Writer().ExecContext(ctx, q, args...); err != nil {
-		_ = err // the status is advisory; the sync's own error is what the caller gets
+		return fmt.Errorf("client: record sync status: %w", err)
 	}
+	return nil
 }
 
 // retry runs call, retrying on Unavailable (and Aborted, which asks for the
@@ -227,8 +228,7 @@ func (s *Store) Sync(ctx context.Context, conn grpc.ClientConnInterface, project
 	if status.Code(err) == codes.Unauthenticated && strings.Contains(err.Error(), "revoked") {
 		err = fmt.Errorf("%w: %w", ErrRevoked, err)
 	}
-	s.noteAttempt(context.WithoutCancel(ctx), project, err)
-	return rep, err
+	return rep, errors.Join(err, s.noteAttempt(context.WithoutCancel(ctx), project, err))
 }
 
 func (s *Store) sync(ctx context.Context, conn grpc.ClientConnInterface, project string, opts SyncOptions) (SyncReport, error) {
