@@ -78,7 +78,7 @@ type SyncOptions struct {
 	MaxAttempts int                 // per call, retrying Unavailable (default 6)
 	BaseDelay   time.Duration       // first retry delay (default 200 ms), doubling with jitter
 	MaxDelay    time.Duration       // longest retry delay (default 5 s)
-	Sleep       func(time.Duration) // time.Sleep when nil; tests shorten it
+	Sleep       func(time.Duration) // waits between retries (until the context ends when nil); tests shorten it
 }
 
 func (o *SyncOptions) defaults() {
@@ -197,7 +197,14 @@ func retry(ctx context.Context, o SyncOptions, call func() error) error {
 	delay := o.BaseDelay
 	sleep := o.Sleep
 	if sleep == nil {
-		sleep = time.Sleep
+		sleep = func(d time.Duration) {
+			t := time.NewTimer(d)
+			defer t.Stop()
+			select {
+			case <-t.C:
+			case <-ctx.Done():
+			}
+		}
 	}
 	var err error
 	for attempt := 1; ; attempt++ {
@@ -216,12 +223,14 @@ func retry(ctx context.Context, o SyncOptions, call func() error) error {
 	}
 }
 
-// Sync pushes the project's outbox to the server, then pulls and verifies
-// the ledger after the last verified point, applying it to the project's
-// view. A cut connection is retried; what was verified and applied before
-// a cut is kept, so the next attempt resumes. When the server's ledger no
-// longer holds the verified point, Sync pushes back everything the device
-// holds and returns ErrFork.
+// Sync pulls and verifies the project's ledger after the last verified
+// point, pushes the project's outbox, and pulls again, applying what it
+// receives to the project's view. Pulling first lets the device see a
+// rolled-back or rewritten server before it pushes. A cut connection is
+// retried with backoff; what was verified and applied before a cut is kept,
+// so the next attempt resumes. When the server's ledger no longer holds the
+// verified point, Sync pushes back everything the device holds and returns
+// ErrFork; a revoked device gets ErrRevoked and keeps its pending entries.
 func (s *Store) Sync(ctx context.Context, conn grpc.ClientConnInterface, project string, opts SyncOptions) (SyncReport, error) {
 	opts.defaults()
 	rep, err := s.sync(ctx, conn, project, opts)
