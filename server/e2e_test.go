@@ -211,3 +211,23 @@ func TestClockSkewFlagged(t *testing.T) {
 		}
 	}
 }
+
+// A cancelled context stops a sync; what it had not sent stays pending.
+func TestSyncCancelled(t *testing.T) {
+	c := startCluster(t, t.TempDir())
+	project := c.newProject("Sagebrush Flats pad")
+	ann := c.device("ann", server.Inspector)
+	record(t, ann, project, "", "", 3, 0)
+	ctx, cancel := context.WithCancel(context.Background())
+	cancel()
+	if _, err := ann.Sync(ctx, c.conn(""), project, client.SyncOptions{}); err == nil {
+		t.Fatal("a cancelled sync succeeded")
+	}
+	if o, _ := ann.Outbox(context.Background()); o.Pending != 3 {
+		t.Errorf("pending after a cancelled sync = %d", o.Pending)
+	}
+	syncOK(t, ann, c.conn(""), project)
+	if o, _ := ann.Outbox(context.Background()); o.Pending != 0 {
+		t.Errorf("pending after a sync = %d", o.Pending)
+	}
+}

@@ -1,0 +1,108 @@
+package sqlitestore
+
+import (
+	"context"
+	"crypto/sha256"
+	"errors"
+	"path/filepath"
+	"testing"
+	"time"
+
+	"tamp/internal/ledger"
+	"tamp/internal/sqlite"
+	"tamp/server"
+)
+
+func open(t *testing.T) *Store {
+	t.Helper()
+	s, err := Open(context.Background(), filepath.Join(t.TempDir(), "ledger.db"), sqlite.Normal)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { s.Close() })
+	return s
+}
+
+func TestAppendHeadAndConflict(t *testing.T) {
+	s := open(t)
+	ctx := context.Background()
+	const p = "0190d3a0-0000-7000-8000-0000000000aa"
+	if err := s.CreateProject(ctx, p, "levee", time.Now()); err != nil {
+		t.Fatal(err)
+	}
+	head, err := s.Head(ctx, p)
+	if err != nil || head.Seq != 0 || head.Epoch != 1 || head.Hash != ledger.Genesis(p) {
+		t.Fatalf("new head = %+v, %v", head, err)
+	}
+	log := ledger.NewLog(p, 1)
+	var rows []server.Row
+	for i := range 3 {
+		e := log.Append([]byte{byte(i), 1, 2})
+		rows = append(rows, server.Row{Seq: e.Seq, EventID: string(rune('a' + i)), DeviceID: "d", DeviceSeq: uint64(i + 1), Kind: "test_recorded",
+			Envelope: e.Event, Hash: e.Hash, Received: time.Now()})
+	}
+	if err := s.Append(ctx, p, head, rows); err != nil {
+		t.Fatal(err)
+	}
+	got, _ := s.Head(ctx, p)
+	if got.Seq != 3 || got.Hash != log.Head().Hash {
+		t.Errorf("head after append = %d %s, want %d %s", got.Seq, got.Hash, 3, log.Head().Hash)
+	}
+	// Appending after a stale head is refused and changes nothing.
+	if err := s.Append(ctx, p, head, rows[:1]); !errors.Is(err, server.ErrConflict) {
+		t.Errorf("append after a stale head: %v", err)
+	}
+	entries, _ := s.After(ctx, p, 1, 10)
+	if len(entries) != 2 || entries[0].Seq != 2 {
+		t.Errorf("after 1: %+v", entries)
+	}
+	seqs, _ := s.Sequences(ctx, p, []string{"a", "c", "zz"})
+	if seqs["a"] != 1 || seqs["c"] != 3 || len(seqs) != 2 {
+		t.Errorf("sequences = %v", seqs)
+	}
+	if err := s.SetEpoch(ctx, p, 2); err != nil {
+		t.Fatal(err)
+	}
+	if err := s.SetEpoch(ctx, p, 2); !errors.Is(err, server.ErrConflict) {
+		t.Errorf("setting the same epoch again: %v", err)
+	}
+	if _, err := s.Head(ctx, "nope"); !errors.Is(err, server.ErrNoProject) {
+		t.Errorf("unknown project: %v", err)
+	}
+}
+
+func TestEnrolmentCodes(t *testing.T) {
+	s := open(t)
+	ctx := context.Background()
+	now := time.Now()
+	if err := s.AddUser(ctx, "u1", "Ines", false, now); err != nil {
+		t.Fatal(err)
+	}
+	h := sha256.Sum256([]byte("code"))
+	if err := s.AddEnrollmentCode(ctx, h[:], "u1", now.Add(time.Hour)); err != nil {
+		t.Fatal(err)
+	}
+	tok := sha256.Sum256([]byte("token"))
+	d, err := s.Enroll(ctx, h[:], server.Device{ID: "dev1", PublicKey: make([]byte, 32)}, tok[:], now)
+	if err != nil || d.UserID != "u1" {
+		t.Fatalf("enrol = %+v, %v", d, err)
+	}
+	if _, err := s.Enroll(ctx, h[:], server.Device{ID: "dev2", PublicKey: make([]byte, 32)}, tok[:], now); !errors.Is(err, server.ErrCodeInvalid) {
+		t.Errorf("code used twice: %v", err)
+	}
+	h2 := sha256.Sum256([]byte("late"))
+	_ = s.AddEnrollmentCode(ctx, h2[:], "u1", now.Add(time.Hour))
+	if _, err := s.Enroll(ctx, h2[:], server.Device{ID: "dev3", PublicKey: make([]byte, 32)}, tok[:], now.Add(2*time.Hour)); !errors.Is(err, server.ErrCodeInvalid) {
+		t.Errorf("expired code: %v", err)
+	}
+	got, err := s.DeviceByToken(ctx, tok[:])
+	if err != nil || got.ID != "dev1" || got.Revoked {
+		t.Errorf("device by token = %+v, %v", got, err)
+	}
+	if err := s.Revoke(ctx, "dev1", now); err != nil {
+		t.Fatal(err)
+	}
+	if got, _ := s.Device(ctx, "dev1"); !got.Revoked {
+		t.Error("revocation not kept")
+	}
+}
