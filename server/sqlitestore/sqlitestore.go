@@ -21,6 +21,9 @@ import (
 //go:embed migrations/*.sql
 var migrationFiles embed.FS
 
+// insertRows is how many ledger rows one INSERT statement carries.
+const insertRows = 64
+
 // Store is a server.Store over one SQLite file. It is safe for concurrent use.
 type Store struct {
 	db *sqlite.DB
@@ -165,12 +168,6 @@ func (s *Store) Append(ctx context.Context, project string, h ledger.Checkpoint,
 		if cur != h {
 			return fmt.Errorf("sqlitestore: append to %s: head is %d/%d, expected %d/%d: %w", project, cur.Epoch, cur.Seq, h.Epoch, h.Seq, server.ErrConflict)
 		}
-		ins, err := tx.PrepareContext(ctx, `INSERT INTO ledger (project_id, seq, event_id, device_id, device_seq, kind, record_id,
-			envelope, hash, clock_skew_micros, received_micros) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`)
-		if err != nil {
-			return err
-		}
-		defer ins.Close()
 		mark, err := tx.PrepareContext(ctx, `INSERT INTO device_marks (project_id, device_id, high_seq) VALUES (?, ?, ?)
 			ON CONFLICT (project_id, device_id) DO UPDATE SET high_seq = max(high_seq, excluded.high_seq)`)
 		if err != nil {
@@ -178,12 +175,22 @@ func (s *Store) Append(ctx context.Context, project string, h ledger.Checkpoint,
 		}
 		defer mark.Close()
 		high := map[string]uint64{}
-		for _, r := range rows {
-			if _, err := ins.ExecContext(ctx, project, r.Seq, r.EventID, r.DeviceID, r.DeviceSeq, r.Kind, r.RecordID,
-				r.Envelope, r.Hash[:], r.SkewMicros, r.Received.UnixMicro()); err != nil {
-				return fmt.Errorf("sqlitestore: append %s: %w", r.EventID, err)
+		// Rows go in by statements of up to insertRows rows: one statement a
+		// row costs more in the driver than the insert itself.
+		for start := 0; start < len(rows); start += insertRows {
+			part := rows[start:min(len(rows), start+insertRows)]
+			args := make([]any, 0, len(part)*11)
+			for _, r := range part {
+				args = append(args, project, r.Seq, r.EventID, r.DeviceID, r.DeviceSeq, r.Kind, r.RecordID,
+					r.Envelope, r.Hash[:], r.SkewMicros, r.Received.UnixMicro())
+				high[r.DeviceID] = max(high[r.DeviceID], r.DeviceSeq)
 			}
-			high[r.DeviceID] = max(high[r.DeviceID], r.DeviceSeq)
+			q := `INSERT INTO ledger (project_id, seq, event_id, device_id, device_seq, kind, record_id, envelope, hash,
+				clock_skew_micros, received_micros) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)` +
+				strings.Repeat(", (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)", len(part)-1)
+			if _, err := tx.ExecContext(ctx, q, args...); err != nil {
+				return fmt.Errorf("sqlitestore: append at %d: %w", part[0].Seq, err)
+			}
 		}
 		for dev, seq := range high {
 			if _, err := mark.ExecContext(ctx, project, dev, seq); err != nil {
