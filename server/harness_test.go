@@ -32,6 +32,7 @@ type cluster struct {
 	project string
 	done    chan struct{}
 	extra   []grpc.ServerOption
+	rate    float64 // pushes a second per device; zero for the server's default
 }
 
 func hashOf(secret string) []byte {
@@ -53,7 +54,7 @@ func (c *cluster) start(addr string) {
 		c.tb.Fatal(err)
 	}
 	c.store = st
-	c.srv = server.New(server.Options{Store: st, Logger: slog.New(slog.NewTextHandler(io.Discard, nil))})
+	c.srv = server.New(server.Options{Store: st, Logger: slog.New(slog.NewTextHandler(io.Discard, nil)), PushRate: c.rate, PushBurst: int(c.rate)})
 	c.g = grpc.NewServer(append([]grpc.ServerOption{grpc.UnaryInterceptor(c.srv.UnaryInterceptor),
 		grpc.StreamInterceptor(c.srv.StreamInterceptor)}, c.extra...)...)
 	c.srv.Register(c.g)

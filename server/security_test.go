@@ -40,7 +40,7 @@ type rawDevice struct {
 	seq             uint64
 }
 
-func (c *cluster) rawDevice(t *testing.T, name string, roles map[string]server.Role, serverAdmin bool) *rawDevice {
+func (c *cluster) rawDevice(t testing.TB, name string, roles map[string]server.Role, serverAdmin bool) *rawDevice {
 	t.Helper()
 	ctx := context.Background()
 	user, err := c.srv.AddUser(ctx, name, serverAdmin)
@@ -66,11 +66,13 @@ func (c *cluster) rawDevice(t *testing.T, name string, roles map[string]server.R
 	return d
 }
 
+func newV7() string { return uuid.Must(uuid.NewV7()).String() }
+
 func (d *rawDevice) ctx() context.Context {
 	return metadata.AppendToOutgoingContext(context.Background(), "authorization", "Bearer "+d.token)
 }
 
-func (d *rawDevice) sign(t *testing.T, project string, k ledger.Kind) ledger.Signed {
+func (d *rawDevice) sign(t testing.TB, project string, k ledger.Kind) ledger.Signed {
 	t.Helper()
 	d.seq++
 	s, err := ledger.Seal(ledger.Event{ID: uuid.Must(uuid.NewV7()).String(), Project: project, Author: d.user, Device: d.id, DeviceSeq: d.seq,
@@ -477,4 +479,22 @@ func writeCert(t *testing.T, dir string) (certFile, keyFile, caFile string) {
 	write(keyFile, "EC PRIVATE KEY", keyDER)
 	write(caFile, "CERTIFICATE", caDER)
 	return certFile, keyFile, caFile
+}
+
+// A device pushing faster than its rate is told to slow down.
+func TestPushRateLimit(t *testing.T) {
+	c := &cluster{tb: t, dir: t.TempDir(), rate: 3}
+	c.start("")
+	a := c.newProject("project A")
+	d := c.rawDevice(t, "eager", map[string]server.Role{a: server.Inspector}, false)
+	var limited error
+	for range 10 {
+		if _, err := d.push(t, c, a); err != nil {
+			limited = err
+			break
+		}
+	}
+	if status.Code(limited) != codes.ResourceExhausted || !strings.Contains(limited.Error(), "rate") {
+		t.Errorf("ten pushes at once with a rate of 3: %v, want ResourceExhausted", limited)
+	}
 }

@@ -1,0 +1,13 @@
+package daemon
+
+import (
+	"testing"
+
+	"go.uber.org/goleak"
+)
+
+// TestMain fails the package when tampd leaves goroutines behind after it
+// stops.
+func TestMain(m *testing.M) {
+	goleak.VerifyTestMain(m)
+}
