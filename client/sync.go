@@ -1,6 +1,7 @@
 package client
 
 import (
+	"bytes"
 	"context"
 	"crypto/ed25519"
 	"database/sql"
@@ -580,6 +581,12 @@ func (s *Store) resetCheckpointIfNew(ctx context.Context, cp ledger.Checkpoint) 
 func (s *Store) applyPulled(ctx context.Context, project string, evs []ledger.Signed, seqs []uint64, cp ledger.Checkpoint, chained bool) error {
 	s.mu.Lock()
 	defer s.mu.Unlock()
+	v := s.view(project)
+	for _, sg := range evs {
+		if held, ok := v.Event(sg.Event.ID); ok && !bytes.Equal(held.Body, sg.Body) {
+			return &forkError{fmt.Errorf("event %s from the server differs from the one this device holds", sg.Event.ID)}
+		}
+	}
 	err := s.db.Tx(ctx, func(tx *sql.Tx) error {
 		for i, sg := range evs {
 			e := sg.Event
@@ -605,9 +612,8 @@ func (s *Store) applyPulled(ctx context.Context, project string, evs []ledger.Si
 	if err != nil {
 		return err
 	}
-	v := s.view(project)
 	for _, sg := range evs {
-		if _, err := v.Apply(sg); err != nil && ledger.ReasonOf(err) != ledger.ConflictingID {
+		if _, err := v.Apply(sg); err != nil { // Open validated it and its bytes are new or the same
 			return fmt.Errorf("client: apply pulled %s: %w", sg.Event.ID, err)
 		}
 		s.clock.Observe(sg.Event.HLC)
