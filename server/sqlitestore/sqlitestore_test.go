@@ -3,7 +3,9 @@ package sqlitestore
 import (
 	"context"
 	"crypto/sha256"
+	"database/sql"
 	"errors"
+	"io/fs"
 	"path/filepath"
 	"testing"
 	"time"
@@ -104,5 +106,32 @@ func TestEnrolmentCodes(t *testing.T) {
 	}
 	if got, _ := s.Device(ctx, "dev1"); !got.Revoked {
 		t.Error("revocation not kept")
+	}
+}
+
+// A ledger made by the first release's schema opens under the current one.
+func TestMigrateFromFirstSchema(t *testing.T) {
+	ctx := context.Background()
+	path := filepath.Join(t.TempDir(), "old.db")
+	w, err := sql.Open("sqlite", sqlite.DSN(path, sqlite.Full, 5*time.Second, false))
+	if err != nil {
+		t.Fatal(err)
+	}
+	m, _ := fs.Sub(migrationFiles, "migrations")
+	if err := sqlite.Migrate(ctx, w, m, 1); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := w.Exec(`INSERT INTO users (user_id, name, created_micros) VALUES ('u1', 'Rosa', 1)`); err != nil {
+		t.Fatal(err)
+	}
+	w.Close()
+	s, err := Open(ctx, path, sqlite.Full)
+	if err != nil {
+		t.Fatalf("open a first-release ledger: %v", err)
+	}
+	defer s.Close()
+	u, err := s.User(ctx, "u1")
+	if err != nil || u.Name != "Rosa" || u.ServerAdmin {
+		t.Errorf("user after migration: %+v, %v", u, err)
 	}
 }
