@@ -152,3 +152,30 @@ func FuzzCalibrationsAndCorrections(f *testing.F) {
 		}
 	})
 }
+
+func FuzzNamesAndPhase(f *testing.F) {
+	f.Add("ASTM D698", "A", 2012, "us", 2.65, 12.0, 1000.0)
+	f.Add("AASHTO T 180", "d", 1999, "si", 1.0, -3.0, 0.0)
+	f.Add("", "Z", -1, "metric", math.NaN(), math.Inf(1), -1.0)
+	f.Fuzz(func(t *testing.T, std, method string, edition int, units string, gs, w, water float64) {
+		p := Procedure{Standard: Standard(std), Method: method, Edition: edition}
+		if sc, err := p.Scope(); err == nil {
+			if sc.MaxOversize <= 0 || sc.Blows <= 0 {
+				t.Fatalf("scope %+v", sc)
+			}
+			if _, err := p.InScope(w); err != nil {
+				t.Fatal(err)
+			}
+		} else if !errors.Is(err, valid.ErrInput) {
+			t.Fatal(err)
+		}
+		if _, err := ParseSystem(units); err != nil && !errors.Is(err, valid.ErrInput) {
+			t.Fatal(err)
+		}
+		if z, err := ZeroAirVoids(gs, w, water); err == nil && (z <= 0 || math.IsNaN(z)) {
+			t.Fatalf("ZeroAirVoids = %v", z)
+		} else if err != nil && !errors.Is(err, valid.ErrInput) {
+			t.Fatal(err)
+		}
+	})
+}
