@@ -498,3 +498,27 @@ func TestPushRateLimit(t *testing.T) {
 		t.Errorf("ten pushes at once with a rate of 3: %v, want ResourceExhausted", limited)
 	}
 }
+
+// An event id already in the ledger, pushed again with other content, is
+// refused rather than reported present.
+func TestConflictingEventID(t *testing.T) {
+	c := startCluster(t, t.TempDir())
+	a := c.newProject("project A")
+	d := c.rawDevice(t, "jo", map[string]server.Role{a: server.Inspector}, false)
+	orig := d.sign(t, a, &ledger.TestRecorded{TestID: newV7(), Content: ledger.TestContent{Readings: sandCone(110, 12)}})
+	if o := d.first(t, c, a, orig); o.GetStatus() != pb.PushStatus_PUSH_STATUS_ACCEPTED {
+		t.Fatal(o)
+	}
+	e := orig.Event
+	e.Kind = &ledger.TestRecorded{TestID: newV7(), Content: ledger.TestContent{Readings: sandCone(118, 12)}}
+	other, err := ledger.Seal(e, d.key)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if o := d.first(t, c, a, other); o.GetReason() != pb.RejectReason_REJECT_REASON_CONFLICTING_ID {
+		t.Errorf("same id, other content: %v", o)
+	}
+	if o := d.first(t, c, a, orig); o.GetStatus() != pb.PushStatus_PUSH_STATUS_ALREADY_PRESENT {
+		t.Errorf("same event again: %v", o)
+	}
+}

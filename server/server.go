@@ -1,6 +1,7 @@
 package server
 
 import (
+	"bytes"
 	"context"
 	"crypto/ed25519"
 	"crypto/rand"
@@ -499,11 +500,16 @@ func (s *Server) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushRespons
 				Detail: "the event belongs to project " + e.Project}))
 			continue
 		}
-		if seq, ok := present[id]; ok {
-			resp.Outcomes = append(resp.Outcomes, &pb.PushOutcome{EventId: id, Status: pb.PushStatus_PUSH_STATUS_ALREADY_PRESENT, Sequence: seq})
-			continue
+		seq, held := present[id]
+		if !held {
+			seq, held = inBatch[id]
 		}
-		if seq, ok := inBatch[id]; ok {
+		if held {
+			if !s.sameBytes(p.view, accepted, it.signed) {
+				resp.Outcomes = append(resp.Outcomes, rejected(id, &ledger.Rejection{Reason: ledger.ConflictingID, Field: "event_id",
+					Detail: "the ledger holds event " + id + " with other content"}))
+				continue
+			}
 			resp.Outcomes = append(resp.Outcomes, &pb.PushOutcome{EventId: id, Status: pb.PushStatus_PUSH_STATUS_ALREADY_PRESENT, Sequence: seq})
 			continue
 		}
@@ -562,6 +568,20 @@ func (s *Server) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushRespons
 	resp.Head = ledger.CheckpointToProto(next)
 	s.log.InfoContext(ctx, "push", "project", req.GetProjectId(), "events", len(items), "accepted", len(rows), "head", next.Seq)
 	return resp, nil
+}
+
+// sameBytes reports whether the ledger (its projection, or the events
+// accepted earlier in this batch) holds sg's event with the same bytes.
+func (s *Server) sameBytes(view *ledger.Projection, batch []ledger.Signed, sg ledger.Signed) bool {
+	if held, ok := view.Event(sg.Event.ID); ok {
+		return bytes.Equal(held.Body, sg.Body)
+	}
+	for _, b := range batch {
+		if b.Event.ID == sg.Event.ID {
+			return bytes.Equal(b.Body, sg.Body)
+		}
+	}
+	return false
 }
 
 func (s *Server) skewLimit(p *project) time.Duration {
