@@ -320,3 +320,21 @@ func TestExceptionClosesFailure(t *testing.T) {
 		t.Errorf("open failures after an accepted exception = %d", n)
 	}
 }
+
+func TestBatchesBoundCountAndBytes(t *testing.T) {
+	ev := func(n int) outboxEvent { return outboxEvent{body: make([]byte, n), sig: make([]byte, 64)} }
+	var evs []outboxEvent
+	for range 7 {
+		evs = append(evs, ev(100))
+	}
+	if got := batches(evs, 3); len(got) != 3 || len(got[0]) != 3 || len(got[2]) != 1 {
+		t.Errorf("7 events by 3: %d batches", len(got))
+	}
+	big := []outboxEvent{ev(3 << 20), ev(3 << 20), ev(10)}
+	if got := batches(big, 500); len(got) != 2 || len(got[0]) != 1 || len(got[1]) != 2 {
+		t.Errorf("two 3 MiB events: %v batches", len(got))
+	}
+	if got := batches(nil, 500); len(got) != 1 || len(got[0]) != 0 {
+		t.Errorf("an empty outbox makes %d pushes, want one empty push", len(got))
+	}
+}

@@ -305,6 +305,30 @@ func (s *Store) resetCheckpoint(ctx context.Context, cp ledger.Checkpoint) error
 	return s.db.Tx(ctx, func(tx *sql.Tx) error { return saveCheckpoint(ctx, tx, cp) })
 }
 
+// maxBatchBytes bounds the events of one push, well under the server's
+// message limit.
+const maxBatchBytes = 4 << 20
+
+// batches splits events into batches of at most n events and maxBatchBytes.
+func batches(events []outboxEvent, n int) [][]outboxEvent {
+	var out [][]outboxEvent
+	var cur []outboxEvent
+	size := 0
+	for _, e := range events {
+		es := len(e.body) + len(e.sig)
+		if len(cur) > 0 && (len(cur) == n || size+es > maxBatchBytes) {
+			out = append(out, cur)
+			cur, size = nil, 0
+		}
+		cur = append(cur, e)
+		size += es
+	}
+	if len(cur) > 0 || len(out) == 0 {
+		out = append(out, cur) // an empty outbox still makes one (empty) push
+	}
+	return out
+}
+
 type outboxEvent struct {
 	id        string
 	body, sig []byte
@@ -354,8 +378,7 @@ func (s *Store) pushOutbox(ctx context.Context, sc pb.SyncServiceClient, project
 		var sent int
 		var bytes int64
 		waitingLeft := 0
-		for start := 0; start < len(events) || (start == 0 && round == 0); start += opts.BatchSize {
-			batch := events[start:min(len(events), start+opts.BatchSize)]
+		for _, batch := range batches(events, opts.BatchSize) {
 			req := &pb.PushRequest{ProjectId: project, DeviceTimeMicros: s.now().UnixMicro(), Verified: ledger.CheckpointToProto(cp)}
 			for _, e := range batch {
 				req.Events = append(req.Events, &pb.Event{Body: e.body, Signature: e.sig})
@@ -376,9 +399,6 @@ func (s *Store) pushOutbox(ctx context.Context, sc pb.SyncServiceClient, project
 			sent += len(batch)
 			if opts.Progress != nil {
 				opts.Progress(Progress{Phase: "push", Events: sent, Bytes: bytes, Total: len(events)})
-			}
-			if len(events) == 0 {
-				break
 			}
 		}
 		if waitingLeft == 0 || accepted == 0 {
@@ -446,8 +466,7 @@ func (s *Store) repushAll(ctx context.Context, sc pb.SyncServiceClient, project 
 	if err != nil {
 		return head, err
 	}
-	for start := 0; start < len(events) || start == 0; start += opts.BatchSize {
-		batch := events[start:min(len(events), start+opts.BatchSize)]
+	for _, batch := range batches(events, opts.BatchSize) {
 		req := &pb.PushRequest{ProjectId: project, DeviceTimeMicros: s.now().UnixMicro(), Verified: ledger.CheckpointToProto(cp)}
 		for _, e := range batch {
 			req.Events = append(req.Events, &pb.Event{Body: e.body, Signature: e.sig})
@@ -462,9 +481,6 @@ func (s *Store) repushAll(ctx context.Context, sc pb.SyncServiceClient, project 
 			return head, err
 		}
 		rep.Repushed += scratch.Accepted
-		if len(events) == 0 {
-			break
-		}
 	}
 	return head, nil
 }

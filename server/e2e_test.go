@@ -3,6 +3,7 @@ package server_test
 import (
 	"context"
 	"path/filepath"
+	"strings"
 	"sync"
 	"testing"
 	"time"
@@ -229,5 +230,28 @@ func TestSyncCancelled(t *testing.T) {
 	syncOK(t, ann, c.conn(""), project)
 	if o, _ := ann.Outbox(context.Background()); o.Pending != 0 {
 		t.Errorf("pending after a sync = %d", o.Pending)
+	}
+}
+
+// Large entries are pushed and pulled in chunks that fit gRPC's default
+// message size, so a device with long remarks still syncs.
+func TestLargeEntriesSync(t *testing.T) {
+	c := startCluster(t, t.TempDir())
+	project := c.newProject("Sagebrush Flats pad")
+	ann := c.device("ann", server.Inspector)
+	long := strings.Repeat("sandy lens at the toe; ", 5000) // about 115 kB
+	for range 60 {
+		if _, err := ann.RecordTest(context.Background(), client.TestInput{Project: project, Readings: sandCone(110, 12), Remarks: long}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	syncOK(t, ann, c.conn(""), project)
+	bo := c.device("bo", server.Inspector)
+	rep := syncOK(t, bo, c.conn(""), project)
+	if rep.Pulled < 60 {
+		t.Errorf("pulled %d, want 60", rep.Pulled)
+	}
+	if bo.Digest(project) != c.digest() {
+		t.Error("the new device's state differs")
 	}
 }

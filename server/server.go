@@ -655,8 +655,9 @@ func (s *Server) Pull(req *pb.PullRequest, stream grpc.ServerStreamingServer[pb.
 		if err != nil {
 			return s.internal(ctx, "reference data", err)
 		}
-		for start := 0; start < len(ref); start += chunk {
-			part := ref[start:min(len(ref), start+chunk)]
+		for start := 0; start < len(ref); {
+			part := bounded(ref[start:min(len(ref), start+chunk)])
+			start += len(part)
 			if err := stream.Send(&pb.PullResponse{Entries: s.entries(part), DeviceKeys: s.keysOf(ctx, part), ReferenceData: true, Anchor: anchor}); err != nil {
 				return err
 			}
@@ -668,6 +669,7 @@ func (s *Server) Pull(req *pb.PullRequest, stream grpc.ServerStreamingServer[pb.
 		if err != nil {
 			return s.internal(ctx, "read ledger", err)
 		}
+		entries = bounded(entries)
 		resp := &pb.PullResponse{Entries: s.entries(entries), DeviceKeys: s.keysOf(ctx, entries),
 			Head: ledger.CheckpointToProto(ledger.Checkpoint{Project: head.Project, Epoch: head.Epoch, Seq: at, Hash: h})}
 		if len(entries) > 0 {
@@ -687,6 +689,23 @@ func (s *Server) Pull(req *pb.PullRequest, stream grpc.ServerStreamingServer[pb.
 		}
 	}
 	return nil
+}
+
+// MaxChunkBytes bounds the events of one pulled chunk, well under the 4 MiB a
+// gRPC client accepts by default.
+const MaxChunkBytes = 2 << 20
+
+// bounded returns the longest prefix of es (at least one entry) whose
+// events fit in MaxChunkBytes.
+func bounded(es []ledger.Entry) []ledger.Entry {
+	total := 0
+	for i, e := range es {
+		total += len(e.Event)
+		if total > MaxChunkBytes && i > 0 {
+			return es[:i]
+		}
+	}
+	return es
 }
 
 func (s *Server) entries(es []ledger.Entry) []*pb.LedgerEntry {
