@@ -110,5 +110,6 @@ type Device struct {
 	UserID    string
 	Name      string
 	PublicKey ed25519.PublicKey
+	TokenHash []byte // SHA-256 of the bearer token
 	Revoked   bool
 }

@@ -394,8 +394,8 @@ func (s *Store) device(ctx context.Context, where string, arg any) (server.Devic
 	var d server.Device
 	var key []byte
 	var revoked sql.NullInt64
-	err := s.db.Reader().QueryRowContext(ctx, `SELECT device_id, user_id, name, public_key, revoked_micros FROM devices WHERE `+where, arg).
-		Scan(&d.ID, &d.UserID, &d.Name, &key, &revoked)
+	err := s.db.Reader().QueryRowContext(ctx, `SELECT device_id, user_id, name, public_key, token_hash, revoked_micros FROM devices WHERE `+where, arg).
+		Scan(&d.ID, &d.UserID, &d.Name, &key, &d.TokenHash, &revoked)
 	if errors.Is(err, sql.ErrNoRows) {
 		return d, server.ErrNoDevice
 	}
