@@ -1,6 +1,7 @@
 package server_test
 
 import (
+	"bytes"
 	"context"
 	"path/filepath"
 	"strings"
@@ -8,7 +9,11 @@ import (
 	"testing"
 	"time"
 
+	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/status"
+
 	"tamp/client"
+	pb "tamp/internal/gen/tamp/v1"
 	"tamp/internal/ledger"
 	"tamp/internal/qc"
 	"tamp/server"
@@ -253,5 +258,60 @@ func TestLargeEntriesSync(t *testing.T) {
 	}
 	if bo.Digest(project) != c.digest() {
 		t.Error("the new device's state differs")
+	}
+}
+
+// The ledger exported by the read service verifies offline; an altered
+// byte does not.
+func TestExportVerifiesOffline(t *testing.T) {
+	c := startCluster(t, t.TempDir())
+	project := c.newProject("Sagebrush Flats pad")
+	qa, ann := c.device("quinn", server.QA), c.device("ann", server.Inspector)
+	spec, ref := setUp(t, c, qa, project)
+	syncOK(t, qa, c.conn(""), project)
+	record(t, ann, project, spec, ref, 8, 0)
+	syncOK(t, ann, c.conn(""), project)
+	var buf bytes.Buffer
+	n, err := qa.Export(context.Background(), c.conn(""), project, &buf)
+	if err != nil || n != 11 {
+		t.Fatalf("export: %d events, %v", n, err)
+	}
+	rep, err := client.VerifyExport(bytes.NewReader(buf.Bytes()))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if rep.Events != 11 || rep.Head.Hash != c.head().Hash || rep.Digest != c.digest() || rep.Tests != 8 {
+		t.Errorf("verified %+v; server head %s", rep, c.head().Hash)
+	}
+	// Change one byte inside the body of the fifth event (a soil mass, a
+	// station...): its signature no longer verifies.
+	raw := buf.Bytes()
+	entries, err := c.store.After(context.Background(), project, 4, 1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	sg, _ := ledger.Decode(entries[0].Event)
+	at := bytes.Index(raw, sg.Body)
+	if at < 0 {
+		t.Fatal("the fifth event's body is not in the export")
+	}
+	altered := append([]byte{}, raw...)
+	altered[at+len(sg.Body)/2] ^= 0x01
+	if _, err := client.VerifyExport(bytes.NewReader(altered)); ledger.ReasonOf(err) != ledger.BadSignature && ledger.ReasonOf(err) != ledger.Malformed {
+		t.Errorf("an altered export: %v, want a bad signature", err)
+	}
+	// The read service answers its members only.
+	outsider := c.rawDevice(t, "stranger", nil, false)
+	_, err = pb.NewLedgerReadServiceClient(c.conn("")).ListReviewQueue(outsider.ctx(), &pb.ListReviewQueueRequest{ProjectId: project})
+	if status.Code(err) != codes.PermissionDenied {
+		t.Errorf("review queue for a non-member: %v", err)
+	}
+	ctx, err := qa.CallContext(context.Background())
+	if err != nil {
+		t.Fatal(err)
+	}
+	q, err := pb.NewLedgerReadServiceClient(c.conn("")).ListReviewQueue(ctx, &pb.ListReviewQueueRequest{ProjectId: project})
+	if err != nil || len(q.GetTests()) != 8 {
+		t.Errorf("review queue: %d tests, %v", len(q.GetTests()), err)
 	}
 }

@@ -102,10 +102,12 @@ func New(opts Options) *Server {
 		limits: &limiter{rate: opts.PushRate, burst: float64(opts.PushBurst), buckets: map[string]*bucket{}}}
 }
 
-// Register registers the server's services on g.
+// Register registers the server's services (sync, administration and the
+// ledger's read side) on g.
 func (s *Server) Register(g *grpc.Server) {
 	pb.RegisterSyncServiceServer(g, s)
 	pb.RegisterAdminServiceServer(g, &adminService{s: s})
+	pb.RegisterLedgerReadServiceServer(g, &readService{s: s})
 }
 
 // adminService implements the administration service.

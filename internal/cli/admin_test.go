@@ -9,7 +9,10 @@ import (
 	"testing"
 	"time"
 
+	"tamp/client"
 	"tamp/internal/daemon"
+	"tamp/internal/ledger"
+	"tamp/internal/soil"
 )
 
 // startServer runs tampd init and serve in-process on 127.0.0.1:0 and
@@ -102,6 +105,24 @@ func TestAdminFlow(t *testing.T) {
 		t.Fatalf("devices:\n%s", devices)
 	}
 	must(t, "sync", "--store", inspStore, "--project", project)
+	// The administrator sets the project up (through the library: recording
+	// commands come later) and syncs, so the ledger has an entry to export.
+	s, err := client.Open(context.Background(), adminStore, client.Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, _, err := s.Record(context.Background(), project, &ledger.ProjectSetUp{Name: "Larkspur Creek levee", Units: soil.US}); err != nil {
+		t.Fatal(err)
+	}
+	s.Close()
+	must(t, "sync", "--store", adminStore, "--project", project)
+	export := filepath.Join(t.TempDir(), "ledger.tamp")
+	if out := must(t, "export", "--store", adminStore, "--project", project, "--out", export); !strings.Contains(out, "events written") {
+		t.Errorf("export: %s", out)
+	}
+	if out := must(t, "verify", export); !strings.HasPrefix(out, "ok: project "+project) {
+		t.Errorf("verify: %s", out)
+	}
 	must(t, "admin", "--store", adminStore, "revoke-device", "--device", inspDevice, "--reason", "tablet lost")
 	if _, _, err := run(t, "sync", "--store", inspStore, "--project", project); err == nil || !strings.Contains(err.Error(), "revoked") {
 		t.Errorf("sync after revocation: %v", err)
