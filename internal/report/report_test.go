@@ -101,7 +101,7 @@ func TestRetestAudit(t *testing.T) {
 	s := newSite(t)
 	f1, _ := s.test(105, 1000, "") // 89 %: fails
 	r1, _ := s.test(108, 1003, f1.TestID)
-	s.test(113, 1006, r1.TestID)  // retest of the retest passes
+	s.test(113, 1006, r1.TestID)   // retest of the retest passes
 	f2, _ := s.test(104, 2000, "") // fails, retested far away and still open
 	s.test(106, 2090, f2.TestID)
 	f3, f3e := s.test(103, 3000, "") // fails, QA accepts it
