@@ -5,8 +5,10 @@
 // # Push
 //
 // A device pushes a batch of signed events. The server decodes each,
-// verifies its signature with the authoring device's registered key (on all
-// cores), validates it, and appends the accepted ones in one transaction,
+// verifies the signatures with the authoring devices' registered keys (in
+// batches, on all cores, under the ZIP 215 rules that package ledger uses
+// everywhere), validates each event, authorises it by kind, author and
+// project, and appends the accepted ones in one transaction,
 // each with its project sequence number and chain hash
 // h(n) = SHA-256(h(n-1) || n || event bytes), and the device's high-water
 // mark. The reply gives every event's outcome: accepted with its sequence,
