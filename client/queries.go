@@ -168,3 +168,33 @@ func (s *Store) Digest(project string) ledger.Hash {
 	defer s.mu.Unlock()
 	return s.view(project).Digest()
 }
+
+// KnownProjects returns the projects this device holds events of or has
+// synced, sorted.
+func (s *Store) KnownProjects(ctx context.Context) ([]string, error) {
+	set := map[string]bool{}
+	for _, p := range s.Projects() {
+		set[p] = true
+	}
+	rows, err := s.db.Reader().QueryContext(ctx, `SELECT project_id FROM sync_state`)
+	if err != nil {
+		return nil, fmt.Errorf("client: known projects: %w", err)
+	}
+	defer rows.Close()
+	for rows.Next() {
+		var p string
+		if err := rows.Scan(&p); err != nil {
+			return nil, fmt.Errorf("client: known projects: %w", err)
+		}
+		set[p] = true
+	}
+	if err := rows.Err(); err != nil {
+		return nil, fmt.Errorf("client: known projects: %w", err)
+	}
+	out := make([]string, 0, len(set))
+	for p := range set {
+		out = append(out, p)
+	}
+	slices.Sort(out)
+	return out, nil
+}

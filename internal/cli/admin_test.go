@@ -123,9 +123,15 @@ func TestAdminFlow(t *testing.T) {
 	if out := must(t, "verify", export); !strings.HasPrefix(out, "ok: project "+project) {
 		t.Errorf("verify: %s", out)
 	}
+	if st := must(t, "status", "--store", inspStore); !strings.Contains(st, "project "+project+": 0 pending") {
+		t.Errorf("status: %s", st)
+	}
 	must(t, "admin", "--store", adminStore, "revoke-device", "--device", inspDevice, "--reason", "tablet lost")
 	if _, _, err := run(t, "sync", "--store", inspStore, "--project", project); err == nil || !strings.Contains(err.Error(), "revoked") {
 		t.Errorf("sync after revocation: %v", err)
+	}
+	if st := must(t, "status", "--store", inspStore); !strings.Contains(st, "last error:") || !strings.Contains(st, "revoked") {
+		t.Errorf("status after revocation: %s", st)
 	}
 	if d := must(t, "admin", "--store", adminStore, "devices", "--user", user); !strings.Contains(d, "revoked") {
 		t.Errorf("devices after revocation: %s", d)

@@ -30,6 +30,6 @@ specifications and local codes govern every acceptance limit.`,
 		SilenceUsage:  true,
 		SilenceErrors: true,
 	}
-	root.AddCommand(newCalc(), newEnroll(), newSync(), newAdmin(), newExport(), newVerify())
+	root.AddCommand(newCalc(), newEnroll(), newSync(), newAdmin(), newExport(), newVerify(), newStatus())
 	return root
 }

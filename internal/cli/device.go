@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"os"
 	"path/filepath"
+	"time"
 
 	"github.com/spf13/cobra"
 	"google.golang.org/grpc"
@@ -146,7 +147,10 @@ func newSync() *cobra.Command {
 				return err
 			}
 			defer done()
-			projects := s.Projects()
+			projects, err := s.KnownProjects(ctx)
+			if err != nil {
+				return err
+			}
 			if project != "" {
 				projects = []string{project}
 			}
@@ -166,5 +170,54 @@ func newSync() *cobra.Command {
 	}
 	f.register(c)
 	c.Flags().StringVar(&project, "project", "", "the project (default: every project on this device)")
+	return c
+}
+
+func newStatus() *cobra.Command {
+	var f deviceFlags
+	c := &cobra.Command{
+		Use:   "status",
+		Short: "Show this device's sync status: pending entries, last sync, last error, rejected entries",
+		Args:  cobra.NoArgs,
+		RunE: func(cmd *cobra.Command, _ []string) error {
+			ctx := cmd.Context()
+			s, err := f.open(ctx)
+			if err != nil {
+				return err
+			}
+			defer s.Close()
+			out := cmd.OutOrStdout()
+			fmt.Fprintf(out, "device %s, user %s\n", s.DeviceID(), s.User())
+			now := time.Now()
+			projects, err := s.KnownProjects(ctx)
+			if err != nil {
+				return err
+			}
+			for _, p := range projects {
+				st, err := s.Status(ctx, p)
+				if err != nil {
+					return err
+				}
+				last := "never"
+				if !st.LastSuccess.IsZero() {
+					last = st.LastSuccess.Local().Format(time.DateTime)
+				}
+				fmt.Fprintf(out, "project %s: %d pending (oldest %s ago), last sync %s, verified to %d\n",
+					p, st.Outbox.Pending, st.Outbox.Age(now).Round(time.Second), last, st.Verified.Seq)
+				if st.LastError != "" {
+					fmt.Fprintf(out, "  last error: %s\n", st.LastError)
+				}
+			}
+			rs, err := s.Rejected(ctx)
+			if err != nil {
+				return err
+			}
+			for _, r := range rs {
+				fmt.Fprintf(out, "rejected %s %s %s: %s (%s)\n", r.EventID, r.Kind, r.RecordID, r.Message, r.Reason)
+			}
+			return nil
+		},
+	}
+	c.PersistentFlags().StringVar(&f.store, "store", defaultStore(), "the device's store file")
 	return c
 }
