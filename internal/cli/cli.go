@@ -3,6 +3,7 @@ package cli
 import (
 	"context"
 	"io"
+	"regexp"
 
 	"github.com/spf13/cobra"
 )
@@ -15,9 +16,33 @@ func Run(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	root.SetArgs(args)
 	root.SetOut(stdout)
 	root.SetErr(stderr)
-	return root.ExecuteContext(ctx)
+	return plain(root.ExecuteContext(ctx))
 }
 
+var rpcPrefix = regexp.MustCompile(`rpc error: code = (\w+) desc = `)
+
+// plain rewrites gRPC's "rpc error: code = X desc = " into words a person
+// reads: the server's message, then its code in brackets. The original
+// error stays reachable for errors.Is.
+func plain(err error) error {
+	if err == nil {
+		return nil
+	}
+	msg := err.Error()
+	m := rpcPrefix.FindStringSubmatch(msg)
+	if m == nil {
+		return err
+	}
+	return &plainError{msg: rpcPrefix.ReplaceAllString(msg, "") + " [" + m[1] + "]", err: err}
+}
+
+type plainError struct {
+	msg string
+	err error
+}
+
+func (p *plainError) Error() string { return p.msg }
+func (p *plainError) Unwrap() error { return p.err }
 func newRoot() *cobra.Command {
 	root := &cobra.Command{
 		Use:   "tamp",
