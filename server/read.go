@@ -110,7 +110,11 @@ func (r *readService) ExportLedger(req *pb.ExportLedgerRequest, stream grpc.Serv
 			break
 		}
 		cursor = entries[len(entries)-1].Seq
-		if err := stream.Send(&pb.ExportLedgerResponse{Entries: r.s.entries(entries), DeviceKeys: r.s.keysOf(ctx, entries)}); err != nil {
+		w, keys, err := r.s.wire(ctx, entries)
+		if err != nil {
+			return r.s.internal(ctx, "export", err)
+		}
+		if err := stream.Send(&pb.ExportLedgerResponse{Entries: w, DeviceKeys: keys}); err != nil {
 			return err
 		}
 	}

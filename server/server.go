@@ -661,7 +661,11 @@ func (s *Server) Pull(req *pb.PullRequest, stream grpc.ServerStreamingServer[pb.
 		for start := 0; start < len(ref); {
 			part := bounded(ref[start:min(len(ref), start+chunk)])
 			start += len(part)
-			if err := stream.Send(&pb.PullResponse{Entries: s.entries(part), DeviceKeys: s.keysOf(ctx, part), ReferenceData: true, Anchor: anchor}); err != nil {
+			w, keys, err := s.wire(ctx, part)
+			if err != nil {
+				return s.internal(ctx, "reference data", err)
+			}
+			if err := stream.Send(&pb.PullResponse{Entries: w, DeviceKeys: keys, ReferenceData: true, Anchor: anchor}); err != nil {
 				return err
 			}
 		}
@@ -673,7 +677,11 @@ func (s *Server) Pull(req *pb.PullRequest, stream grpc.ServerStreamingServer[pb.
 			return s.internal(ctx, "read ledger", err)
 		}
 		entries = bounded(entries)
-		resp := &pb.PullResponse{Entries: s.entries(entries), DeviceKeys: s.keysOf(ctx, entries),
+		w, keys, err := s.wire(ctx, entries)
+		if err != nil {
+			return s.internal(ctx, "read ledger", err)
+		}
+		resp := &pb.PullResponse{Entries: w, DeviceKeys: keys,
 			Head: ledger.CheckpointToProto(ledger.Checkpoint{Project: head.Project, Epoch: head.Epoch, Seq: at, Hash: h})}
 		if len(entries) > 0 {
 			last := entries[len(entries)-1]
@@ -711,31 +719,23 @@ func bounded(es []ledger.Entry) []ledger.Entry {
 	return es
 }
 
-func (s *Server) entries(es []ledger.Entry) []*pb.LedgerEntry {
+// wire decodes stored entries once each into their wire form, with the keys
+// of the devices that signed them. A stored event that does not decode is
+// an error: leaving it out would break the chain the device verifies.
+func (s *Server) wire(ctx context.Context, es []ledger.Entry) ([]*pb.LedgerEntry, map[string][]byte, error) {
 	out := make([]*pb.LedgerEntry, 0, len(es))
-	for _, e := range es {
-		sg, err := ledger.Decode(e.Event)
-		if err != nil { // stored events decoded when they were appended
-			continue
-		}
-		out = append(out, &pb.LedgerEntry{Sequence: e.Seq, Event: sg.Proto(), Hash: e.Hash[:]})
-	}
-	return out
-}
-
-func (s *Server) keysOf(ctx context.Context, es []ledger.Entry) map[string][]byte {
-	out := map[string][]byte{}
+	keys := map[string][]byte{}
 	for _, e := range es {
 		sg, err := ledger.Decode(e.Event)
 		if err != nil {
-			continue
+			return nil, nil, fmt.Errorf("server: stored event %d: %w", e.Seq, err)
 		}
-		if _, ok := out[sg.Event.Device]; ok {
-			continue
-		}
-		if k, ok := s.key(ctx, sg.Event.Device); ok {
-			out[sg.Event.Device] = k
+		out = append(out, &pb.LedgerEntry{Sequence: e.Seq, Event: sg.Proto(), Hash: e.Hash[:]})
+		if _, ok := keys[sg.Event.Device]; !ok {
+			if k, ok := s.key(ctx, sg.Event.Device); ok {
+				keys[sg.Event.Device] = k
+			}
 		}
 	}
-	return out
+	return out, keys, nil
 }

@@ -25,7 +25,7 @@ type Record struct {
 func provenance[K Kind](evs []*Event) (K, Record, bool) {
 	var first K
 	var rec Record
-	var firstBody []byte
+	var firstBody []byte // marshalled only when a second creator appears
 	found := false
 	for _, e := range evs {
 		k, ok := e.Kind.(K)
@@ -34,8 +34,10 @@ func provenance[K Kind](evs []*Event) (K, Record, bool) {
 		}
 		if !found {
 			first, rec, found = k, Record{EventID: e.ID, Author: e.Author, HLC: e.HLC}, true
-			firstBody, _ = json.Marshal(k)
 			continue
+		}
+		if firstBody == nil {
+			firstBody, _ = json.Marshal(first)
 		}
 		if b, _ := json.Marshal(k); !bytes.Equal(b, firstBody) {
 			rec.Conflicting = append(rec.Conflicting, e.ID)
