@@ -357,14 +357,6 @@ func (s *Store) outbox(ctx context.Context, project string, all bool) ([]outboxE
 	return out, rows.Err()
 }
 
-var reasonNames = map[pb.RejectReason]string{}
-
-func init() {
-	for v, name := range pb.RejectReason_name {
-		reasonNames[pb.RejectReason(v)] = name
-	}
-}
-
 // pushOutbox pushes the pending and waiting events in batches, again while
 // events that waited for others get accepted, and records each outcome.
 func (s *Store) pushOutbox(ctx context.Context, sc pb.SyncServiceClient, project string, cp ledger.Checkpoint, opts SyncOptions, rep *SyncReport) (ledger.Checkpoint, error) {
@@ -436,7 +428,7 @@ func (s *Store) recordOutcomes(ctx context.Context, outs []*pb.PushOutcome, rep 
 				rep.Rejected++
 				anyRejected = true
 				q, args = `UPDATE events SET status = 'rejected', reason = ?, message = ? WHERE event_id = ? AND origin = 'local' AND status IN ('pending', 'waiting')`,
-					[]any{reasonNames[o.GetReason()], o.GetMessage(), o.GetEventId()}
+					[]any{ledger.ReasonFromProto(o.GetReason()).String(), o.GetMessage(), o.GetEventId()}
 			default:
 				continue
 			}

@@ -420,19 +420,12 @@ func (s *Server) verifyAll(ctx context.Context, events []*pb.Event) []decoded {
 	return out
 }
 
-var reasonToProto = map[ledger.Reason]pb.RejectReason{
-	ledger.Malformed: pb.RejectReason_REJECT_REASON_MALFORMED, ledger.UnknownKind: pb.RejectReason_REJECT_REASON_UNKNOWN_KIND,
-	ledger.BadSignature: pb.RejectReason_REJECT_REASON_BAD_SIGNATURE, ledger.InvalidField: pb.RejectReason_REJECT_REASON_INVALID_FIELD,
-	ledger.ImpossibleReadings: pb.RejectReason_REJECT_REASON_IMPOSSIBLE_READINGS, ledger.WrongProject: pb.RejectReason_REJECT_REASON_WRONG_PROJECT,
-	ledger.ConflictingID: pb.RejectReason_REJECT_REASON_CONFLICTING_ID, ledger.PermissionDenied: pb.RejectReason_REJECT_REASON_PERMISSION_DENIED,
-}
-
 func rejected(id string, err error) *pb.PushOutcome {
 	var r *ledger.Rejection
 	reason := pb.RejectReason_REJECT_REASON_MALFORMED
 	msg := "the event could not be read"
 	if errors.As(err, &r) {
-		reason, msg = reasonToProto[r.Reason], strings.TrimPrefix(r.Error(), "ledger: ")
+		reason, msg = ledger.ReasonToProto(r.Reason), strings.TrimPrefix(r.Error(), "ledger: ")
 	}
 	return &pb.PushOutcome{EventId: id, Status: pb.PushStatus_PUSH_STATUS_REJECTED, Reason: reason, Message: msg}
 }

@@ -434,3 +434,33 @@ func CheckpointFromProto(c *pb.Checkpoint) Checkpoint {
 	copy(cp.Hash[:], c.GetHash())
 	return cp
 }
+
+var reasons = []struct {
+	r Reason
+	p pb.RejectReason
+}{
+	{Malformed, pb.RejectReason_REJECT_REASON_MALFORMED}, {UnknownKind, pb.RejectReason_REJECT_REASON_UNKNOWN_KIND},
+	{BadSignature, pb.RejectReason_REJECT_REASON_BAD_SIGNATURE}, {InvalidField, pb.RejectReason_REJECT_REASON_INVALID_FIELD},
+	{ImpossibleReadings, pb.RejectReason_REJECT_REASON_IMPOSSIBLE_READINGS}, {WrongProject, pb.RejectReason_REJECT_REASON_WRONG_PROJECT},
+	{ConflictingID, pb.RejectReason_REJECT_REASON_CONFLICTING_ID}, {PermissionDenied, pb.RejectReason_REJECT_REASON_PERMISSION_DENIED},
+}
+
+// ReasonToProto converts a refusal's reason.
+func ReasonToProto(r Reason) pb.RejectReason {
+	for _, x := range reasons {
+		if x.r == r {
+			return x.p
+		}
+	}
+	return pb.RejectReason_REJECT_REASON_UNSPECIFIED
+}
+
+// ReasonFromProto converts a refusal's reason.
+func ReasonFromProto(p pb.RejectReason) Reason {
+	for _, x := range reasons {
+		if x.p == p {
+			return x.r
+		}
+	}
+	return 0
+}

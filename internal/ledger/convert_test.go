@@ -132,3 +132,12 @@ func TestGoldenCanonicalBytes(t *testing.T) {
 		}
 	}
 }
+
+func TestReasonRoundTrip(t *testing.T) {
+	for r := Malformed; r <= PermissionDenied; r++ {
+		p := ReasonToProto(r)
+		if p == pb.RejectReason_REJECT_REASON_UNSPECIFIED || ReasonFromProto(p) != r {
+			t.Errorf("reason %s -> %v -> %s", r, p, ReasonFromProto(p))
+		}
+	}
+}
