@@ -127,12 +127,8 @@ func (t *Test) ExceptionAccepted() bool {
 func (t *Test) Voided() bool { return len(t.Voids) > 0 }
 
 func (t *Test) hasRevision(id string) bool {
-	for _, r := range t.Revisions {
-		if r.EventID == id {
-			return true
-		}
-	}
-	return false
+	_, ok := t.Revision(id)
+	return ok
 }
 
 // Revision returns a revision by event id.
