@@ -462,7 +462,7 @@ func (s *Server) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushRespons
 	if head, err = s.checkVerified(ctx, head, req.GetVerified()); err != nil {
 		return nil, s.internal(ctx, "epoch", err)
 	}
-	var ids []string
+	ids := make([]string, 0, len(items))
 	for _, it := range items {
 		if it.err == nil {
 			ids = append(ids, it.signed.Event.ID)
@@ -473,10 +473,10 @@ func (s *Server) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushRespons
 		return nil, s.internal(ctx, "look up events", err)
 	}
 	skewed := skew > s.skewLimit(p).Microseconds() || -skew > s.skewLimit(p).Microseconds()
-	resp := &pb.PushResponse{ClockSkewMicros: skew}
-	var rows []Row
-	var accepted []ledger.Signed
-	inBatch := map[string]uint64{} // event and record ids accepted in this batch
+	resp := &pb.PushResponse{ClockSkewMicros: skew, Outcomes: make([]*pb.PushOutcome, 0, len(items))}
+	rows := make([]Row, 0, len(items))
+	accepted := make([]ledger.Signed, 0, len(items))
+	inBatch := make(map[string]uint64, 2*len(items)) // event and record ids accepted in this batch
 	next := head
 	auth := s.authorizer(ctx, req.GetProjectId(), p.view)
 	for i, it := range items {

@@ -191,3 +191,21 @@ func TestClock(t *testing.T) {
 		t.Error("a restarted clock ran backwards")
 	}
 }
+
+// Bytes writes the envelope by hand; it must be the marshaller's encoding.
+func TestBytesIsDeterministicMarshal(t *testing.T) {
+	long := make([]byte, 300) // a body whose length takes a two-byte varint
+	for i := range long {
+		long[i] = byte(i)
+	}
+	sig := make([]byte, ed25519.SignatureSize)
+	for _, s := range []Signed{{}, {Body: []byte{1}}, {Signature: sig}, {Body: long, Signature: sig}, {Body: long[:127], Signature: sig[:1]}} {
+		want, err := proto.MarshalOptions{Deterministic: true}.Marshal(s.Proto())
+		if err != nil {
+			t.Fatal(err)
+		}
+		if got := s.Bytes(); string(got) != string(want) {
+			t.Errorf("Bytes() of body %d, signature %d bytes = %x, want %x", len(s.Body), len(s.Signature), got, want)
+		}
+	}
+}

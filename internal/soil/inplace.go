@@ -45,6 +45,12 @@ type InPlace struct {
 	Steps      []Step
 }
 
+// stepRoom is room enough for the steps of any in-place method, so that a
+// computation's step list is allocated once.
+const stepRoom = 16
+
+func newSteps(s ...Step) []Step { return append(make([]Step, 0, stepRoom), s...) }
+
 func finish(r InPlace) (InPlace, error) {
 	dry, err := DryDensity(r.WetDensity, r.Moisture)
 	if err != nil {
@@ -95,7 +101,7 @@ type Nuclear struct {
 
 // Compute returns the wet and dry density and moisture of the test.
 func (n Nuclear) Compute() (InPlace, error) {
-	r := InPlace{Method: NuclearDirect}
+	r := InPlace{Method: NuclearDirect, Steps: newSteps()}
 	if n.Backscatter {
 		r.Method = NuclearBackscatter
 		if n.ProbeDepth != 0 {
@@ -190,7 +196,7 @@ func (s SandCone) Compute() (InPlace, error) {
 		return InPlace{}, fmt.Errorf("soil: sand cone: %w", err)
 	}
 	used := s.SandUsed
-	var steps []Step
+	steps := newSteps()
 	switch {
 	case used > 0 && (s.InitialMass != 0 || s.FinalMass != 0):
 		return InPlace{}, fmt.Errorf("soil: sand cone: %w", valid.Fail("sand_used", used, "give sand_used or initial_mass and final_mass, not both"))
@@ -265,7 +271,7 @@ func (d DriveCylinder) Compute() (InPlace, error) {
 	}
 	vol := math.Pi * d.Diameter * d.Diameter / 4 * d.Length
 	return finish(InPlace{Method: DriveCylinderMethod, WetDensity: d.SoilMass / vol, Moisture: d.Moisture,
-		Steps: []Step{{"cylinder volume = pi d^2 / 4 x length", vol, SmallVolume}, {"soil in cylinder", d.SoilMass, Mass}}})
+		Steps: newSteps(Step{"cylinder volume = pi d^2 / 4 x length", vol, SmallVolume}, Step{"soil in cylinder", d.SoilMass, Mass})})
 }
 
 // RubberBalloon is a rubber-balloon test (ASTM D2167): the apparatus's
@@ -288,8 +294,8 @@ func (b RubberBalloon) Compute() (InPlace, error) {
 		return InPlace{}, fmt.Errorf("soil: rubber balloon: %w", valid.Fail("final_reading", b.FinalReading, "must exceed initial_reading (zero hole volume)"))
 	}
 	return finish(InPlace{Method: RubberBalloonMethod, WetDensity: b.SoilMass / vol, Moisture: b.Moisture,
-		Steps: []Step{{"initial reading", b.InitialReading, SmallVolume}, {"final reading", b.FinalReading, SmallVolume},
-			{"hole volume = final - initial", vol, SmallVolume}, {"soil from hole", b.SoilMass, Mass}}})
+		Steps: newSteps(Step{"initial reading", b.InitialReading, SmallVolume}, Step{"final reading", b.FinalReading, SmallVolume},
+			Step{"hole volume = final - initial", vol, SmallVolume}, Step{"soil from hole", b.SoilMass, Mass})})
 }
 
 // WetDensityTest is a wet density measured by some other means and entered

@@ -27,6 +27,30 @@ const insertRows = 64
 // Store is a server.Store over one SQLite file. It is safe for concurrent use.
 type Store struct {
 	db *sqlite.DB
+
+	// inserts holds the writer's prepared INSERTs of insertSizes[i] ledger
+	// rows: parsing a statement of hundreds of parameters costs more than a
+	// small batch's insert, so each size is prepared once, when the store
+	// opens (the one writer connection cannot prepare during a transaction).
+	inserts [len(insertSizes)]*sql.Stmt
+}
+
+// insertSizes are the row counts of the prepared INSERTs, largest first; a
+// batch goes in as the fewest statements of these sizes.
+var insertSizes = [...]int{insertRows, 16, 4, 1}
+
+func (s *Store) prepare(ctx context.Context) error {
+	for i, n := range insertSizes {
+		q := `INSERT INTO ledger (project_id, seq, event_id, device_id, device_seq, kind, record_id, envelope, hash,
+			clock_skew_micros, received_micros) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)` +
+			strings.Repeat(", (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)", n-1)
+		st, err := s.db.Writer().PrepareContext(ctx, q)
+		if err != nil {
+			return fmt.Errorf("sqlitestore: prepare insert of %d rows: %w", n, err)
+		}
+		s.inserts[i] = st
+	}
+	return nil
 }
 
 var _ server.Store = (*Store)(nil)
@@ -41,11 +65,23 @@ func Open(ctx context.Context, path string, sync sqlite.Synchronous) (*Store, er
 	if err != nil {
 		return nil, fmt.Errorf("sqlitestore: %w", err)
 	}
-	return &Store{db: db}, nil
+	s := &Store{db: db}
+	if err := s.prepare(ctx); err != nil {
+		s.Close()
+		return nil, err
+	}
+	return s, nil
 }
 
 // Close closes the store.
-func (s *Store) Close() error { return s.db.Close() }
+func (s *Store) Close() error {
+	for _, st := range s.inserts {
+		if st != nil {
+			st.Close()
+		}
+	}
+	return s.db.Close()
+}
 
 // DB returns the underlying database, for tests and benchmarks.
 func (s *Store) DB() *sqlite.DB { return s.db }
@@ -175,20 +211,20 @@ func (s *Store) Append(ctx context.Context, project string, h ledger.Checkpoint,
 		}
 		defer mark.Close()
 		high := map[string]uint64{}
-		// Rows go in by statements of up to insertRows rows: one statement a
-		// row costs more in the driver than the insert itself.
-		for start := 0; start < len(rows); start += insertRows {
-			part := rows[start:min(len(rows), start+insertRows)]
+		// Rows go in by statements of several rows: one statement a row
+		// costs more in the driver than the insert itself.
+		for start, size := 0, 0; start < len(rows); start += insertSizes[size] {
+			for insertSizes[size] > len(rows)-start {
+				size++
+			}
+			part := rows[start : start+insertSizes[size]]
 			args := make([]any, 0, len(part)*11)
 			for _, r := range part {
 				args = append(args, project, r.Seq, r.EventID, r.DeviceID, r.DeviceSeq, r.Kind, r.RecordID,
 					r.Envelope, r.Hash[:], r.SkewMicros, r.Received.UnixMicro())
 				high[r.DeviceID] = max(high[r.DeviceID], r.DeviceSeq)
 			}
-			q := `INSERT INTO ledger (project_id, seq, event_id, device_id, device_seq, kind, record_id, envelope, hash,
-				clock_skew_micros, received_micros) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)` +
-				strings.Repeat(", (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)", len(part)-1)
-			if _, err := tx.ExecContext(ctx, q, args...); err != nil {
+			if _, err := tx.StmtContext(ctx, s.inserts[size]).ExecContext(ctx, args...); err != nil {
 				return fmt.Errorf("sqlitestore: append at %d: %w", part[0].Seq, err)
 			}
 		}
