@@ -21,6 +21,8 @@ import (
 
 const benchBatch = 500
 
+var benchDevices = 4
+
 // BenchmarkPush measures push throughput in events per second through the
 // real gRPC path (decode, signature check, validation, projection, append
 // with the hash chain), and in the same run the raw SQLite insert rate of
@@ -37,7 +39,7 @@ func BenchmarkPush(b *testing.B) {
 		batches [][]ledger.Signed
 	}
 	var pushers []pusher
-	for d := range 2 {
+	for d := range benchDevices {
 		user, _ := c.srv.AddUser(ctx, "bench", false)
 		if err := c.srv.AddMember(ctx, project, user, server.Inspector); err != nil {
 			b.Fatal(err)
@@ -52,7 +54,7 @@ func BenchmarkPush(b *testing.B) {
 		p := pusher{ctx: metadata.AppendToOutgoingContext(ctx, "authorization", "Bearer "+resp.GetToken())}
 		// Sign every event before the clock starts; each device pushes half.
 		var seq uint64
-		for range (b.N + 1 - d) / 2 {
+		for range (b.N + benchDevices - 1 - d) / benchDevices {
 			var batch []ledger.Signed
 			for range benchBatch {
 				seq++
@@ -95,7 +97,10 @@ func BenchmarkPush(b *testing.B) {
 		}()
 	}
 	wg.Wait()
-	batches := append(pushers[0].batches, pushers[1].batches...)
+	var batches [][]ledger.Signed
+	for _, p := range pushers {
+		batches = append(batches, p.batches...)
+	}
 	pushRate := float64(b.N*benchBatch) / time.Since(start).Seconds()
 	b.StopTimer()
 

@@ -15,6 +15,7 @@ import (
 	"runtime"
 	"strings"
 	"sync"
+	"sync/atomic"
 	"time"
 
 	"github.com/google/uuid"
@@ -63,10 +64,23 @@ type Server struct {
 	limits   *limiter
 }
 
+// project is the server's state of one project's ledger. A push decides
+// under mu (what to accept, at which sequence numbers, with which hashes)
+// and applies what it accepts to view at once; it then takes write before
+// releasing mu and writes its rows to the store, so that batches reach the
+// store in the order they were decided while the next push decides. view,
+// head and seqs may thus run ahead of the store by the batches being
+// written; a failed write marks the state stale and the next holder of mu
+// reloads it from the store.
 type project struct {
 	mu     sync.Mutex
 	view   *ledger.Projection
+	head   ledger.Checkpoint // the chain head after the last decided batch
+	seqs   map[string]uint64 // the sequence number of every decided event
 	loaded bool
+
+	write sync.Mutex
+	stale atomic.Bool
 }
 
 // New returns a server over opts.Store.
@@ -297,8 +311,9 @@ func (s *Server) StreamInterceptor(srv any, ss grpc.ServerStream, info *grpc.Str
 	return h(srv, authedStream{ss, ctx})
 }
 
-// project returns a project's state, loading its projection on first use.
-func (s *Server) project(ctx context.Context, id string) (*project, error) {
+// lockProject returns a project's state with its mu held, loading it from
+// the store on first use or after a failed write.
+func (s *Server) lockProject(ctx context.Context, id string) (*project, error) {
 	s.mu.Lock()
 	p := s.projects[id]
 	if p == nil {
@@ -307,46 +322,69 @@ func (s *Server) project(ctx context.Context, id string) (*project, error) {
 	}
 	s.mu.Unlock()
 	p.mu.Lock()
-	defer p.mu.Unlock()
-	if p.loaded {
+	if p.loaded && !p.stale.Load() {
 		return p, nil
 	}
-	if _, err := s.opts.Store.Head(ctx, id); err != nil {
+	if err := s.load(ctx, p, id); err != nil {
+		p.mu.Unlock()
 		return nil, err
 	}
+	return p, nil
+}
+
+// load reads a project's state from the store, after the writes in flight.
+func (s *Server) load(ctx context.Context, p *project, id string) error {
+	p.write.Lock()
+	defer p.write.Unlock()
+	head, err := s.opts.Store.Head(ctx, id)
+	if err != nil {
+		return err
+	}
 	view := ledger.NewProjection(id)
+	seqs := map[string]uint64{}
 	var seq uint64
 	for {
 		entries, err := s.opts.Store.After(ctx, id, seq, 1000)
 		if err != nil {
-			return nil, err
+			return err
 		}
 		for _, e := range entries {
 			sg, err := ledger.Decode(e.Event)
 			if err != nil {
-				return nil, fmt.Errorf("server: stored event %d of %s: %w", e.Seq, id, err)
+				return fmt.Errorf("server: stored event %d of %s: %w", e.Seq, id, err)
 			}
 			if _, err := view.Apply(sg); err != nil {
-				return nil, fmt.Errorf("server: stored event %d of %s: %w", e.Seq, id, err)
+				return fmt.Errorf("server: stored event %d of %s: %w", e.Seq, id, err)
 			}
+			seqs[sg.Event.ID] = e.Seq
 		}
 		if len(entries) < 1000 {
 			break
 		}
 		seq = entries[len(entries)-1].Seq
 	}
-	p.view, p.loaded = view, true
-	return p, nil
+	p.view, p.head, p.seqs, p.loaded = view, head, seqs, true
+	p.stale.Store(false)
+	return nil
 }
 
-// Inspect runs fn with a project's projection, under the project's lock.
+// Inspect runs fn with a project's projection as the store holds it, under
+// the project's lock.
 func (s *Server) Inspect(ctx context.Context, id string, fn func(*ledger.Projection)) error {
-	p, err := s.project(ctx, id)
+	p, err := s.lockProject(ctx, id)
 	if err != nil {
 		return err
 	}
-	p.mu.Lock()
 	defer p.mu.Unlock()
+	// Wait for the batches being written, so that fn sees only what is
+	// stored; reload if one of them failed.
+	p.write.Lock()
+	p.write.Unlock()
+	if p.stale.Load() {
+		if err := s.load(ctx, p, id); err != nil {
+			return err
+		}
+	}
 	fn(p.view)
 	return nil
 }
@@ -442,10 +480,6 @@ func (s *Server) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushRespons
 	if !s.limits.allow(dev.ID, s.opts.Now()) {
 		return nil, status.Errorf(codes.ResourceExhausted, "rate: device %s pushes faster than %.0f batches a second; slow down", dev.ID, s.opts.PushRate)
 	}
-	p, err := s.project(ctx, req.GetProjectId())
-	if err != nil {
-		return nil, projectErr(s, ctx, req.GetProjectId(), err)
-	}
 	now := s.opts.Now()
 	var skew int64
 	if t := req.GetDeviceTimeMicros(); t != 0 {
@@ -453,30 +487,47 @@ func (s *Server) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushRespons
 	}
 	items := s.verifyAll(ctx, req.GetEvents())
 
-	p.mu.Lock()
-	defer p.mu.Unlock()
-	head, err := s.opts.Store.Head(ctx, req.GetProjectId())
+	p, err := s.lockProject(ctx, req.GetProjectId())
 	if err != nil {
 		return nil, projectErr(s, ctx, req.GetProjectId(), err)
 	}
-	if head, err = s.checkVerified(ctx, head, req.GetVerified()); err != nil {
-		return nil, s.internal(ctx, "epoch", err)
-	}
-	ids := make([]string, 0, len(items))
-	for _, it := range items {
-		if it.err == nil {
-			ids = append(ids, it.signed.Event.ID)
-		}
-	}
-	present, err := s.opts.Store.Sequences(ctx, req.GetProjectId(), ids)
+	resp, head, rows, err := s.decide(ctx, p, req, items, now, skew)
 	if err != nil {
-		return nil, s.internal(ctx, "look up events", err)
+		p.mu.Unlock()
+		return nil, err
 	}
-	skewed := skew > s.skewLimit(p).Microseconds() || -skew > s.skewLimit(p).Microseconds()
+	// Write while the next push decides: take write before letting go of
+	// mu, so batches reach the store in the order they were decided.
+	p.write.Lock()
+	p.mu.Unlock()
+	err = s.opts.Store.Append(ctx, req.GetProjectId(), head, rows)
+	if err != nil {
+		p.stale.Store(true) // the decided batch is applied to the view, not stored
+	}
+	p.write.Unlock()
+	if err != nil {
+		if errors.Is(err, ErrConflict) {
+			return nil, status.Error(codes.Aborted, "the ledger moved during the push; push again")
+		}
+		return nil, s.internal(ctx, "append", err)
+	}
+	s.log.InfoContext(ctx, "push", "project", req.GetProjectId(), "events", len(items), "accepted", len(rows), "head", resp.GetHead().GetSequence())
+	return resp, nil
+}
+
+// decide settles each event of a push, under p.mu: it gives the accepted
+// ones their sequence numbers and chain hashes and applies them to the
+// view. It returns the response, the head the rows follow, and the rows to
+// write; p.head becomes the head after them.
+func (s *Server) decide(ctx context.Context, p *project, req *pb.PushRequest, items []decoded, now time.Time, skew int64) (*pb.PushResponse, ledger.Checkpoint, []Row, error) {
+	head, err := s.checkVerified(ctx, p, req.GetVerified())
+	if err != nil {
+		return nil, head, nil, s.internal(ctx, "epoch", err)
+	}
+	limit := s.skewLimit(p).Microseconds()
+	skewed := skew > limit || -skew > limit
 	resp := &pb.PushResponse{ClockSkewMicros: skew, Outcomes: make([]*pb.PushOutcome, 0, len(items))}
 	rows := make([]Row, 0, len(items))
-	accepted := make([]ledger.Signed, 0, len(items))
-	inBatch := make(map[string]uint64, 2*len(items)) // event and record ids accepted in this batch
 	next := head
 	auth := s.authorizer(ctx, req.GetProjectId(), p.view)
 	for i, it := range items {
@@ -496,12 +547,8 @@ func (s *Server) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushRespons
 				Detail: "the event belongs to project " + e.Project}))
 			continue
 		}
-		seq, held := present[id]
-		if !held {
-			seq, held = inBatch[id]
-		}
-		if held {
-			if !s.sameBytes(p.view, accepted, it.signed) {
+		if seq, held := p.seqs[id]; held {
+			if held, ok := p.view.Event(id); !ok || !bytes.Equal(held.Body, it.signed.Body) {
 				resp.Outcomes = append(resp.Outcomes, rejected(id, &ledger.Rejection{Reason: ledger.ConflictingID, Field: "event_id",
 					Detail: "the ledger holds event " + id + " with other content"}))
 				continue
@@ -511,22 +558,21 @@ func (s *Server) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushRespons
 		}
 		deny, err := auth.check(e)
 		if err != nil {
-			return nil, s.internal(ctx, "authorize", err)
+			s.unapply(p, rows)
+			return nil, head, nil, s.internal(ctx, "authorize", err)
 		}
 		if deny != nil {
 			resp.Outcomes = append(resp.Outcomes, rejected(id, deny))
 			continue
 		}
-		var waiting []string
-		for _, m := range p.view.Missing(&e) {
-			if _, ok := inBatch[m]; !ok {
-				waiting = append(waiting, m)
-			}
-		}
-		if len(waiting) > 0 {
+		if waiting := p.view.Missing(&e); len(waiting) > 0 {
 			resp.Outcomes = append(resp.Outcomes, &pb.PushOutcome{EventId: id, Status: pb.PushStatus_PUSH_STATUS_WAITING, WaitingFor: waiting,
 				Message: "refers to records the server has not received yet: " + strings.Join(waiting, ", ")})
 			continue
+		}
+		if _, err := p.view.ApplyValidated(it.signed); err != nil {
+			s.unapply(p, rows)
+			return nil, head, nil, s.internal(ctx, "apply", err)
 		}
 		env := it.signed.Bytes()
 		next.Seq++
@@ -537,47 +583,24 @@ func (s *Server) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushRespons
 			row.SkewMicros = skew
 		}
 		rows = append(rows, row)
-		accepted = append(accepted, it.signed)
-		inBatch[id] = next.Seq
-		if r := ledger.RecordID(e.Kind); r != "" {
-			inBatch[r] = next.Seq
-		}
+		p.seqs[id] = next.Seq
 		resp.Outcomes = append(resp.Outcomes, &pb.PushOutcome{EventId: id, Status: pb.PushStatus_PUSH_STATUS_ACCEPTED, Sequence: next.Seq})
 	}
-	if err := s.opts.Store.Append(ctx, req.GetProjectId(), head, rows); err != nil {
-		if errors.Is(err, ErrConflict) {
-			return nil, status.Error(codes.Aborted, "the ledger moved during the push; push again")
-		}
-		return nil, s.internal(ctx, "append", err)
-	}
-	for _, sg := range accepted {
-		if _, err := p.view.ApplyValidated(sg); err != nil {
-			// The event is stored; the projection is rebuilt on the next load.
-			s.log.ErrorContext(ctx, "apply accepted event", "event", sg.Event.ID, "err", err)
-			p.loaded = false
-		}
-	}
-	if skewed {
+	if skewed && len(rows) > 0 {
 		s.log.WarnContext(ctx, "device clock skew beyond the limit", "project", req.GetProjectId(), "skew", time.Duration(skew)*time.Microsecond,
 			"events", len(rows))
 	}
 	resp.Head = ledger.CheckpointToProto(next)
-	s.log.InfoContext(ctx, "push", "project", req.GetProjectId(), "events", len(items), "accepted", len(rows), "head", next.Seq)
-	return resp, nil
+	p.head = next
+	return resp, head, rows, nil
 }
 
-// sameBytes reports whether the ledger (its projection, or the events
-// accepted earlier in this batch) holds sg's event with the same bytes.
-func (s *Server) sameBytes(view *ledger.Projection, batch []ledger.Signed, sg ledger.Signed) bool {
-	if held, ok := view.Event(sg.Event.ID); ok {
-		return bytes.Equal(held.Body, sg.Body)
+// unapply marks a project's state for reloading when a push fails after
+// applying rows to its view, before they were written.
+func (s *Server) unapply(p *project, rows []Row) {
+	if len(rows) > 0 {
+		p.stale.Store(true)
 	}
-	for _, b := range batch {
-		if b.Event.ID == sg.Event.ID {
-			return bytes.Equal(b.Body, sg.Body)
-		}
-	}
-	return false
 }
 
 func (s *Server) skewLimit(p *project) time.Duration {
@@ -590,7 +613,11 @@ func (s *Server) skewLimit(p *project) time.Duration {
 // checkVerified opens a new epoch when a device has verified a point that
 // this ledger does not contain: the ledger was restored from an older copy
 // or rewritten, and devices must re-push what it lost.
-func (s *Server) checkVerified(ctx context.Context, head ledger.Checkpoint, v *pb.Checkpoint) (ledger.Checkpoint, error) {
+//
+// The point a device verified was pulled, so it is stored; the new epoch
+// is set once the batches being written are in.
+func (s *Server) checkVerified(ctx context.Context, p *project, v *pb.Checkpoint) (ledger.Checkpoint, error) {
+	head := p.head
 	if v == nil || v.GetSequence() == 0 {
 		return head, nil
 	}
@@ -610,12 +637,16 @@ func (s *Server) checkVerified(ctx context.Context, head ledger.Checkpoint, v *p
 		return head, nil
 	}
 	epoch := max(head.Epoch, cp.Epoch) + 1
-	if err := s.opts.Store.SetEpoch(ctx, head.Project, epoch); err != nil {
+	p.write.Lock()
+	err := s.opts.Store.SetEpoch(ctx, head.Project, epoch)
+	p.write.Unlock()
+	if err != nil {
 		return head, err
 	}
 	s.log.WarnContext(ctx, "a device verified a point this ledger lacks: opening a new epoch", "project", head.Project,
 		"device_seq", cp.Seq, "ledger_seq", head.Seq, "epoch", epoch)
 	head.Epoch = epoch
+	p.head.Epoch = epoch
 	return head, nil
 }
 
@@ -624,9 +655,6 @@ func (s *Server) Pull(req *pb.PullRequest, stream grpc.ServerStreamingServer[pb.
 	ctx := stream.Context()
 	if _, err := s.requireMember(ctx, req.GetProjectId()); err != nil {
 		return err
-	}
-	if _, err := s.project(ctx, req.GetProjectId()); err != nil {
-		return projectErr(s, ctx, req.GetProjectId(), err)
 	}
 	head, err := s.opts.Store.Head(ctx, req.GetProjectId())
 	if err != nil {

@@ -22,9 +22,6 @@ type Store interface {
 	After(ctx context.Context, project string, seq uint64, limit int) ([]ledger.Entry, error)
 	// HashAt returns h(seq) of a project's chain (seq 0: the genesis hash).
 	HashAt(ctx context.Context, project string, seq uint64) (ledger.Hash, bool, error)
-	// Sequences returns the sequence numbers of those of the events that
-	// the ledger holds.
-	Sequences(ctx context.Context, project string, eventIDs []string) (map[string]uint64, error)
 	// Append adds rows after head in one transaction, failing with
 	// ErrConflict when the ledger's head is no longer head.
 	Append(ctx context.Context, project string, head ledger.Checkpoint, rows []Row) error

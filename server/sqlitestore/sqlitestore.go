@@ -162,36 +162,6 @@ func (s *Store) HashAt(ctx context.Context, project string, seq uint64) (ledger.
 	return out, true, nil
 }
 
-func (s *Store) Sequences(ctx context.Context, project string, ids []string) (map[string]uint64, error) {
-	out := map[string]uint64{}
-	for start := 0; start < len(ids); start += 500 {
-		chunk := ids[start:min(len(ids), start+500)]
-		args := []any{project}
-		for _, id := range chunk {
-			args = append(args, id)
-		}
-		rows, err := s.db.Reader().QueryContext(ctx, `SELECT event_id, seq FROM ledger WHERE project_id = ? AND event_id IN (?`+
-			strings.Repeat(",?", len(chunk)-1)+`)`, args...)
-		if err != nil {
-			return nil, fmt.Errorf("sqlitestore: look up events: %w", err)
-		}
-		for rows.Next() {
-			var id string
-			var seq uint64
-			if err := rows.Scan(&id, &seq); err != nil {
-				rows.Close()
-				return nil, fmt.Errorf("sqlitestore: look up events: %w", err)
-			}
-			out[id] = seq
-		}
-		rows.Close()
-		if err := rows.Err(); err != nil {
-			return nil, fmt.Errorf("sqlitestore: look up events: %w", err)
-		}
-	}
-	return out, nil
-}
-
 func (s *Store) Append(ctx context.Context, project string, h ledger.Checkpoint, rows []server.Row) error {
 	if len(rows) == 0 {
 		return nil
