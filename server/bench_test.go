@@ -6,6 +6,7 @@ import (
 	"database/sql"
 	"path/filepath"
 	"sync"
+	"syscall"
 	"testing"
 	"time"
 
@@ -73,6 +74,7 @@ func BenchmarkPush(b *testing.B) {
 	}
 	sc := pb.NewSyncServiceClient(cc)
 	b.ResetTimer()
+	cpu0 := cpuTime()
 	start := time.Now()
 	var wg sync.WaitGroup
 	for _, p := range pushers {
@@ -101,7 +103,9 @@ func BenchmarkPush(b *testing.B) {
 	for _, p := range pushers {
 		batches = append(batches, p.batches...)
 	}
-	pushRate := float64(b.N*benchBatch) / time.Since(start).Seconds()
+	pushWall := time.Since(start)
+	pushCPU := cpuTime() - cpu0
+	pushRate := float64(b.N*benchBatch) / pushWall.Seconds()
 	b.StopTimer()
 
 	// The same rows, inserted straight into a fresh store's ledger table.
@@ -140,4 +144,15 @@ func BenchmarkPush(b *testing.B) {
 	b.ReportMetric(pushRate, "push-events/s")
 	b.ReportMetric(rawRate, "raw-rows/s")
 	b.ReportMetric(pushRate/rawRate, "push/raw")
+	b.ReportMetric(float64(pushCPU.Microseconds())/float64(b.N*benchBatch), "cpu-us/event")
+	b.ReportMetric(pushCPU.Seconds()/pushWall.Seconds(), "cores")
+}
+
+// cpuTime returns the CPU time the process has used, user and system.
+func cpuTime() time.Duration {
+	var ru syscall.Rusage
+	if err := syscall.Getrusage(syscall.RUSAGE_SELF, &ru); err != nil {
+		return 0
+	}
+	return time.Duration(ru.Utime.Nano() + ru.Stime.Nano())
 }
