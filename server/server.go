@@ -435,8 +435,8 @@ func (s *Server) verifyAll(ctx context.Context, events []*pb.Event) []decoded {
 		wg.Add(1)
 		go func() {
 			defer wg.Done()
-			var good []int
-			var signed []ledger.Signed
+			good := make([]int, 0, hi-lo)
+			signed := make([]ledger.Signed, 0, hi-lo)
 			for i := lo; i < hi; i++ {
 				sg, err := ledger.FromEnvelope(events[i])
 				out[i] = decoded{signed: sg, err: err}
@@ -528,6 +528,7 @@ func (s *Server) decide(ctx context.Context, p *project, req *pb.PushRequest, it
 	skewed := skew > limit || -skew > limit
 	resp := &pb.PushResponse{ClockSkewMicros: skew, Outcomes: make([]*pb.PushOutcome, 0, len(items))}
 	rows := make([]Row, 0, len(items))
+	slab := make([]pb.PushOutcome, len(items)) // the accepted events' outcomes, in one allocation
 	next := head
 	auth := s.authorizer(ctx, req.GetProjectId(), p.view)
 	for i, it := range items {
@@ -584,7 +585,9 @@ func (s *Server) decide(ctx context.Context, p *project, req *pb.PushRequest, it
 		}
 		rows = append(rows, row)
 		p.seqs[id] = next.Seq
-		resp.Outcomes = append(resp.Outcomes, &pb.PushOutcome{EventId: id, Status: pb.PushStatus_PUSH_STATUS_ACCEPTED, Sequence: next.Seq})
+		o := &slab[i]
+		o.EventId, o.Status, o.Sequence = id, pb.PushStatus_PUSH_STATUS_ACCEPTED, next.Seq
+		resp.Outcomes = append(resp.Outcomes, o)
 	}
 	if skewed && len(rows) > 0 {
 		s.log.WarnContext(ctx, "device clock skew beyond the limit", "project", req.GetProjectId(), "skew", time.Duration(skew)*time.Microsecond,

@@ -45,9 +45,10 @@ type InPlace struct {
 	Steps      []Step
 }
 
-// stepRoom is room enough for the steps of any in-place method, so that a
-// computation's step list is allocated once.
-const stepRoom = 16
+// stepRoom is room enough for the steps of any in-place method (a sand cone
+// weighed before and after has the most, eleven), so that a computation's
+// step list is allocated once.
+const stepRoom = 12
 
 func newSteps(s ...Step) []Step { return append(make([]Step, 0, stepRoom), s...) }
 

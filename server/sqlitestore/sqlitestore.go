@@ -181,6 +181,7 @@ func (s *Store) Append(ctx context.Context, project string, h ledger.Checkpoint,
 		}
 		defer mark.Close()
 		high := map[string]uint64{}
+		args := make([]any, 0, insertRows*11)
 		// Rows go in by statements of several rows: one statement a row
 		// costs more in the driver than the insert itself.
 		for start, size := 0, 0; start < len(rows); start += insertSizes[size] {
@@ -188,7 +189,7 @@ func (s *Store) Append(ctx context.Context, project string, h ledger.Checkpoint,
 				size++
 			}
 			part := rows[start : start+insertSizes[size]]
-			args := make([]any, 0, len(part)*11)
+			args = args[:0]
 			for _, r := range part {
 				args = append(args, project, r.Seq, r.EventID, r.DeviceID, r.DeviceSeq, r.Kind, r.RecordID,
 					r.Envelope, r.Hash[:], r.SkewMicros, r.Received.UnixMicro())
