@@ -5,6 +5,9 @@ import (
 	"crypto/ed25519"
 	"database/sql"
 	"path/filepath"
+	"runtime"
+	"runtime/debug"
+	"strings"
 	"sync"
 	"syscall"
 	"testing"
@@ -13,6 +16,7 @@ import (
 	"github.com/google/uuid"
 	"google.golang.org/grpc/metadata"
 
+	"tamp/internal/daemon"
 	pb "tamp/internal/gen/tamp/v1"
 	"tamp/internal/ledger"
 	"tamp/internal/sqlite"
@@ -31,9 +35,18 @@ const (
 // projection, append with the hash chain), and in the same run the raw
 // SQLite insert rate of the same rows in batches of the same size, and
 // reports their ratio. A crew's devices push at once, as at day's end;
-// push and raw runs alternate, so that both see the machine alike.
+// push and raw runs alternate, so that both see the machine alike. Both
+// stores commit as tampd does by default (synchronous=FULL) or as with
+// --synchronous-normal; the process collects garbage as tampd's does.
 func BenchmarkPush(b *testing.B) {
-	c := startCluster(b, b.TempDir())
+	defer debug.SetGCPercent(daemon.TuneGC())
+	for _, mode := range []sqlite.Synchronous{sqlite.Full, sqlite.Normal} {
+		b.Run("sync="+strings.ToLower(string(mode)), func(b *testing.B) { benchmarkPush(b, mode) })
+	}
+}
+
+func benchmarkPush(b *testing.B, mode sqlite.Synchronous) {
+	c := startClusterSync(b, b.TempDir(), mode)
 	ctx := context.Background()
 	project, _ := c.srv.CreateProject(ctx, "bench")
 	cc := c.conn("")
@@ -78,7 +91,7 @@ func BenchmarkPush(b *testing.B) {
 		}
 	}
 	// The raw rows go straight into a fresh store's ledger table.
-	raw, err := sqlitestore.Open(ctx, filepath.Join(b.TempDir(), "raw.db"), sqlite.Normal)
+	raw, err := sqlitestore.Open(ctx, filepath.Join(b.TempDir(), "raw.db"), mode)
 	if err != nil {
 		b.Fatal(err)
 	}
@@ -141,13 +154,19 @@ func BenchmarkPush(b *testing.B) {
 	}
 	b.ResetTimer()
 	var pushWall, pushCPU, rawWall time.Duration
+	var pushAlloc uint64
+	var ms runtime.MemStats
 	per := (b.N + benchRounds - 1) / benchRounds
 	for lo := 0; lo < b.N; lo += per {
 		round := batches[lo:min(b.N, lo+per)]
+		runtime.ReadMemStats(&ms)
+		alloc := ms.TotalAlloc
 		start, cpu := time.Now(), cpuTime()
 		push(round)
 		pushWall += time.Since(start)
 		pushCPU += cpuTime() - cpu
+		runtime.ReadMemStats(&ms)
+		pushAlloc += ms.TotalAlloc - alloc
 		start = time.Now()
 		insert(round)
 		rawWall += time.Since(start)
@@ -160,6 +179,7 @@ func BenchmarkPush(b *testing.B) {
 	b.ReportMetric(pushRate/rawRate, "push/raw")
 	b.ReportMetric(float64(pushCPU.Microseconds())/events, "cpu-us/event")
 	b.ReportMetric(pushCPU.Seconds()/pushWall.Seconds(), "cores")
+	b.ReportMetric(float64(pushAlloc)/events, "alloc-B/event")
 }
 
 // cpuTime returns the CPU time the process has used, user and system.

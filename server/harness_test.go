@@ -33,6 +33,7 @@ type cluster struct {
 	done    chan struct{}
 	extra   []grpc.ServerOption
 	rate    float64 // pushes a second per device; zero for the server's default
+	sync    sqlite.Synchronous
 }
 
 func hashOf(secret string) []byte {
@@ -42,14 +43,20 @@ func hashOf(secret string) []byte {
 
 func startCluster(t testing.TB, dir string) *cluster {
 	t.Helper()
-	c := &cluster{tb: t, dir: dir}
+	return startClusterSync(t, dir, sqlite.Normal)
+}
+
+// startClusterSync starts a cluster whose store commits with sync.
+func startClusterSync(t testing.TB, dir string, sync sqlite.Synchronous) *cluster {
+	t.Helper()
+	c := &cluster{tb: t, dir: dir, sync: sync}
 	c.start("")
 	return c
 }
 
 func (c *cluster) start(addr string) {
 	c.tb.Helper()
-	st, err := sqlitestore.Open(context.Background(), filepath.Join(c.dir, "ledger.db"), sqlite.Normal)
+	st, err := sqlitestore.Open(context.Background(), filepath.Join(c.dir, "ledger.db"), c.sync)
 	if err != nil {
 		c.tb.Fatal(err)
 	}

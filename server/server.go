@@ -416,6 +416,9 @@ func projectErr(s *Server, ctx context.Context, id string, err error) error {
 	return s.internal(ctx, "load project", err)
 }
 
+// minVerifyPart is the fewest events verifyAll gives one core.
+const minVerifyPart = 512
+
 // decoded is one pushed event after decoding and verification.
 type decoded struct {
 	signed ledger.Signed
@@ -423,11 +426,13 @@ type decoded struct {
 }
 
 // verifyAll decodes, verifies and validates events, checking signatures in
-// batches on all cores.
+// batches on all cores. A batch is split only into parts of at least
+// minVerifyPart events: the batch equation costs less per signature the
+// more it holds, and concurrent pushes keep the cores busy anyway.
 func (s *Server) verifyAll(ctx context.Context, events []*pb.Event) []decoded {
 	out := make([]decoded, len(events))
 	keys := func(dev string) (ed25519.PublicKey, bool) { return s.key(ctx, dev) }
-	workers := min(runtime.GOMAXPROCS(0), max(1, len(events)/64))
+	workers := min(runtime.GOMAXPROCS(0), max(1, len(events)/minVerifyPart))
 	per := (len(events) + workers - 1) / workers
 	var wg sync.WaitGroup
 	for lo := 0; lo < len(events); lo += per {

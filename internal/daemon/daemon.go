@@ -11,6 +11,7 @@ import (
 	"net"
 	"os"
 	"path/filepath"
+	"runtime/debug"
 	"time"
 
 	"github.com/spf13/cobra"
@@ -41,6 +42,26 @@ func Run(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	root.SetOut(stdout)
 	root.SetErr(stderr)
 	return root.ExecuteContext(ctx)
+}
+
+// GCPercent is tampd's garbage-collection target (as GOGC) unless the
+// environment sets GOGC: a collection starts when the heap has grown by
+// twice the live heap, where Go's default waits for once. tampd's live heap
+// is mostly the projections, which live as long as the server, while a
+// push's garbage is short-lived; collecting half as often costs about a
+// sixth less CPU per pushed event (server BenchmarkPush) for a heap up to a
+// half larger. GOMEMLIMIT bounds it where memory is short.
+const GCPercent = 200
+
+// TuneGC applies GCPercent unless the environment sets GOGC. It returns the
+// setting before.
+func TuneGC() int {
+	if os.Getenv("GOGC") != "" {
+		before := debug.SetGCPercent(-1)
+		debug.SetGCPercent(before)
+		return before
+	}
+	return debug.SetGCPercent(GCPercent)
 }
 
 // Limits of the server's transport.
@@ -141,6 +162,7 @@ func serve(ctx context.Context, f serveFlags, stdout, stderr io.Writer) error {
 		return fmt.Errorf("--log-format: must be json or text, not %q", f.logFormat)
 	}
 	log := slog.New(handler)
+	TuneGC()
 	var opts []grpc.ServerOption
 	switch {
 	case f.tlsCert != "" || f.tlsKey != "":

@@ -4,6 +4,7 @@ import (
 	"bufio"
 	"context"
 	"io"
+	"runtime/debug"
 	"strings"
 	"testing"
 	"time"
@@ -100,5 +101,24 @@ func TestServeRefusesPlainNonLoopback(t *testing.T) {
 		if got := isLoopback(addr); got != want {
 			t.Errorf("isLoopback(%s) = %v", addr, got)
 		}
+	}
+}
+
+func TestTuneGC(t *testing.T) {
+	before := debug.SetGCPercent(100)
+	defer debug.SetGCPercent(before)
+	t.Setenv("GOGC", "")
+	if prev := TuneGC(); prev != 100 {
+		t.Errorf("TuneGC returned %d, want the setting before, 100", prev)
+	}
+	if now := debug.SetGCPercent(100); now != GCPercent {
+		t.Errorf("GC percent after TuneGC = %d, want %d", now, GCPercent)
+	}
+	// A GOGC in the environment wins.
+	t.Setenv("GOGC", "150")
+	debug.SetGCPercent(150)
+	TuneGC()
+	if now := debug.SetGCPercent(150); now != 150 {
+		t.Errorf("GC percent with GOGC=150 = %d, want 150", now)
 	}
 }
