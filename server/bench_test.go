@@ -2,7 +2,6 @@ package server_test
 
 import (
 	"context"
-	"crypto/ed25519"
 	"database/sql"
 	"path/filepath"
 	"runtime"
@@ -12,9 +11,6 @@ import (
 	"syscall"
 	"testing"
 	"time"
-
-	"github.com/google/uuid"
-	"google.golang.org/grpc/metadata"
 
 	"tamp/internal/daemon"
 	pb "tamp/internal/gen/tamp/v1"
@@ -49,46 +45,18 @@ func benchmarkPush(b *testing.B, mode sqlite.Synchronous) {
 	c := startClusterSync(b, b.TempDir(), mode)
 	ctx := context.Background()
 	project, _ := c.srv.CreateProject(ctx, "bench")
-	cc := c.conn("")
 	type batch struct {
 		device int
 		events []ledger.Signed
 	}
-	var devices []context.Context // each device's call context, with its token
-	var keys []ed25519.PrivateKey
-	var ids, users []string
+	var devices []*rawDevice
 	for range benchDevices {
-		user, _ := c.srv.AddUser(ctx, "bench", false)
-		if err := c.srv.AddMember(ctx, project, user, server.Inspector); err != nil {
-			b.Fatal(err)
-		}
-		code, _, _ := c.srv.IssueEnrollmentCode(ctx, user)
-		pub, key, _ := ed25519.GenerateKey(nil)
-		dev := uuid.Must(uuid.NewV7()).String()
-		resp, err := pb.NewAdminServiceClient(cc).EnrollDevice(ctx, &pb.EnrollDeviceRequest{Code: code, DeviceId: dev, PublicKey: pub})
-		if err != nil {
-			b.Fatal(err)
-		}
-		devices = append(devices, metadata.AppendToOutgoingContext(ctx, "authorization", "Bearer "+resp.GetToken()))
-		keys, ids, users = append(keys, key), append(ids, dev), append(users, user)
+		devices = append(devices, c.rawDevice(b, "bench", map[string]server.Role{project: server.Inspector}, false))
 	}
 	// Sign every event before the clock starts; the devices take turns.
-	seqs := make([]uint64, benchDevices)
 	batches := make([]batch, b.N)
 	for i := range batches {
-		d := i % benchDevices
-		batches[i].device = d
-		for range benchBatch {
-			seqs[d]++
-			e := ledger.Event{ID: uuid.Must(uuid.NewV7()).String(), Project: project, Author: users[d], Device: ids[d], DeviceSeq: seqs[d],
-				HLC: ledger.HLC{Wall: time.Now().UnixMicro(), Logical: uint32(seqs[d])}, DeviceTime: time.Now().UTC().Truncate(time.Microsecond),
-				Kind: &ledger.TestRecorded{TestID: uuid.Must(uuid.NewV7()).String(), Content: ledger.TestContent{Readings: sandCone(110, 12), Feature: "pad"}}}
-			s, err := ledger.Seal(e, keys[d])
-			if err != nil {
-				b.Fatal(err)
-			}
-			batches[i].events = append(batches[i].events, s)
-		}
+		batches[i] = batch{device: i % benchDevices, events: devices[i%benchDevices].tests(b, project, benchBatch)}
 	}
 	// The raw rows go straight into a fresh store's ledger table.
 	raw, err := sqlitestore.Open(ctx, filepath.Join(b.TempDir(), "raw.db"), mode)
@@ -99,7 +67,7 @@ func benchmarkPush(b *testing.B, mode sqlite.Synchronous) {
 	if err := raw.CreateProject(ctx, project, "bench", time.Now()); err != nil {
 		b.Fatal(err)
 	}
-	sc := pb.NewSyncServiceClient(cc)
+	sc := pb.NewSyncServiceClient(c.conn(""))
 	push := func(round []batch) {
 		var wg sync.WaitGroup
 		for d := range benchDevices {
@@ -110,11 +78,7 @@ func benchmarkPush(b *testing.B, mode sqlite.Synchronous) {
 					if bt.device != d {
 						continue
 					}
-					req := &pb.PushRequest{ProjectId: project}
-					for _, s := range bt.events {
-						req.Events = append(req.Events, s.Proto())
-					}
-					r, err := sc.Push(devices[d], req)
+					r, err := sc.Push(devices[d].ctx(), pushRequest(project, bt.events))
 					if err != nil {
 						b.Error(err)
 						return

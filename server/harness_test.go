@@ -14,6 +14,7 @@ import (
 	"google.golang.org/grpc/credentials/insecure"
 
 	"tamp/client"
+	pb "tamp/internal/gen/tamp/v1"
 	"tamp/internal/ledger"
 	"tamp/internal/soil"
 	"tamp/internal/sqlite"
@@ -34,6 +35,7 @@ type cluster struct {
 	extra   []grpc.ServerOption
 	rate    float64 // pushes a second per device; zero for the server's default
 	sync    sqlite.Synchronous
+	wrap    func(server.Store) server.Store // stands between server and store when set
 }
 
 func hashOf(secret string) []byte {
@@ -61,7 +63,11 @@ func (c *cluster) start(addr string) {
 		c.tb.Fatal(err)
 	}
 	c.store = st
-	c.srv = server.New(server.Options{Store: st, Logger: slog.New(slog.NewTextHandler(io.Discard, nil)), PushRate: c.rate, PushBurst: int(c.rate)})
+	var store server.Store = st
+	if c.wrap != nil {
+		store = c.wrap(st)
+	}
+	c.srv = server.New(server.Options{Store: store, Logger: slog.New(slog.NewTextHandler(io.Discard, nil)), PushRate: c.rate, PushBurst: int(c.rate)})
 	c.g = grpc.NewServer(append([]grpc.ServerOption{grpc.UnaryInterceptor(c.srv.UnaryInterceptor),
 		grpc.StreamInterceptor(c.srv.StreamInterceptor)}, c.extra...)...)
 	c.srv.Register(c.g)
@@ -222,4 +228,23 @@ func verified(t *testing.T, s *client.Store, project string) ledger.Checkpoint {
 		t.Fatal(err)
 	}
 	return st.Verified
+}
+
+// tests signs n test records of project, with no reference or spec.
+func (d *rawDevice) tests(tb testing.TB, project string, n int) []ledger.Signed {
+	tb.Helper()
+	out := make([]ledger.Signed, 0, n)
+	for range n {
+		out = append(out, d.sign(tb, project, &ledger.TestRecorded{TestID: newV7(), Content: ledger.TestContent{Readings: sandCone(110, 12), Feature: "pad"}}))
+	}
+	return out
+}
+
+// pushRequest is a push of events to project.
+func pushRequest(project string, events []ledger.Signed) *pb.PushRequest {
+	req := &pb.PushRequest{ProjectId: project, Events: make([]*pb.Event, 0, len(events))}
+	for _, s := range events {
+		req.Events = append(req.Events, s.Proto())
+	}
+	return req
 }

@@ -70,18 +70,23 @@ type Server struct {
 // releasing mu and writes its rows to the store, so that batches reach the
 // store in the order they were decided while the next push decides. view,
 // head and seqs may thus run ahead of the store by the batches being
-// written; a failed write marks the state stale and the next holder of mu
-// reloads it from the store.
+// written. A failed write counts in failed: the next holder of mu reloads
+// the state from the store, and every batch decided since the last load is
+// given up, since its outcomes may rest on the batch that was not stored.
 type project struct {
 	mu     sync.Mutex
 	view   *ledger.Projection
 	head   ledger.Checkpoint // the chain head after the last decided batch
 	seqs   map[string]uint64 // the sequence number of every decided event
 	loaded bool
+	seen   uint64 // failed when the state was loaded
 
-	write sync.Mutex
-	stale atomic.Bool
+	write  sync.Mutex
+	failed atomic.Uint64 // writes that failed after their batch was decided
 }
+
+// fresh reports whether p's state is loaded and no write failed since.
+func (p *project) fresh() bool { return p.loaded && p.failed.Load() == p.seen }
 
 // New returns a server over opts.Store.
 func New(opts Options) *Server {
@@ -322,7 +327,7 @@ func (s *Server) lockProject(ctx context.Context, id string) (*project, error) {
 	}
 	s.mu.Unlock()
 	p.mu.Lock()
-	if p.loaded && !p.stale.Load() {
+	if p.fresh() {
 		return p, nil
 	}
 	if err := s.load(ctx, p, id); err != nil {
@@ -364,7 +369,7 @@ func (s *Server) load(ctx context.Context, p *project, id string) error {
 		seq = entries[len(entries)-1].Seq
 	}
 	p.view, p.head, p.seqs, p.loaded = view, head, seqs, true
-	p.stale.Store(false)
+	p.seen = p.failed.Load()
 	return nil
 }
 
@@ -380,7 +385,7 @@ func (s *Server) Inspect(ctx context.Context, id string, fn func(*ledger.Project
 	// stored; reload if one of them failed.
 	p.write.Lock()
 	p.write.Unlock()
-	if p.stale.Load() {
+	if !p.fresh() {
 		if err := s.load(ctx, p, id); err != nil {
 			return err
 		}
@@ -496,18 +501,24 @@ func (s *Server) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushRespons
 	if err != nil {
 		return nil, projectErr(s, ctx, req.GetProjectId(), err)
 	}
+	gen := p.seen
 	resp, head, rows, err := s.decide(ctx, p, req, items, now, skew)
 	if err != nil {
 		p.mu.Unlock()
 		return nil, err
 	}
 	// Write while the next push decides: take write before letting go of
-	// mu, so batches reach the store in the order they were decided.
+	// mu, so batches reach the store in the order they were decided. If a
+	// write failed since this batch's state was loaded, its outcomes may
+	// rest on that batch (already present, at sequence numbers that were
+	// not stored): it is given up whole, so nothing unstored is
+	// acknowledged, even with no rows to write.
 	p.write.Lock()
 	p.mu.Unlock()
-	err = s.opts.Store.Append(ctx, req.GetProjectId(), head, rows)
-	if err != nil {
-		p.stale.Store(true) // the decided batch is applied to the view, not stored
+	if p.failed.Load() != gen {
+		err = ErrConflict
+	} else if err = s.opts.Store.Append(ctx, req.GetProjectId(), head, rows); err != nil {
+		p.failed.Add(1) // the decided batch is applied to the view, not stored
 	}
 	p.write.Unlock()
 	if err != nil {
@@ -607,7 +618,7 @@ func (s *Server) decide(ctx context.Context, p *project, req *pb.PushRequest, it
 // applying rows to its view, before they were written.
 func (s *Server) unapply(p *project, rows []Row) {
 	if len(rows) > 0 {
-		p.stale.Store(true)
+		p.failed.Add(1)
 	}
 }
 
