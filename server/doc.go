@@ -6,9 +6,9 @@
 //
 // A device pushes a batch of signed events. The server decodes each,
 // verifies the signatures with the authoring devices' registered keys (in
-// batches, on all cores, under the ZIP 215 rules that package ledger uses
-// everywhere), validates each event, authorises it by kind, author and
-// project, and appends the accepted ones in one transaction,
+// batches, under the ZIP 215 rules that package ledger uses everywhere),
+// validates each event, authorises it by kind, author and project, and
+// appends the accepted ones in one transaction,
 // each with its project sequence number and chain hash
 // h(n) = SHA-256(h(n-1) || n || event bytes), and the device's high-water
 // mark. The reply gives every event's outcome: accepted with its sequence,
@@ -18,6 +18,14 @@
 // server keeps each project's projection in memory and so recomputes every
 // test's result from its raw readings as it arrives, flagging device
 // results that disagree.
+//
+// Pushes to one project form a pipeline: verification runs outside any
+// lock; a push then decides every outcome under the project's lock,
+// applying what it accepts to the projection, and writes its rows while
+// the next push decides. Writes keep the order of the decisions. A reply
+// is sent only once its rows are stored; when a write fails, every batch
+// decided after it is refused as Aborted and the projection is reloaded
+// from the store, so nothing is acknowledged that the store does not hold.
 //
 // # Pull
 //
