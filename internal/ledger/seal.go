@@ -58,10 +58,10 @@ func signed(body []byte) []byte {
 }
 
 // Bytes returns the event's envelope encoding: its stored form, and the
-// "event bytes" of the hash chain.
-// It is the deterministic protobuf encoding of the Event message, written
-// out by hand: body (field 1) then signature (field 2), each omitted when
-// empty; a test holds it equal to the marshaller's.
+// "event bytes" of the hash chain. It is the deterministic protobuf
+// encoding of the Event message, written out by hand: body (field 1) then
+// signature (field 2), each omitted when empty; a test holds it equal to
+// the marshaller's.
 func (s Signed) Bytes() []byte {
 	n := 0
 	if len(s.Body) > 0 {

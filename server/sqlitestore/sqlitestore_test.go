@@ -5,6 +5,7 @@ import (
 	"crypto/sha256"
 	"database/sql"
 	"errors"
+	"fmt"
 	"io/fs"
 	"path/filepath"
 	"testing"
@@ -129,5 +130,47 @@ func TestMigrateFromFirstSchema(t *testing.T) {
 	u, err := s.User(ctx, "u1")
 	if err != nil || u.Name != "Rosa" || u.ServerAdmin {
 		t.Errorf("user after migration: %+v, %v", u, err)
+	}
+}
+
+// A batch goes in as statements of the prepared sizes (87 = 64 + 16 + 4 +
+// 1 + 1 + 1); every row lands once, in order, and the device's mark is its
+// highest sequence.
+func TestAppendBatchOfMixedStatementSizes(t *testing.T) {
+	s := open(t)
+	ctx := context.Background()
+	const p = "0190d3a0-0000-7000-8000-0000000000bb"
+	if err := s.CreateProject(ctx, p, "pad", time.Now()); err != nil {
+		t.Fatal(err)
+	}
+	head, _ := s.Head(ctx, p)
+	log := ledger.NewLog(p, 1)
+	var rows []server.Row
+	for i := range 87 {
+		e := log.Append([]byte{byte(i), byte(i >> 8), 7})
+		rows = append(rows, server.Row{Seq: e.Seq, EventID: fmt.Sprintf("ev-%03d", i), DeviceID: "d", DeviceSeq: uint64(i + 1), Kind: "test_recorded",
+			RecordID: fmt.Sprintf("t-%03d", i), Envelope: e.Event, Hash: e.Hash, Received: time.Now()})
+	}
+	if err := s.Append(ctx, p, head, rows); err != nil {
+		t.Fatal(err)
+	}
+	got, err := s.After(ctx, p, 0, 200)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(got) != len(rows) {
+		t.Fatalf("%d entries stored, want %d", len(got), len(rows))
+	}
+	for i, e := range got {
+		if e.Seq != rows[i].Seq || e.Hash != rows[i].Hash || string(e.Event) != string(rows[i].Envelope) {
+			t.Fatalf("entry %d = seq %d, want %d with its hash and bytes", i, e.Seq, rows[i].Seq)
+		}
+	}
+	if h, _ := s.Head(ctx, p); h.Seq != 87 || h.Hash != log.Head().Hash {
+		t.Errorf("head = %d, want 87 with the log's hash", h.Seq)
+	}
+	var mark uint64
+	if err := s.DB().Reader().QueryRowContext(ctx, `SELECT high_seq FROM device_marks WHERE project_id = ? AND device_id = 'd'`, p).Scan(&mark); err != nil || mark != 87 {
+		t.Errorf("device mark = %d, %v; want 87", mark, err)
 	}
 }
