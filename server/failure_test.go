@@ -51,19 +51,20 @@ func TestFailedWriteAcknowledgesNothingUnstored(t *testing.T) {
 	c.start("")
 	project := c.newProject("Juniper Wash detention basin")
 	d := c.rawDevice(t, "ines", map[string]server.Role{project: server.Inspector}, false)
-	sc := pb.NewSyncServiceClient(c.conn(""))
 	events := d.tests(t, project, 20)
 
+	f.mu.Lock()
 	f.armed = true
+	f.mu.Unlock()
 	type result struct {
 		resp *pb.PushResponse
 		err  error
 	}
 	first, second := make(chan result, 1), make(chan result, 1)
-	go func() { r, err := sc.Push(d.ctx(), pushRequest(project, events)); first <- result{r, err} }()
+	go func() { r, err := d.push(t, c, project, events...); first <- result{r, err} }()
 	<-f.entered
 	// The same events again, as a device does that timed out and retried.
-	go func() { r, err := sc.Push(d.ctx(), pushRequest(project, events)); second <- result{r, err} }()
+	go func() { r, err := d.push(t, c, project, events...); second <- result{r, err} }()
 	time.Sleep(100 * time.Millisecond) // let it decide and wait to write (the check holds either way)
 	close(f.release)
 
@@ -99,7 +100,7 @@ func TestFailedWriteAcknowledgesNothingUnstored(t *testing.T) {
 	}
 
 	// Pushed again, every event is stored once.
-	r3, err := sc.Push(d.ctx(), pushRequest(project, events))
+	r3, err := d.push(t, c, project, events...)
 	if err != nil {
 		t.Fatal(err)
 	}

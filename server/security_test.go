@@ -85,11 +85,7 @@ func (d *rawDevice) sign(t testing.TB, project string, k ledger.Kind) ledger.Sig
 
 func (d *rawDevice) push(t *testing.T, c *cluster, project string, evs ...ledger.Signed) (*pb.PushResponse, error) {
 	t.Helper()
-	req := &pb.PushRequest{ProjectId: project}
-	for _, e := range evs {
-		req.Events = append(req.Events, e.Proto())
-	}
-	return pb.NewSyncServiceClient(c.conn("")).Push(d.ctx(), req)
+	return pb.NewSyncServiceClient(c.conn("")).Push(d.ctx(), pushRequest(project, evs))
 }
 
 // first pushes events and returns the first one's outcome.

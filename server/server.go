@@ -575,7 +575,7 @@ func (s *Server) decide(ctx context.Context, p *project, req *pb.PushRequest, it
 		}
 		deny, err := auth.check(e)
 		if err != nil {
-			s.unapply(p, rows)
+			p.unapply(rows)
 			return nil, head, nil, s.internal(ctx, "authorize", err)
 		}
 		if deny != nil {
@@ -588,7 +588,7 @@ func (s *Server) decide(ctx context.Context, p *project, req *pb.PushRequest, it
 			continue
 		}
 		if _, err := p.view.ApplyValidated(it.signed); err != nil {
-			s.unapply(p, rows)
+			p.unapply(rows)
 			return nil, head, nil, s.internal(ctx, "apply", err)
 		}
 		env := it.signed.Bytes()
@@ -614,9 +614,9 @@ func (s *Server) decide(ctx context.Context, p *project, req *pb.PushRequest, it
 	return resp, head, rows, nil
 }
 
-// unapply marks a project's state for reloading when a push fails after
-// applying rows to its view, before they were written.
-func (s *Server) unapply(p *project, rows []Row) {
+// unapply marks p's state for reloading when a push fails after applying
+// rows to its view, before they were written.
+func (p *project) unapply(rows []Row) {
 	if len(rows) > 0 {
 		p.failed.Add(1)
 	}
