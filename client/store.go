@@ -254,6 +254,9 @@ func (s *Store) record(ctx context.Context, project string, k ledger.Kind) (ledg
 	if err != nil {
 		return ledger.Signed{}, ledger.Outcome{}, fmt.Errorf("%w: %w", ErrInvalid, err)
 	}
+	if taken := s.view(project).Claimed(&e); taken != nil {
+		return ledger.Signed{}, ledger.Outcome{}, fmt.Errorf("%w: %w", ErrInvalid, taken)
+	}
 	err = s.db.Tx(ctx, func(tx *sql.Tx) error {
 		if _, err := tx.ExecContext(ctx, `INSERT INTO events (event_id, project_id, device_id, device_seq, kind, record_id,
 			hlc_wall, hlc_logical, body, signature, origin, status, created_micros)

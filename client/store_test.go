@@ -338,3 +338,19 @@ func TestBatchesBoundCountAndBytes(t *testing.T) {
 		t.Errorf("an empty outbox makes %d pushes, want one empty push", len(got))
 	}
 }
+
+// A device refuses to record a second creation of a record id it holds
+// (issue 10, rule 2): the id belongs to its first recorder.
+func TestRecordRefusesTakenTestID(t *testing.T) {
+	e := newEnv(t, "inspector")
+	id := e.store.NewID()
+	first := e.rec(&ledger.TestRecorded{TestID: id, Content: ledger.TestContent{Readings: sandCone(110, 12), SpecID: e.spec, ReferenceID: e.ref}})
+	_, _, err := e.store.Record(context.Background(), e.project, &ledger.TestRecorded{TestID: id,
+		Content: ledger.TestContent{Readings: sandCone(95, 18), SpecID: e.spec, ReferenceID: e.ref}})
+	if ledger.ReasonOf(err) != ledger.ConflictingID {
+		t.Fatalf("second recording of test %s: %v, want a conflicting_id rejection", id, err)
+	}
+	if tt, _ := e.store.Test(e.project, id); tt.Current != first.Event.ID {
+		t.Errorf("current revision %s, want the first recording %s", tt.Current, first.Event.ID)
+	}
+}

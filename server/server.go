@@ -573,6 +573,10 @@ func (s *Server) decide(ctx context.Context, p *project, req *pb.PushRequest, it
 			resp.Outcomes = append(resp.Outcomes, &pb.PushOutcome{EventId: id, Status: pb.PushStatus_PUSH_STATUS_ALREADY_PRESENT, Sequence: seq})
 			continue
 		}
+		if taken := p.view.Claimed(&e); taken != nil {
+			resp.Outcomes = append(resp.Outcomes, rejected(id, taken))
+			continue
+		}
 		deny, err := auth.check(e)
 		if err != nil {
 			p.unapply(rows)

@@ -363,3 +363,36 @@ func (p *Projection) recomputeTest(id string, cascade bool) {
 	p.addDep(t.RetestOf, id)
 	p.tests[id] = t
 }
+
+// createsRecord reports whether events of kind k create the record they are
+// about, so that its id belongs to the first event that recorded it. (A
+// set-up and an equipment registration replace earlier ones instead.)
+func createsRecord(k Kind) bool {
+	switch k.(type) {
+	case *TestRecorded, *SpecDefined, *ReferenceAdded, *MoistureCorrectionSet, *BorrowSourceMeasured,
+		*LiftPlacementRecorded, *HaulRecorded:
+		return true
+	}
+	return false
+}
+
+// Claimed returns a ConflictingID rejection when e would create a record
+// whose id an event this replica holds already created: a record id
+// belongs to its first recorder for good, whoever records it again and
+// whatever the hybrid time of the second recording. It returns nil for an
+// event that is held already or creates nothing. The server refuses such
+// an event on push and a device refuses to make one, so no ledger holds
+// two creations of one id.
+func (p *Projection) Claimed(e *Event) *Rejection {
+	if !createsRecord(e.Kind) || p.Has(e.ID) {
+		return nil
+	}
+	key := RecordID(e.Kind)
+	for _, o := range p.byRecord[key] {
+		if createsRecord(o.Kind) && o.ID != e.ID {
+			return reject(ConflictingID, "record_id", fmt.Sprintf("%s %s was already recorded by %s in event %s; a record id belongs to its first recorder",
+				e.Kind.KindName(), key, o.Author, o.ID))
+		}
+	}
+	return nil
+}
