@@ -1,16 +1,21 @@
 package client
 
 import (
+	"context"
 	"crypto/tls"
 	"crypto/x509"
+	"errors"
 	"fmt"
 	"net"
 	"os"
 	"strings"
+	"sync"
 
 	"google.golang.org/grpc"
+	"google.golang.org/grpc/codes"
 	"google.golang.org/grpc/credentials"
 	"google.golang.org/grpc/credentials/insecure"
+	"google.golang.org/grpc/status"
 )
 
 // DialOptions configure Dial.
@@ -27,9 +32,13 @@ type DialOptions struct {
 }
 
 // Dial returns a connection to a tamp server, verifying the server's
-// certificate against opts.CAFile or the system roots.
+// certificate against opts.CAFile or the system roots. A call refused
+// because the certificate failed verification returns a *CertificateError
+// (errors.Is ErrCertificate) instead of Unavailable, so that it is not
+// retried.
 func Dial(addr string, opts DialOptions) (*grpc.ClientConn, error) {
 	var creds credentials.TransportCredentials
+	var dopts []grpc.DialOption
 	if opts.Plaintext {
 		if !opts.AllowPlaintextRemote && !loopback(addr) {
 			return nil, fmt.Errorf("client: dial %s: plaintext is allowed only to a loopback address", addr)
@@ -48,9 +57,12 @@ func Dial(addr string, opts DialOptions) (*grpc.ClientConn, error) {
 			}
 			cfg.RootCAs = pool
 		}
-		creds = credentials.NewTLS(cfg)
+		w := &certWatch{last: new(lastHandshake), TransportCredentials: credentials.NewTLS(cfg)}
+		creds = w
+		dopts = append(dopts, grpc.WithChainUnaryInterceptor(w.unary), grpc.WithChainStreamInterceptor(w.stream))
 	}
-	cc, err := grpc.NewClient(addr, append([]grpc.DialOption{grpc.WithTransportCredentials(creds)}, opts.Extra...)...)
+	dopts = append(append(dopts, grpc.WithTransportCredentials(creds)), opts.Extra...)
+	cc, err := grpc.NewClient(addr, dopts...)
 	if err != nil {
 		return nil, fmt.Errorf("client: dial %s: %w", addr, err)
 	}
@@ -67,4 +79,88 @@ func loopback(addr string) bool {
 	}
 	ip := net.ParseIP(host)
 	return ip != nil && ip.IsLoopback()
+}
+
+// certWatch is TLS transport credentials that remember whether the last
+// handshake failed the server's certificate, and interceptors that turn the
+// Unavailable such a failure gives every call into that certificate error.
+// The record is the outcome of the last handshake: a connection attempt
+// that fails before its handshake leaves it as it was.
+type certWatch struct {
+	credentials.TransportCredentials
+	last *lastHandshake // shared with clones
+}
+
+type lastHandshake struct {
+	mu  sync.Mutex
+	err *CertificateError // nil when the last handshake did not fail its certificate
+}
+
+func (w *certWatch) ClientHandshake(ctx context.Context, authority string, raw net.Conn) (net.Conn, credentials.AuthInfo, error) {
+	conn, info, err := w.TransportCredentials.ClientHandshake(ctx, authority, raw)
+	var ce *CertificateError
+	if p, ok := certificateProblem(err); ok {
+		ce = &CertificateError{Problem: p, Err: err}
+	}
+	w.last.mu.Lock()
+	w.last.err = ce
+	w.last.mu.Unlock()
+	return conn, info, err
+}
+
+func (w *certWatch) Clone() credentials.TransportCredentials {
+	return &certWatch{TransportCredentials: w.TransportCredentials.Clone(), last: w.last}
+}
+
+// explain returns the certificate error behind err, an Unavailable that
+// follows a handshake whose certificate failed, or else err.
+func (w *certWatch) explain(err error) error {
+	if status.Code(err) != codes.Unavailable {
+		return err
+	}
+	w.last.mu.Lock()
+	ce := w.last.err
+	w.last.mu.Unlock()
+	if ce == nil {
+		return err
+	}
+	e := *ce
+	return &e
+}
+
+func (w *certWatch) unary(ctx context.Context, method string, req, reply any, cc *grpc.ClientConn, invoke grpc.UnaryInvoker, opts ...grpc.CallOption) error {
+	return w.explain(invoke(ctx, method, req, reply, cc, opts...))
+}
+
+func (w *certWatch) stream(ctx context.Context, desc *grpc.StreamDesc, cc *grpc.ClientConn, method string, streamer grpc.Streamer, opts ...grpc.CallOption) (grpc.ClientStream, error) {
+	cs, err := streamer(ctx, desc, cc, method, opts...)
+	if err != nil {
+		return nil, w.explain(err)
+	}
+	return cs, nil
+}
+
+// certificateProblem classifies a handshake error that is a failed
+// verification of the server's certificate.
+func certificateProblem(err error) (CertificateProblem, bool) {
+	var (
+		authority x509.UnknownAuthorityError
+		roots     x509.SystemRootsError
+		name      x509.HostnameError
+		invalid   x509.CertificateInvalidError
+		verify    *tls.CertificateVerificationError
+	)
+	switch {
+	case err == nil:
+		return 0, false
+	case errors.As(err, &authority), errors.As(err, &roots):
+		return CertificateUnknownAuthority, true
+	case errors.As(err, &name):
+		return CertificateNameMismatch, true
+	case errors.As(err, &invalid) && invalid.Reason == x509.Expired:
+		return CertificateExpired, true
+	case errors.As(err, &invalid), errors.As(err, &verify):
+		return CertificateInvalid, true
+	}
+	return 0, false
 }

@@ -46,6 +46,9 @@ type Options struct {
 	// (crypto/rand when nil). Tests pin both.
 	Now  func() time.Time
 	Rand io.Reader
+	// WaitLimit is how long an entry may wait for records the server lacks
+	// before Status names it (default 24 hours).
+	WaitLimit time.Duration
 }
 
 // Store is a device's local store: its identity, every event it holds, and
@@ -246,6 +249,9 @@ func (s *Store) record(ctx context.Context, project string, k ledger.Kind) (ledg
 	}
 	if s.user == "" {
 		return ledger.Signed{}, ledger.Outcome{}, ErrNoUser
+	}
+	if err := s.notOwnTest(project, k); err != nil {
+		return ledger.Signed{}, ledger.Outcome{}, err
 	}
 	now := s.now().UTC().Truncate(time.Microsecond)
 	e := ledger.Event{ID: s.NewID(), Project: project, Author: s.user, Device: s.deviceID, DeviceSeq: s.seq + 1,

@@ -104,6 +104,7 @@ type SyncReport struct {
 	Head                                        ledger.Checkpoint
 	ClockSkew                                   time.Duration // device clock minus server clock
 	Repushed                                    int           // events pushed back after a fork or a new epoch
+	Supplied                                    int           // entries pushed because the server asked for them
 	NewEpoch                                    uint64        // the server's new epoch, when it opened one
 }
 
@@ -114,6 +115,38 @@ type SyncStatus struct {
 	LastError   string
 	Verified    ledger.Checkpoint
 	Outbox      Outbox
+	// Unconfirmed counts entries the server acknowledged that this device
+	// has not yet seen in the ledger it verified; ServerLacks those it
+	// found missing from the server's ledger.
+	Unconfirmed, ServerLacks int
+	// ServerMissing lists entries the server asked for that this device
+	// does not hold.
+	ServerMissing []MissingEntry
+	// LongWaiting lists entries that have waited longer than
+	// Options.WaitLimit for records the server lacks.
+	LongWaiting []WaitingEntry
+}
+
+// MissingEntry names an entry by its device and device sequence number.
+type MissingEntry struct {
+	Device string
+	Seq    uint64
+}
+
+// WaitingEntry is an entry the server holds back until it receives the
+// records the entry refers to.
+type WaitingEntry struct {
+	EventID  string
+	Kind     string // the entry's kind, e.g. test_recorded
+	RecordID string // the test, spec... it concerns
+	Since    time.Time
+	For      []WaitedRecord
+}
+
+// WaitedRecord is a record an entry waits for.
+type WaitedRecord struct {
+	ID   string
+	Kind string // the kind of the entry that makes it, when this device holds one; empty when unknown
 }
 
 // Status returns a project's sync status.
@@ -193,7 +226,9 @@ func (s *Store) noteAttempt(ctx context.Context, project string, syncErr error) 
 
 // retry runs call, retrying on Unavailable (and Aborted, which asks for the
 // whole exchange again) with exponential backoff and jitter, until it
-// succeeds, fails otherwise, or the context ends.
+// succeeds, fails otherwise, or the context ends. A server certificate that
+// failed verification (ErrCertificate) is never retried: waiting does not
+// mend it.
 func retry(ctx context.Context, o SyncOptions, call func() error) error {
 	delay := o.BaseDelay
 	sleep := o.Sleep
@@ -213,7 +248,7 @@ func retry(ctx context.Context, o SyncOptions, call func() error) error {
 			return nil
 		}
 		c := status.Code(err)
-		if (c != codes.Unavailable && c != codes.Aborted) || attempt >= o.MaxAttempts {
+		if (c != codes.Unavailable && c != codes.Aborted) || errors.Is(err, ErrCertificate) || attempt >= o.MaxAttempts {
 			return err
 		}
 		if ctx.Err() != nil {

@@ -87,6 +87,25 @@ func (s *Store) ownTest(project, testID string) (*ledger.Test, error) {
 	return t, nil
 }
 
+// notOwnTest refuses a decision on a test (a review, an accepted
+// exception) by the user who recorded it, as the server does: no one
+// decides on their own test. Call with s.mu held.
+func (s *Store) notOwnTest(project string, k ledger.Kind) error {
+	var test string
+	switch k := k.(type) {
+	case *ledger.TestReviewed:
+		test = k.TestID
+	case *ledger.ExceptionAccepted:
+		test = k.TestID
+	default:
+		return nil
+	}
+	if t, ok := s.view(project).Test(test); ok && t.Author == s.user {
+		return fmt.Errorf("client: %s on test %s, which %s recorded: %w", k.KindName(), test, s.user, ErrOwnTest)
+	}
+	return nil
+}
+
 // CorrectTest records a new revision of a test: edit changes a copy of the
 // current revision's content, reason says why. The earlier revision stays in
 // history. Only the test's author may correct it (an office review is a

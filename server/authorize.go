@@ -2,6 +2,7 @@ package server
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"slices"
 	"strings"
@@ -17,7 +18,11 @@ import (
 
 func validRole(r Role) bool { return r == Inspector || r == Office || r == QA || r == Admin }
 
-// entryRoles says which roles may make each kind of entry.
+// entryRoles is the role table: which roles may make each kind of entry.
+// It is the one place the server's entry rules by role live; the README
+// states it as a table, and a test pushes every (role, kind) cell through a
+// server. A kind with no roles is made by the server itself and is never
+// accepted from a member's device.
 var entryRoles = map[string][]Role{
 	"project_set_up":          {Admin},
 	"spec_defined":            {QA},
@@ -25,7 +30,7 @@ var entryRoles = map[string][]Role{
 	"borrow_source_measured":  {QA},
 	"moisture_correction_set": {QA},
 	"equipment_registered":    {Office, QA},
-	"standard_count_recorded": {Inspector, Office, QA},
+	"standard_count_recorded": {Inspector}, // the gauge operator's daily check
 	"lift_placement_recorded": {Office},
 	"haul_recorded":           {Office},
 	"test_recorded":           {Inspector},
@@ -110,11 +115,15 @@ func (a *authorizer) check(e ledger.Event) (*ledger.Rejection, error) {
 	}
 	kind := e.Kind.KindName()
 	if !slices.Contains(entryRoles[kind], role) {
-		var names []string
-		for _, r := range entryRoles[kind] {
-			names = append(names, string(r))
+		allowed := "none: the server itself makes it"
+		if len(entryRoles[kind]) > 0 {
+			var names []string
+			for _, r := range entryRoles[kind] {
+				names = append(names, string(r))
+			}
+			allowed = strings.Join(names, ", ")
 		}
-		return denied("role_may_make_entry", fmt.Sprintf("a member with the role %s may not make a %s entry (allowed: %s)", role, kind, strings.Join(names, ", "))), nil
+		return denied("role_may_make_entry", fmt.Sprintf("a member with the role %s may not make a %s entry (allowed: %s)", role, kind, allowed)), nil
 	}
 	switch k := e.Kind.(type) {
 	case *ledger.TestRecorded:
@@ -128,9 +137,19 @@ func (a *authorizer) check(e ledger.Event) (*ledger.Rejection, error) {
 			return denied("own_tests_only", fmt.Sprintf("test %s was recorded by %s; only its author may void it", k.TestID, author)), nil
 		}
 	case *ledger.TestReviewed:
-		if author, ok := a.testAuthor(k.TestID); ok && author == e.Author {
-			return denied("no_self_review", fmt.Sprintf("%s recorded test %s and may not review it", e.Author, k.TestID)), nil
-		}
+		return a.notOwnTest(e.Author, k.TestID, "review it")
+	case *ledger.ExceptionAccepted:
+		return a.notOwnTest(e.Author, k.TestID, "accept an exception on it")
+	}
+	return nil, nil
+}
+
+// notOwnTest refuses a decision on a test (a review, an accepted exception)
+// by the member who recorded it: no one decides on their own test,
+// whatever their role.
+func (a *authorizer) notOwnTest(author, test, decision string) (*ledger.Rejection, error) {
+	if recorder, ok := a.testAuthor(test); ok && recorder == author {
+		return denied("no_self_review", fmt.Sprintf("%s recorded test %s and may not %s", author, test, decision)), nil
 	}
 	return nil, nil
 }
@@ -202,30 +221,162 @@ func (a *adminService) caller(ctx context.Context) (Device, User, error) {
 	return d, u, nil
 }
 
-// projectAdmin fails unless the caller is a server administrator or an
-// administrator of project.
-func (a *adminService) projectAdmin(ctx context.Context, project string) (User, error) {
+// access is who may make an administration call.
+type access int
+
+// The kinds of access of the administration calls.
+const (
+	// serverAdmins: server administrators only.
+	serverAdmins access = iota + 1
+	// projectAdmins: a server administrator, or an administrator of the
+	// request's project.
+	projectAdmins
+	// projectMembers: a server administrator, or a member of the request's
+	// project in any role.
+	projectMembers
+	// userAdmins: a server administrator, or an administrator of every
+	// project on which the request's user holds a role (the user holds at
+	// least one, and is not a server administrator).
+	userAdmins
+	// ownOrServerAdmin: the user the request concerns, or a server
+	// administrator.
+	ownOrServerAdmin
+	// own: the user the request concerns, from any of their devices.
+	own
+	// codeHolders: whoever holds a valid one-time code; no token is needed.
+	codeHolders
+)
+
+// adminCall is the rule of one administration call.
+type adminCall struct {
+	access access
+	action string // what the call does, as refusals say it: "create projects"
+}
+
+// adminCalls is the table of who may make each administration call. The
+// handlers consult it through allow; the README states it, and a test
+// makes every call as every kind of caller.
+var adminCalls = map[string]adminCall{
+	pb.AdminService_CreateProject_FullMethodName:       {serverAdmins, "create projects"},
+	pb.AdminService_AddMember_FullMethodName:           {projectAdmins, "add members"},
+	pb.AdminService_ListMembers_FullMethodName:         {projectMembers, "list its members"},
+	pb.AdminService_IssueEnrollmentCode_FullMethodName: {userAdmins, "issue enrolment codes"},
+	pb.AdminService_EnrollDevice_FullMethodName:        {codeHolders, "enrol devices"},
+	pb.AdminService_RevokeDevice_FullMethodName:        {ownOrServerAdmin, "revoke devices"},
+	pb.AdminService_ListDevices_FullMethodName:         {ownOrServerAdmin, "list devices"},
+	pb.AdminService_ListInvitations_FullMethodName:     {own, "list invitations"},
+	pb.AdminService_AcceptInvitation_FullMethodName:    {own, "accept invitations"},
+	pb.AdminService_DeclineInvitation_FullMethodName:   {own, "decline invitations"},
+}
+
+// target is what an administration call concerns.
+type target struct {
+	project string // for projectAdmins and projectMembers
+	user    string // for userAdmins, ownOrServerAdmin and own
+}
+
+// allow returns the calling user when the table of administration calls
+// lets them make method on t, and otherwise a PermissionDenied status
+// naming the rule (Unauthenticated without a token).
+func (a *adminService) allow(ctx context.Context, method string, t target) (User, error) {
+	call, ok := adminCalls[method]
+	if !ok {
+		return User{}, status.Errorf(codes.PermissionDenied, "admin_call: %s has no rule in the table of administration calls; nobody may make it", method)
+	}
+	if call.access == codeHolders {
+		return User{}, nil
+	}
 	_, u, err := a.caller(ctx)
-	if err != nil || u.ServerAdmin {
+	if err != nil {
 		return u, err
 	}
-	r, err := a.s.opts.Store.Role(ctx, project, u.ID)
+	switch call.access {
+	case serverAdmins:
+		if u.ServerAdmin {
+			return u, nil
+		}
+		return u, status.Errorf(codes.PermissionDenied, "server_admin: only a server administrator may %s", call.action)
+	case projectAdmins, projectMembers:
+		if u.ServerAdmin {
+			return u, nil
+		}
+		r, err := a.s.opts.Store.Role(ctx, t.project, u.ID)
+		if err != nil {
+			return u, a.s.internal(ctx, "role", err)
+		}
+		switch {
+		case r == Admin, r != "" && call.access == projectMembers:
+			return u, nil
+		case call.access == projectMembers:
+			return u, status.Errorf(codes.PermissionDenied, "member_of_project: %s is not a member of project %s", u.ID, t.project)
+		}
+		return u, status.Errorf(codes.PermissionDenied, "project_admin: only a server administrator or an administrator of project %s may %s", t.project, call.action)
+	case userAdmins:
+		why, err := a.s.actsFor(ctx, u, t.user)
+		if err != nil {
+			return u, a.s.internal(ctx, "roles", err)
+		}
+		if why != "" {
+			return u, status.Errorf(codes.PermissionDenied, "user_admin: only a server administrator, or an administrator of every project on which a user holds a role, may %s for them: %s", call.action, why)
+		}
+		return u, nil
+	case ownOrServerAdmin:
+		if u.ServerAdmin || t.user == u.ID {
+			return u, nil
+		}
+		return u, status.Errorf(codes.PermissionDenied, "own_user: only a server administrator or the user concerned may %s", call.action)
+	case own:
+		if t.user == u.ID {
+			return u, nil
+		}
+		return u, status.Errorf(codes.PermissionDenied, "own_user: only the user concerned may %s", call.action)
+	}
+	return u, status.Errorf(codes.PermissionDenied, "admin_call: %s has an unknown rule; nobody may make it", method)
+}
+
+// actsFor returns why caller may not act for user (issue their enrolment
+// codes, or make them a member without their consent), or "" when it may.
+// A server administrator may act for anyone. Anyone else may act only for a
+// user who is not a server administrator and whose every role, of at least
+// one, is on a project caller administers: an enrolment code lets its
+// holder act as the user everywhere the user has a role.
+func (s *Server) actsFor(ctx context.Context, caller User, user string) (string, error) {
+	if caller.ServerAdmin {
+		return "", nil
+	}
+	u, err := s.opts.Store.User(ctx, user)
+	if errors.Is(err, ErrNoUser) {
+		return fmt.Sprintf("%s holds no role on any project", user), nil
+	}
 	if err != nil {
-		return u, a.s.internal(ctx, "role", err)
+		return "", err
 	}
-	if r != Admin {
-		return u, status.Errorf(codes.PermissionDenied, "project_admin: only an administrator of project %s may do this", project)
+	if u.ServerAdmin {
+		return fmt.Sprintf("%s is a server administrator", user), nil
 	}
-	return u, nil
+	projects, err := s.opts.Store.ProjectsOf(ctx, user)
+	if err != nil {
+		return "", err
+	}
+	if len(projects) == 0 {
+		return fmt.Sprintf("%s holds no role on any project", user), nil
+	}
+	for _, p := range projects {
+		r, err := s.opts.Store.Role(ctx, p, caller.ID)
+		if err != nil {
+			return "", err
+		}
+		if r != Admin {
+			return fmt.Sprintf("%s holds a role on a project you do not administer", user), nil
+		}
+	}
+	return "", nil
 }
 
 func (a *adminService) CreateProject(ctx context.Context, req *pb.CreateProjectRequest) (*pb.CreateProjectResponse, error) {
-	_, u, err := a.caller(ctx)
+	u, err := a.allow(ctx, pb.AdminService_CreateProject_FullMethodName, target{})
 	if err != nil {
 		return nil, err
-	}
-	if !u.ServerAdmin {
-		return nil, status.Error(codes.PermissionDenied, "server_admin: only a server administrator may create projects")
 	}
 	if strings.TrimSpace(req.GetName()) == "" {
 		return nil, status.Error(codes.InvalidArgument, "name: is required")
@@ -251,16 +402,23 @@ func roleToProto(r Role) pb.Role {
 	return pb.Role_ROLE_UNSPECIFIED
 }
 
+// AddMember gives a user a role on a project. A new user (by name) is added
+// at once. An existing user is added at once by a server administrator, or
+// when the caller may act for them (see actsFor), or to change the role of
+// a member of the project who is not a server administrator; anyone else is
+// invited, and becomes a member only by accepting.
 func (a *adminService) AddMember(ctx context.Context, req *pb.AddMemberRequest) (*pb.AddMemberResponse, error) {
-	if _, err := a.projectAdmin(ctx, req.GetProjectId()); err != nil {
+	u, err := a.allow(ctx, pb.AdminService_AddMember_FullMethodName, target{project: req.GetProjectId()})
+	if err != nil {
 		return nil, err
 	}
 	role, ok := rolesFromProto[req.GetRole()]
 	if !ok {
 		return nil, status.Error(codes.InvalidArgument, "role: must be inspector, office, qa or admin")
 	}
-	if _, err := a.s.opts.Store.Head(ctx, req.GetProjectId()); err != nil {
-		return nil, projectErr(a.s, ctx, req.GetProjectId(), err)
+	project := req.GetProjectId()
+	if _, err := a.s.opts.Store.Head(ctx, project); err != nil {
+		return nil, projectErr(a.s, ctx, project, err)
 	}
 	user := req.GetUserId()
 	switch {
@@ -271,20 +429,61 @@ func (a *adminService) AddMember(ctx context.Context, req *pb.AddMemberRequest) 
 		if err != nil {
 			return nil, a.s.internal(ctx, "add user", err)
 		}
-		user = id
-	default:
-		if _, err := a.s.opts.Store.User(ctx, user); err != nil {
-			return nil, status.Errorf(codes.NotFound, "user_id: no user %s", user)
+		if err := a.s.opts.Store.SetMember(ctx, project, id, role); err != nil {
+			return nil, a.s.internal(ctx, "add member", err)
 		}
+		return &pb.AddMemberResponse{UserId: id}, nil
 	}
-	if err := a.s.opts.Store.SetMember(ctx, req.GetProjectId(), user, role); err != nil {
+	existing, err := a.s.opts.Store.User(ctx, user)
+	if errors.Is(err, ErrNoUser) {
+		return nil, status.Errorf(codes.NotFound, "user_id: no user %s", user)
+	}
+	if err != nil {
+		return nil, a.s.internal(ctx, "user", err)
+	}
+	prev, err := a.s.opts.Store.Role(ctx, project, user)
+	if err != nil {
+		return nil, a.s.internal(ctx, "role", err)
+	}
+	direct := u.ServerAdmin || (prev != "" && !existing.ServerAdmin)
+	if !direct {
+		why, err := a.s.actsFor(ctx, u, user)
+		if err != nil {
+			return nil, a.s.internal(ctx, "roles", err)
+		}
+		direct = why == ""
+	}
+	if !direct {
+		id, err := a.s.opts.Store.Invite(ctx, Invitation{ID: a.s.newID(), Project: project, User: user, Role: role, InvitedBy: u.ID, Created: a.s.opts.Now()})
+		if err != nil {
+			return nil, a.s.internal(ctx, "invite", err)
+		}
+		a.s.log.InfoContext(ctx, "user invited", "project", project, "user", user, "role", role, "by", u.ID)
+		return &pb.AddMemberResponse{UserId: user, InvitationId: id}, nil
+	}
+	if err := a.s.opts.Store.SetMember(ctx, project, user, role); err != nil {
 		return nil, a.s.internal(ctx, "add member", err)
+	}
+	if prev == "" {
+		if err := a.s.joined(ctx, user); err != nil {
+			return nil, err
+		}
 	}
 	return &pb.AddMemberResponse{UserId: user}, nil
 }
 
+// joined voids the unused enrolment codes of a user who has just gained a
+// role on another project: a code issued while the user's roles lay within
+// its issuer's projects must not reach the new one.
+func (s *Server) joined(ctx context.Context, user string) error {
+	if err := s.opts.Store.DropEnrollmentCodes(ctx, user); err != nil {
+		return s.internal(ctx, "void enrolment codes", err)
+	}
+	return nil
+}
+
 func (a *adminService) ListMembers(ctx context.Context, req *pb.ListMembersRequest) (*pb.ListMembersResponse, error) {
-	if _, err := a.s.requireMember(ctx, req.GetProjectId()); err != nil {
+	if _, err := a.allow(ctx, pb.AdminService_ListMembers_FullMethodName, target{project: req.GetProjectId()}); err != nil {
 		return nil, err
 	}
 	ms, err := a.s.opts.Store.Members(ctx, req.GetProjectId())
@@ -298,31 +497,34 @@ func (a *adminService) ListMembers(ctx context.Context, req *pb.ListMembersReque
 	return resp, nil
 }
 
+// MaxCodeLifetime is the longest an enrolment code may be asked to last.
+const MaxCodeLifetime = 7 * 24 * time.Hour
+
+// codeLifetime returns how long a code asked for seconds lasts: def for 0,
+// and an InvalidArgument status outside 1 s to MaxCodeLifetime.
+func codeLifetime(seconds int64, def time.Duration) (time.Duration, error) {
+	most := int64(MaxCodeLifetime / time.Second)
+	switch {
+	case seconds == 0:
+		return def, nil
+	case seconds < 0 || seconds > most:
+		return 0, status.Errorf(codes.InvalidArgument, "valid_seconds: must be from 1 to %d (7 days), or 0 for the server's default; got %d", most, seconds)
+	}
+	return time.Duration(seconds) * time.Second, nil
+}
+
 func (a *adminService) IssueEnrollmentCode(ctx context.Context, req *pb.IssueEnrollmentCodeRequest) (*pb.IssueEnrollmentCodeResponse, error) {
-	_, u, err := a.caller(ctx)
-	if err != nil {
+	if _, err := a.allow(ctx, pb.AdminService_IssueEnrollmentCode_FullMethodName, target{user: req.GetUserId()}); err != nil {
 		return nil, err
 	}
-	if !u.ServerAdmin {
-		// A project administrator may issue codes to the members of their projects.
-		projects, err := a.s.opts.Store.ProjectsOf(ctx, req.GetUserId())
-		if err != nil {
-			return nil, a.s.internal(ctx, "issue code", err)
-		}
-		ok := false
-		for _, p := range projects {
-			if r, err := a.s.opts.Store.Role(ctx, p, u.ID); err == nil && r == Admin {
-				ok = true
-			}
-		}
-		if !ok {
-			return nil, status.Error(codes.PermissionDenied, "project_admin: only a server administrator, or an administrator of a project the user is a member of, may issue an enrolment code")
-		}
+	life, err := codeLifetime(req.GetValidSeconds(), a.s.opts.CodeLifetime)
+	if err != nil {
+		return nil, err
 	}
 	if _, err := a.s.opts.Store.User(ctx, req.GetUserId()); err != nil {
 		return nil, status.Errorf(codes.NotFound, "user_id: no user %s", req.GetUserId())
 	}
-	code, exp, err := a.s.IssueEnrollmentCode(ctx, req.GetUserId())
+	code, exp, err := a.s.issueCode(ctx, req.GetUserId(), life)
 	if err != nil {
 		return nil, a.s.internal(ctx, "issue code", err)
 	}
@@ -345,17 +547,16 @@ func (a *adminService) RevokeDevice(ctx context.Context, req *pb.RevokeDeviceReq
 	if err := a.s.opts.Store.Revoke(ctx, d.ID, now); err != nil {
 		return nil, a.s.internal(ctx, "revoke", err)
 	}
+	if err := a.s.revokeEverywhere(ctx, d, u.ID, req.GetReason(), now); err != nil {
+		return nil, a.s.internal(ctx, "revoke", err)
+	}
 	a.s.log.WarnContext(ctx, "device revoked", "device", d.ID, "by", u.ID, "reason", req.GetReason())
 	return &pb.RevokeDeviceResponse{RevokedMicros: now.UnixMicro()}, nil
 }
 
 func (a *adminService) ListDevices(ctx context.Context, req *pb.ListDevicesRequest) (*pb.ListDevicesResponse, error) {
-	_, u, err := a.caller(ctx)
-	if err != nil {
+	if _, err := a.allow(ctx, pb.AdminService_ListDevices_FullMethodName, target{user: req.GetUserId()}); err != nil {
 		return nil, err
-	}
-	if !u.ServerAdmin && req.GetUserId() != u.ID {
-		return nil, status.Error(codes.PermissionDenied, "own_devices: only a server administrator may list other users' devices")
 	}
 	ds, err := a.s.opts.Store.Devices(ctx, req.GetUserId())
 	if err != nil {

@@ -60,7 +60,10 @@ func FuzzPushBatch(f *testing.F) {
 			if err := proto.Unmarshal(e.Event, &m); err != nil {
 				t.Fatal(err)
 			}
-			if _, err := ledger.Open(&m, func(string) (ed25519.PublicKey, bool) { return d.key.Public().(ed25519.PublicKey), true }); err != nil {
+			if _, err := ledger.Open(&m, func(dev string) (ed25519.PublicKey, bool) {
+				held, err := c.store.Device(context.Background(), dev)
+				return held.PublicKey, err == nil
+			}); err != nil {
 				t.Fatalf("stored event %d: %v", e.Seq, err)
 			}
 		}

@@ -36,6 +36,7 @@ type cluster struct {
 	rate    float64 // pushes a second per device; zero for the server's default
 	sync    sqlite.Synchronous
 	wrap    func(server.Store) server.Store // stands between server and store when set
+	now     func() time.Time                // the server's clock; time.Now when nil
 }
 
 func hashOf(secret string) []byte {
@@ -67,8 +68,8 @@ func (c *cluster) start(addr string) {
 	if c.wrap != nil {
 		store = c.wrap(st)
 	}
-	c.srv = server.New(server.Options{Store: store, Logger: slog.New(slog.NewTextHandler(io.Discard, nil)), PushRate: c.rate, PushBurst: int(c.rate)})
-	c.g = grpc.NewServer(append([]grpc.ServerOption{grpc.UnaryInterceptor(c.srv.UnaryInterceptor),
+	c.srv = server.New(server.Options{Store: store, Logger: slog.New(slog.NewTextHandler(io.Discard, nil)), PushRate: c.rate, PushBurst: int(c.rate), Now: c.now})
+	c.g = grpc.NewServer(append([]grpc.ServerOption{c.srv.RequestCodec(), grpc.UnaryInterceptor(c.srv.UnaryInterceptor),
 		grpc.StreamInterceptor(c.srv.StreamInterceptor)}, c.extra...)...)
 	c.srv.Register(c.g)
 	if addr == "" {
@@ -247,4 +248,28 @@ func pushRequest(project string, events []ledger.Signed) *pb.PushRequest {
 		req.Events = append(req.Events, s.Proto())
 	}
 	return req
+}
+
+// memberEntries returns how many entries of a project's ledger its members'
+// devices made, leaving out the server's own (device_enrolled,
+// device_revoked).
+func (c *cluster) memberEntries(project string) int {
+	c.tb.Helper()
+	entries, err := c.store.After(context.Background(), project, 0, 1<<30)
+	if err != nil {
+		c.tb.Fatal(err)
+	}
+	n := 0
+	for _, e := range entries {
+		sg, err := ledger.Decode(e.Event)
+		if err != nil {
+			c.tb.Fatal(err)
+		}
+		switch sg.Event.Kind.(type) {
+		case *ledger.DeviceEnrolled, *ledger.DeviceRevoked:
+		default:
+			n++
+		}
+	}
+	return n
 }

@@ -2,6 +2,7 @@ package server
 
 import (
 	"bytes"
+	"cmp"
 	"context"
 	"crypto/ed25519"
 	"crypto/rand"
@@ -62,6 +63,8 @@ type Server struct {
 	projects map[string]*project
 	keys     sync.Map // device id -> ed25519.PublicKey
 	limits   *limiter
+	self     ownState     // the server's own signing identity
+	requests requestCodec // see RequestCodec
 }
 
 // project is the server's state of one project's ledger. A push decides
@@ -182,7 +185,10 @@ func (s *Server) AddMember(ctx context.Context, project, user string, role Role)
 	if _, err := s.opts.Store.Head(ctx, project); err != nil {
 		return err
 	}
-	return s.opts.Store.SetMember(ctx, project, user, role)
+	if err := s.opts.Store.SetMember(ctx, project, user, role); err != nil {
+		return err
+	}
+	return s.IntroduceDevices(ctx, project, user)
 }
 
 // Bootstrap creates the first administrator of an empty server and returns
@@ -206,8 +212,14 @@ func (s *Server) Bootstrap(ctx context.Context, name string) (user, code string,
 // IssueEnrollmentCode returns a one-time code that enrols one device for
 // user, valid for the server's code lifetime.
 func (s *Server) IssueEnrollmentCode(ctx context.Context, user string) (string, time.Time, error) {
+	return s.issueCode(ctx, user, s.opts.CodeLifetime)
+}
+
+// issueCode returns a one-time code that enrols one device for user, valid
+// for life.
+func (s *Server) issueCode(ctx context.Context, user string, life time.Duration) (string, time.Time, error) {
 	code := s.secret()
-	exp := s.opts.Now().Add(s.opts.CodeLifetime)
+	exp := s.opts.Now().Add(life)
 	if err := s.opts.Store.AddEnrollmentCode(ctx, hash(code), user, exp); err != nil {
 		return "", time.Time{}, err
 	}
@@ -231,6 +243,13 @@ func (a *adminService) EnrollDevice(ctx context.Context, req *pb.EnrollDeviceReq
 		if errors.Is(err, ErrCodeInvalid) {
 			return nil, status.Error(codes.Unauthenticated, "code: the enrolment code is unknown, already used or expired")
 		}
+		if errors.Is(err, ErrDeviceExists) {
+			return nil, status.Errorf(codes.AlreadyExists, "device_id: device %s is enrolled already; a device enrols again under a new id and key", req.GetDeviceId())
+		}
+		return nil, s.internal(ctx, "enrol", err)
+	}
+	cert, err := s.introduceDevice(ctx, d, s.opts.Now())
+	if err != nil {
 		return nil, s.internal(ctx, "enrol", err)
 	}
 	s.log.InfoContext(ctx, "device enrolled", "device", d.ID, "user", d.UserID)
@@ -238,7 +257,7 @@ func (a *adminService) EnrollDevice(ctx context.Context, req *pb.EnrollDeviceReq
 	if err != nil {
 		return nil, s.internal(ctx, "enrol", err)
 	}
-	return &pb.EnrollDeviceResponse{Token: token, UserId: d.UserID, ProjectIds: projects}, nil
+	return &pb.EnrollDeviceResponse{Token: token, UserId: d.UserID, ProjectIds: projects, Certificate: cert.Proto()}, nil
 }
 
 // internal logs err and returns a generic Internal status.
@@ -258,6 +277,7 @@ func DeviceFrom(ctx context.Context) (Device, bool) {
 // unauthenticated lists the methods callable without a token.
 var unauthenticated = map[string]bool{
 	pb.AdminService_EnrollDevice_FullMethodName: true,
+	pb.AdminService_ResumeDevice_FullMethodName: true,
 	"/grpc.health.v1.Health/Check":              true,
 	"/grpc.health.v1.Health/Watch":              true,
 }
@@ -291,8 +311,12 @@ func (s *Server) authenticate(ctx context.Context, method string) (context.Conte
 	return context.WithValue(ctx, deviceKey{}, d), nil
 }
 
-// UnaryInterceptor authenticates unary calls.
+// UnaryInterceptor refuses a request RequestCodec could not decode, and
+// authenticates unary calls.
 func (s *Server) UnaryInterceptor(ctx context.Context, req any, info *grpc.UnaryServerInfo, h grpc.UnaryHandler) (any, error) {
+	if err := s.requests.refuse(req); err != nil {
+		return nil, err
+	}
 	ctx, err := s.authenticate(ctx, info.FullMethod)
 	if err != nil {
 		return nil, err
@@ -307,13 +331,14 @@ type authedStream struct {
 
 func (a authedStream) Context() context.Context { return a.ctx }
 
-// StreamInterceptor authenticates streaming calls.
+// StreamInterceptor authenticates streaming calls, and refuses a request
+// RequestCodec could not decode.
 func (s *Server) StreamInterceptor(srv any, ss grpc.ServerStream, info *grpc.StreamServerInfo, h grpc.StreamHandler) error {
 	ctx, err := s.authenticate(ss.Context(), info.FullMethod)
 	if err != nil {
 		return err
 	}
-	return h(srv, authedStream{ss, ctx})
+	return h(srv, authedStream{s.requests.stream(ss), ctx})
 }
 
 // lockProject returns a project's state with its mu held, loading it from
@@ -436,7 +461,13 @@ type decoded struct {
 // more it holds, and concurrent pushes keep the cores busy anyway.
 func (s *Server) verifyAll(ctx context.Context, events []*pb.Event) []decoded {
 	out := make([]decoded, len(events))
-	keys := func(dev string) (ed25519.PublicKey, bool) { return s.key(ctx, dev) }
+	introduced := s.introducedKeys(ctx, events)
+	keys := func(dev string) (ed25519.PublicKey, bool) {
+		if k, ok := introduced[dev]; ok {
+			return k, true
+		}
+		return s.key(ctx, dev)
+	}
 	workers := min(runtime.GOMAXPROCS(0), max(1, len(events)/minVerifyPart))
 	per := (len(events) + workers - 1) / workers
 	var wg sync.WaitGroup
@@ -483,11 +514,15 @@ func (s *Server) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushRespons
 	if n := len(req.GetEvents()); n > s.opts.MaxBatch {
 		return nil, status.Errorf(codes.ResourceExhausted, "events: a batch holds at most %d events, not %d", s.opts.MaxBatch, n)
 	}
-	dev, err := s.requireMember(ctx, req.GetProjectId())
-	if err != nil {
-		return nil, err
+	dev, own := DeviceFrom(ctx)
+	own = own && s.isOwnDevice(dev.ID) // the server's own entries: no membership, no rate limit
+	if !own {
+		var err error
+		if dev, err = s.requireMember(ctx, req.GetProjectId()); err != nil {
+			return nil, err
+		}
 	}
-	if !s.limits.allow(dev.ID, s.opts.Now()) {
+	if !own && !s.limits.allow(dev.ID, s.opts.Now()) {
 		return nil, status.Errorf(codes.ResourceExhausted, "rate: device %s pushes faster than %.0f batches a second; slow down", dev.ID, s.opts.PushRate)
 	}
 	now := s.opts.Now()
@@ -527,6 +562,7 @@ func (s *Server) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushRespons
 		}
 		return nil, s.internal(ctx, "append", err)
 	}
+	s.deviceEffects(ctx, rows)
 	s.log.InfoContext(ctx, "push", "project", req.GetProjectId(), "events", len(items), "accepted", len(rows), "head", resp.GetHead().GetSequence())
 	return resp, nil
 }
@@ -573,11 +609,13 @@ func (s *Server) decide(ctx context.Context, p *project, req *pb.PushRequest, it
 			resp.Outcomes = append(resp.Outcomes, &pb.PushOutcome{EventId: id, Status: pb.PushStatus_PUSH_STATUS_ALREADY_PRESENT, Sequence: seq})
 			continue
 		}
-		if taken := p.view.Claimed(&e); taken != nil {
-			resp.Outcomes = append(resp.Outcomes, rejected(id, taken))
-			continue
+		deny, err := s.checkOwnEntry(ctx, e)
+		if err == nil && deny == nil && !isDeviceEntry(e.Kind) {
+			deny, err = auth.check(e)
 		}
-		deny, err := auth.check(e)
+		if err == nil && deny == nil {
+			deny = cmp.Or(p.view.SignedAfterRevocation(&e), p.view.Claimed(&e))
+		}
 		if err != nil {
 			p.unapply(rows)
 			return nil, head, nil, s.internal(ctx, "authorize", err)

@@ -55,12 +55,48 @@ type Store interface {
 	ProjectsOf(ctx context.Context, user string) ([]string, error)
 	// AddEnrollmentCode stores the hash of a one-time code for a user's device.
 	AddEnrollmentCode(ctx context.Context, codeHash []byte, user string, expires time.Time) error
-	// Enroll uses up a code and registers the device with its token's hash.
+	// Enroll uses up a code and registers the device with its token's hash;
+	// ErrDeviceExists when the device id is enrolled already.
 	Enroll(ctx context.Context, codeHash []byte, d Device, tokenHash []byte, now time.Time) (Device, error)
 	// DeviceByToken returns the device a token's hash belongs to.
 	DeviceByToken(ctx context.Context, tokenHash []byte) (Device, error)
 	// Device returns a device by id.
 	Device(ctx context.Context, id string) (Device, error)
+
+	// Invite records a pending invitation of inv.User to inv.Project or,
+	// when one is pending already, gives it inv's role, inviter and time;
+	// it returns the pending invitation's id.
+	Invite(ctx context.Context, inv Invitation) (string, error)
+	// Invitation returns a pending invitation by id, or ErrNoInvitation.
+	Invitation(ctx context.Context, id string) (Invitation, error)
+	// Invitations lists a user's pending invitations, oldest first, with
+	// the names of their projects and inviters.
+	Invitations(ctx context.Context, user string) ([]Invitation, error)
+	// ResolveInvitation closes a pending invitation: accepted, it makes the
+	// user a member with the invitation's role in the same transaction. It
+	// returns ErrNoInvitation when the invitation is not pending.
+	ResolveInvitation(ctx context.Context, id string, accept bool, now time.Time) (Invitation, error)
+	// DropEnrollmentCodes voids a user's unused enrolment codes.
+	DropEnrollmentCodes(ctx context.Context, user string) error
+
+	// ServerIdentity returns the server's own signing identity, storing
+	// fresh() (with a user and a device row for it, which CountUsers does not
+	// count) when there is none yet.
+	ServerIdentity(ctx context.Context, fresh func() Identity) (Identity, error)
+	// RegisterDevice adds a device the ledger or a certificate vouches for
+	// (after a restore from an older copy), and its user when missing. It
+	// returns false, changing nothing, when the device is known already.
+	RegisterDevice(ctx context.Context, d Device, userName string, now time.Time) (bool, error)
+	// SetToken replaces a device's token hash.
+	SetToken(ctx context.Context, device string, tokenHash []byte) error
+}
+
+// Identity is the server's own signing identity: a device of its own, with
+// a user of its own, whose key signs the entries the server makes.
+type Identity struct {
+	DeviceID string
+	UserID   string
+	Key      ed25519.PrivateKey
 }
 
 // Row is one event appended to a ledger, with its place in the chain.
@@ -109,4 +145,17 @@ type Device struct {
 	PublicKey ed25519.PublicKey
 	TokenHash []byte // SHA-256 of the bearer token
 	Revoked   bool
+}
+
+// Invitation is an invitation of an existing user to a project, made by
+// one of its administrators; the user becomes a member only by accepting.
+type Invitation struct {
+	ID          string
+	Project     string
+	ProjectName string // filled by Invitations
+	User        string
+	Role        Role
+	InvitedBy   string
+	InviterName string // filled by Invitations
+	Created     time.Time
 }

@@ -58,7 +58,7 @@ with. Each command prints one line per result, tab-separated, for scripts.`,
 				if err != nil {
 					return err
 				}
-				_, err = fmt.Fprintln(out, r.GetProjectId())
+				_, err = fmt.Fprintln(out, escape(r.GetProjectId()))
 				return err
 			})
 		},
@@ -79,7 +79,7 @@ with. Each command prints one line per result, tab-separated, for scripts.`,
 				if err != nil {
 					return err
 				}
-				_, err = fmt.Fprintln(out, resp.GetUserId())
+				_, err = fmt.Fprintln(out, escape(resp.GetUserId()))
 				return err
 			})
 		},
@@ -99,7 +99,7 @@ with. Each command prints one line per result, tab-separated, for scripts.`,
 					return err
 				}
 				for _, m := range r.GetMembers() {
-					fmt.Fprintf(out, "%s\t%s\t%s\n", m.GetUserId(), roleName(m.GetRole()), m.GetUserName())
+					fmt.Fprintf(out, "%s\t%s\t%s\n", escape(m.GetUserId()), roleName(m.GetRole()), escape(m.GetUserName()))
 				}
 				return nil
 			})
@@ -115,7 +115,7 @@ with. Each command prints one line per result, tab-separated, for scripts.`,
 				if err != nil {
 					return err
 				}
-				_, err = fmt.Fprintf(out, "%s\texpires %s\n", r.GetCode(), time.UnixMicro(r.GetExpiresMicros()).UTC().Format(time.RFC3339))
+				_, err = fmt.Fprintf(out, "%s\texpires %s\n", escape(r.GetCode()), time.UnixMicro(r.GetExpiresMicros()).UTC().Format(time.RFC3339))
 				return err
 			})
 		},
@@ -131,7 +131,7 @@ with. Each command prints one line per result, tab-separated, for scripts.`,
 				if err != nil {
 					return err
 				}
-				_, err = fmt.Fprintf(out, "revoked %s at %s\n", device, time.UnixMicro(r.GetRevokedMicros()).UTC().Format(time.RFC3339))
+				_, err = fmt.Fprintf(out, "revoked %s at %s\n", escape(device), time.UnixMicro(r.GetRevokedMicros()).UTC().Format(time.RFC3339))
 				return err
 			})
 		},
@@ -152,7 +152,7 @@ with. Each command prints one line per result, tab-separated, for scripts.`,
 					if d.GetRevoked() {
 						state = "revoked"
 					}
-					fmt.Fprintf(out, "%s\t%s\t%s\t%s\n", d.GetDeviceId(), d.GetUserId(), state, strings.TrimSpace(d.GetDeviceName()))
+					fmt.Fprintf(out, "%s\t%s\t%s\t%s\n", escape(d.GetDeviceId()), escape(d.GetUserId()), state, escape(strings.TrimSpace(d.GetDeviceName())))
 				}
 				return nil
 			})

@@ -19,10 +19,20 @@ import (
 // returns the address and the administrator's enrolment code.
 func startServer(t *testing.T) (addr, code string) {
 	t.Helper()
+	return startServerWith(t, nil)
+}
+
+// startServerWith is startServer with seed, when not nil, run on the data
+// directory after init and before serve.
+func startServerWith(t *testing.T, seed func(data string)) (addr, code string) {
+	t.Helper()
 	data := t.TempDir()
 	var out strings.Builder
 	if err := daemon.Run(context.Background(), []string{"init", "--data", data, "--admin", "Rosa"}, &out, io.Discard); err != nil {
 		t.Fatal(err)
+	}
+	if seed != nil {
+		seed(data)
 	}
 	for _, l := range strings.Split(out.String(), "\n") {
 		if c, ok := strings.CutPrefix(l, "enrolment code: "); ok {

@@ -2,10 +2,13 @@ package cli
 
 import (
 	"context"
+	"errors"
 	"io"
 	"regexp"
 
 	"github.com/spf13/cobra"
+
+	"tamp/client"
 )
 
 // Run executes the tamp command line with args (without the program name),
@@ -22,18 +25,47 @@ func Run(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 var rpcPrefix = regexp.MustCompile(`rpc error: code = (\w+) desc = `)
 
 // plain rewrites gRPC's "rpc error: code = X desc = " into words a person
-// reads: the server's message, then its code in brackets. The original
-// error stays reachable for errors.Is.
+// reads: the server's message, then its code in brackets. It escapes
+// control characters (the message may quote what a user or a server wrote)
+// and says what to do about a server certificate that failed verification.
+// The original error stays reachable for errors.Is.
 func plain(err error) error {
 	if err == nil {
 		return nil
 	}
 	msg := err.Error()
-	m := rpcPrefix.FindStringSubmatch(msg)
-	if m == nil {
+	if m := rpcPrefix.FindStringSubmatch(msg); m != nil {
+		msg = rpcPrefix.ReplaceAllString(msg, "") + " [" + m[1] + "]"
+	}
+	msg = escape(msg)
+	if advice := certificateAdvice(err); advice != "" {
+		msg += "\n" + advice
+	}
+	if msg == err.Error() {
 		return err
 	}
-	return &plainError{msg: rpcPrefix.ReplaceAllString(msg, "") + " [" + m[1] + "]", err: err}
+	return &plainError{msg: msg, err: err}
+}
+
+// certificateAdvice says what to do about a server certificate that failed
+// verification, or returns "" for any other error.
+func certificateAdvice(err error) string {
+	var ce *client.CertificateError
+	if !errors.As(err, &ce) {
+		return ""
+	}
+	switch ce.Problem {
+	case client.CertificateUnknownAuthority:
+		return "The server's certificate is not signed by an authority this device trusts. If the server uses its own\n" +
+			"certificate authority, give that authority's certificate with --ca FILE (tamp enroll keeps it for later commands)."
+	case client.CertificateNameMismatch:
+		return "The server's certificate is not issued for the address dialed. Give --server the name or address the\n" +
+			"certificate lists, or ask the server's operator for a certificate that lists this one."
+	case client.CertificateExpired:
+		return "The server's certificate has expired or is not valid yet. Check this device's date and time, or ask the\n" +
+			"server's operator to renew the certificate."
+	}
+	return "Ask the server's operator to check the server's certificate."
 }
 
 type plainError struct {

@@ -116,13 +116,13 @@ graded offline.`,
 				}
 			}
 			out := cmd.OutOrStdout()
-			fmt.Fprintf(out, "enrolled device %s for user %s\n", s.DeviceID(), s.User())
+			fmt.Fprintf(out, "enrolled device %s for user %s\n", escape(s.DeviceID()), escape(s.User()))
 			for _, p := range s.EnrolledProjects() {
 				rep, err := s.Sync(ctx, cc, p, client.SyncOptions{})
 				if err != nil {
-					return fmt.Errorf("pull project %s: %w", p, err)
+					return fmt.Errorf("pull project %s: %w", escape(p), err)
 				}
-				fmt.Fprintf(out, "project %s: %d entries pulled\n", p, rep.Pulled)
+				fmt.Fprintf(out, "project %s: %d entries pulled\n", escape(p), rep.Pulled)
 			}
 			return nil
 		},
@@ -156,14 +156,14 @@ func newSync() *cobra.Command {
 			}
 			for _, p := range projects {
 				rep, err := s.Sync(ctx, cc, p, client.SyncOptions{Progress: func(pr client.Progress) {
-					fmt.Fprintf(cmd.ErrOrStderr(), "\r%s: %s %d events, %d bytes   ", p, pr.Phase, pr.Events, pr.Bytes)
+					fmt.Fprintf(cmd.ErrOrStderr(), "\r%s: %s %d events, %d bytes   ", escape(p), pr.Phase, pr.Events, pr.Bytes)
 				}})
 				fmt.Fprintln(cmd.ErrOrStderr())
 				if err != nil {
-					return fmt.Errorf("project %s: %w", p, err)
+					return fmt.Errorf("project %s: %w", escape(p), err)
 				}
 				fmt.Fprintf(cmd.OutOrStdout(), "project %s: %d accepted, %d already there, %d waiting, %d rejected, %d pulled; verified to %d\n",
-					p, rep.Accepted, rep.AlreadyPresent, rep.Waiting, rep.Rejected, rep.Pulled, rep.Head.Seq)
+					escape(p), rep.Accepted, rep.AlreadyPresent, rep.Waiting, rep.Rejected, rep.Pulled, rep.Head.Seq)
 			}
 			return nil
 		},
@@ -187,7 +187,7 @@ func newStatus() *cobra.Command {
 			}
 			defer s.Close()
 			out := cmd.OutOrStdout()
-			fmt.Fprintf(out, "device %s, user %s\n", s.DeviceID(), s.User())
+			fmt.Fprintf(out, "device %s, user %s\n", escape(s.DeviceID()), escape(s.User()))
 			now := time.Now()
 			projects, err := s.KnownProjects(ctx)
 			if err != nil {
@@ -203,9 +203,9 @@ func newStatus() *cobra.Command {
 					last = st.LastSuccess.Local().Format(time.DateTime)
 				}
 				fmt.Fprintf(out, "project %s: %d pending (oldest %s ago), last sync %s, verified to %d\n",
-					p, st.Outbox.Pending, st.Outbox.Age(now).Round(time.Second), last, st.Verified.Seq)
+					escape(p), st.Outbox.Pending, st.Outbox.Age(now).Round(time.Second), last, st.Verified.Seq)
 				if st.LastError != "" {
-					fmt.Fprintf(out, "  last error: %s\n", st.LastError)
+					fmt.Fprintf(out, "  last error: %s\n", escape(st.LastError))
 				}
 			}
 			rs, err := s.Rejected(ctx)
@@ -213,7 +213,7 @@ func newStatus() *cobra.Command {
 				return err
 			}
 			for _, r := range rs {
-				fmt.Fprintf(out, "rejected %s %s %s: %s (%s)\n", r.EventID, r.Kind, r.RecordID, r.Message, r.Reason)
+				fmt.Fprintf(out, "rejected %s %s %s: %s (%s)\n", escape(r.EventID), escape(r.Kind), escape(r.RecordID), escape(r.Message), escape(r.Reason))
 			}
 			return nil
 		},

@@ -36,7 +36,7 @@ func newExport() *cobra.Command {
 			if err != nil {
 				return err
 			}
-			_, err = fmt.Fprintf(cmd.OutOrStdout(), "%d events written to %s\n", n, out)
+			_, err = fmt.Fprintf(cmd.OutOrStdout(), "%d events written to %s\n", n, escape(out))
 			return err
 		},
 	}
@@ -66,7 +66,7 @@ can compare.`,
 				return err
 			}
 			_, err = fmt.Fprintf(cmd.OutOrStdout(), "ok: project %s, %d events, %d tests; head %d %s\n",
-				rep.Project, rep.Events, rep.Tests, rep.Head.Seq, rep.Head.Hash)
+				escape(rep.Project), rep.Events, rep.Tests, rep.Head.Seq, rep.Head.Hash)
 			return err
 		},
 	}

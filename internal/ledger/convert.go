@@ -15,8 +15,9 @@ import (
 // ToProto converts an event to its protobuf body.
 func ToProto(e Event) (*pb.EventBody, error) {
 	b := &pb.EventBody{
-		EventId: e.ID, ProjectId: e.Project, AuthorId: e.Author, DeviceId: e.Device, DeviceSeq: e.DeviceSeq,
+		EventId: e.ID, ProjectId: e.Project, AuthorId: e.Author, DeviceId: e.Device, DeviceSeq: e.DeviceSeq, PrevDeviceSeq: e.PrevDeviceSeq,
 		Hlc: &pb.HybridTime{WallMicros: e.HLC.Wall, Logical: e.HLC.Logical}, DeviceTimeMicros: e.DeviceTime.UnixMicro(),
+		ResignedFromDeviceId: e.ResignedFrom,
 	}
 	switch k := e.Kind.(type) {
 	case *ProjectSetUp:
@@ -82,6 +83,12 @@ func ToProto(e Event) (*pb.EventBody, error) {
 		}}
 	case *ExceptionAccepted:
 		b.Kind = &pb.EventBody_ExceptionAccepted{ExceptionAccepted: &pb.ExceptionAccepted{TestId: k.TestID, Revision: k.Revision, Reason: k.Reason}}
+	case *DeviceEnrolled:
+		b.Kind = &pb.EventBody_DeviceEnrolled{DeviceEnrolled: &pb.DeviceEnrolled{DeviceId: k.DeviceID, UserId: k.UserID, PublicKey: k.PublicKey,
+			DeviceName: k.Name, UserName: k.UserName, EnrolledMicros: k.Enrolled.UnixMicro()}}
+	case *DeviceRevoked:
+		b.Kind = &pb.EventBody_DeviceRevoked{DeviceRevoked: &pb.DeviceRevoked{DeviceId: k.DeviceID, EffectiveMicros: k.Effective.UnixMicro(),
+			RevokedBy: k.RevokedBy, Reason: k.Reason}}
 	default:
 		return nil, fmt.Errorf("ledger: encode event %s: %w", e.ID, reject(UnknownKind, "kind", fmt.Sprintf("unknown event kind %T", e.Kind)))
 	}
@@ -93,7 +100,8 @@ func ToProto(e Event) (*pb.EventBody, error) {
 func FromProto(b *pb.EventBody) (Event, error) {
 	e := Event{
 		ID: b.GetEventId(), Project: b.GetProjectId(), Author: b.GetAuthorId(), Device: b.GetDeviceId(), DeviceSeq: b.GetDeviceSeq(),
-		HLC: HLC{Wall: b.GetHlc().GetWallMicros(), Logical: b.GetHlc().GetLogical()}, DeviceTime: time.UnixMicro(b.GetDeviceTimeMicros()).UTC(),
+		PrevDeviceSeq: b.GetPrevDeviceSeq(), HLC: HLC{Wall: b.GetHlc().GetWallMicros(), Logical: b.GetHlc().GetLogical()}, DeviceTime: time.UnixMicro(b.GetDeviceTimeMicros()).UTC(),
+		ResignedFrom: b.GetResignedFromDeviceId(),
 	}
 	switch k := b.GetKind().(type) {
 	case *pb.EventBody_ProjectSetUp:
@@ -160,6 +168,14 @@ func FromProto(b *pb.EventBody) (Event, error) {
 	case *pb.EventBody_ExceptionAccepted:
 		m := k.ExceptionAccepted
 		e.Kind = &ExceptionAccepted{TestID: m.GetTestId(), Revision: m.GetRevision(), Reason: m.GetReason()}
+	case *pb.EventBody_DeviceEnrolled:
+		m := k.DeviceEnrolled
+		e.Kind = &DeviceEnrolled{DeviceID: m.GetDeviceId(), UserID: m.GetUserId(), PublicKey: m.GetPublicKey(), Name: m.GetDeviceName(),
+			UserName: m.GetUserName(), Enrolled: time.UnixMicro(m.GetEnrolledMicros()).UTC()}
+	case *pb.EventBody_DeviceRevoked:
+		m := k.DeviceRevoked
+		e.Kind = &DeviceRevoked{DeviceID: m.GetDeviceId(), Effective: time.UnixMicro(m.GetEffectiveMicros()).UTC(), RevokedBy: m.GetRevokedBy(),
+			Reason: m.GetReason()}
 	default:
 		return Event{}, reject(UnknownKind, "kind", "the event holds no kind this version of tamp knows")
 	}

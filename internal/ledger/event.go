@@ -11,21 +11,27 @@ import (
 // Event is a decoded ledger event: who made which entry, when, on which
 // project. Its Kind is one of the pointer types of this file.
 type Event struct {
-	ID         string // UUIDv7
-	Project    string // project UUID
-	Author     string // user id
-	Device     string // device id
-	DeviceSeq  uint64 // the device's own sequence, from 1
-	HLC        HLC
-	DeviceTime time.Time // the device's wall clock, UTC, microsecond precision
-	Kind       Kind
+	ID        string // UUIDv7
+	Project   string // project UUID
+	Author    string // user id
+	Device    string // device id
+	DeviceSeq uint64 // the device's own sequence, from 1
+	// PrevDeviceSeq is the DeviceSeq of the device's previous event in the
+	// same project, 0 for its first: a server lacking it asks for it.
+	PrevDeviceSeq uint64
+	HLC           HLC
+	DeviceTime    time.Time // the device's wall clock, UTC, microsecond precision
+	// ResignedFrom is the device that first signed the entry, when its user
+	// re-enrolled with a new key before the entry reached the server.
+	ResignedFrom string
+	Kind         Kind
 }
 
 // Kind is the payload of an event: *ProjectSetUp, *SpecDefined,
 // *ReferenceAdded, *EquipmentRegistered, *StandardCountRecorded,
 // *MoistureCorrectionSet, *BorrowSourceMeasured, *LiftPlacementRecorded,
-// *HaulRecorded, *TestRecorded, *TestCorrected, *TestVoided, *TestReviewed or
-// *ExceptionAccepted.
+// *HaulRecorded, *TestRecorded, *TestCorrected, *TestVoided, *TestReviewed,
+// *ExceptionAccepted, *DeviceEnrolled or *DeviceRevoked.
 type Kind interface {
 	// KindName is the kind's name in snake case, as reports show it.
 	KindName() string
@@ -254,6 +260,8 @@ type ExceptionAccepted struct {
 }
 
 func (*ExceptionAccepted) KindName() string     { return "exception_accepted" }
+func (*DeviceEnrolled) KindName() string        { return "device_enrolled" }
+func (*DeviceRevoked) KindName() string         { return "device_revoked" }
 func (*ProjectSetUp) KindName() string          { return "project_set_up" }
 func (*SpecDefined) KindName() string           { return "spec_defined" }
 func (*ReferenceAdded) KindName() string        { return "reference_added" }
@@ -267,3 +275,26 @@ func (*TestRecorded) KindName() string          { return "test_recorded" }
 func (*TestCorrected) KindName() string         { return "test_corrected" }
 func (*TestVoided) KindName() string            { return "test_voided" }
 func (*TestReviewed) KindName() string          { return "test_reviewed" }
+
+// DeviceEnrolled introduces an enrolled device's key to a project, so that
+// any replica can verify its entries and a server restored from an older
+// copy learns the key again from the devices holding this entry. Only the
+// server makes it, signed with its own key.
+type DeviceEnrolled struct {
+	DeviceID  string
+	UserID    string
+	PublicKey []byte // Ed25519
+	Name      string
+	UserName  string
+	Enrolled  time.Time
+}
+
+// DeviceRevoked revokes a device's key from Effective on: entries the
+// device signed with a later hybrid time have no effect and are refused on
+// push, wherever they come from. Only the server makes it.
+type DeviceRevoked struct {
+	DeviceID  string
+	Effective time.Time
+	RevokedBy string
+	Reason    string
+}

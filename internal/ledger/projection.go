@@ -75,6 +75,10 @@ type Projection struct {
 	placements  map[string]*Placement
 	hauls       map[string]*Haul
 	tests       map[string]*Test
+	devices     map[string]*Device
+	// revokedOut holds the events of revoked devices signed after their
+	// revocation: held, for the chain, but without effect.
+	revokedOut map[string]bool
 }
 
 // NewProjection returns an empty projection of a project.
@@ -84,7 +88,7 @@ func NewProjection(project string) *Projection {
 		deps: map[string]map[string]bool{}, retests: map[string]map[string]bool{},
 		specs: map[string]*Spec{}, refs: map[string]*Reference{}, equipment: map[string]*Equipment{},
 		corrections: map[string]*Correction{}, borrow: map[string]*BorrowSource{}, placements: map[string]*Placement{},
-		hauls: map[string]*Haul{}, tests: map[string]*Test{},
+		hauls: map[string]*Haul{}, tests: map[string]*Test{}, devices: map[string]*Device{}, revokedOut: map[string]bool{},
 	}
 }
 
@@ -135,6 +139,10 @@ func (p *Projection) apply(s Signed, validate bool) (Outcome, error) {
 	held := s
 	p.events[e.ID] = &held
 	e = &held.Event
+	if p.SignedAfterRevocation(e) != nil {
+		p.revokedOut[e.ID] = true
+		return Outcome{Status: Applied}, nil
+	}
 	key := RecordID(e.Kind)
 	p.byRecord[key] = append(p.byRecord[key], e)
 	if tr, ok := e.Kind.(*TestRecorded); ok && tr.RetestOf != "" {
@@ -181,6 +189,10 @@ func RecordID(k Kind) string {
 		return k.TestID
 	case *ExceptionAccepted:
 		return k.TestID
+	case *DeviceEnrolled:
+		return k.DeviceID
+	case *DeviceRevoked:
+		return k.DeviceID
 	}
 	return "" // the project set-up
 }
@@ -319,6 +331,12 @@ func (p *Projection) recompute(key string, kind Kind) {
 		p.placements = setOrDelete(p.placements, key, buildPlacement(evs))
 	case *HaulRecorded:
 		p.hauls = setOrDelete(p.hauls, key, buildHaul(evs))
+	case *DeviceEnrolled, *DeviceRevoked:
+		before := p.devices[key].revokedAt()
+		p.devices = setOrDelete(p.devices, key, buildDevice(evs))
+		if after := p.devices[key].revokedAt(); !after.Equal(before) {
+			p.sweepRevoked(key)
+		}
 	}
 	for dep := range p.deps[key] {
 		p.recomputeTest(dep, true)

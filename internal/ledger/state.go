@@ -266,6 +266,7 @@ type Snapshot struct {
 	Placements   []*Placement
 	Hauls        []*Haul
 	Tests        []*Test
+	Devices      []*Device `json:",omitempty"`
 }
 
 func sorted[T any](m map[string]*T) []*T {
@@ -286,7 +287,7 @@ func sorted[T any](m map[string]*T) []*T {
 func (p *Projection) Snapshot() Snapshot {
 	return Snapshot{SetUp: p.setup, Specs: sorted(p.specs), References: sorted(p.refs), Equipment: sorted(p.equipment),
 		Corrections: sorted(p.corrections), BorrowSource: sorted(p.borrow), Placements: sorted(p.placements),
-		Hauls: sorted(p.hauls), Tests: sorted(p.tests)}
+		Hauls: sorted(p.hauls), Tests: sorted(p.tests), Devices: sorted(p.devices)}
 }
 
 // Digest returns a SHA-256 of the projection's state (its Snapshot as JSON).

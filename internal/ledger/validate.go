@@ -1,6 +1,7 @@
 package ledger
 
 import (
+	"crypto/ed25519"
 	"errors"
 	"fmt"
 	"strings"
@@ -31,6 +32,8 @@ func Validate(e Event) error {
 		return reject(InvalidField, "device_id", "is required")
 	case e.DeviceSeq == 0:
 		return reject(InvalidField, "device_seq", "must count from 1")
+	case e.PrevDeviceSeq >= e.DeviceSeq:
+		return reject(InvalidField, "prev_device_seq", "must be below device_seq: it names the device's previous entry in the project")
 	case e.HLC.Wall <= 0:
 		return reject(InvalidField, "hlc", "must be set")
 	}
@@ -87,6 +90,22 @@ func Validate(e Event) error {
 		return nil
 	case *ExceptionAccepted:
 		return firstErr(checkID("test_id", k.TestID, false), checkID("revision", k.Revision, true), required("reason", k.Reason))
+	case *DeviceEnrolled:
+		if err := firstErr(checkID("device_id", k.DeviceID, false), required("user_id", k.UserID)); err != nil {
+			return err
+		}
+		if len(k.PublicKey) != ed25519.PublicKeySize {
+			return reject(InvalidField, "public_key", "must be a 32-byte Ed25519 key")
+		}
+		return nil
+	case *DeviceRevoked:
+		if err := checkID("device_id", k.DeviceID, false); err != nil {
+			return err
+		}
+		if k.Effective.UnixMicro() <= 0 {
+			return reject(InvalidField, "effective_micros", "is required")
+		}
+		return nil
 	case nil:
 		return reject(UnknownKind, "kind", "the event holds no kind")
 	}

@@ -5,6 +5,8 @@ package sqlitestore
 
 import (
 	"context"
+	"crypto/ed25519"
+	"crypto/sha256"
 	"database/sql"
 	"embed"
 	"errors"
@@ -271,7 +273,7 @@ func (s *Store) User(ctx context.Context, id string) (server.User, error) {
 
 func (s *Store) CountUsers(ctx context.Context) (int, error) {
 	var n int
-	if err := s.db.Reader().QueryRowContext(ctx, `SELECT COUNT(*) FROM users`).Scan(&n); err != nil {
+	if err := s.db.Reader().QueryRowContext(ctx, `SELECT COUNT(*) FROM users WHERE user_id NOT IN (SELECT user_id FROM server_identity)`).Scan(&n); err != nil {
 		return 0, fmt.Errorf("sqlitestore: count users: %w", err)
 	}
 	return n, nil
@@ -387,6 +389,13 @@ func (s *Store) Enroll(ctx context.Context, codeHash []byte, d server.Device, to
 		if err := tx.QueryRowContext(ctx, `SELECT user_id FROM enrollment_codes WHERE code_hash = ?`, codeHash).Scan(&d.UserID); err != nil {
 			return err
 		}
+		var n int
+		if err := tx.QueryRowContext(ctx, `SELECT COUNT(*) FROM devices WHERE device_id = ?`, d.ID).Scan(&n); err != nil {
+			return err
+		}
+		if n > 0 {
+			return server.ErrDeviceExists
+		}
 		_, err = tx.ExecContext(ctx, `INSERT INTO devices (device_id, user_id, name, public_key, token_hash, enrolled_micros) VALUES (?, ?, ?, ?, ?, ?)`,
 			d.ID, d.UserID, d.Name, []byte(d.PublicKey), tokenHash, now.UnixMicro())
 		return err
@@ -419,4 +428,79 @@ func (s *Store) DeviceByToken(ctx context.Context, tokenHash []byte) (server.Dev
 
 func (s *Store) Device(ctx context.Context, id string) (server.Device, error) {
 	return s.device(ctx, "device_id = ?", id)
+}
+
+func (s *Store) ServerIdentity(ctx context.Context, fresh func() server.Identity) (server.Identity, error) {
+	var id server.Identity
+	err := s.db.Tx(ctx, func(tx *sql.Tx) error {
+		var seed []byte
+		err := tx.QueryRowContext(ctx, `SELECT device_id, user_id, private_key FROM server_identity WHERE id = 1`).Scan(&id.DeviceID, &id.UserID, &seed)
+		if err == nil {
+			id.Key = ed25519.NewKeyFromSeed(seed)
+			return nil
+		}
+		if !errors.Is(err, sql.ErrNoRows) {
+			return err
+		}
+		id = fresh()
+		now := time.Now().UnixMicro()
+		if _, err := tx.ExecContext(ctx, `INSERT INTO users (user_id, name, server_admin, created_micros) VALUES (?, 'tampd', 0, ?)`, id.UserID, now); err != nil {
+			return err
+		}
+		th := sha256.Sum256([]byte("no token: the server's own device " + id.DeviceID))
+		if _, err := tx.ExecContext(ctx, `INSERT INTO devices (device_id, user_id, name, public_key, token_hash, enrolled_micros) VALUES (?, ?, 'tampd', ?, ?, ?)`,
+			id.DeviceID, id.UserID, []byte(id.Key.Public().(ed25519.PublicKey)), th[:], now); err != nil {
+			return err
+		}
+		_, err = tx.ExecContext(ctx, `INSERT INTO server_identity (id, device_id, user_id, private_key) VALUES (1, ?, ?, ?)`, id.DeviceID, id.UserID, id.Key.Seed())
+		return err
+	})
+	if err != nil {
+		return server.Identity{}, fmt.Errorf("sqlitestore: server identity: %w", err)
+	}
+	return id, nil
+}
+
+func (s *Store) RegisterDevice(ctx context.Context, d server.Device, userName string, now time.Time) (bool, error) {
+	created := false
+	err := s.db.Tx(ctx, func(tx *sql.Tx) error {
+		var n int
+		if err := tx.QueryRowContext(ctx, `SELECT COUNT(*) FROM devices WHERE device_id = ?`, d.ID).Scan(&n); err != nil || n > 0 {
+			return err
+		}
+		if _, err := tx.ExecContext(ctx, `INSERT INTO users (user_id, name, server_admin, created_micros) VALUES (?, ?, 0, ?)
+			ON CONFLICT (user_id) DO NOTHING`, d.UserID, userName, now.UnixMicro()); err != nil {
+			return err
+		}
+		th := d.TokenHash
+		if len(th) == 0 { // no token until the device proves its key
+			h := sha256.Sum256([]byte("no token yet: " + d.ID))
+			th = h[:]
+		}
+		var revoked any
+		if d.Revoked {
+			revoked = now.UnixMicro()
+		}
+		if _, err := tx.ExecContext(ctx, `INSERT INTO devices (device_id, user_id, name, public_key, token_hash, enrolled_micros, revoked_micros)
+			VALUES (?, ?, ?, ?, ?, ?, ?)`, d.ID, d.UserID, d.Name, []byte(d.PublicKey), th, now.UnixMicro(), revoked); err != nil {
+			return err
+		}
+		created = true
+		return nil
+	})
+	if err != nil {
+		return false, fmt.Errorf("sqlitestore: register device %s: %w", d.ID, err)
+	}
+	return created, nil
+}
+
+func (s *Store) SetToken(ctx context.Context, device string, tokenHash []byte) error {
+	res, err := s.db.Writer().ExecContext(ctx, `UPDATE devices SET token_hash = ? WHERE device_id = ?`, tokenHash, device)
+	if err != nil {
+		return fmt.Errorf("sqlitestore: set token of %s: %w", device, err)
+	}
+	if n, _ := res.RowsAffected(); n == 0 {
+		return fmt.Errorf("sqlitestore: set token of %s: %w", device, server.ErrNoDevice)
+	}
+	return nil
 }

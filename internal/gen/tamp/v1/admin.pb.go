@@ -247,11 +247,14 @@ func (x *AddMemberRequest) GetRole() Role {
 	return Role_ROLE_UNSPECIFIED
 }
 
-// AddMemberResponse names the member added.
+// AddMemberResponse names the member added, or invited.
 type AddMemberResponse struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
 	// The user's id.
-	UserId        string `protobuf:"bytes,1,opt,name=user_id,json=userId,proto3" json:"user_id,omitempty"`
+	UserId string `protobuf:"bytes,1,opt,name=user_id,json=userId,proto3" json:"user_id,omitempty"`
+	// Set when the user was invited rather than added: they become a member
+	// when they accept the invitation.
+	InvitationId  string `protobuf:"bytes,2,opt,name=invitation_id,json=invitationId,proto3" json:"invitation_id,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -289,6 +292,13 @@ func (*AddMemberResponse) Descriptor() ([]byte, []int) {
 func (x *AddMemberResponse) GetUserId() string {
 	if x != nil {
 		return x.UserId
+	}
+	return ""
+}
+
+func (x *AddMemberResponse) GetInvitationId() string {
+	if x != nil {
+		return x.InvitationId
 	}
 	return ""
 }
@@ -454,7 +464,8 @@ type IssueEnrollmentCodeRequest struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
 	// The user whose device will be enrolled.
 	UserId string `protobuf:"bytes,1,opt,name=user_id,json=userId,proto3" json:"user_id,omitempty"`
-	// How long the code stays valid, seconds; zero means 24 hours.
+	// How long the code stays valid, seconds: 1 to 604800 (7 days); zero
+	// means the server's default (24 hours unless configured).
 	ValidSeconds  int64 `protobuf:"varint,2,opt,name=valid_seconds,json=validSeconds,proto3" json:"valid_seconds,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
@@ -641,7 +652,11 @@ type EnrollDeviceResponse struct {
 	UserId string `protobuf:"bytes,2,opt,name=user_id,json=userId,proto3" json:"user_id,omitempty"`
 	// The projects the user is a member of, whose reference data the device
 	// pulls next.
-	ProjectIds    []string `protobuf:"bytes,3,rep,name=project_ids,json=projectIds,proto3" json:"project_ids,omitempty"`
+	ProjectIds []string `protobuf:"bytes,3,rep,name=project_ids,json=projectIds,proto3" json:"project_ids,omitempty"`
+	// The device's enrolment certificate: a device_enrolled entry for no
+	// project, signed by the server's own key. The device keeps it to resume
+	// with a server restored from a copy older than the enrolment.
+	Certificate   *Event `protobuf:"bytes,4,opt,name=certificate,proto3" json:"certificate,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -697,6 +712,143 @@ func (x *EnrollDeviceResponse) GetProjectIds() []string {
 	return nil
 }
 
+func (x *EnrollDeviceResponse) GetCertificate() *Event {
+	if x != nil {
+		return x.Certificate
+	}
+	return nil
+}
+
+// ResumeDeviceRequest proves a device's enrolment to a server that lost it.
+type ResumeDeviceRequest struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The certificate the server gave at enrolment.
+	Certificate *Event `protobuf:"bytes,1,opt,name=certificate,proto3" json:"certificate,omitempty"`
+	// The device's clock, microseconds since 1970-01-01 UTC; it must be
+	// within minutes of the server's.
+	ProofMicros int64 `protobuf:"varint,2,opt,name=proof_micros,json=proofMicros,proto3" json:"proof_micros,omitempty"`
+	// Ed25519 signature by the device's key over "tamp.v1.ResumeDevice", a
+	// zero byte, the device id and proof_micros as 8 big-endian bytes.
+	Proof         []byte `protobuf:"bytes,3,opt,name=proof,proto3" json:"proof,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *ResumeDeviceRequest) Reset() {
+	*x = ResumeDeviceRequest{}
+	mi := &file_tamp_v1_admin_proto_msgTypes[11]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *ResumeDeviceRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*ResumeDeviceRequest) ProtoMessage() {}
+
+func (x *ResumeDeviceRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_admin_proto_msgTypes[11]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use ResumeDeviceRequest.ProtoReflect.Descriptor instead.
+func (*ResumeDeviceRequest) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_admin_proto_rawDescGZIP(), []int{11}
+}
+
+func (x *ResumeDeviceRequest) GetCertificate() *Event {
+	if x != nil {
+		return x.Certificate
+	}
+	return nil
+}
+
+func (x *ResumeDeviceRequest) GetProofMicros() int64 {
+	if x != nil {
+		return x.ProofMicros
+	}
+	return 0
+}
+
+func (x *ResumeDeviceRequest) GetProof() []byte {
+	if x != nil {
+		return x.Proof
+	}
+	return nil
+}
+
+// ResumeDeviceResponse is a resumed device's new token.
+type ResumeDeviceResponse struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The new bearer token; the server keeps only its hash.
+	Token string `protobuf:"bytes,1,opt,name=token,proto3" json:"token,omitempty"`
+	// The user the device is enrolled for.
+	UserId string `protobuf:"bytes,2,opt,name=user_id,json=userId,proto3" json:"user_id,omitempty"`
+	// The projects the user is a member of.
+	ProjectIds    []string `protobuf:"bytes,3,rep,name=project_ids,json=projectIds,proto3" json:"project_ids,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *ResumeDeviceResponse) Reset() {
+	*x = ResumeDeviceResponse{}
+	mi := &file_tamp_v1_admin_proto_msgTypes[12]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *ResumeDeviceResponse) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*ResumeDeviceResponse) ProtoMessage() {}
+
+func (x *ResumeDeviceResponse) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_admin_proto_msgTypes[12]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use ResumeDeviceResponse.ProtoReflect.Descriptor instead.
+func (*ResumeDeviceResponse) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_admin_proto_rawDescGZIP(), []int{12}
+}
+
+func (x *ResumeDeviceResponse) GetToken() string {
+	if x != nil {
+		return x.Token
+	}
+	return ""
+}
+
+func (x *ResumeDeviceResponse) GetUserId() string {
+	if x != nil {
+		return x.UserId
+	}
+	return ""
+}
+
+func (x *ResumeDeviceResponse) GetProjectIds() []string {
+	if x != nil {
+		return x.ProjectIds
+	}
+	return nil
+}
+
 // RevokeDeviceRequest revokes a device.
 type RevokeDeviceRequest struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
@@ -710,7 +862,7 @@ type RevokeDeviceRequest struct {
 
 func (x *RevokeDeviceRequest) Reset() {
 	*x = RevokeDeviceRequest{}
-	mi := &file_tamp_v1_admin_proto_msgTypes[11]
+	mi := &file_tamp_v1_admin_proto_msgTypes[13]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -722,7 +874,7 @@ func (x *RevokeDeviceRequest) String() string {
 func (*RevokeDeviceRequest) ProtoMessage() {}
 
 func (x *RevokeDeviceRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_admin_proto_msgTypes[11]
+	mi := &file_tamp_v1_admin_proto_msgTypes[13]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -735,7 +887,7 @@ func (x *RevokeDeviceRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use RevokeDeviceRequest.ProtoReflect.Descriptor instead.
 func (*RevokeDeviceRequest) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_admin_proto_rawDescGZIP(), []int{11}
+	return file_tamp_v1_admin_proto_rawDescGZIP(), []int{13}
 }
 
 func (x *RevokeDeviceRequest) GetDeviceId() string {
@@ -763,7 +915,7 @@ type RevokeDeviceResponse struct {
 
 func (x *RevokeDeviceResponse) Reset() {
 	*x = RevokeDeviceResponse{}
-	mi := &file_tamp_v1_admin_proto_msgTypes[12]
+	mi := &file_tamp_v1_admin_proto_msgTypes[14]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -775,7 +927,7 @@ func (x *RevokeDeviceResponse) String() string {
 func (*RevokeDeviceResponse) ProtoMessage() {}
 
 func (x *RevokeDeviceResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_admin_proto_msgTypes[12]
+	mi := &file_tamp_v1_admin_proto_msgTypes[14]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -788,7 +940,7 @@ func (x *RevokeDeviceResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use RevokeDeviceResponse.ProtoReflect.Descriptor instead.
 func (*RevokeDeviceResponse) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_admin_proto_rawDescGZIP(), []int{12}
+	return file_tamp_v1_admin_proto_rawDescGZIP(), []int{14}
 }
 
 func (x *RevokeDeviceResponse) GetRevokedMicros() int64 {
@@ -809,7 +961,7 @@ type ListDevicesRequest struct {
 
 func (x *ListDevicesRequest) Reset() {
 	*x = ListDevicesRequest{}
-	mi := &file_tamp_v1_admin_proto_msgTypes[13]
+	mi := &file_tamp_v1_admin_proto_msgTypes[15]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -821,7 +973,7 @@ func (x *ListDevicesRequest) String() string {
 func (*ListDevicesRequest) ProtoMessage() {}
 
 func (x *ListDevicesRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_admin_proto_msgTypes[13]
+	mi := &file_tamp_v1_admin_proto_msgTypes[15]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -834,7 +986,7 @@ func (x *ListDevicesRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use ListDevicesRequest.ProtoReflect.Descriptor instead.
 func (*ListDevicesRequest) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_admin_proto_rawDescGZIP(), []int{13}
+	return file_tamp_v1_admin_proto_rawDescGZIP(), []int{15}
 }
 
 func (x *ListDevicesRequest) GetUserId() string {
@@ -863,7 +1015,7 @@ type Device struct {
 
 func (x *Device) Reset() {
 	*x = Device{}
-	mi := &file_tamp_v1_admin_proto_msgTypes[14]
+	mi := &file_tamp_v1_admin_proto_msgTypes[16]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -875,7 +1027,7 @@ func (x *Device) String() string {
 func (*Device) ProtoMessage() {}
 
 func (x *Device) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_admin_proto_msgTypes[14]
+	mi := &file_tamp_v1_admin_proto_msgTypes[16]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -888,7 +1040,7 @@ func (x *Device) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use Device.ProtoReflect.Descriptor instead.
 func (*Device) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_admin_proto_rawDescGZIP(), []int{14}
+	return file_tamp_v1_admin_proto_rawDescGZIP(), []int{16}
 }
 
 func (x *Device) GetDeviceId() string {
@@ -937,7 +1089,7 @@ type ListDevicesResponse struct {
 
 func (x *ListDevicesResponse) Reset() {
 	*x = ListDevicesResponse{}
-	mi := &file_tamp_v1_admin_proto_msgTypes[15]
+	mi := &file_tamp_v1_admin_proto_msgTypes[17]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -949,7 +1101,7 @@ func (x *ListDevicesResponse) String() string {
 func (*ListDevicesResponse) ProtoMessage() {}
 
 func (x *ListDevicesResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_admin_proto_msgTypes[15]
+	mi := &file_tamp_v1_admin_proto_msgTypes[17]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -962,7 +1114,7 @@ func (x *ListDevicesResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use ListDevicesResponse.ProtoReflect.Descriptor instead.
 func (*ListDevicesResponse) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_admin_proto_rawDescGZIP(), []int{15}
+	return file_tamp_v1_admin_proto_rawDescGZIP(), []int{17}
 }
 
 func (x *ListDevicesResponse) GetDevices() []*Device {
@@ -972,11 +1124,378 @@ func (x *ListDevicesResponse) GetDevices() []*Device {
 	return nil
 }
 
+// ListInvitationsRequest asks for the calling user's pending invitations.
+type ListInvitationsRequest struct {
+	state         protoimpl.MessageState `protogen:"open.v1"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *ListInvitationsRequest) Reset() {
+	*x = ListInvitationsRequest{}
+	mi := &file_tamp_v1_admin_proto_msgTypes[18]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *ListInvitationsRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*ListInvitationsRequest) ProtoMessage() {}
+
+func (x *ListInvitationsRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_admin_proto_msgTypes[18]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use ListInvitationsRequest.ProtoReflect.Descriptor instead.
+func (*ListInvitationsRequest) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_admin_proto_rawDescGZIP(), []int{18}
+}
+
+// Invitation is a pending invitation of a user to a project.
+type Invitation struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The invitation's id.
+	InvitationId string `protobuf:"bytes,1,opt,name=invitation_id,json=invitationId,proto3" json:"invitation_id,omitempty"`
+	// The project.
+	ProjectId string `protobuf:"bytes,2,opt,name=project_id,json=projectId,proto3" json:"project_id,omitempty"`
+	// The project's name.
+	ProjectName string `protobuf:"bytes,3,opt,name=project_name,json=projectName,proto3" json:"project_name,omitempty"`
+	// The role offered.
+	Role Role `protobuf:"varint,4,opt,name=role,proto3,enum=tamp.v1.Role" json:"role,omitempty"`
+	// The user who invited, by id.
+	InvitedBy string `protobuf:"bytes,5,opt,name=invited_by,json=invitedBy,proto3" json:"invited_by,omitempty"`
+	// Display name of the user who invited.
+	InvitedByName string `protobuf:"bytes,6,opt,name=invited_by_name,json=invitedByName,proto3" json:"invited_by_name,omitempty"`
+	// When it was made, microseconds since 1970-01-01 UTC.
+	CreatedMicros int64 `protobuf:"varint,7,opt,name=created_micros,json=createdMicros,proto3" json:"created_micros,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *Invitation) Reset() {
+	*x = Invitation{}
+	mi := &file_tamp_v1_admin_proto_msgTypes[19]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *Invitation) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*Invitation) ProtoMessage() {}
+
+func (x *Invitation) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_admin_proto_msgTypes[19]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use Invitation.ProtoReflect.Descriptor instead.
+func (*Invitation) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_admin_proto_rawDescGZIP(), []int{19}
+}
+
+func (x *Invitation) GetInvitationId() string {
+	if x != nil {
+		return x.InvitationId
+	}
+	return ""
+}
+
+func (x *Invitation) GetProjectId() string {
+	if x != nil {
+		return x.ProjectId
+	}
+	return ""
+}
+
+func (x *Invitation) GetProjectName() string {
+	if x != nil {
+		return x.ProjectName
+	}
+	return ""
+}
+
+func (x *Invitation) GetRole() Role {
+	if x != nil {
+		return x.Role
+	}
+	return Role_ROLE_UNSPECIFIED
+}
+
+func (x *Invitation) GetInvitedBy() string {
+	if x != nil {
+		return x.InvitedBy
+	}
+	return ""
+}
+
+func (x *Invitation) GetInvitedByName() string {
+	if x != nil {
+		return x.InvitedByName
+	}
+	return ""
+}
+
+func (x *Invitation) GetCreatedMicros() int64 {
+	if x != nil {
+		return x.CreatedMicros
+	}
+	return 0
+}
+
+// ListInvitationsResponse lists pending invitations.
+type ListInvitationsResponse struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The invitations, oldest first.
+	Invitations   []*Invitation `protobuf:"bytes,1,rep,name=invitations,proto3" json:"invitations,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *ListInvitationsResponse) Reset() {
+	*x = ListInvitationsResponse{}
+	mi := &file_tamp_v1_admin_proto_msgTypes[20]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *ListInvitationsResponse) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*ListInvitationsResponse) ProtoMessage() {}
+
+func (x *ListInvitationsResponse) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_admin_proto_msgTypes[20]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use ListInvitationsResponse.ProtoReflect.Descriptor instead.
+func (*ListInvitationsResponse) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_admin_proto_rawDescGZIP(), []int{20}
+}
+
+func (x *ListInvitationsResponse) GetInvitations() []*Invitation {
+	if x != nil {
+		return x.Invitations
+	}
+	return nil
+}
+
+// AcceptInvitationRequest accepts an invitation.
+type AcceptInvitationRequest struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The invitation.
+	InvitationId  string `protobuf:"bytes,1,opt,name=invitation_id,json=invitationId,proto3" json:"invitation_id,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *AcceptInvitationRequest) Reset() {
+	*x = AcceptInvitationRequest{}
+	mi := &file_tamp_v1_admin_proto_msgTypes[21]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *AcceptInvitationRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*AcceptInvitationRequest) ProtoMessage() {}
+
+func (x *AcceptInvitationRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_admin_proto_msgTypes[21]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use AcceptInvitationRequest.ProtoReflect.Descriptor instead.
+func (*AcceptInvitationRequest) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_admin_proto_rawDescGZIP(), []int{21}
+}
+
+func (x *AcceptInvitationRequest) GetInvitationId() string {
+	if x != nil {
+		return x.InvitationId
+	}
+	return ""
+}
+
+// AcceptInvitationResponse names the membership taken up.
+type AcceptInvitationResponse struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The project the user is now a member of.
+	ProjectId string `protobuf:"bytes,1,opt,name=project_id,json=projectId,proto3" json:"project_id,omitempty"`
+	// The user's role on it.
+	Role          Role `protobuf:"varint,2,opt,name=role,proto3,enum=tamp.v1.Role" json:"role,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *AcceptInvitationResponse) Reset() {
+	*x = AcceptInvitationResponse{}
+	mi := &file_tamp_v1_admin_proto_msgTypes[22]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *AcceptInvitationResponse) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*AcceptInvitationResponse) ProtoMessage() {}
+
+func (x *AcceptInvitationResponse) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_admin_proto_msgTypes[22]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use AcceptInvitationResponse.ProtoReflect.Descriptor instead.
+func (*AcceptInvitationResponse) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_admin_proto_rawDescGZIP(), []int{22}
+}
+
+func (x *AcceptInvitationResponse) GetProjectId() string {
+	if x != nil {
+		return x.ProjectId
+	}
+	return ""
+}
+
+func (x *AcceptInvitationResponse) GetRole() Role {
+	if x != nil {
+		return x.Role
+	}
+	return Role_ROLE_UNSPECIFIED
+}
+
+// DeclineInvitationRequest refuses an invitation.
+type DeclineInvitationRequest struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The invitation.
+	InvitationId  string `protobuf:"bytes,1,opt,name=invitation_id,json=invitationId,proto3" json:"invitation_id,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *DeclineInvitationRequest) Reset() {
+	*x = DeclineInvitationRequest{}
+	mi := &file_tamp_v1_admin_proto_msgTypes[23]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *DeclineInvitationRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*DeclineInvitationRequest) ProtoMessage() {}
+
+func (x *DeclineInvitationRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_admin_proto_msgTypes[23]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use DeclineInvitationRequest.ProtoReflect.Descriptor instead.
+func (*DeclineInvitationRequest) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_admin_proto_rawDescGZIP(), []int{23}
+}
+
+func (x *DeclineInvitationRequest) GetInvitationId() string {
+	if x != nil {
+		return x.InvitationId
+	}
+	return ""
+}
+
+// DeclineInvitationResponse confirms a refusal.
+type DeclineInvitationResponse struct {
+	state         protoimpl.MessageState `protogen:"open.v1"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *DeclineInvitationResponse) Reset() {
+	*x = DeclineInvitationResponse{}
+	mi := &file_tamp_v1_admin_proto_msgTypes[24]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *DeclineInvitationResponse) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*DeclineInvitationResponse) ProtoMessage() {}
+
+func (x *DeclineInvitationResponse) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_admin_proto_msgTypes[24]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use DeclineInvitationResponse.ProtoReflect.Descriptor instead.
+func (*DeclineInvitationResponse) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_admin_proto_rawDescGZIP(), []int{24}
+}
+
 var File_tamp_v1_admin_proto protoreflect.FileDescriptor
 
 const file_tamp_v1_admin_proto_rawDesc = "" +
 	"\n" +
-	"\x13tamp/v1/admin.proto\x12\atamp.v1\"*\n" +
+	"\x13tamp/v1/admin.proto\x12\atamp.v1\x1a\x13tamp/v1/event.proto\"*\n" +
 	"\x14CreateProjectRequest\x12\x12\n" +
 	"\x04name\x18\x01 \x01(\tR\x04name\"6\n" +
 	"\x15CreateProjectResponse\x12\x1d\n" +
@@ -987,9 +1506,10 @@ const file_tamp_v1_admin_proto_rawDesc = "" +
 	"project_id\x18\x01 \x01(\tR\tprojectId\x12\x17\n" +
 	"\auser_id\x18\x02 \x01(\tR\x06userId\x12\x1b\n" +
 	"\tuser_name\x18\x03 \x01(\tR\buserName\x12!\n" +
-	"\x04role\x18\x04 \x01(\x0e2\r.tamp.v1.RoleR\x04role\",\n" +
+	"\x04role\x18\x04 \x01(\x0e2\r.tamp.v1.RoleR\x04role\"Q\n" +
 	"\x11AddMemberResponse\x12\x17\n" +
-	"\auser_id\x18\x01 \x01(\tR\x06userId\"3\n" +
+	"\auser_id\x18\x01 \x01(\tR\x06userId\x12#\n" +
+	"\rinvitation_id\x18\x02 \x01(\tR\finvitationId\"3\n" +
 	"\x12ListMembersRequest\x12\x1d\n" +
 	"\n" +
 	"project_id\x18\x01 \x01(\tR\tprojectId\"a\n" +
@@ -1011,8 +1531,18 @@ const file_tamp_v1_admin_proto_rawDesc = "" +
 	"\n" +
 	"public_key\x18\x03 \x01(\fR\tpublicKey\x12\x1f\n" +
 	"\vdevice_name\x18\x04 \x01(\tR\n" +
-	"deviceName\"f\n" +
+	"deviceName\"\x98\x01\n" +
 	"\x14EnrollDeviceResponse\x12\x14\n" +
+	"\x05token\x18\x01 \x01(\tR\x05token\x12\x17\n" +
+	"\auser_id\x18\x02 \x01(\tR\x06userId\x12\x1f\n" +
+	"\vproject_ids\x18\x03 \x03(\tR\n" +
+	"projectIds\x120\n" +
+	"\vcertificate\x18\x04 \x01(\v2\x0e.tamp.v1.EventR\vcertificate\"\x80\x01\n" +
+	"\x13ResumeDeviceRequest\x120\n" +
+	"\vcertificate\x18\x01 \x01(\v2\x0e.tamp.v1.EventR\vcertificate\x12!\n" +
+	"\fproof_micros\x18\x02 \x01(\x03R\vproofMicros\x12\x14\n" +
+	"\x05proof\x18\x03 \x01(\fR\x05proof\"f\n" +
+	"\x14ResumeDeviceResponse\x12\x14\n" +
 	"\x05token\x18\x01 \x01(\tR\x05token\x12\x17\n" +
 	"\auser_id\x18\x02 \x01(\tR\x06userId\x12\x1f\n" +
 	"\vproject_ids\x18\x03 \x03(\tR\n" +
@@ -1033,22 +1563,49 @@ const file_tamp_v1_admin_proto_rawDesc = "" +
 	"public_key\x18\x04 \x01(\fR\tpublicKey\x12\x18\n" +
 	"\arevoked\x18\x05 \x01(\bR\arevoked\"@\n" +
 	"\x13ListDevicesResponse\x12)\n" +
-	"\adevices\x18\x01 \x03(\v2\x0f.tamp.v1.DeviceR\adevices*^\n" +
+	"\adevices\x18\x01 \x03(\v2\x0f.tamp.v1.DeviceR\adevices\"\x18\n" +
+	"\x16ListInvitationsRequest\"\x84\x02\n" +
+	"\n" +
+	"Invitation\x12#\n" +
+	"\rinvitation_id\x18\x01 \x01(\tR\finvitationId\x12\x1d\n" +
+	"\n" +
+	"project_id\x18\x02 \x01(\tR\tprojectId\x12!\n" +
+	"\fproject_name\x18\x03 \x01(\tR\vprojectName\x12!\n" +
+	"\x04role\x18\x04 \x01(\x0e2\r.tamp.v1.RoleR\x04role\x12\x1d\n" +
+	"\n" +
+	"invited_by\x18\x05 \x01(\tR\tinvitedBy\x12&\n" +
+	"\x0finvited_by_name\x18\x06 \x01(\tR\rinvitedByName\x12%\n" +
+	"\x0ecreated_micros\x18\a \x01(\x03R\rcreatedMicros\"P\n" +
+	"\x17ListInvitationsResponse\x125\n" +
+	"\vinvitations\x18\x01 \x03(\v2\x13.tamp.v1.InvitationR\vinvitations\">\n" +
+	"\x17AcceptInvitationRequest\x12#\n" +
+	"\rinvitation_id\x18\x01 \x01(\tR\finvitationId\"\\\n" +
+	"\x18AcceptInvitationResponse\x12\x1d\n" +
+	"\n" +
+	"project_id\x18\x01 \x01(\tR\tprojectId\x12!\n" +
+	"\x04role\x18\x02 \x01(\x0e2\r.tamp.v1.RoleR\x04role\"?\n" +
+	"\x18DeclineInvitationRequest\x12#\n" +
+	"\rinvitation_id\x18\x01 \x01(\tR\finvitationId\"\x1b\n" +
+	"\x19DeclineInvitationResponse*^\n" +
 	"\x04Role\x12\x14\n" +
 	"\x10ROLE_UNSPECIFIED\x10\x00\x12\x12\n" +
 	"\x0eROLE_INSPECTOR\x10\x01\x12\x0f\n" +
 	"\vROLE_OFFICE\x10\x02\x12\v\n" +
 	"\aROLE_QA\x10\x03\x12\x0e\n" +
 	"\n" +
-	"ROLE_ADMIN\x10\x042\xb2\x04\n" +
+	"ROLE_ADMIN\x10\x042\x8a\a\n" +
 	"\fAdminService\x12N\n" +
 	"\rCreateProject\x12\x1d.tamp.v1.CreateProjectRequest\x1a\x1e.tamp.v1.CreateProjectResponse\x12B\n" +
 	"\tAddMember\x12\x19.tamp.v1.AddMemberRequest\x1a\x1a.tamp.v1.AddMemberResponse\x12H\n" +
 	"\vListMembers\x12\x1b.tamp.v1.ListMembersRequest\x1a\x1c.tamp.v1.ListMembersResponse\x12`\n" +
 	"\x13IssueEnrollmentCode\x12#.tamp.v1.IssueEnrollmentCodeRequest\x1a$.tamp.v1.IssueEnrollmentCodeResponse\x12K\n" +
 	"\fEnrollDevice\x12\x1c.tamp.v1.EnrollDeviceRequest\x1a\x1d.tamp.v1.EnrollDeviceResponse\x12K\n" +
+	"\fResumeDevice\x12\x1c.tamp.v1.ResumeDeviceRequest\x1a\x1d.tamp.v1.ResumeDeviceResponse\x12K\n" +
 	"\fRevokeDevice\x12\x1c.tamp.v1.RevokeDeviceRequest\x1a\x1d.tamp.v1.RevokeDeviceResponse\x12H\n" +
-	"\vListDevices\x12\x1b.tamp.v1.ListDevicesRequest\x1a\x1c.tamp.v1.ListDevicesResponseB\"Z tamp/internal/gen/tamp/v1;tampv1b\x06proto3"
+	"\vListDevices\x12\x1b.tamp.v1.ListDevicesRequest\x1a\x1c.tamp.v1.ListDevicesResponse\x12T\n" +
+	"\x0fListInvitations\x12\x1f.tamp.v1.ListInvitationsRequest\x1a .tamp.v1.ListInvitationsResponse\x12W\n" +
+	"\x10AcceptInvitation\x12 .tamp.v1.AcceptInvitationRequest\x1a!.tamp.v1.AcceptInvitationResponse\x12Z\n" +
+	"\x11DeclineInvitation\x12!.tamp.v1.DeclineInvitationRequest\x1a\".tamp.v1.DeclineInvitationResponseB\"Z tamp/internal/gen/tamp/v1;tampv1b\x06proto3"
 
 var (
 	file_tamp_v1_admin_proto_rawDescOnce sync.Once
@@ -1063,7 +1620,7 @@ func file_tamp_v1_admin_proto_rawDescGZIP() []byte {
 }
 
 var file_tamp_v1_admin_proto_enumTypes = make([]protoimpl.EnumInfo, 1)
-var file_tamp_v1_admin_proto_msgTypes = make([]protoimpl.MessageInfo, 16)
+var file_tamp_v1_admin_proto_msgTypes = make([]protoimpl.MessageInfo, 25)
 var file_tamp_v1_admin_proto_goTypes = []any{
 	(Role)(0),                           // 0: tamp.v1.Role
 	(*CreateProjectRequest)(nil),        // 1: tamp.v1.CreateProjectRequest
@@ -1077,36 +1634,59 @@ var file_tamp_v1_admin_proto_goTypes = []any{
 	(*IssueEnrollmentCodeResponse)(nil), // 9: tamp.v1.IssueEnrollmentCodeResponse
 	(*EnrollDeviceRequest)(nil),         // 10: tamp.v1.EnrollDeviceRequest
 	(*EnrollDeviceResponse)(nil),        // 11: tamp.v1.EnrollDeviceResponse
-	(*RevokeDeviceRequest)(nil),         // 12: tamp.v1.RevokeDeviceRequest
-	(*RevokeDeviceResponse)(nil),        // 13: tamp.v1.RevokeDeviceResponse
-	(*ListDevicesRequest)(nil),          // 14: tamp.v1.ListDevicesRequest
-	(*Device)(nil),                      // 15: tamp.v1.Device
-	(*ListDevicesResponse)(nil),         // 16: tamp.v1.ListDevicesResponse
+	(*ResumeDeviceRequest)(nil),         // 12: tamp.v1.ResumeDeviceRequest
+	(*ResumeDeviceResponse)(nil),        // 13: tamp.v1.ResumeDeviceResponse
+	(*RevokeDeviceRequest)(nil),         // 14: tamp.v1.RevokeDeviceRequest
+	(*RevokeDeviceResponse)(nil),        // 15: tamp.v1.RevokeDeviceResponse
+	(*ListDevicesRequest)(nil),          // 16: tamp.v1.ListDevicesRequest
+	(*Device)(nil),                      // 17: tamp.v1.Device
+	(*ListDevicesResponse)(nil),         // 18: tamp.v1.ListDevicesResponse
+	(*ListInvitationsRequest)(nil),      // 19: tamp.v1.ListInvitationsRequest
+	(*Invitation)(nil),                  // 20: tamp.v1.Invitation
+	(*ListInvitationsResponse)(nil),     // 21: tamp.v1.ListInvitationsResponse
+	(*AcceptInvitationRequest)(nil),     // 22: tamp.v1.AcceptInvitationRequest
+	(*AcceptInvitationResponse)(nil),    // 23: tamp.v1.AcceptInvitationResponse
+	(*DeclineInvitationRequest)(nil),    // 24: tamp.v1.DeclineInvitationRequest
+	(*DeclineInvitationResponse)(nil),   // 25: tamp.v1.DeclineInvitationResponse
+	(*Event)(nil),                       // 26: tamp.v1.Event
 }
 var file_tamp_v1_admin_proto_depIdxs = []int32{
 	0,  // 0: tamp.v1.AddMemberRequest.role:type_name -> tamp.v1.Role
 	0,  // 1: tamp.v1.Member.role:type_name -> tamp.v1.Role
 	6,  // 2: tamp.v1.ListMembersResponse.members:type_name -> tamp.v1.Member
-	15, // 3: tamp.v1.ListDevicesResponse.devices:type_name -> tamp.v1.Device
-	1,  // 4: tamp.v1.AdminService.CreateProject:input_type -> tamp.v1.CreateProjectRequest
-	3,  // 5: tamp.v1.AdminService.AddMember:input_type -> tamp.v1.AddMemberRequest
-	5,  // 6: tamp.v1.AdminService.ListMembers:input_type -> tamp.v1.ListMembersRequest
-	8,  // 7: tamp.v1.AdminService.IssueEnrollmentCode:input_type -> tamp.v1.IssueEnrollmentCodeRequest
-	10, // 8: tamp.v1.AdminService.EnrollDevice:input_type -> tamp.v1.EnrollDeviceRequest
-	12, // 9: tamp.v1.AdminService.RevokeDevice:input_type -> tamp.v1.RevokeDeviceRequest
-	14, // 10: tamp.v1.AdminService.ListDevices:input_type -> tamp.v1.ListDevicesRequest
-	2,  // 11: tamp.v1.AdminService.CreateProject:output_type -> tamp.v1.CreateProjectResponse
-	4,  // 12: tamp.v1.AdminService.AddMember:output_type -> tamp.v1.AddMemberResponse
-	7,  // 13: tamp.v1.AdminService.ListMembers:output_type -> tamp.v1.ListMembersResponse
-	9,  // 14: tamp.v1.AdminService.IssueEnrollmentCode:output_type -> tamp.v1.IssueEnrollmentCodeResponse
-	11, // 15: tamp.v1.AdminService.EnrollDevice:output_type -> tamp.v1.EnrollDeviceResponse
-	13, // 16: tamp.v1.AdminService.RevokeDevice:output_type -> tamp.v1.RevokeDeviceResponse
-	16, // 17: tamp.v1.AdminService.ListDevices:output_type -> tamp.v1.ListDevicesResponse
-	11, // [11:18] is the sub-list for method output_type
-	4,  // [4:11] is the sub-list for method input_type
-	4,  // [4:4] is the sub-list for extension type_name
-	4,  // [4:4] is the sub-list for extension extendee
-	0,  // [0:4] is the sub-list for field type_name
+	26, // 3: tamp.v1.EnrollDeviceResponse.certificate:type_name -> tamp.v1.Event
+	26, // 4: tamp.v1.ResumeDeviceRequest.certificate:type_name -> tamp.v1.Event
+	17, // 5: tamp.v1.ListDevicesResponse.devices:type_name -> tamp.v1.Device
+	0,  // 6: tamp.v1.Invitation.role:type_name -> tamp.v1.Role
+	20, // 7: tamp.v1.ListInvitationsResponse.invitations:type_name -> tamp.v1.Invitation
+	0,  // 8: tamp.v1.AcceptInvitationResponse.role:type_name -> tamp.v1.Role
+	1,  // 9: tamp.v1.AdminService.CreateProject:input_type -> tamp.v1.CreateProjectRequest
+	3,  // 10: tamp.v1.AdminService.AddMember:input_type -> tamp.v1.AddMemberRequest
+	5,  // 11: tamp.v1.AdminService.ListMembers:input_type -> tamp.v1.ListMembersRequest
+	8,  // 12: tamp.v1.AdminService.IssueEnrollmentCode:input_type -> tamp.v1.IssueEnrollmentCodeRequest
+	10, // 13: tamp.v1.AdminService.EnrollDevice:input_type -> tamp.v1.EnrollDeviceRequest
+	12, // 14: tamp.v1.AdminService.ResumeDevice:input_type -> tamp.v1.ResumeDeviceRequest
+	14, // 15: tamp.v1.AdminService.RevokeDevice:input_type -> tamp.v1.RevokeDeviceRequest
+	16, // 16: tamp.v1.AdminService.ListDevices:input_type -> tamp.v1.ListDevicesRequest
+	19, // 17: tamp.v1.AdminService.ListInvitations:input_type -> tamp.v1.ListInvitationsRequest
+	22, // 18: tamp.v1.AdminService.AcceptInvitation:input_type -> tamp.v1.AcceptInvitationRequest
+	24, // 19: tamp.v1.AdminService.DeclineInvitation:input_type -> tamp.v1.DeclineInvitationRequest
+	2,  // 20: tamp.v1.AdminService.CreateProject:output_type -> tamp.v1.CreateProjectResponse
+	4,  // 21: tamp.v1.AdminService.AddMember:output_type -> tamp.v1.AddMemberResponse
+	7,  // 22: tamp.v1.AdminService.ListMembers:output_type -> tamp.v1.ListMembersResponse
+	9,  // 23: tamp.v1.AdminService.IssueEnrollmentCode:output_type -> tamp.v1.IssueEnrollmentCodeResponse
+	11, // 24: tamp.v1.AdminService.EnrollDevice:output_type -> tamp.v1.EnrollDeviceResponse
+	13, // 25: tamp.v1.AdminService.ResumeDevice:output_type -> tamp.v1.ResumeDeviceResponse
+	15, // 26: tamp.v1.AdminService.RevokeDevice:output_type -> tamp.v1.RevokeDeviceResponse
+	18, // 27: tamp.v1.AdminService.ListDevices:output_type -> tamp.v1.ListDevicesResponse
+	21, // 28: tamp.v1.AdminService.ListInvitations:output_type -> tamp.v1.ListInvitationsResponse
+	23, // 29: tamp.v1.AdminService.AcceptInvitation:output_type -> tamp.v1.AcceptInvitationResponse
+	25, // 30: tamp.v1.AdminService.DeclineInvitation:output_type -> tamp.v1.DeclineInvitationResponse
+	20, // [20:31] is the sub-list for method output_type
+	9,  // [9:20] is the sub-list for method input_type
+	9,  // [9:9] is the sub-list for extension type_name
+	9,  // [9:9] is the sub-list for extension extendee
+	0,  // [0:9] is the sub-list for field type_name
 }
 
 func init() { file_tamp_v1_admin_proto_init() }
@@ -1114,13 +1694,14 @@ func file_tamp_v1_admin_proto_init() {
 	if File_tamp_v1_admin_proto != nil {
 		return
 	}
+	file_tamp_v1_event_proto_init()
 	type x struct{}
 	out := protoimpl.TypeBuilder{
 		File: protoimpl.DescBuilder{
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_tamp_v1_admin_proto_rawDesc), len(file_tamp_v1_admin_proto_rawDesc)),
 			NumEnums:      1,
-			NumMessages:   16,
+			NumMessages:   25,
 			NumExtensions: 0,
 			NumServices:   1,
 		},

@@ -24,8 +24,12 @@ const (
 	AdminService_ListMembers_FullMethodName         = "/tamp.v1.AdminService/ListMembers"
 	AdminService_IssueEnrollmentCode_FullMethodName = "/tamp.v1.AdminService/IssueEnrollmentCode"
 	AdminService_EnrollDevice_FullMethodName        = "/tamp.v1.AdminService/EnrollDevice"
+	AdminService_ResumeDevice_FullMethodName        = "/tamp.v1.AdminService/ResumeDevice"
 	AdminService_RevokeDevice_FullMethodName        = "/tamp.v1.AdminService/RevokeDevice"
 	AdminService_ListDevices_FullMethodName         = "/tamp.v1.AdminService/ListDevices"
+	AdminService_ListInvitations_FullMethodName     = "/tamp.v1.AdminService/ListInvitations"
+	AdminService_AcceptInvitation_FullMethodName    = "/tamp.v1.AdminService/AcceptInvitation"
+	AdminService_DeclineInvitation_FullMethodName   = "/tamp.v1.AdminService/DeclineInvitation"
 )
 
 // AdminServiceClient is the client API for AdminService service.
@@ -36,7 +40,9 @@ const (
 type AdminServiceClient interface {
 	// CreateProject creates a project ledger.
 	CreateProject(ctx context.Context, in *CreateProjectRequest, opts ...grpc.CallOption) (*CreateProjectResponse, error)
-	// AddMember gives a user a role on a project.
+	// AddMember gives a user a role on a project. A project administrator
+	// adding an existing user who holds a role elsewhere, or a server
+	// administrator, only invites them: they become a member when they accept.
 	AddMember(ctx context.Context, in *AddMemberRequest, opts ...grpc.CallOption) (*AddMemberResponse, error)
 	// ListMembers lists a project's members.
 	ListMembers(ctx context.Context, in *ListMembersRequest, opts ...grpc.CallOption) (*ListMembersResponse, error)
@@ -45,10 +51,21 @@ type AdminServiceClient interface {
 	// EnrollDevice registers a device's public key with a one-time code and
 	// returns its bearer token. It is the one call made without a token.
 	EnrollDevice(ctx context.Context, in *EnrollDeviceRequest, opts ...grpc.CallOption) (*EnrollDeviceResponse, error)
+	// Gives a new token to an enrolled device that proves its enrolment with
+	// its certificate and its key, after the server was restored from a copy
+	// older than the enrolment. Needs no token.
+	ResumeDevice(ctx context.Context, in *ResumeDeviceRequest, opts ...grpc.CallOption) (*ResumeDeviceResponse, error)
 	// RevokeDevice stops a device's token at once.
 	RevokeDevice(ctx context.Context, in *RevokeDeviceRequest, opts ...grpc.CallOption) (*RevokeDeviceResponse, error)
 	// ListDevices lists enrolled devices.
 	ListDevices(ctx context.Context, in *ListDevicesRequest, opts ...grpc.CallOption) (*ListDevicesResponse, error)
+	// ListInvitations lists the calling user's pending invitations.
+	ListInvitations(ctx context.Context, in *ListInvitationsRequest, opts ...grpc.CallOption) (*ListInvitationsResponse, error)
+	// AcceptInvitation makes the calling user a member of the project they
+	// were invited to, with the role of the invitation.
+	AcceptInvitation(ctx context.Context, in *AcceptInvitationRequest, opts ...grpc.CallOption) (*AcceptInvitationResponse, error)
+	// DeclineInvitation refuses one of the calling user's invitations.
+	DeclineInvitation(ctx context.Context, in *DeclineInvitationRequest, opts ...grpc.CallOption) (*DeclineInvitationResponse, error)
 }
 
 type adminServiceClient struct {
@@ -109,6 +126,16 @@ func (c *adminServiceClient) EnrollDevice(ctx context.Context, in *EnrollDeviceR
 	return out, nil
 }
 
+func (c *adminServiceClient) ResumeDevice(ctx context.Context, in *ResumeDeviceRequest, opts ...grpc.CallOption) (*ResumeDeviceResponse, error) {
+	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
+	out := new(ResumeDeviceResponse)
+	err := c.cc.Invoke(ctx, AdminService_ResumeDevice_FullMethodName, in, out, cOpts...)
+	if err != nil {
+		return nil, err
+	}
+	return out, nil
+}
+
 func (c *adminServiceClient) RevokeDevice(ctx context.Context, in *RevokeDeviceRequest, opts ...grpc.CallOption) (*RevokeDeviceResponse, error) {
 	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
 	out := new(RevokeDeviceResponse)
@@ -129,6 +156,36 @@ func (c *adminServiceClient) ListDevices(ctx context.Context, in *ListDevicesReq
 	return out, nil
 }
 
+func (c *adminServiceClient) ListInvitations(ctx context.Context, in *ListInvitationsRequest, opts ...grpc.CallOption) (*ListInvitationsResponse, error) {
+	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
+	out := new(ListInvitationsResponse)
+	err := c.cc.Invoke(ctx, AdminService_ListInvitations_FullMethodName, in, out, cOpts...)
+	if err != nil {
+		return nil, err
+	}
+	return out, nil
+}
+
+func (c *adminServiceClient) AcceptInvitation(ctx context.Context, in *AcceptInvitationRequest, opts ...grpc.CallOption) (*AcceptInvitationResponse, error) {
+	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
+	out := new(AcceptInvitationResponse)
+	err := c.cc.Invoke(ctx, AdminService_AcceptInvitation_FullMethodName, in, out, cOpts...)
+	if err != nil {
+		return nil, err
+	}
+	return out, nil
+}
+
+func (c *adminServiceClient) DeclineInvitation(ctx context.Context, in *DeclineInvitationRequest, opts ...grpc.CallOption) (*DeclineInvitationResponse, error) {
+	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
+	out := new(DeclineInvitationResponse)
+	err := c.cc.Invoke(ctx, AdminService_DeclineInvitation_FullMethodName, in, out, cOpts...)
+	if err != nil {
+		return nil, err
+	}
+	return out, nil
+}
+
 // AdminServiceServer is the server API for AdminService service.
 // All implementations must embed UnimplementedAdminServiceServer
 // for forward compatibility.
@@ -137,7 +194,9 @@ func (c *adminServiceClient) ListDevices(ctx context.Context, in *ListDevicesReq
 type AdminServiceServer interface {
 	// CreateProject creates a project ledger.
 	CreateProject(context.Context, *CreateProjectRequest) (*CreateProjectResponse, error)
-	// AddMember gives a user a role on a project.
+	// AddMember gives a user a role on a project. A project administrator
+	// adding an existing user who holds a role elsewhere, or a server
+	// administrator, only invites them: they become a member when they accept.
 	AddMember(context.Context, *AddMemberRequest) (*AddMemberResponse, error)
 	// ListMembers lists a project's members.
 	ListMembers(context.Context, *ListMembersRequest) (*ListMembersResponse, error)
@@ -146,10 +205,21 @@ type AdminServiceServer interface {
 	// EnrollDevice registers a device's public key with a one-time code and
 	// returns its bearer token. It is the one call made without a token.
 	EnrollDevice(context.Context, *EnrollDeviceRequest) (*EnrollDeviceResponse, error)
+	// Gives a new token to an enrolled device that proves its enrolment with
+	// its certificate and its key, after the server was restored from a copy
+	// older than the enrolment. Needs no token.
+	ResumeDevice(context.Context, *ResumeDeviceRequest) (*ResumeDeviceResponse, error)
 	// RevokeDevice stops a device's token at once.
 	RevokeDevice(context.Context, *RevokeDeviceRequest) (*RevokeDeviceResponse, error)
 	// ListDevices lists enrolled devices.
 	ListDevices(context.Context, *ListDevicesRequest) (*ListDevicesResponse, error)
+	// ListInvitations lists the calling user's pending invitations.
+	ListInvitations(context.Context, *ListInvitationsRequest) (*ListInvitationsResponse, error)
+	// AcceptInvitation makes the calling user a member of the project they
+	// were invited to, with the role of the invitation.
+	AcceptInvitation(context.Context, *AcceptInvitationRequest) (*AcceptInvitationResponse, error)
+	// DeclineInvitation refuses one of the calling user's invitations.
+	DeclineInvitation(context.Context, *DeclineInvitationRequest) (*DeclineInvitationResponse, error)
 	mustEmbedUnimplementedAdminServiceServer()
 }
 
@@ -175,11 +245,23 @@ func (UnimplementedAdminServiceServer) IssueEnrollmentCode(context.Context, *Iss
 func (UnimplementedAdminServiceServer) EnrollDevice(context.Context, *EnrollDeviceRequest) (*EnrollDeviceResponse, error) {
 	return nil, status.Error(codes.Unimplemented, "method EnrollDevice not implemented")
 }
+func (UnimplementedAdminServiceServer) ResumeDevice(context.Context, *ResumeDeviceRequest) (*ResumeDeviceResponse, error) {
+	return nil, status.Error(codes.Unimplemented, "method ResumeDevice not implemented")
+}
 func (UnimplementedAdminServiceServer) RevokeDevice(context.Context, *RevokeDeviceRequest) (*RevokeDeviceResponse, error) {
 	return nil, status.Error(codes.Unimplemented, "method RevokeDevice not implemented")
 }
 func (UnimplementedAdminServiceServer) ListDevices(context.Context, *ListDevicesRequest) (*ListDevicesResponse, error) {
 	return nil, status.Error(codes.Unimplemented, "method ListDevices not implemented")
+}
+func (UnimplementedAdminServiceServer) ListInvitations(context.Context, *ListInvitationsRequest) (*ListInvitationsResponse, error) {
+	return nil, status.Error(codes.Unimplemented, "method ListInvitations not implemented")
+}
+func (UnimplementedAdminServiceServer) AcceptInvitation(context.Context, *AcceptInvitationRequest) (*AcceptInvitationResponse, error) {
+	return nil, status.Error(codes.Unimplemented, "method AcceptInvitation not implemented")
+}
+func (UnimplementedAdminServiceServer) DeclineInvitation(context.Context, *DeclineInvitationRequest) (*DeclineInvitationResponse, error) {
+	return nil, status.Error(codes.Unimplemented, "method DeclineInvitation not implemented")
 }
 func (UnimplementedAdminServiceServer) mustEmbedUnimplementedAdminServiceServer() {}
 func (UnimplementedAdminServiceServer) testEmbeddedByValue()                      {}
@@ -292,6 +374,24 @@ func _AdminService_EnrollDevice_Handler(srv interface{}, ctx context.Context, de
 	return interceptor(ctx, in, info, handler)
 }
 
+func _AdminService_ResumeDevice_Handler(srv interface{}, ctx context.Context, dec func(interface{}) error, interceptor grpc.UnaryServerInterceptor) (interface{}, error) {
+	in := new(ResumeDeviceRequest)
+	if err := dec(in); err != nil {
+		return nil, err
+	}
+	if interceptor == nil {
+		return srv.(AdminServiceServer).ResumeDevice(ctx, in)
+	}
+	info := &grpc.UnaryServerInfo{
+		Server:     srv,
+		FullMethod: AdminService_ResumeDevice_FullMethodName,
+	}
+	handler := func(ctx context.Context, req interface{}) (interface{}, error) {
+		return srv.(AdminServiceServer).ResumeDevice(ctx, req.(*ResumeDeviceRequest))
+	}
+	return interceptor(ctx, in, info, handler)
+}
+
 func _AdminService_RevokeDevice_Handler(srv interface{}, ctx context.Context, dec func(interface{}) error, interceptor grpc.UnaryServerInterceptor) (interface{}, error) {
 	in := new(RevokeDeviceRequest)
 	if err := dec(in); err != nil {
@@ -328,6 +428,60 @@ func _AdminService_ListDevices_Handler(srv interface{}, ctx context.Context, dec
 	return interceptor(ctx, in, info, handler)
 }
 
+func _AdminService_ListInvitations_Handler(srv interface{}, ctx context.Context, dec func(interface{}) error, interceptor grpc.UnaryServerInterceptor) (interface{}, error) {
+	in := new(ListInvitationsRequest)
+	if err := dec(in); err != nil {
+		return nil, err
+	}
+	if interceptor == nil {
+		return srv.(AdminServiceServer).ListInvitations(ctx, in)
+	}
+	info := &grpc.UnaryServerInfo{
+		Server:     srv,
+		FullMethod: AdminService_ListInvitations_FullMethodName,
+	}
+	handler := func(ctx context.Context, req interface{}) (interface{}, error) {
+		return srv.(AdminServiceServer).ListInvitations(ctx, req.(*ListInvitationsRequest))
+	}
+	return interceptor(ctx, in, info, handler)
+}
+
+func _AdminService_AcceptInvitation_Handler(srv interface{}, ctx context.Context, dec func(interface{}) error, interceptor grpc.UnaryServerInterceptor) (interface{}, error) {
+	in := new(AcceptInvitationRequest)
+	if err := dec(in); err != nil {
+		return nil, err
+	}
+	if interceptor == nil {
+		return srv.(AdminServiceServer).AcceptInvitation(ctx, in)
+	}
+	info := &grpc.UnaryServerInfo{
+		Server:     srv,
+		FullMethod: AdminService_AcceptInvitation_FullMethodName,
+	}
+	handler := func(ctx context.Context, req interface{}) (interface{}, error) {
+		return srv.(AdminServiceServer).AcceptInvitation(ctx, req.(*AcceptInvitationRequest))
+	}
+	return interceptor(ctx, in, info, handler)
+}
+
+func _AdminService_DeclineInvitation_Handler(srv interface{}, ctx context.Context, dec func(interface{}) error, interceptor grpc.UnaryServerInterceptor) (interface{}, error) {
+	in := new(DeclineInvitationRequest)
+	if err := dec(in); err != nil {
+		return nil, err
+	}
+	if interceptor == nil {
+		return srv.(AdminServiceServer).DeclineInvitation(ctx, in)
+	}
+	info := &grpc.UnaryServerInfo{
+		Server:     srv,
+		FullMethod: AdminService_DeclineInvitation_FullMethodName,
+	}
+	handler := func(ctx context.Context, req interface{}) (interface{}, error) {
+		return srv.(AdminServiceServer).DeclineInvitation(ctx, req.(*DeclineInvitationRequest))
+	}
+	return interceptor(ctx, in, info, handler)
+}
+
 // AdminService_ServiceDesc is the grpc.ServiceDesc for AdminService service.
 // It's only intended for direct use with grpc.RegisterService,
 // and not to be introspected or modified (even as a copy)
@@ -356,12 +510,28 @@ var AdminService_ServiceDesc = grpc.ServiceDesc{
 			Handler:    _AdminService_EnrollDevice_Handler,
 		},
 		{
+			MethodName: "ResumeDevice",
+			Handler:    _AdminService_ResumeDevice_Handler,
+		},
+		{
 			MethodName: "RevokeDevice",
 			Handler:    _AdminService_RevokeDevice_Handler,
 		},
 		{
 			MethodName: "ListDevices",
 			Handler:    _AdminService_ListDevices_Handler,
+		},
+		{
+			MethodName: "ListInvitations",
+			Handler:    _AdminService_ListInvitations_Handler,
+		},
+		{
+			MethodName: "AcceptInvitation",
+			Handler:    _AdminService_AcceptInvitation_Handler,
+		},
+		{
+			MethodName: "DeclineInvitation",
+			Handler:    _AdminService_DeclineInvitation_Handler,
 		},
 	},
 	Streams:  []grpc.StreamDesc{},

@@ -606,6 +606,15 @@ type EventBody struct {
 	// The device's wall clock when the entry was made, as the inspector saw
 	// it, microseconds since 1970-01-01 UTC.
 	DeviceTimeMicros int64 `protobuf:"varint,7,opt,name=device_time_micros,json=deviceTimeMicros,proto3" json:"device_time_micros,omitempty"`
+	// The device sequence number of this device's previous event in the same
+	// project; 0 for its first. Device sequence numbers count across all of a
+	// device's projects, so they skip within one project; this link lets the
+	// server tell a skip from an entry it lacks.
+	PrevDeviceSeq uint64 `protobuf:"varint,8,opt,name=prev_device_seq,json=prevDeviceSeq,proto3" json:"prev_device_seq,omitempty"`
+	// When the entry's user re-enrolled with a new device key before the
+	// entry reached the server, the device that first signed it; the entry
+	// keeps its id and content and is signed again by the new device.
+	ResignedFromDeviceId string `protobuf:"bytes,9,opt,name=resigned_from_device_id,json=resignedFromDeviceId,proto3" json:"resigned_from_device_id,omitempty"`
 	// What happened.
 	//
 	// Types that are valid to be assigned to Kind:
@@ -624,6 +633,8 @@ type EventBody struct {
 	//	*EventBody_TestVoided
 	//	*EventBody_TestReviewed
 	//	*EventBody_ExceptionAccepted
+	//	*EventBody_DeviceEnrolled
+	//	*EventBody_DeviceRevoked
 	Kind          isEventBody_Kind `protobuf_oneof:"kind"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
@@ -706,6 +717,20 @@ func (x *EventBody) GetDeviceTimeMicros() int64 {
 		return x.DeviceTimeMicros
 	}
 	return 0
+}
+
+func (x *EventBody) GetPrevDeviceSeq() uint64 {
+	if x != nil {
+		return x.PrevDeviceSeq
+	}
+	return 0
+}
+
+func (x *EventBody) GetResignedFromDeviceId() string {
+	if x != nil {
+		return x.ResignedFromDeviceId
+	}
+	return ""
 }
 
 func (x *EventBody) GetKind() isEventBody_Kind {
@@ -841,6 +866,24 @@ func (x *EventBody) GetExceptionAccepted() *ExceptionAccepted {
 	return nil
 }
 
+func (x *EventBody) GetDeviceEnrolled() *DeviceEnrolled {
+	if x != nil {
+		if x, ok := x.Kind.(*EventBody_DeviceEnrolled); ok {
+			return x.DeviceEnrolled
+		}
+	}
+	return nil
+}
+
+func (x *EventBody) GetDeviceRevoked() *DeviceRevoked {
+	if x != nil {
+		if x, ok := x.Kind.(*EventBody_DeviceRevoked); ok {
+			return x.DeviceRevoked
+		}
+	}
+	return nil
+}
+
 type isEventBody_Kind interface {
 	isEventBody_Kind()
 }
@@ -915,6 +958,16 @@ type EventBody_ExceptionAccepted struct {
 	ExceptionAccepted *ExceptionAccepted `protobuf:"bytes,29,opt,name=exception_accepted,json=exceptionAccepted,proto3,oneof"`
 }
 
+type EventBody_DeviceEnrolled struct {
+	// A device's key introduced to the project by the server.
+	DeviceEnrolled *DeviceEnrolled `protobuf:"bytes,30,opt,name=device_enrolled,json=deviceEnrolled,proto3,oneof"`
+}
+
+type EventBody_DeviceRevoked struct {
+	// A device's key revoked by the server from a time on.
+	DeviceRevoked *DeviceRevoked `protobuf:"bytes,31,opt,name=device_revoked,json=deviceRevoked,proto3,oneof"`
+}
+
 func (*EventBody_ProjectSetUp) isEventBody_Kind() {}
 
 func (*EventBody_SpecDefined) isEventBody_Kind() {}
@@ -942,6 +995,10 @@ func (*EventBody_TestVoided) isEventBody_Kind() {}
 func (*EventBody_TestReviewed) isEventBody_Kind() {}
 
 func (*EventBody_ExceptionAccepted) isEventBody_Kind() {}
+
+func (*EventBody_DeviceEnrolled) isEventBody_Kind() {}
+
+func (*EventBody_DeviceRevoked) isEventBody_Kind() {}
 
 // ProjectSetUp names a project and fixes its conventions. A later set-up
 // replaces an earlier one (the latest by hybrid time wins).
@@ -3477,6 +3534,176 @@ func (x *ExceptionAccepted) GetReason() string {
 	return ""
 }
 
+// DeviceEnrolled introduces an enrolled device's key to a project's ledger,
+// so that any replica can verify the device's entries, and a server
+// restored from an older copy learns the key again from the devices that
+// hold this entry. Only the server makes it, signed with its own key.
+type DeviceEnrolled struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The enrolled device.
+	DeviceId string `protobuf:"bytes,1,opt,name=device_id,json=deviceId,proto3" json:"device_id,omitempty"`
+	// The user the device is enrolled for.
+	UserId string `protobuf:"bytes,2,opt,name=user_id,json=userId,proto3" json:"user_id,omitempty"`
+	// The device's Ed25519 public key.
+	PublicKey []byte `protobuf:"bytes,3,opt,name=public_key,json=publicKey,proto3" json:"public_key,omitempty"`
+	// The device's name as it gave it.
+	DeviceName string `protobuf:"bytes,4,opt,name=device_name,json=deviceName,proto3" json:"device_name,omitempty"`
+	// The user's name, so a restored server can recreate the user.
+	UserName string `protobuf:"bytes,5,opt,name=user_name,json=userName,proto3" json:"user_name,omitempty"`
+	// When the device was enrolled, microseconds since 1970-01-01 UTC.
+	EnrolledMicros int64 `protobuf:"varint,6,opt,name=enrolled_micros,json=enrolledMicros,proto3" json:"enrolled_micros,omitempty"`
+	unknownFields  protoimpl.UnknownFields
+	sizeCache      protoimpl.SizeCache
+}
+
+func (x *DeviceEnrolled) Reset() {
+	*x = DeviceEnrolled{}
+	mi := &file_tamp_v1_event_proto_msgTypes[33]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *DeviceEnrolled) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*DeviceEnrolled) ProtoMessage() {}
+
+func (x *DeviceEnrolled) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_event_proto_msgTypes[33]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use DeviceEnrolled.ProtoReflect.Descriptor instead.
+func (*DeviceEnrolled) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{33}
+}
+
+func (x *DeviceEnrolled) GetDeviceId() string {
+	if x != nil {
+		return x.DeviceId
+	}
+	return ""
+}
+
+func (x *DeviceEnrolled) GetUserId() string {
+	if x != nil {
+		return x.UserId
+	}
+	return ""
+}
+
+func (x *DeviceEnrolled) GetPublicKey() []byte {
+	if x != nil {
+		return x.PublicKey
+	}
+	return nil
+}
+
+func (x *DeviceEnrolled) GetDeviceName() string {
+	if x != nil {
+		return x.DeviceName
+	}
+	return ""
+}
+
+func (x *DeviceEnrolled) GetUserName() string {
+	if x != nil {
+		return x.UserName
+	}
+	return ""
+}
+
+func (x *DeviceEnrolled) GetEnrolledMicros() int64 {
+	if x != nil {
+		return x.EnrolledMicros
+	}
+	return 0
+}
+
+// DeviceRevoked revokes a device's key from a time on: entries the device
+// signed after it are refused wherever they come from. Only the server
+// makes it, signed with its own key.
+type DeviceRevoked struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The revoked device.
+	DeviceId string `protobuf:"bytes,1,opt,name=device_id,json=deviceId,proto3" json:"device_id,omitempty"`
+	// From when, microseconds since 1970-01-01 UTC; entries with a later
+	// hybrid time are refused.
+	EffectiveMicros int64 `protobuf:"varint,2,opt,name=effective_micros,json=effectiveMicros,proto3" json:"effective_micros,omitempty"`
+	// The user who revoked it.
+	RevokedBy string `protobuf:"bytes,3,opt,name=revoked_by,json=revokedBy,proto3" json:"revoked_by,omitempty"`
+	// Why, as the administrator gave it.
+	Reason        string `protobuf:"bytes,4,opt,name=reason,proto3" json:"reason,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *DeviceRevoked) Reset() {
+	*x = DeviceRevoked{}
+	mi := &file_tamp_v1_event_proto_msgTypes[34]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *DeviceRevoked) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*DeviceRevoked) ProtoMessage() {}
+
+func (x *DeviceRevoked) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_event_proto_msgTypes[34]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use DeviceRevoked.ProtoReflect.Descriptor instead.
+func (*DeviceRevoked) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{34}
+}
+
+func (x *DeviceRevoked) GetDeviceId() string {
+	if x != nil {
+		return x.DeviceId
+	}
+	return ""
+}
+
+func (x *DeviceRevoked) GetEffectiveMicros() int64 {
+	if x != nil {
+		return x.EffectiveMicros
+	}
+	return 0
+}
+
+func (x *DeviceRevoked) GetRevokedBy() string {
+	if x != nil {
+		return x.RevokedBy
+	}
+	return ""
+}
+
+func (x *DeviceRevoked) GetReason() string {
+	if x != nil {
+		return x.Reason
+	}
+	return ""
+}
+
 var File_tamp_v1_event_proto protoreflect.FileDescriptor
 
 const file_tamp_v1_event_proto_rawDesc = "" +
@@ -3489,7 +3716,7 @@ const file_tamp_v1_event_proto_rawDesc = "" +
 	"HybridTime\x12\x1f\n" +
 	"\vwall_micros\x18\x01 \x01(\x03R\n" +
 	"wallMicros\x12\x18\n" +
-	"\alogical\x18\x02 \x01(\rR\alogical\"\xf1\t\n" +
+	"\alogical\x18\x02 \x01(\rR\alogical\"\xd5\v\n" +
 	"\tEventBody\x12\x19\n" +
 	"\bevent_id\x18\x01 \x01(\tR\aeventId\x12\x1d\n" +
 	"\n" +
@@ -3499,7 +3726,9 @@ const file_tamp_v1_event_proto_rawDesc = "" +
 	"\n" +
 	"device_seq\x18\x05 \x01(\x04R\tdeviceSeq\x12%\n" +
 	"\x03hlc\x18\x06 \x01(\v2\x13.tamp.v1.HybridTimeR\x03hlc\x12,\n" +
-	"\x12device_time_micros\x18\a \x01(\x03R\x10deviceTimeMicros\x12=\n" +
+	"\x12device_time_micros\x18\a \x01(\x03R\x10deviceTimeMicros\x12&\n" +
+	"\x0fprev_device_seq\x18\b \x01(\x04R\rprevDeviceSeq\x125\n" +
+	"\x17resigned_from_device_id\x18\t \x01(\tR\x14resignedFromDeviceId\x12=\n" +
 	"\x0eproject_set_up\x18\x10 \x01(\v2\x15.tamp.v1.ProjectSetUpH\x00R\fprojectSetUp\x129\n" +
 	"\fspec_defined\x18\x11 \x01(\v2\x14.tamp.v1.SpecDefinedH\x00R\vspecDefined\x12B\n" +
 	"\x0freference_added\x18\x12 \x01(\v2\x17.tamp.v1.ReferenceAddedH\x00R\x0ereferenceAdded\x12Q\n" +
@@ -3514,7 +3743,9 @@ const file_tamp_v1_event_proto_rawDesc = "" +
 	"\vtest_voided\x18\x1b \x01(\v2\x13.tamp.v1.TestVoidedH\x00R\n" +
 	"testVoided\x12<\n" +
 	"\rtest_reviewed\x18\x1c \x01(\v2\x15.tamp.v1.TestReviewedH\x00R\ftestReviewed\x12K\n" +
-	"\x12exception_accepted\x18\x1d \x01(\v2\x1a.tamp.v1.ExceptionAcceptedH\x00R\x11exceptionAcceptedB\x06\n" +
+	"\x12exception_accepted\x18\x1d \x01(\v2\x1a.tamp.v1.ExceptionAcceptedH\x00R\x11exceptionAccepted\x12B\n" +
+	"\x0fdevice_enrolled\x18\x1e \x01(\v2\x17.tamp.v1.DeviceEnrolledH\x00R\x0edeviceEnrolled\x12?\n" +
+	"\x0edevice_revoked\x18\x1f \x01(\v2\x16.tamp.v1.DeviceRevokedH\x00R\rdeviceRevokedB\x06\n" +
 	"\x04kind\"\x99\x02\n" +
 	"\fProjectSetUp\x12\x12\n" +
 	"\x04name\x18\x01 \x01(\tR\x04name\x12)\n" +
@@ -3715,7 +3946,22 @@ const file_tamp_v1_event_proto_rawDesc = "" +
 	"\x11ExceptionAccepted\x12\x17\n" +
 	"\atest_id\x18\x01 \x01(\tR\x06testId\x12\x1a\n" +
 	"\brevision\x18\x02 \x01(\tR\brevision\x12\x16\n" +
-	"\x06reason\x18\x03 \x01(\tR\x06reason*Q\n" +
+	"\x06reason\x18\x03 \x01(\tR\x06reason\"\xcc\x01\n" +
+	"\x0eDeviceEnrolled\x12\x1b\n" +
+	"\tdevice_id\x18\x01 \x01(\tR\bdeviceId\x12\x17\n" +
+	"\auser_id\x18\x02 \x01(\tR\x06userId\x12\x1d\n" +
+	"\n" +
+	"public_key\x18\x03 \x01(\fR\tpublicKey\x12\x1f\n" +
+	"\vdevice_name\x18\x04 \x01(\tR\n" +
+	"deviceName\x12\x1b\n" +
+	"\tuser_name\x18\x05 \x01(\tR\buserName\x12'\n" +
+	"\x0fenrolled_micros\x18\x06 \x01(\x03R\x0eenrolledMicros\"\x8e\x01\n" +
+	"\rDeviceRevoked\x12\x1b\n" +
+	"\tdevice_id\x18\x01 \x01(\tR\bdeviceId\x12)\n" +
+	"\x10effective_micros\x18\x02 \x01(\x03R\x0feffectiveMicros\x12\x1d\n" +
+	"\n" +
+	"revoked_by\x18\x03 \x01(\tR\trevokedBy\x12\x16\n" +
+	"\x06reason\x18\x04 \x01(\tR\x06reason*Q\n" +
 	"\n" +
 	"UnitSystem\x12\x1b\n" +
 	"\x17UNIT_SYSTEM_UNSPECIFIED\x10\x00\x12\x12\n" +
@@ -3769,7 +4015,7 @@ func file_tamp_v1_event_proto_rawDescGZIP() []byte {
 }
 
 var file_tamp_v1_event_proto_enumTypes = make([]protoimpl.EnumInfo, 8)
-var file_tamp_v1_event_proto_msgTypes = make([]protoimpl.MessageInfo, 33)
+var file_tamp_v1_event_proto_msgTypes = make([]protoimpl.MessageInfo, 35)
 var file_tamp_v1_event_proto_goTypes = []any{
 	(UnitSystem)(0),               // 0: tamp.v1.UnitSystem
 	(ShrinkageConvention)(0),      // 1: tamp.v1.ShrinkageConvention
@@ -3812,6 +4058,8 @@ var file_tamp_v1_event_proto_goTypes = []any{
 	(*TestVoided)(nil),            // 38: tamp.v1.TestVoided
 	(*TestReviewed)(nil),          // 39: tamp.v1.TestReviewed
 	(*ExceptionAccepted)(nil),     // 40: tamp.v1.ExceptionAccepted
+	(*DeviceEnrolled)(nil),        // 41: tamp.v1.DeviceEnrolled
+	(*DeviceRevoked)(nil),         // 42: tamp.v1.DeviceRevoked
 }
 var file_tamp_v1_event_proto_depIdxs = []int32{
 	9,  // 0: tamp.v1.EventBody.hlc:type_name -> tamp.v1.HybridTime
@@ -3829,38 +4077,40 @@ var file_tamp_v1_event_proto_depIdxs = []int32{
 	38, // 12: tamp.v1.EventBody.test_voided:type_name -> tamp.v1.TestVoided
 	39, // 13: tamp.v1.EventBody.test_reviewed:type_name -> tamp.v1.TestReviewed
 	40, // 14: tamp.v1.EventBody.exception_accepted:type_name -> tamp.v1.ExceptionAccepted
-	0,  // 15: tamp.v1.ProjectSetUp.units:type_name -> tamp.v1.UnitSystem
-	1,  // 16: tamp.v1.ProjectSetUp.shrinkage_convention:type_name -> tamp.v1.ShrinkageConvention
-	2,  // 17: tamp.v1.SpecDefined.moisture_basis:type_name -> tamp.v1.MoistureBasis
-	3,  // 18: tamp.v1.ReferenceAdded.standard:type_name -> tamp.v1.CompactionStandard
-	13, // 19: tamp.v1.ReferenceAdded.points:type_name -> tamp.v1.CurvePoint
-	4,  // 20: tamp.v1.EquipmentRegistered.kind:type_name -> tamp.v1.EquipmentKind
-	5,  // 21: tamp.v1.MoistureCorrectionSet.kind:type_name -> tamp.v1.CorrectionKind
-	17, // 22: tamp.v1.MoistureCorrectionSet.pairs:type_name -> tamp.v1.MoisturePair
-	29, // 23: tamp.v1.BorrowSourceMeasured.bank_tests:type_name -> tamp.v1.Readings
-	20, // 24: tamp.v1.LiftPlacementRecorded.stations:type_name -> tamp.v1.StationRange
-	23, // 25: tamp.v1.NuclearReadings.counts:type_name -> tamp.v1.NuclearCount
-	24, // 26: tamp.v1.Readings.nuclear:type_name -> tamp.v1.NuclearReadings
-	25, // 27: tamp.v1.Readings.sand_cone:type_name -> tamp.v1.SandConeReadings
-	26, // 28: tamp.v1.Readings.drive_cylinder:type_name -> tamp.v1.DriveCylinderReadings
-	27, // 29: tamp.v1.Readings.rubber_balloon:type_name -> tamp.v1.RubberBalloonReadings
-	28, // 30: tamp.v1.Readings.wet_density:type_name -> tamp.v1.WetDensityReadings
-	30, // 31: tamp.v1.Location.position:type_name -> tamp.v1.GeoPosition
-	6,  // 32: tamp.v1.Results.verdict:type_name -> tamp.v1.Verdict
-	33, // 33: tamp.v1.Results.reasons:type_name -> tamp.v1.Finding
-	33, // 34: tamp.v1.Results.flags:type_name -> tamp.v1.Finding
-	29, // 35: tamp.v1.TestContent.readings:type_name -> tamp.v1.Readings
-	31, // 36: tamp.v1.TestContent.location:type_name -> tamp.v1.Location
-	32, // 37: tamp.v1.TestContent.oversize:type_name -> tamp.v1.Oversize
-	34, // 38: tamp.v1.TestContent.device_results:type_name -> tamp.v1.Results
-	35, // 39: tamp.v1.TestRecorded.content:type_name -> tamp.v1.TestContent
-	35, // 40: tamp.v1.TestCorrected.content:type_name -> tamp.v1.TestContent
-	7,  // 41: tamp.v1.TestReviewed.decision:type_name -> tamp.v1.ReviewDecision
-	42, // [42:42] is the sub-list for method output_type
-	42, // [42:42] is the sub-list for method input_type
-	42, // [42:42] is the sub-list for extension type_name
-	42, // [42:42] is the sub-list for extension extendee
-	0,  // [0:42] is the sub-list for field type_name
+	41, // 15: tamp.v1.EventBody.device_enrolled:type_name -> tamp.v1.DeviceEnrolled
+	42, // 16: tamp.v1.EventBody.device_revoked:type_name -> tamp.v1.DeviceRevoked
+	0,  // 17: tamp.v1.ProjectSetUp.units:type_name -> tamp.v1.UnitSystem
+	1,  // 18: tamp.v1.ProjectSetUp.shrinkage_convention:type_name -> tamp.v1.ShrinkageConvention
+	2,  // 19: tamp.v1.SpecDefined.moisture_basis:type_name -> tamp.v1.MoistureBasis
+	3,  // 20: tamp.v1.ReferenceAdded.standard:type_name -> tamp.v1.CompactionStandard
+	13, // 21: tamp.v1.ReferenceAdded.points:type_name -> tamp.v1.CurvePoint
+	4,  // 22: tamp.v1.EquipmentRegistered.kind:type_name -> tamp.v1.EquipmentKind
+	5,  // 23: tamp.v1.MoistureCorrectionSet.kind:type_name -> tamp.v1.CorrectionKind
+	17, // 24: tamp.v1.MoistureCorrectionSet.pairs:type_name -> tamp.v1.MoisturePair
+	29, // 25: tamp.v1.BorrowSourceMeasured.bank_tests:type_name -> tamp.v1.Readings
+	20, // 26: tamp.v1.LiftPlacementRecorded.stations:type_name -> tamp.v1.StationRange
+	23, // 27: tamp.v1.NuclearReadings.counts:type_name -> tamp.v1.NuclearCount
+	24, // 28: tamp.v1.Readings.nuclear:type_name -> tamp.v1.NuclearReadings
+	25, // 29: tamp.v1.Readings.sand_cone:type_name -> tamp.v1.SandConeReadings
+	26, // 30: tamp.v1.Readings.drive_cylinder:type_name -> tamp.v1.DriveCylinderReadings
+	27, // 31: tamp.v1.Readings.rubber_balloon:type_name -> tamp.v1.RubberBalloonReadings
+	28, // 32: tamp.v1.Readings.wet_density:type_name -> tamp.v1.WetDensityReadings
+	30, // 33: tamp.v1.Location.position:type_name -> tamp.v1.GeoPosition
+	6,  // 34: tamp.v1.Results.verdict:type_name -> tamp.v1.Verdict
+	33, // 35: tamp.v1.Results.reasons:type_name -> tamp.v1.Finding
+	33, // 36: tamp.v1.Results.flags:type_name -> tamp.v1.Finding
+	29, // 37: tamp.v1.TestContent.readings:type_name -> tamp.v1.Readings
+	31, // 38: tamp.v1.TestContent.location:type_name -> tamp.v1.Location
+	32, // 39: tamp.v1.TestContent.oversize:type_name -> tamp.v1.Oversize
+	34, // 40: tamp.v1.TestContent.device_results:type_name -> tamp.v1.Results
+	35, // 41: tamp.v1.TestRecorded.content:type_name -> tamp.v1.TestContent
+	35, // 42: tamp.v1.TestCorrected.content:type_name -> tamp.v1.TestContent
+	7,  // 43: tamp.v1.TestReviewed.decision:type_name -> tamp.v1.ReviewDecision
+	44, // [44:44] is the sub-list for method output_type
+	44, // [44:44] is the sub-list for method input_type
+	44, // [44:44] is the sub-list for extension type_name
+	44, // [44:44] is the sub-list for extension extendee
+	0,  // [0:44] is the sub-list for field type_name
 }
 
 func init() { file_tamp_v1_event_proto_init() }
@@ -3883,6 +4133,8 @@ func file_tamp_v1_event_proto_init() {
 		(*EventBody_TestVoided)(nil),
 		(*EventBody_TestReviewed)(nil),
 		(*EventBody_ExceptionAccepted)(nil),
+		(*EventBody_DeviceEnrolled)(nil),
+		(*EventBody_DeviceRevoked)(nil),
 	}
 	file_tamp_v1_event_proto_msgTypes[16].OneofWrappers = []any{}
 	file_tamp_v1_event_proto_msgTypes[21].OneofWrappers = []any{
@@ -3898,7 +4150,7 @@ func file_tamp_v1_event_proto_init() {
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_tamp_v1_event_proto_rawDesc), len(file_tamp_v1_event_proto_rawDesc)),
 			NumEnums:      8,
-			NumMessages:   33,
+			NumMessages:   35,
 			NumExtensions: 0,
 			NumServices:   0,
 		},

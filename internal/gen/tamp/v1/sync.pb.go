@@ -410,8 +410,12 @@ type PushResponse struct {
 	// The device's clock minus the server's when the batch arrived,
 	// microseconds; beyond the project's limit the batch's events are flagged.
 	ClockSkewMicros int64 `protobuf:"varint,3,opt,name=clock_skew_micros,json=clockSkewMicros,proto3" json:"clock_skew_micros,omitempty"`
-	unknownFields   protoimpl.UnknownFields
-	sizeCache       protoimpl.SizeCache
+	// Entries the project's ledger lacks, found through the prev_device_seq
+	// links of the entries it holds (at most a bounded number, oldest device
+	// sequence first). A device holding any of them pushes them.
+	Missing       []*MissingEntries `protobuf:"bytes,4,rep,name=missing,proto3" json:"missing,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
 }
 
 func (x *PushResponse) Reset() {
@@ -465,6 +469,83 @@ func (x *PushResponse) GetClockSkewMicros() int64 {
 	return 0
 }
 
+func (x *PushResponse) GetMissing() []*MissingEntries {
+	if x != nil {
+		return x.Missing
+	}
+	return nil
+}
+
+// MissingEntries names a gap in one device's entries of a project: the
+// ledger holds an entry whose prev_device_seq is through_device_seq, lacks
+// that entry, and holds none of the device's entries numbered above
+// after_device_seq and below it. A device pushes every entry it holds of
+// that device and project numbered in (after_device_seq,
+// through_device_seq].
+type MissingEntries struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The device that signed the missing entries.
+	DeviceId string `protobuf:"bytes,1,opt,name=device_id,json=deviceId,proto3" json:"device_id,omitempty"`
+	// The highest device sequence number below the gap that the ledger holds
+	// of this device and project; zero when it holds none.
+	AfterDeviceSeq uint64 `protobuf:"varint,2,opt,name=after_device_seq,json=afterDeviceSeq,proto3" json:"after_device_seq,omitempty"`
+	// The missing entry's device sequence number, named by a later entry.
+	ThroughDeviceSeq uint64 `protobuf:"varint,3,opt,name=through_device_seq,json=throughDeviceSeq,proto3" json:"through_device_seq,omitempty"`
+	unknownFields    protoimpl.UnknownFields
+	sizeCache        protoimpl.SizeCache
+}
+
+func (x *MissingEntries) Reset() {
+	*x = MissingEntries{}
+	mi := &file_tamp_v1_sync_proto_msgTypes[4]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *MissingEntries) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*MissingEntries) ProtoMessage() {}
+
+func (x *MissingEntries) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_sync_proto_msgTypes[4]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use MissingEntries.ProtoReflect.Descriptor instead.
+func (*MissingEntries) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_sync_proto_rawDescGZIP(), []int{4}
+}
+
+func (x *MissingEntries) GetDeviceId() string {
+	if x != nil {
+		return x.DeviceId
+	}
+	return ""
+}
+
+func (x *MissingEntries) GetAfterDeviceSeq() uint64 {
+	if x != nil {
+		return x.AfterDeviceSeq
+	}
+	return 0
+}
+
+func (x *MissingEntries) GetThroughDeviceSeq() uint64 {
+	if x != nil {
+		return x.ThroughDeviceSeq
+	}
+	return 0
+}
+
 // PullRequest asks for a project's ledger after a cursor.
 type PullRequest struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
@@ -486,7 +567,7 @@ type PullRequest struct {
 
 func (x *PullRequest) Reset() {
 	*x = PullRequest{}
-	mi := &file_tamp_v1_sync_proto_msgTypes[4]
+	mi := &file_tamp_v1_sync_proto_msgTypes[5]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -498,7 +579,7 @@ func (x *PullRequest) String() string {
 func (*PullRequest) ProtoMessage() {}
 
 func (x *PullRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_sync_proto_msgTypes[4]
+	mi := &file_tamp_v1_sync_proto_msgTypes[5]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -511,7 +592,7 @@ func (x *PullRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use PullRequest.ProtoReflect.Descriptor instead.
 func (*PullRequest) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_sync_proto_rawDescGZIP(), []int{4}
+	return file_tamp_v1_sync_proto_rawDescGZIP(), []int{5}
 }
 
 func (x *PullRequest) GetProjectId() string {
@@ -557,7 +638,7 @@ type LedgerEntry struct {
 
 func (x *LedgerEntry) Reset() {
 	*x = LedgerEntry{}
-	mi := &file_tamp_v1_sync_proto_msgTypes[5]
+	mi := &file_tamp_v1_sync_proto_msgTypes[6]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -569,7 +650,7 @@ func (x *LedgerEntry) String() string {
 func (*LedgerEntry) ProtoMessage() {}
 
 func (x *LedgerEntry) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_sync_proto_msgTypes[5]
+	mi := &file_tamp_v1_sync_proto_msgTypes[6]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -582,7 +663,7 @@ func (x *LedgerEntry) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use LedgerEntry.ProtoReflect.Descriptor instead.
 func (*LedgerEntry) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_sync_proto_rawDescGZIP(), []int{5}
+	return file_tamp_v1_sync_proto_rawDescGZIP(), []int{6}
 }
 
 func (x *LedgerEntry) GetSequence() uint64 {
@@ -629,7 +710,7 @@ type PullResponse struct {
 
 func (x *PullResponse) Reset() {
 	*x = PullResponse{}
-	mi := &file_tamp_v1_sync_proto_msgTypes[6]
+	mi := &file_tamp_v1_sync_proto_msgTypes[7]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -641,7 +722,7 @@ func (x *PullResponse) String() string {
 func (*PullResponse) ProtoMessage() {}
 
 func (x *PullResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_sync_proto_msgTypes[6]
+	mi := &file_tamp_v1_sync_proto_msgTypes[7]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -654,7 +735,7 @@ func (x *PullResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use PullResponse.ProtoReflect.Descriptor instead.
 func (*PullResponse) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_sync_proto_rawDescGZIP(), []int{6}
+	return file_tamp_v1_sync_proto_rawDescGZIP(), []int{7}
 }
 
 func (x *PullResponse) GetEntries() []*LedgerEntry {
@@ -717,11 +798,16 @@ const file_tamp_v1_sync_proto_rawDesc = "" +
 	"\x06reason\x18\x04 \x01(\x0e2\x15.tamp.v1.RejectReasonR\x06reason\x12\x18\n" +
 	"\amessage\x18\x05 \x01(\tR\amessage\x12\x1f\n" +
 	"\vwaiting_for\x18\x06 \x03(\tR\n" +
-	"waitingFor\"\x95\x01\n" +
+	"waitingFor\"\xc8\x01\n" +
 	"\fPushResponse\x120\n" +
 	"\boutcomes\x18\x01 \x03(\v2\x14.tamp.v1.PushOutcomeR\boutcomes\x12'\n" +
 	"\x04head\x18\x02 \x01(\v2\x13.tamp.v1.CheckpointR\x04head\x12*\n" +
-	"\x11clock_skew_micros\x18\x03 \x01(\x03R\x0fclockSkewMicros\"\xa8\x01\n" +
+	"\x11clock_skew_micros\x18\x03 \x01(\x03R\x0fclockSkewMicros\x121\n" +
+	"\amissing\x18\x04 \x03(\v2\x17.tamp.v1.MissingEntriesR\amissing\"\x85\x01\n" +
+	"\x0eMissingEntries\x12\x1b\n" +
+	"\tdevice_id\x18\x01 \x01(\tR\bdeviceId\x12(\n" +
+	"\x10after_device_seq\x18\x02 \x01(\x04R\x0eafterDeviceSeq\x12,\n" +
+	"\x12through_device_seq\x18\x03 \x01(\x04R\x10throughDeviceSeq\"\xa8\x01\n" +
 	"\vPullRequest\x12\x1d\n" +
 	"\n" +
 	"project_id\x18\x01 \x01(\tR\tprojectId\x12)\n" +
@@ -777,42 +863,44 @@ func file_tamp_v1_sync_proto_rawDescGZIP() []byte {
 }
 
 var file_tamp_v1_sync_proto_enumTypes = make([]protoimpl.EnumInfo, 2)
-var file_tamp_v1_sync_proto_msgTypes = make([]protoimpl.MessageInfo, 8)
+var file_tamp_v1_sync_proto_msgTypes = make([]protoimpl.MessageInfo, 9)
 var file_tamp_v1_sync_proto_goTypes = []any{
-	(PushStatus)(0),      // 0: tamp.v1.PushStatus
-	(RejectReason)(0),    // 1: tamp.v1.RejectReason
-	(*Checkpoint)(nil),   // 2: tamp.v1.Checkpoint
-	(*PushRequest)(nil),  // 3: tamp.v1.PushRequest
-	(*PushOutcome)(nil),  // 4: tamp.v1.PushOutcome
-	(*PushResponse)(nil), // 5: tamp.v1.PushResponse
-	(*PullRequest)(nil),  // 6: tamp.v1.PullRequest
-	(*LedgerEntry)(nil),  // 7: tamp.v1.LedgerEntry
-	(*PullResponse)(nil), // 8: tamp.v1.PullResponse
-	nil,                  // 9: tamp.v1.PullResponse.DeviceKeysEntry
-	(*Event)(nil),        // 10: tamp.v1.Event
+	(PushStatus)(0),        // 0: tamp.v1.PushStatus
+	(RejectReason)(0),      // 1: tamp.v1.RejectReason
+	(*Checkpoint)(nil),     // 2: tamp.v1.Checkpoint
+	(*PushRequest)(nil),    // 3: tamp.v1.PushRequest
+	(*PushOutcome)(nil),    // 4: tamp.v1.PushOutcome
+	(*PushResponse)(nil),   // 5: tamp.v1.PushResponse
+	(*MissingEntries)(nil), // 6: tamp.v1.MissingEntries
+	(*PullRequest)(nil),    // 7: tamp.v1.PullRequest
+	(*LedgerEntry)(nil),    // 8: tamp.v1.LedgerEntry
+	(*PullResponse)(nil),   // 9: tamp.v1.PullResponse
+	nil,                    // 10: tamp.v1.PullResponse.DeviceKeysEntry
+	(*Event)(nil),          // 11: tamp.v1.Event
 }
 var file_tamp_v1_sync_proto_depIdxs = []int32{
-	10, // 0: tamp.v1.PushRequest.events:type_name -> tamp.v1.Event
+	11, // 0: tamp.v1.PushRequest.events:type_name -> tamp.v1.Event
 	2,  // 1: tamp.v1.PushRequest.verified:type_name -> tamp.v1.Checkpoint
 	0,  // 2: tamp.v1.PushOutcome.status:type_name -> tamp.v1.PushStatus
 	1,  // 3: tamp.v1.PushOutcome.reason:type_name -> tamp.v1.RejectReason
 	4,  // 4: tamp.v1.PushResponse.outcomes:type_name -> tamp.v1.PushOutcome
 	2,  // 5: tamp.v1.PushResponse.head:type_name -> tamp.v1.Checkpoint
-	2,  // 6: tamp.v1.PullRequest.after:type_name -> tamp.v1.Checkpoint
-	10, // 7: tamp.v1.LedgerEntry.event:type_name -> tamp.v1.Event
-	7,  // 8: tamp.v1.PullResponse.entries:type_name -> tamp.v1.LedgerEntry
-	2,  // 9: tamp.v1.PullResponse.head:type_name -> tamp.v1.Checkpoint
-	9,  // 10: tamp.v1.PullResponse.device_keys:type_name -> tamp.v1.PullResponse.DeviceKeysEntry
-	2,  // 11: tamp.v1.PullResponse.anchor:type_name -> tamp.v1.Checkpoint
-	3,  // 12: tamp.v1.SyncService.Push:input_type -> tamp.v1.PushRequest
-	6,  // 13: tamp.v1.SyncService.Pull:input_type -> tamp.v1.PullRequest
-	5,  // 14: tamp.v1.SyncService.Push:output_type -> tamp.v1.PushResponse
-	8,  // 15: tamp.v1.SyncService.Pull:output_type -> tamp.v1.PullResponse
-	14, // [14:16] is the sub-list for method output_type
-	12, // [12:14] is the sub-list for method input_type
-	12, // [12:12] is the sub-list for extension type_name
-	12, // [12:12] is the sub-list for extension extendee
-	0,  // [0:12] is the sub-list for field type_name
+	6,  // 6: tamp.v1.PushResponse.missing:type_name -> tamp.v1.MissingEntries
+	2,  // 7: tamp.v1.PullRequest.after:type_name -> tamp.v1.Checkpoint
+	11, // 8: tamp.v1.LedgerEntry.event:type_name -> tamp.v1.Event
+	8,  // 9: tamp.v1.PullResponse.entries:type_name -> tamp.v1.LedgerEntry
+	2,  // 10: tamp.v1.PullResponse.head:type_name -> tamp.v1.Checkpoint
+	10, // 11: tamp.v1.PullResponse.device_keys:type_name -> tamp.v1.PullResponse.DeviceKeysEntry
+	2,  // 12: tamp.v1.PullResponse.anchor:type_name -> tamp.v1.Checkpoint
+	3,  // 13: tamp.v1.SyncService.Push:input_type -> tamp.v1.PushRequest
+	7,  // 14: tamp.v1.SyncService.Pull:input_type -> tamp.v1.PullRequest
+	5,  // 15: tamp.v1.SyncService.Push:output_type -> tamp.v1.PushResponse
+	9,  // 16: tamp.v1.SyncService.Pull:output_type -> tamp.v1.PullResponse
+	15, // [15:17] is the sub-list for method output_type
+	13, // [13:15] is the sub-list for method input_type
+	13, // [13:13] is the sub-list for extension type_name
+	13, // [13:13] is the sub-list for extension extendee
+	0,  // [0:13] is the sub-list for field type_name
 }
 
 func init() { file_tamp_v1_sync_proto_init() }
@@ -827,7 +915,7 @@ func file_tamp_v1_sync_proto_init() {
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_tamp_v1_sync_proto_rawDesc), len(file_tamp_v1_sync_proto_rawDesc)),
 			NumEnums:      2,
-			NumMessages:   8,
+			NumMessages:   9,
 			NumExtensions: 0,
 			NumServices:   1,
 		},

@@ -1,0 +1,320 @@
+package server_test
+
+import (
+	"context"
+	"crypto/ed25519"
+	"slices"
+	"strings"
+	"testing"
+
+	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/status"
+	"google.golang.org/protobuf/reflect/protoreflect"
+
+	pb "tamp/internal/gen/tamp/v1"
+	"tamp/internal/ledger"
+	"tamp/internal/soil"
+	"tamp/server"
+)
+
+// documentedEntryRoles is the role table as the README states it: which
+// roles may make each kind of entry. A kind with no roles is made by the
+// server itself, never pushed by a member.
+var documentedEntryRoles = map[string][]server.Role{
+	"project_set_up":          {server.Admin},
+	"spec_defined":            {server.QA},
+	"reference_added":         {server.QA},
+	"borrow_source_measured":  {server.QA},
+	"moisture_correction_set": {server.QA},
+	"equipment_registered":    {server.Office, server.QA},
+	"standard_count_recorded": {server.Inspector},
+	"lift_placement_recorded": {server.Office},
+	"haul_recorded":           {server.Office},
+	"test_recorded":           {server.Inspector},
+	"test_corrected":          {server.Inspector},
+	"test_voided":             {server.Inspector},
+	"test_reviewed":           {server.Office, server.QA},
+	"exception_accepted":      {server.QA},
+}
+
+var allRoles = []server.Role{server.Inspector, server.Office, server.QA, server.Admin}
+
+// Every (role, entry kind) cell of the role table, pushed as a real signed
+// entry through a real server: the server allows exactly the documented
+// cells, and refuses the others as role_may_make_entry (or, for a server
+// administrator without a role on the project, member_of_project).
+func TestRoleTableCells(t *testing.T) {
+	c := startCluster(t, t.TempDir())
+	a := c.newProject("Quarry Road embankment")
+	ctx := context.Background()
+	adm := c.rawDevice(t, "Ada", map[string]server.Role{a: server.Admin}, false)
+	qa := c.rawDevice(t, "Quinn", map[string]server.Role{a: server.QA}, false)
+	insp := c.rawDevice(t, "Ines", map[string]server.Role{a: server.Inspector}, false)
+	gauge, borrow := newV7(), newV7()
+	shared := &ledger.TestRecorded{TestID: newV7(), Content: ledger.TestContent{Readings: sandCone(110, 12)}}
+	var sharedRev string
+	for _, ev := range []struct {
+		d *rawDevice
+		k ledger.Kind
+	}{
+		{adm, &ledger.ProjectSetUp{Name: "Quarry Road embankment", Units: soil.US}},
+		{qa, &ledger.EquipmentRegistered{ID: gauge, Kind: ledger.NuclearGauge, SerialNumber: "G-7"}},
+		{qa, &ledger.BorrowSourceMeasured{ID: borrow, Name: "north pit", BankTests: []ledger.Readings{sandCone(100, 9)}}},
+		{insp, shared},
+	} {
+		s := ev.d.sign(t, a, ev.k)
+		if o := ev.d.first(t, c, a, s); o.GetStatus() != pb.PushStatus_PUSH_STATUS_ACCEPTED {
+			t.Fatalf("fixture %s: %v", ev.k.KindName(), o)
+		}
+		if ev.k == shared {
+			sharedRev = s.Event.ID
+		}
+	}
+
+	// Each member records two tests of their own as an inspector, then takes
+	// their role: corrections and voids are tried on their own tests,
+	// reviews and exceptions on another inspector's.
+	type member struct {
+		d          *rawDevice
+		fix, void  string // own tests
+		fixRev     string
+		content    ledger.TestContent
+		serverOnly bool // a server administrator with no role on the project
+	}
+	members := map[server.Role]*member{}
+	for _, r := range allRoles {
+		m := &member{d: c.rawDevice(t, "member "+string(r), map[string]server.Role{a: server.Inspector}, false),
+			content: ledger.TestContent{Readings: sandCone(108, 12)}}
+		m.fix, m.void = newV7(), newV7()
+		fix := m.d.sign(t, a, &ledger.TestRecorded{TestID: m.fix, Content: m.content})
+		void := m.d.sign(t, a, &ledger.TestRecorded{TestID: m.void, Content: m.content})
+		resp, err := m.d.push(t, c, a, fix, void)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, o := range resp.GetOutcomes() {
+			if o.GetStatus() != pb.PushStatus_PUSH_STATUS_ACCEPTED {
+				t.Fatalf("own test of %s: %v", r, o)
+			}
+		}
+		m.fixRev = fix.Event.ID
+		if err := c.srv.AddMember(ctx, a, m.d.user, r); err != nil {
+			t.Fatal(err)
+		}
+		members[r] = m
+	}
+	root := &member{d: c.rawDevice(t, "Rosa root", nil, true), serverOnly: true}
+
+	makers := map[string]func(m *member) ledger.Kind{
+		"project_set_up": func(*member) ledger.Kind { return &ledger.ProjectSetUp{Name: "Quarry Road embankment", Units: soil.US} },
+		"spec_defined": func(*member) ledger.Kind {
+			return &ledger.SpecDefined{ID: newV7(), Name: "embankment", MinCompaction: "95"}
+		},
+		"reference_added": func(*member) ledger.Kind {
+			return &ledger.ReferenceAdded{ID: newV7(), Procedure: soil.Procedure{Standard: soil.ASTMD698, Method: "A"}, MaxDryDensity: 1850, OptimumMoisture: 13}
+		},
+		"borrow_source_measured": func(*member) ledger.Kind {
+			return &ledger.BorrowSourceMeasured{ID: newV7(), Name: "south pit", BankTests: []ledger.Readings{sandCone(100, 9)}}
+		},
+		"moisture_correction_set": func(*member) ledger.Kind {
+			return &ledger.MoistureCorrectionSet{ID: newV7(), EquipmentID: gauge, ReferenceID: borrow, Correction: soil.MoistureCorrection{Kind: soil.Offset, Value: 1}}
+		},
+		"equipment_registered": func(*member) ledger.Kind {
+			return &ledger.EquipmentRegistered{ID: newV7(), Kind: ledger.NuclearGauge, SerialNumber: "G-8"}
+		},
+		"standard_count_recorded": func(*member) ledger.Kind {
+			return &ledger.StandardCountRecorded{EquipmentID: gauge, Date: "2026-10-05", DensityCount: 2800, MoistureCount: 700, Accepted: true}
+		},
+		"lift_placement_recorded": func(*member) ledger.Kind {
+			return &ledger.LiftPlacementRecorded{ID: newV7(), Feature: "embankment", Thickness: 0.2, CompactedVolume: 100}
+		},
+		"haul_recorded": func(*member) ledger.Kind {
+			return &ledger.HaulRecorded{ID: newV7(), BorrowSourceID: borrow, Loads: 3, LooseVolumePerLoad: 10}
+		},
+		"test_recorded": func(*member) ledger.Kind {
+			return &ledger.TestRecorded{TestID: newV7(), Content: ledger.TestContent{Readings: sandCone(110, 12)}}
+		},
+		"test_corrected": func(m *member) ledger.Kind {
+			if m.serverOnly {
+				return &ledger.TestCorrected{TestID: shared.TestID, Supersedes: sharedRev, Reason: "typo", Content: shared.Content}
+			}
+			return &ledger.TestCorrected{TestID: m.fix, Supersedes: m.fixRev, Reason: "typo in the mass", Content: m.content}
+		},
+		"test_voided": func(m *member) ledger.Kind {
+			if m.serverOnly {
+				return &ledger.TestVoided{TestID: shared.TestID, Reason: "wrong lift"}
+			}
+			return &ledger.TestVoided{TestID: m.void, Reason: "wrong lift"}
+		},
+		"test_reviewed": func(*member) ledger.Kind {
+			return &ledger.TestReviewed{TestID: shared.TestID, Revision: sharedRev, Decision: ledger.Approve}
+		},
+		"exception_accepted": func(*member) ledger.Kind {
+			return &ledger.ExceptionAccepted{TestID: shared.TestID, Revision: sharedRev, Reason: "accepted by the engineer of record"}
+		},
+	}
+
+	kinds := (&pb.EventBody{}).ProtoReflect().Descriptor().Oneofs().ByName("kind").Fields()
+	for i := range kinds.Len() {
+		kind := string(kinds.Get(i).Name())
+		documented, ok := documentedEntryRoles[kind]
+		if !ok {
+			t.Errorf("entry kind %s is missing from the documented role table", kind)
+			continue
+		}
+		if got := server.EntryRoles(kind); !sameRoles(got, documented) {
+			t.Errorf("EntryRoles(%s) = %v, the documented table says %v", kind, got, documented)
+		}
+		make, ok := makers[kind]
+		if !ok {
+			t.Errorf("entry kind %s has no entry for this test to push", kind)
+			continue
+		}
+		for _, r := range allRoles {
+			t.Run(kind+"/"+string(r), func(t *testing.T) {
+				m := members[r]
+				want := slices.Contains(documented, r)
+				o := m.d.first(t, c, a, m.d.sign(t, a, make(m)))
+				got := o.GetStatus() == pb.PushStatus_PUSH_STATUS_ACCEPTED
+				if got != want {
+					t.Errorf("%s by a member with the role %s: %v %s, want allowed=%v", kind, r, o.GetStatus(), o.GetMessage(), want)
+				}
+				if !want && (o.GetReason() != pb.RejectReason_REJECT_REASON_PERMISSION_DENIED || !strings.Contains(o.GetMessage(), "role_may_make_entry")) {
+					t.Errorf("%s by %s: refused for %v (%s), want permission denied (role_may_make_entry)", kind, r, o.GetReason(), o.GetMessage())
+				}
+			})
+		}
+		t.Run(kind+"/server administrator without a role", func(t *testing.T) {
+			o := root.d.first(t, c, a, root.d.sign(t, a, make(root)))
+			if o.GetReason() != pb.RejectReason_REJECT_REASON_PERMISSION_DENIED || !strings.Contains(o.GetMessage(), "member_of_project") {
+				t.Errorf("%s by a server administrator with no role: %v %s, want permission denied (member_of_project)", kind, o.GetStatus(), o.GetMessage())
+			}
+		})
+	}
+	for kind := range documentedEntryRoles {
+		if kinds.ByName(protoreflect.Name(kind)) == nil {
+			t.Errorf("the documented role table names %s, which the wire format lacks", kind)
+		}
+	}
+}
+
+func sameRoles(a, b []server.Role) bool {
+	a, b = slices.Clone(a), slices.Clone(b)
+	slices.Sort(a)
+	slices.Sort(b)
+	return slices.Equal(a, b)
+}
+
+// adminCase is one administration call made by each kind of caller.
+type adminCase struct {
+	method  string
+	allowed []string // the callers that may make it
+	// call makes the call as the device of caller who; for who == "self",
+	// as the device of the user the call concerns, which call creates.
+	call func(t *testing.T, who string) error
+}
+
+// The callers of the administration calls: a server administrator with no
+// role on the project, the project's members by role, an administrator of
+// another project, and the user the call concerns.
+var adminCallers = []string{"server admin", "admin", "qa", "office", "inspector", "other project's admin", "self"}
+
+// Every administration call by every kind of caller, through a real
+// server, against the documented table of who may make it.
+func TestAdminCallTable(t *testing.T) {
+	c := startCluster(t, t.TempDir())
+	a := c.newProject("Quarry Road embankment")
+	b := c.newProject("Heron Slough levee")
+	ctx := context.Background()
+	devs := map[string]*rawDevice{
+		"server admin":          c.rawDevice(t, "Rosa root", nil, true),
+		"other project's admin": c.rawDevice(t, "Otto", map[string]server.Role{b: server.Admin}, false),
+	}
+	for _, r := range allRoles {
+		devs[string(r)] = c.rawDevice(t, "member "+string(r), map[string]server.Role{a: r}, false)
+	}
+	ac := pb.NewAdminServiceClient(c.conn(""))
+	// caller returns the device that calls as who; self is the device of
+	// the user the call concerns.
+	caller := func(who string, self *rawDevice) *rawDevice {
+		if who == "self" {
+			return self
+		}
+		return devs[who]
+	}
+	// inspectorOfA is a new user who is an inspector of A only, with a device.
+	inspectorOfA := func(t *testing.T) *rawDevice {
+		return c.rawDevice(t, "Ivy", map[string]server.Role{a: server.Inspector}, false)
+	}
+	cases := []adminCase{
+		{pb.AdminService_CreateProject_FullMethodName, []string{"server admin"}, func(t *testing.T, who string) error {
+			_, err := ac.CreateProject(caller(who, inspectorOfA(t)).ctx(), &pb.CreateProjectRequest{Name: "Cedar Bench pad"})
+			return err
+		}},
+		{pb.AdminService_AddMember_FullMethodName, []string{"server admin", "admin"}, func(t *testing.T, who string) error {
+			_, err := ac.AddMember(caller(who, inspectorOfA(t)).ctx(), &pb.AddMemberRequest{ProjectId: a, UserName: "Nell new", Role: pb.Role_ROLE_INSPECTOR})
+			return err
+		}},
+		{pb.AdminService_ListMembers_FullMethodName, []string{"server admin", "admin", "qa", "office", "inspector", "self"}, func(t *testing.T, who string) error {
+			_, err := ac.ListMembers(caller(who, inspectorOfA(t)).ctx(), &pb.ListMembersRequest{ProjectId: a})
+			return err
+		}},
+		{pb.AdminService_IssueEnrollmentCode_FullMethodName, []string{"server admin", "admin"}, func(t *testing.T, who string) error {
+			self := inspectorOfA(t)
+			_, err := ac.IssueEnrollmentCode(caller(who, self).ctx(), &pb.IssueEnrollmentCodeRequest{UserId: self.user})
+			return err
+		}},
+		{pb.AdminService_EnrollDevice_FullMethodName, adminCallers, func(t *testing.T, who string) error {
+			self := inspectorOfA(t)
+			code, _, err := c.srv.IssueEnrollmentCode(ctx, self.user)
+			if err != nil {
+				t.Fatal(err)
+			}
+			pub, _, _ := ed25519.GenerateKey(nil)
+			_, err = ac.EnrollDevice(caller(who, self).ctx(), &pb.EnrollDeviceRequest{Code: code, DeviceId: newV7(), PublicKey: pub})
+			return err
+		}},
+		{pb.AdminService_RevokeDevice_FullMethodName, []string{"server admin", "self"}, func(t *testing.T, who string) error {
+			self := inspectorOfA(t)
+			_, err := ac.RevokeDevice(caller(who, self).ctx(), &pb.RevokeDeviceRequest{DeviceId: self.id, Reason: "tablet lost"})
+			return err
+		}},
+		{pb.AdminService_ListDevices_FullMethodName, []string{"server admin", "self"}, func(t *testing.T, who string) error {
+			self := inspectorOfA(t)
+			_, err := ac.ListDevices(caller(who, self).ctx(), &pb.ListDevicesRequest{UserId: self.user})
+			return err
+		}},
+	}
+	byMethod := map[string]adminCase{}
+	for _, k := range cases {
+		byMethod[k.method] = k
+	}
+	methods := pb.File_tamp_v1_admin_proto.Services().ByName("AdminService").Methods()
+	for i := range methods.Len() {
+		name := "/tamp.v1.AdminService/" + string(methods.Get(i).Name())
+		k, ok := byMethod[name]
+		if !ok {
+			t.Errorf("administration call %s is missing from the documented table", name)
+			continue
+		}
+		for _, who := range adminCallers {
+			t.Run(string(methods.Get(i).Name())+"/"+who, func(t *testing.T) {
+				want := slices.Contains(k.allowed, who)
+				err := k.call(t, who)
+				if want != (err == nil) {
+					t.Errorf("%s by %s: %v, want allowed=%v", name, who, err, want)
+				}
+				if err != nil && status.Code(err) != codes.PermissionDenied {
+					t.Errorf("%s by %s: code %v, want PermissionDenied", name, who, status.Code(err))
+				}
+			})
+		}
+	}
+	// Listing every device is a server administrator's alone.
+	for who, d := range devs {
+		_, err := ac.ListDevices(d.ctx(), &pb.ListDevicesRequest{})
+		if (who == "server admin") != (err == nil) {
+			t.Errorf("list all devices by %s: %v", who, err)
+		}
+	}
+}
