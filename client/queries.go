@@ -2,8 +2,11 @@ package client
 
 import (
 	"context"
+	"database/sql"
+	"errors"
 	"fmt"
 	"slices"
+	"strings"
 	"time"
 
 	"tamp/internal/ledger"
@@ -196,5 +199,78 @@ func (s *Store) KnownProjects(ctx context.Context) ([]string, error) {
 		out = append(out, p)
 	}
 	slices.Sort(out)
+	return out, nil
+}
+
+// serverCopyStatus fills what st says of the server's copy of the
+// project: entries acknowledged and not yet confirmed, entries the server
+// lacks, entries it asked for that this device does not hold, and entries
+// that have waited longer than the store's wait limit.
+func (s *Store) serverCopyStatus(ctx context.Context, project string, st *SyncStatus) error {
+	r := s.db.Reader()
+	if err := r.QueryRowContext(ctx, `SELECT COUNT(*) FILTER (WHERE server_lacks = 0), COUNT(*) FILTER (WHERE server_lacks = 1)
+		FROM events WHERE project_id = ? AND confirmed = 0 AND status = 'accepted'`, project).Scan(&st.Unconfirmed, &st.ServerLacks); err != nil {
+		return fmt.Errorf("client: sync status: %w", err)
+	}
+	rows, err := r.QueryContext(ctx, `SELECT device_id, device_seq FROM server_missing WHERE project_id = ? ORDER BY device_id, device_seq`, project)
+	if err != nil {
+		return fmt.Errorf("client: sync status: %w", err)
+	}
+	defer rows.Close()
+	for rows.Next() {
+		var m MissingEntry
+		if err := rows.Scan(&m.Device, &m.Seq); err != nil {
+			return fmt.Errorf("client: sync status: %w", err)
+		}
+		st.ServerMissing = append(st.ServerMissing, m)
+	}
+	if err := rows.Err(); err != nil {
+		return fmt.Errorf("client: sync status: %w", err)
+	}
+	st.LongWaiting, err = s.longWaiting(ctx, project)
+	return err
+}
+
+// longWaiting returns the entries that have waited longer than the wait
+// limit for records the server lacks, longest first, each with the records
+// it waits for and, when this device holds an entry that makes one, its
+// kind.
+func (s *Store) longWaiting(ctx context.Context, project string) ([]WaitingEntry, error) {
+	r := s.db.Reader()
+	rows, err := r.QueryContext(ctx, `SELECT event_id, kind, record_id, waiting_for, waiting_since_micros FROM events
+		WHERE project_id = ? AND waiting_since_micros > 0 AND waiting_since_micros <= ? AND status NOT IN ('rejected', 'discarded')
+		ORDER BY waiting_since_micros, event_id`, project, s.now().Add(-s.waitLimit).UnixMicro())
+	if err != nil {
+		return nil, fmt.Errorf("client: waiting entries: %w", err)
+	}
+	var out []WaitingEntry
+	for rows.Next() {
+		var w WaitingEntry
+		var waitingFor string
+		var since int64
+		if err := rows.Scan(&w.EventID, &w.Kind, &w.RecordID, &waitingFor, &since); err != nil {
+			rows.Close()
+			return nil, fmt.Errorf("client: waiting entries: %w", err)
+		}
+		w.Since = time.UnixMicro(since).UTC()
+		for _, id := range strings.Fields(waitingFor) {
+			w.For = append(w.For, WaitedRecord{ID: id})
+		}
+		out = append(out, w)
+	}
+	rows.Close()
+	if err := rows.Err(); err != nil {
+		return nil, fmt.Errorf("client: waiting entries: %w", err)
+	}
+	for i := range out {
+		for j := range out[i].For {
+			rec := &out[i].For[j]
+			err := r.QueryRowContext(ctx, `SELECT kind FROM events WHERE project_id = ? AND record_id = ?
+				ORDER BY hlc_wall, hlc_logical, device_id, event_id LIMIT 1`, project, rec.ID).Scan(&rec.Kind)
+			if err != nil && !errors.Is(err, sql.ErrNoRows) {
+				return nil, fmt.Errorf("client: waiting entries: %w", err)
+			}
+		}
+	}
 	return out, nil
 }

@@ -54,9 +54,10 @@ type Options struct {
 // Store is a device's local store: its identity, every event it holds, and
 // the project views computed from them. It is safe for concurrent use.
 type Store struct {
-	db   *sqlite.DB
-	now  func() time.Time
-	rand io.Reader
+	db        *sqlite.DB
+	now       func() time.Time
+	rand      io.Reader
+	waitLimit time.Duration
 
 	mu       sync.Mutex
 	closed   bool
@@ -73,7 +74,10 @@ type Store struct {
 // use, migrating its schema, and rebuilding the project views from its
 // events.
 func Open(ctx context.Context, path string, opts Options) (*Store, error) {
-	s := &Store{now: opts.Now, rand: opts.Rand, views: map[string]*ledger.Projection{}}
+	s := &Store{now: opts.Now, rand: opts.Rand, waitLimit: opts.WaitLimit, views: map[string]*ledger.Projection{}}
+	if s.waitLimit <= 0 {
+		s.waitLimit = 24 * time.Hour
+	}
 	if s.now == nil {
 		s.now = time.Now
 	}
@@ -253,8 +257,16 @@ func (s *Store) record(ctx context.Context, project string, k ledger.Kind) (ledg
 	if err := s.notOwnTest(project, k); err != nil {
 		return ledger.Signed{}, ledger.Outcome{}, err
 	}
+	// The link to the device's previous entry in the project lets the
+	// server find entries it lacks; entries the server refused are not in
+	// its ledger, so the link skips them.
+	var prev uint64
+	if err := s.db.Reader().QueryRowContext(ctx, `SELECT COALESCE(MAX(device_seq), 0) FROM events
+		WHERE project_id = ? AND device_id = ? AND status NOT IN ('rejected', 'discarded')`, project, s.deviceID).Scan(&prev); err != nil {
+		return ledger.Signed{}, ledger.Outcome{}, fmt.Errorf("client: record %s: %w", k.KindName(), err)
+	}
 	now := s.now().UTC().Truncate(time.Microsecond)
-	e := ledger.Event{ID: s.NewID(), Project: project, Author: s.user, Device: s.deviceID, DeviceSeq: s.seq + 1,
+	e := ledger.Event{ID: s.NewID(), Project: project, Author: s.user, Device: s.deviceID, DeviceSeq: s.seq + 1, PrevDeviceSeq: prev,
 		HLC: s.clock.Now(), DeviceTime: now, Kind: k}
 	signed, err := ledger.Seal(e, s.key)
 	if err != nil {

@@ -31,24 +31,6 @@ var ErrFork = errors.New("client: the server's ledger forked from what this devi
 // revoked. Its pending entries stay in the store and are listed by Outbox.
 var ErrRevoked = errors.New("client: the server revoked this device")
 
-// Enroll registers the device with a server using a one-time code, keeping
-// the bearer token and the user the server enrolled it for.
-func (s *Store) Enroll(ctx context.Context, conn grpc.ClientConnInterface, code, name string) error {
-	resp, err := pb.NewAdminServiceClient(conn).EnrollDevice(ctx, &pb.EnrollDeviceRequest{
-		Code: code, DeviceId: s.deviceID, PublicKey: s.PublicKey(), DeviceName: name})
-	if err != nil {
-		return fmt.Errorf("client: enrol: %w", err)
-	}
-	s.mu.Lock()
-	defer s.mu.Unlock()
-	if _, err := s.db.Writer().ExecContext(ctx, `UPDATE device SET token = ?, user_id = ? WHERE id = 1`, resp.GetToken(), resp.GetUserId()); err != nil {
-		return fmt.Errorf("client: store token: %w", err)
-	}
-	s.user = resp.GetUserId()
-	s.enrolled = resp.GetProjectIds()
-	return nil
-}
-
 // EnrolledProjects returns the projects the server listed at enrolment.
 func (s *Store) EnrolledProjects() []string {
 	s.mu.Lock()
@@ -177,6 +159,9 @@ func (s *Store) Status(ctx context.Context, project string) (SyncStatus, error) 
 	if oldest.Valid {
 		st.Outbox.Oldest = time.UnixMicro(oldest.Int64).UTC()
 	}
+	if err := s.serverCopyStatus(ctx, project, &st); err != nil {
+		return st, err
+	}
 	return st, nil
 }
 
@@ -270,6 +255,9 @@ func retry(ctx context.Context, o SyncOptions, call func() error) error {
 func (s *Store) Sync(ctx context.Context, conn grpc.ClientConnInterface, project string, opts SyncOptions) (SyncReport, error) {
 	opts.defaults()
 	rep, err := s.sync(ctx, conn, project, opts)
+	if s.resumable(err) && s.Resume(ctx, conn) == nil {
+		rep, err = s.sync(ctx, conn, project, opts)
+	}
 	if status.Code(err) == codes.Unauthenticated && strings.Contains(err.Error(), "revoked") {
 		err = fmt.Errorf("%w: %w", ErrRevoked, err)
 	}
@@ -313,7 +301,7 @@ func (s *Store) pullPhase(ctx context.Context, sc pb.SyncServiceClient, project 
 			return err
 		}
 		rep.NewEpoch = ne.epoch
-		if err := s.resetCheckpoint(ctx, ledger.Start(project, ne.epoch)); err != nil {
+		if err := s.restartChain(ctx, ledger.Start(project, ne.epoch)); err != nil {
 			return err
 		}
 	}
@@ -327,7 +315,7 @@ func (s *Store) pullPhase(ctx context.Context, sc pb.SyncServiceClient, project 
 	}
 	if head.Epoch > 0 {
 		rep.NewEpoch = head.Epoch
-		if err := s.resetCheckpoint(ctx, ledger.Start(project, head.Epoch)); err != nil {
+		if err := s.restartChain(ctx, ledger.Start(project, head.Epoch)); err != nil {
 			return err
 		}
 	}
@@ -338,6 +326,21 @@ func (s *Store) resetCheckpoint(ctx context.Context, cp ledger.Checkpoint) error
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	return s.db.Tx(ctx, func(tx *sql.Tx) error { return saveCheckpoint(ctx, tx, cp) })
+}
+
+// restartChain starts verifying the server's ledger again from cp, the
+// start of a new epoch: nothing the device holds is confirmed in it until
+// pulled again, and acknowledgements of the old epoch no longer count.
+func (s *Store) restartChain(ctx context.Context, cp ledger.Checkpoint) error {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.db.Tx(ctx, func(tx *sql.Tx) error {
+		if _, err := tx.ExecContext(ctx, `UPDATE events SET confirmed = 0, server_lacks = 0, server_seq = NULL WHERE project_id = ?`,
+			cp.Project); err != nil {
+			return fmt.Errorf("client: restart the chain of %s: %w", cp.Project, err)
+		}
+		return saveCheckpoint(ctx, tx, cp)
+	})
 }
 
 // maxBatchBytes bounds the events of one push, well under the server's
@@ -367,16 +370,27 @@ func batches(events []outboxEvent, n int) [][]outboxEvent {
 type outboxEvent struct {
 	id        string
 	body, sig []byte
+	acked     bool   // the server acknowledged it before: this is an offer again
+	seq       uint64 // its device sequence number
 }
 
+// outbox returns what a push offers the server: the pending and waiting
+// entries, and every entry the server acknowledged (or the device pulled)
+// that the device has not seen in the chain it verified, in hybrid time
+// order. With all, it returns every entry the device holds.
 func (s *Store) outbox(ctx context.Context, project string, all bool) ([]outboxEvent, error) {
-	q := `SELECT event_id, body, signature FROM events WHERE project_id = ? AND origin = 'local' AND status IN ('pending', 'waiting')
-		ORDER BY device_seq`
+	q := `SELECT event_id, body, signature, status = 'accepted', device_seq FROM events WHERE project_id = ? AND confirmed = 0
+		AND (status = 'accepted' OR origin = 'local' AND status IN ('pending', 'waiting'))
+		ORDER BY hlc_wall, hlc_logical, device_id, event_id`
 	if all {
-		q = `SELECT event_id, body, signature FROM events WHERE project_id = ? AND status NOT IN ('rejected', 'discarded')
+		q = `SELECT event_id, body, signature, status = 'accepted', device_seq FROM events WHERE project_id = ? AND status NOT IN ('rejected', 'discarded')
 		ORDER BY hlc_wall, hlc_logical, device_id, event_id`
 	}
-	rows, err := s.db.Reader().QueryContext(ctx, q, project)
+	return s.offers(ctx, q, project)
+}
+
+func (s *Store) offers(ctx context.Context, q string, args ...any) ([]outboxEvent, error) {
+	rows, err := s.db.Reader().QueryContext(ctx, q, args...)
 	if err != nil {
 		return nil, fmt.Errorf("client: outbox: %w", err)
 	}
@@ -384,7 +398,7 @@ func (s *Store) outbox(ctx context.Context, project string, all bool) ([]outboxE
 	var out []outboxEvent
 	for rows.Next() {
 		var e outboxEvent
-		if err := rows.Scan(&e.id, &e.body, &e.sig); err != nil {
+		if err := rows.Scan(&e.id, &e.body, &e.sig, &e.acked, &e.seq); err != nil {
 			return nil, fmt.Errorf("client: outbox: %w", err)
 		}
 		out = append(out, e)
@@ -392,34 +406,59 @@ func (s *Store) outbox(ctx context.Context, project string, all bool) ([]outboxE
 	return out, rows.Err()
 }
 
-// pushOutbox pushes the pending and waiting events in batches, again while
-// events that waited for others get accepted, and records each outcome.
+// pushOutbox pushes the outbox in batches: the pending and waiting entries,
+// and those the server acknowledged that the device has not seen in the
+// chain it verified after cp (a server restored from an older copy lost
+// them). It pushes again while entries that waited for others get
+// accepted, and while the server asks for entries (a gap in a device's
+// sequence) that the device holds and has not yet offered in this sync. It
+// records each outcome, and the entries asked for that it does not hold.
 func (s *Store) pushOutbox(ctx context.Context, sc pb.SyncServiceClient, project string, cp ledger.Checkpoint, opts SyncOptions, rep *SyncReport) (ledger.Checkpoint, error) {
 	var head ledger.Checkpoint
+	offered := map[string]bool{} // entries offered in this sync and settled or asked for
+	var asked []outboxEvent
 	for round := 0; round < 8; round++ {
 		events, err := s.outbox(ctx, project, false)
 		if err != nil {
 			return head, err
 		}
+		events = slices.DeleteFunc(events, func(e outboxEvent) bool { return offered[e.id] })
+		for _, e := range asked {
+			if !slices.ContainsFunc(events, func(o outboxEvent) bool { return o.id == e.id }) {
+				events = append(events, e)
+			}
+		}
 		accepted := 0
 		var sent int
 		var bytes int64
 		waitingLeft := 0
+		var missing []*pb.MissingEntries
 		for _, batch := range batches(events, opts.BatchSize) {
 			req := &pb.PushRequest{ProjectId: project, DeviceTimeMicros: s.now().UnixMicro(), Verified: ledger.CheckpointToProto(cp)}
+			acked := map[string]bool{}
 			for _, e := range batch {
 				req.Events = append(req.Events, &pb.Event{Body: e.body, Signature: e.sig})
 				bytes += int64(len(e.body) + len(e.sig))
+				acked[e.id] = e.acked
 			}
 			var resp *pb.PushResponse
 			if err := retry(ctx, opts, func() (err error) { resp, err = sc.Push(ctx, req); return err }); err != nil {
 				return head, fmt.Errorf("client: push: %w", err)
 			}
 			head = ledger.CheckpointFromProto(resp.GetHead())
+			missing = resp.GetMissing() // the latest list is the server's latest knowledge
 			rep.ClockSkew = time.Duration(resp.GetClockSkewMicros()) * time.Microsecond
-			n, w, err := s.recordOutcomes(ctx, resp.GetOutcomes(), rep)
+			n, w, err := s.recordOutcomes(ctx, resp.GetOutcomes(), cp, head, rep)
 			if err != nil {
 				return head, err
+			}
+			for _, o := range resp.GetOutcomes() {
+				if o.GetStatus() != pb.PushStatus_PUSH_STATUS_WAITING {
+					offered[o.GetEventId()] = true
+				}
+				if o.GetStatus() == pb.PushStatus_PUSH_STATUS_ACCEPTED && acked[o.GetEventId()] {
+					rep.Repushed++ // the server had lost it
+				}
 			}
 			accepted += n
 			waitingLeft += w
@@ -428,18 +467,73 @@ func (s *Store) pushOutbox(ctx context.Context, sc pb.SyncServiceClient, project
 				opts.Progress(Progress{Phase: "push", Events: sent, Bytes: bytes, Total: len(events)})
 			}
 		}
-		if waitingLeft == 0 || accepted == 0 {
+		if asked, err = s.supply(ctx, project, missing, offered); err != nil {
+			return head, err
+		}
+		for _, e := range asked {
+			offered[e.id] = true
+		}
+		rep.Supplied += len(asked)
+		if (waitingLeft == 0 || accepted == 0) && len(asked) == 0 {
 			break
 		}
 	}
 	return head, nil
 }
 
-// recordOutcomes stores what the server said of each pushed event.
-func (s *Store) recordOutcomes(ctx context.Context, outs []*pb.PushOutcome, rep *SyncReport) (accepted, waiting int, err error) {
+// supply returns the entries this device holds that the server listed as
+// missing and that it has not offered in this sync, and records the listed
+// entries it does not hold, for Status.
+func (s *Store) supply(ctx context.Context, project string, missing []*pb.MissingEntries, offered map[string]bool) ([]outboxEvent, error) {
+	var out []outboxEvent
+	var unheld []MissingEntry
+	for _, m := range missing {
+		held, err := s.offers(ctx, `SELECT event_id, body, signature, status = 'accepted', device_seq FROM events
+			WHERE project_id = ? AND device_id = ? AND device_seq > ? AND device_seq <= ? ORDER BY device_seq`,
+			project, m.GetDeviceId(), m.GetAfterDeviceSeq(), m.GetThroughDeviceSeq())
+		if err != nil {
+			return nil, err
+		}
+		var last uint64
+		for _, e := range held {
+			if !offered[e.id] {
+				out = append(out, e)
+			}
+			last = max(last, e.seq)
+		}
+		if last != m.GetThroughDeviceSeq() {
+			unheld = append(unheld, MissingEntry{Device: m.GetDeviceId(), Seq: m.GetThroughDeviceSeq()})
+		}
+	}
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	err := s.db.Tx(ctx, func(tx *sql.Tx) error {
+		if _, err := tx.ExecContext(ctx, `DELETE FROM server_missing WHERE project_id = ?`, project); err != nil {
+			return err
+		}
+		for _, m := range unheld {
+			if _, err := tx.ExecContext(ctx, `INSERT OR IGNORE INTO server_missing (project_id, device_id, device_seq) VALUES (?, ?, ?)`,
+				project, m.Device, m.Seq); err != nil {
+				return err
+			}
+		}
+		return nil
+	})
+	if err != nil {
+		return nil, fmt.Errorf("client: record entries the server lacks: %w", err)
+	}
+	return out, nil
+}
+
+// recordOutcomes stores what the server said of each pushed event. cp is
+// the point the push said the device had verified and head the server's
+// head after the push: an event the server holds at or below cp, in the
+// same epoch, is in the chain the device verified, and so confirmed.
+func (s *Store) recordOutcomes(ctx context.Context, outs []*pb.PushOutcome, cp, head ledger.Checkpoint, rep *SyncReport) (accepted, waiting int, err error) {
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	anyRejected := false
+	now := s.now().UnixMicro()
 	err = s.db.Tx(ctx, func(tx *sql.Tx) error {
 		for _, o := range outs {
 			var q string
@@ -452,17 +546,22 @@ func (s *Store) recordOutcomes(ctx context.Context, outs []*pb.PushOutcome, rep 
 				} else {
 					rep.AlreadyPresent++
 				}
-				q, args = `UPDATE events SET status = 'accepted', server_seq = ?, reason = '', message = '' WHERE event_id = ? AND status != 'discarded'`,
-					[]any{o.GetSequence(), o.GetEventId()}
+				seen := head.Epoch == cp.Epoch && o.GetSequence() <= cp.Seq
+				q, args = `UPDATE events SET status = 'accepted', server_seq = ?, reason = '', message = '', server_lacks = 0,
+					waiting_for = '', waiting_since_micros = 0, confirmed = MAX(confirmed, ?) WHERE event_id = ? AND status != 'discarded'`,
+					[]any{o.GetSequence(), seen, o.GetEventId()}
 			case pb.PushStatus_PUSH_STATUS_WAITING:
 				rep.Waiting++
 				waiting++
-				q, args = `UPDATE events SET status = 'waiting', message = ? WHERE event_id = ? AND origin = 'local' AND status IN ('pending', 'waiting')`,
-					[]any{o.GetMessage(), o.GetEventId()}
+				q, args = `UPDATE events SET status = CASE WHEN origin = 'local' AND status = 'pending' THEN 'waiting' ELSE status END,
+					message = ?, waiting_for = ?, waiting_since_micros = CASE WHEN waiting_since_micros = 0 THEN ? ELSE waiting_since_micros END
+					WHERE event_id = ? AND status NOT IN ('rejected', 'discarded')`,
+					[]any{o.GetMessage(), strings.Join(o.GetWaitingFor(), " "), now, o.GetEventId()}
 			case pb.PushStatus_PUSH_STATUS_REJECTED:
 				rep.Rejected++
 				anyRejected = true
-				q, args = `UPDATE events SET status = 'rejected', reason = ?, message = ? WHERE event_id = ? AND origin = 'local' AND status IN ('pending', 'waiting')`,
+				q, args = `UPDATE events SET status = 'rejected', reason = ?, message = ?, waiting_for = '', waiting_since_micros = 0
+					WHERE event_id = ? AND origin = 'local' AND status IN ('pending', 'waiting')`,
 					[]any{ledger.ReasonFromProto(o.GetReason()).String(), o.GetMessage(), o.GetEventId()}
 			default:
 				continue
@@ -504,7 +603,7 @@ func (s *Store) repushAll(ctx context.Context, sc pb.SyncServiceClient, project 
 		}
 		head = ledger.CheckpointFromProto(resp.GetHead())
 		var scratch SyncReport
-		if _, _, err := s.recordOutcomes(ctx, resp.GetOutcomes(), &scratch); err != nil {
+		if _, _, err := s.recordOutcomes(ctx, resp.GetOutcomes(), cp, head, &scratch); err != nil {
 			return head, err
 		}
 		rep.Repushed += scratch.Accepted
@@ -608,7 +707,24 @@ func (s *Store) pull(ctx context.Context, sc pb.SyncServiceClient, project strin
 	if !checked {
 		return fmt.Errorf("client: pull: the server sent no anchor")
 	}
+	if err := s.markLacking(ctx, project, cp.Seq); err != nil {
+		return err
+	}
 	return s.resetCheckpointIfNew(ctx, v.At())
+}
+
+// markLacking notes, after a pull that verified the server's whole ledger
+// from the point after, the entries the server lacks: those it acknowledged
+// above that point (or in no known place) that the pull did not bring back.
+// The server either lost them or holds another entry at their place.
+func (s *Store) markLacking(ctx context.Context, project string, after uint64) error {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	if _, err := s.db.Writer().ExecContext(ctx, `UPDATE events SET server_lacks = 1 WHERE project_id = ? AND confirmed = 0
+		AND server_lacks = 0 AND status = 'accepted' AND (server_seq IS NULL OR server_seq > ?)`, project, after); err != nil {
+		return fmt.Errorf("client: note entries the server lacks: %w", err)
+	}
+	return nil
 }
 
 func (s *Store) resetCheckpointIfNew(ctx context.Context, cp ledger.Checkpoint) error {
@@ -637,13 +753,18 @@ func (s *Store) applyPulled(ctx context.Context, project string, evs []ledger.Si
 			if seqs != nil {
 				seq = seqs[i]
 			}
+			// A chain entry is confirmed: the device holds it at its place
+			// in the chain it verified.
 			if _, err := tx.ExecContext(ctx, `INSERT INTO events (event_id, project_id, device_id, device_seq, kind, record_id,
-				hlc_wall, hlc_logical, body, signature, origin, status, server_seq, created_micros)
-				VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 'remote', 'accepted', ?, ?)
+				hlc_wall, hlc_logical, body, signature, origin, status, server_seq, created_micros, confirmed)
+				VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 'remote', 'accepted', ?, ?, ?)
 				ON CONFLICT (event_id) DO UPDATE SET server_seq = COALESCE(excluded.server_seq, server_seq),
-				status = CASE WHEN status IN ('pending', 'waiting') THEN 'accepted' ELSE status END`,
+				status = CASE WHEN status IN ('pending', 'waiting') THEN 'accepted' ELSE status END,
+				confirmed = MAX(confirmed, excluded.confirmed),
+				server_lacks = CASE WHEN excluded.confirmed = 1 THEN 0 ELSE server_lacks END,
+				waiting_for = '', waiting_since_micros = 0`,
 				e.ID, project, e.Device, e.DeviceSeq, e.Kind.KindName(), ledger.RecordID(e.Kind), e.HLC.Wall, e.HLC.Logical,
-				sg.Body, sg.Signature, seq, s.now().UnixMicro()); err != nil {
+				sg.Body, sg.Signature, seq, s.now().UnixMicro(), seqs != nil); err != nil {
 				return fmt.Errorf("client: store pulled %s: %w", e.ID, err)
 			}
 		}

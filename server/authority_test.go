@@ -207,3 +207,119 @@ func TestNoDecisionOnOwnTest(t *testing.T) {
 		}
 	}
 }
+
+// An invited user sees the invitation on their own device and becomes a
+// member only by accepting it; nobody else may accept or decline it for
+// them, and a declined invitation leaves no role.
+func TestInvitationAccepted(t *testing.T) {
+	c := startCluster(t, t.TempDir())
+	ctx := context.Background()
+	a := c.newProject("Quarry Road embankment")
+	b := c.newProject("Heron Slough levee")
+	ac := pb.NewAdminServiceClient(c.conn(""))
+	adam := c.rawDevice(t, "Adam admin", map[string]server.Role{a: server.Admin}, false)
+	bea := c.rawDevice(t, "Bea of B", map[string]server.Role{b: server.Inspector}, false)
+	eve := c.rawDevice(t, "Eve of B", map[string]server.Role{b: server.Office}, false)
+	root := c.rawDevice(t, "Rosa root", nil, true)
+
+	resp, err := ac.AddMember(adam.ctx(), &pb.AddMemberRequest{ProjectId: a, UserId: bea.user, Role: pb.Role_ROLE_INSPECTOR})
+	if err != nil || resp.GetInvitationId() == "" {
+		t.Fatalf("invite bea: %v, %v", resp, err)
+	}
+	inv := resp.GetInvitationId()
+	list, err := ac.ListInvitations(bea.ctx(), &pb.ListInvitationsRequest{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if got := list.GetInvitations(); len(got) != 1 || got[0].GetInvitationId() != inv || got[0].GetProjectId() != a ||
+		got[0].GetProjectName() != "Quarry Road embankment" || got[0].GetRole() != pb.Role_ROLE_INSPECTOR ||
+		got[0].GetInvitedBy() != adam.user || got[0].GetInvitedByName() != "Adam admin" {
+		t.Errorf("bea's invitations: %v", got)
+	}
+	if list, _ := ac.ListInvitations(eve.ctx(), &pb.ListInvitationsRequest{}); len(list.GetInvitations()) != 0 {
+		t.Errorf("eve sees invitations not hers: %v", list.GetInvitations())
+	}
+	// Before accepting, bea may not write to A.
+	_, err = bea.push(t, c, a, bea.tests(t, a, 1)...)
+	wantDenied(t, "bea pushes to A before accepting", err, "member_of_project")
+	for who, d := range map[string]*rawDevice{"the inviter": adam, "another user": eve, "a server administrator": root} {
+		_, err := ac.AcceptInvitation(d.ctx(), &pb.AcceptInvitationRequest{InvitationId: inv})
+		wantDenied(t, "accepting bea's invitation as "+who, err, "own_user")
+		_, err = ac.DeclineInvitation(d.ctx(), &pb.DeclineInvitationRequest{InvitationId: inv})
+		wantDenied(t, "declining bea's invitation as "+who, err, "own_user")
+	}
+	acc, err := ac.AcceptInvitation(bea.ctx(), &pb.AcceptInvitationRequest{InvitationId: inv})
+	if err != nil || acc.GetProjectId() != a || acc.GetRole() != pb.Role_ROLE_INSPECTOR {
+		t.Fatalf("bea accepts: %v, %v", acc, err)
+	}
+	if r, _ := c.store.Role(ctx, a, bea.user); r != server.Inspector {
+		t.Errorf("bea's role on A after accepting: %q", r)
+	}
+	if o := bea.first(t, c, a, bea.tests(t, a, 1)...); o.GetStatus() != pb.PushStatus_PUSH_STATUS_ACCEPTED {
+		t.Errorf("bea's test on A after accepting: %v", o)
+	}
+	if _, err := ac.AcceptInvitation(bea.ctx(), &pb.AcceptInvitationRequest{InvitationId: inv}); status.Code(err) != codes.NotFound {
+		t.Errorf("accepting twice: %v, want NotFound", err)
+	}
+	// Still no code for bea from adam: she holds a role on B.
+	_, err = ac.IssueEnrollmentCode(adam.ctx(), &pb.IssueEnrollmentCodeRequest{UserId: bea.user})
+	wantDenied(t, "code for bea after she joined A", err, "user_admin")
+
+	resp, err = ac.AddMember(adam.ctx(), &pb.AddMemberRequest{ProjectId: a, UserId: eve.user, Role: pb.Role_ROLE_OFFICE})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := ac.DeclineInvitation(eve.ctx(), &pb.DeclineInvitationRequest{InvitationId: resp.GetInvitationId()}); err != nil {
+		t.Fatal(err)
+	}
+	if r, _ := c.store.Role(ctx, a, eve.user); r != "" {
+		t.Errorf("eve holds %q on A after declining", r)
+	}
+	if _, err := ac.AcceptInvitation(eve.ctx(), &pb.AcceptInvitationRequest{InvitationId: resp.GetInvitationId()}); status.Code(err) != codes.NotFound {
+		t.Errorf("accepting a declined invitation: %v, want NotFound", err)
+	}
+
+	// An invitation whose maker no longer administers the project lapses.
+	resp, err = ac.AddMember(adam.ctx(), &pb.AddMemberRequest{ProjectId: a, UserId: eve.user, Role: pb.Role_ROLE_OFFICE})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := c.srv.AddMember(ctx, a, adam.user, server.Office); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := ac.AcceptInvitation(eve.ctx(), &pb.AcceptInvitationRequest{InvitationId: resp.GetInvitationId()}); status.Code(err) != codes.FailedPrecondition {
+		t.Errorf("accepting the invitation of a former administrator: %v, want FailedPrecondition", err)
+	}
+	if r, _ := c.store.Role(ctx, a, eve.user); r != "" {
+		t.Errorf("eve holds %q on A", r)
+	}
+}
+
+// A code a project administrator issued while the user's roles lay within
+// its projects lapses when the user joins another project: it must not
+// reach the new one.
+func TestCodeLapsesWhenUserJoinsAnotherProject(t *testing.T) {
+	c := startCluster(t, t.TempDir())
+	a := c.newProject("Quarry Road embankment")
+	b := c.newProject("Heron Slough levee")
+	ac := pb.NewAdminServiceClient(c.conn(""))
+	adam := c.rawDevice(t, "Adam admin", map[string]server.Role{a: server.Admin}, false)
+	otto := c.rawDevice(t, "Otto admin", map[string]server.Role{b: server.Admin}, false)
+	dee := c.rawDevice(t, "Dee of A", map[string]server.Role{a: server.Inspector}, false)
+	code, err := ac.IssueEnrollmentCode(adam.ctx(), &pb.IssueEnrollmentCodeRequest{UserId: dee.user})
+	if err != nil {
+		t.Fatal(err)
+	}
+	resp, err := ac.AddMember(otto.ctx(), &pb.AddMemberRequest{ProjectId: b, UserId: dee.user, Role: pb.Role_ROLE_INSPECTOR})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := ac.AcceptInvitation(dee.ctx(), &pb.AcceptInvitationRequest{InvitationId: resp.GetInvitationId()}); err != nil {
+		t.Fatal(err)
+	}
+	pub, _, _ := ed25519.GenerateKey(nil)
+	_, err = ac.EnrollDevice(context.Background(), &pb.EnrollDeviceRequest{Code: code.GetCode(), DeviceId: newV7(), PublicKey: pub})
+	if status.Code(err) != codes.Unauthenticated {
+		t.Errorf("enrol with adam's code for dee after she joined B: %v, want Unauthenticated", err)
+	}
+}

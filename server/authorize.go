@@ -374,6 +374,9 @@ func (s *Server) actsFor(ctx context.Context, caller User, user string) (string,
 }
 
 func (a *adminService) CreateProject(ctx context.Context, req *pb.CreateProjectRequest) (*pb.CreateProjectResponse, error) {
+	if err := checkName("name", req.GetName()); err != nil {
+		return nil, err
+	}
 	u, err := a.allow(ctx, pb.AdminService_CreateProject_FullMethodName, target{})
 	if err != nil {
 		return nil, err
@@ -408,6 +411,9 @@ func roleToProto(r Role) pb.Role {
 // a member of the project who is not a server administrator; anyone else is
 // invited, and becomes a member only by accepting.
 func (a *adminService) AddMember(ctx context.Context, req *pb.AddMemberRequest) (*pb.AddMemberResponse, error) {
+	if err := checkName("user_name", req.GetUserName()); err != nil {
+		return nil, err
+	}
 	u, err := a.allow(ctx, pb.AdminService_AddMember_FullMethodName, target{project: req.GetProjectId()})
 	if err != nil {
 		return nil, err

@@ -51,6 +51,15 @@
 // is logged, returned to the device, and recorded on every event of that
 // push for review.
 //
+// # Bad requests
+//
+// A request that does not decode (malformed wire data, a string field that
+// is not UTF-8) is refused with InvalidArgument naming the field, before
+// authentication or any handler sees it: serve with RequestCodec beside
+// UnaryInterceptor and StreamInterceptor. Names of projects, users and
+// devices are listed in terminals, so they may hold no control characters
+// (C0, DEL, C1, bidirectional controls, line and paragraph separators).
+//
 // The Store interface is narrow so that a PostgreSQL store can serve a
 // deployment of several servers; the in-memory projections assume one server
 // per project until then.

@@ -3,7 +3,6 @@ package server
 import (
 	"context"
 	"crypto/ed25519"
-	"encoding/binary"
 	"fmt"
 	"sync"
 	"time"
@@ -140,7 +139,13 @@ func (s *Server) introduceDevice(ctx context.Context, d Device, at time.Time) (l
 		return ledger.Signed{}, err
 	}
 	for _, p := range projects {
-		if err := s.appendOwn(ctx, p, k); err != nil {
+		role, err := s.opts.Store.Role(ctx, p, d.UserID)
+		if err != nil {
+			return ledger.Signed{}, err
+		}
+		in := *k
+		in.Role = string(role)
+		if err := s.appendOwn(ctx, p, &in); err != nil {
 			return ledger.Signed{}, err
 		}
 	}
@@ -158,12 +163,16 @@ func (s *Server) IntroduceDevices(ctx context.Context, project, user string) err
 	if err != nil {
 		return err
 	}
+	role, err := s.opts.Store.Role(ctx, project, user)
+	if err != nil {
+		return err
+	}
 	for _, d := range ds {
 		if d.Revoked {
 			continue
 		}
 		k := &ledger.DeviceEnrolled{DeviceID: d.ID, UserID: d.UserID, PublicKey: d.PublicKey, Name: d.Name, UserName: u.Name,
-			Enrolled: s.opts.Now().UTC().Truncate(time.Microsecond)}
+			Enrolled: s.opts.Now().UTC().Truncate(time.Microsecond), Role: string(role)}
 		if err := s.appendOwn(ctx, project, k); err != nil {
 			return err
 		}
@@ -222,7 +231,7 @@ func (s *Server) introducedKeys(ctx context.Context, events []*pb.Event) map[str
 // deviceEffects brings the device table in line with the device entries
 // just stored: a device introduced by a ledger the server had lost is known
 // again (without a token until it proves its key), a revocation revokes.
-func (s *Server) deviceEffects(ctx context.Context, rows []Row) {
+func (s *Server) deviceEffects(ctx context.Context, project string, rows []Row) {
 	for _, r := range rows {
 		if r.Kind != "device_enrolled" && r.Kind != "device_revoked" {
 			continue
@@ -239,24 +248,13 @@ func (s *Server) deviceEffects(ctx context.Context, rows []Row) {
 			} else if created {
 				s.log.WarnContext(ctx, "a device this server had lost is known again from its ledger entry", "device", k.DeviceID, "user", k.UserID)
 			}
+			s.restoreMember(ctx, project, k)
 		case *ledger.DeviceRevoked:
 			if err := s.opts.Store.Revoke(ctx, k.DeviceID, k.Effective); err != nil {
 				s.log.ErrorContext(ctx, "revoke a device the ledger revokes", "device", k.DeviceID, "err", err)
 			}
 		}
 	}
-}
-
-// resumeContext is what a device signs to prove it holds its key when it
-// asks a server for a new token.
-const resumeContext = "tamp.v1.ResumeDevice"
-
-// ResumeProof returns the bytes a device signs to resume: the context, a
-// zero byte, its id and the time in microseconds.
-func ResumeProof(device string, micros int64) []byte {
-	b := append([]byte(resumeContext), 0)
-	b = append(b, device...)
-	return binary.BigEndian.AppendUint64(b, uint64(micros))
 }
 
 // resumeWindow bounds the clock difference a resume proof may carry.
@@ -284,7 +282,7 @@ func (a *adminService) ResumeDevice(ctx context.Context, req *pb.ResumeDeviceReq
 	if d := now.Sub(at); d > resumeWindow || d < -resumeWindow {
 		return nil, status.Errorf(codes.Unauthenticated, "proof_micros: the proof's time is more than %s from the server's clock", resumeWindow)
 	}
-	if !ed25519.Verify(k.PublicKey, ResumeProof(k.DeviceID, req.GetProofMicros()), req.GetProof()) {
+	if !ed25519.Verify(k.PublicKey, ledger.ResumeProof(k.DeviceID, req.GetProofMicros()), req.GetProof()) {
 		return nil, status.Error(codes.Unauthenticated, "proof: the signature does not verify with the certificate's key")
 	}
 	d := Device{ID: k.DeviceID, UserID: k.UserID, Name: k.Name, PublicKey: k.PublicKey}
@@ -330,4 +328,23 @@ func (s *Server) revokedInLedgers(ctx context.Context, d Device) bool {
 		return true
 	}
 	return false
+}
+
+// restoreMember gives a user the role a device_enrolled entry records when
+// the user has no role on the project: the server lost the membership in a
+// restore from an older copy, and the entry, signed by its own key, says
+// what it was.
+func (s *Server) restoreMember(ctx context.Context, project string, k *ledger.DeviceEnrolled) {
+	role := Role(k.Role)
+	if !validRole(role) {
+		return
+	}
+	if r, err := s.opts.Store.Role(ctx, project, k.UserID); err != nil || r != "" {
+		return
+	}
+	if err := s.opts.Store.SetMember(ctx, project, k.UserID, role); err != nil {
+		s.log.ErrorContext(ctx, "restore a membership from the ledger", "project", project, "user", k.UserID, "err", err)
+		return
+	}
+	s.log.WarnContext(ctx, "a membership this server had lost is restored from its ledger entry", "project", project, "user", k.UserID, "role", role)
 }

@@ -246,6 +246,16 @@ func TestAdminCallTable(t *testing.T) {
 	inspectorOfA := func(t *testing.T) *rawDevice {
 		return c.rawDevice(t, "Ivy", map[string]server.Role{a: server.Inspector}, false)
 	}
+	// invitee is a new user, an inspector of B, whom A's administrator
+	// invites to A.
+	invitee := func(t *testing.T) (*rawDevice, string) {
+		d := c.rawDevice(t, "Val", map[string]server.Role{b: server.Inspector}, false)
+		resp, err := ac.AddMember(devs["admin"].ctx(), &pb.AddMemberRequest{ProjectId: a, UserId: d.user, Role: pb.Role_ROLE_INSPECTOR})
+		if err != nil || resp.GetInvitationId() == "" {
+			t.Fatalf("invite: %v, %v", resp, err)
+		}
+		return d, resp.GetInvitationId()
+	}
 	cases := []adminCase{
 		{pb.AdminService_CreateProject_FullMethodName, []string{"server admin"}, func(t *testing.T, who string) error {
 			_, err := ac.CreateProject(caller(who, inspectorOfA(t)).ctx(), &pb.CreateProjectRequest{Name: "Cedar Bench pad"})
@@ -282,6 +292,20 @@ func TestAdminCallTable(t *testing.T) {
 		{pb.AdminService_ListDevices_FullMethodName, []string{"server admin", "self"}, func(t *testing.T, who string) error {
 			self := inspectorOfA(t)
 			_, err := ac.ListDevices(caller(who, self).ctx(), &pb.ListDevicesRequest{UserId: self.user})
+			return err
+		}},
+		{pb.AdminService_ListInvitations_FullMethodName, adminCallers, func(t *testing.T, who string) error {
+			_, err := ac.ListInvitations(caller(who, inspectorOfA(t)).ctx(), &pb.ListInvitationsRequest{})
+			return err
+		}},
+		{pb.AdminService_AcceptInvitation_FullMethodName, []string{"self"}, func(t *testing.T, who string) error {
+			self, inv := invitee(t)
+			_, err := ac.AcceptInvitation(caller(who, self).ctx(), &pb.AcceptInvitationRequest{InvitationId: inv})
+			return err
+		}},
+		{pb.AdminService_DeclineInvitation_FullMethodName, []string{"self"}, func(t *testing.T, who string) error {
+			self, inv := invitee(t)
+			_, err := ac.DeclineInvitation(caller(who, self).ctx(), &pb.DeclineInvitationRequest{InvitationId: inv})
 			return err
 		}},
 	}

@@ -22,6 +22,7 @@ import (
 	"github.com/google/uuid"
 	"google.golang.org/grpc"
 	"google.golang.org/grpc/codes"
+	healthpb "google.golang.org/grpc/health/grpc_health_v1"
 	"google.golang.org/grpc/metadata"
 	"google.golang.org/grpc/status"
 
@@ -48,6 +49,9 @@ type Options struct {
 	// on average, PushBurst at once (defaults 20 and 60).
 	PushRate  float64
 	PushBurst int
+	// StorageProbeInterval is how often a server whose store cannot write
+	// tries a write again (default DefaultStorageProbeInterval).
+	StorageProbeInterval time.Duration
 }
 
 // Server implements the sync and administration services over a Store. It
@@ -63,6 +67,7 @@ type Server struct {
 	projects map[string]*project
 	keys     sync.Map // device id -> ed25519.PublicKey
 	limits   *limiter
+	health   *storageHealth
 	self     ownState     // the server's own signing identity
 	requests requestCodec // see RequestCodec
 }
@@ -81,6 +86,7 @@ type project struct {
 	view   *ledger.Projection
 	head   ledger.Checkpoint // the chain head after the last decided batch
 	seqs   map[string]uint64 // the sequence number of every decided event
+	devs   *deviceSeqs       // each device's decided entries, and the gaps between them
 	loaded bool
 	seen   uint64 // failed when the state was loaded
 
@@ -120,13 +126,21 @@ func New(opts Options) *Server {
 	if opts.PushBurst <= 0 {
 		opts.PushBurst = 60
 	}
-	return &Server{opts: opts, log: opts.Logger, projects: map[string]*project{},
+	if opts.StorageProbeInterval <= 0 {
+		opts.StorageProbeInterval = DefaultStorageProbeInterval
+	}
+	s := &Server{opts: opts, log: opts.Logger, projects: map[string]*project{},
 		limits: &limiter{rate: opts.PushRate, burst: float64(opts.PushBurst), buckets: map[string]*bucket{}}}
+	s.health = newStorageHealth(func(ctx context.Context) error { return s.opts.Store.Probe(ctx) }, opts.StorageProbeInterval, opts.Logger)
+	return s
 }
 
 // Register registers the server's services (sync, administration and the
-// ledger's read side) on g.
+// ledger's read side) on g, and the standard health service, which reports
+// the server and its writing services NOT_SERVING while the store cannot
+// write.
 func (s *Server) Register(g *grpc.Server) {
+	healthpb.RegisterHealthServer(g, s.health.hs)
 	pb.RegisterSyncServiceServer(g, s)
 	pb.RegisterAdminServiceServer(g, &adminService{s: s})
 	pb.RegisterLedgerReadServiceServer(g, &readService{s: s})
@@ -229,6 +243,9 @@ func (s *Server) issueCode(ctx context.Context, user string, life time.Duration)
 // EnrollDevice registers a device's key with a one-time code and returns
 // its bearer token, of which the server keeps only the hash.
 func (a *adminService) EnrollDevice(ctx context.Context, req *pb.EnrollDeviceRequest) (*pb.EnrollDeviceResponse, error) {
+	if err := checkName("device_name", req.GetDeviceName()); err != nil {
+		return nil, err
+	}
 	s := a.s
 	if len(req.GetPublicKey()) != ed25519.PublicKeySize {
 		return nil, status.Error(codes.InvalidArgument, "public_key: must be a 32-byte Ed25519 key")
@@ -260,8 +277,14 @@ func (a *adminService) EnrollDevice(ctx context.Context, req *pb.EnrollDeviceReq
 	return &pb.EnrollDeviceResponse{Token: token, UserId: d.UserID, ProjectIds: projects, Certificate: cert.Proto()}, nil
 }
 
-// internal logs err and returns a generic Internal status.
+// internal logs err and returns a generic Internal status; a storage fault
+// (a full disk, a read-only data directory) is no internal error: it
+// becomes Unavailable naming the cause, and the server reports it in its
+// health until the store writes again.
 func (s *Server) internal(ctx context.Context, op string, err error) error {
+	if st, ok := s.storageFault(ctx, op, err); ok {
+		return st
+	}
 	s.log.ErrorContext(ctx, "internal error", "op", op, "err", err)
 	return status.Error(codes.Internal, "internal error; the server logged the cause")
 }
@@ -372,6 +395,7 @@ func (s *Server) load(ctx context.Context, p *project, id string) error {
 	}
 	view := ledger.NewProjection(id)
 	seqs := map[string]uint64{}
+	devs := newDeviceSeqs()
 	var seq uint64
 	for {
 		entries, err := s.opts.Store.After(ctx, id, seq, 1000)
@@ -387,13 +411,14 @@ func (s *Server) load(ctx context.Context, p *project, id string) error {
 				return fmt.Errorf("server: stored event %d of %s: %w", e.Seq, id, err)
 			}
 			seqs[sg.Event.ID] = e.Seq
+			devs.hold(&sg.Event)
 		}
 		if len(entries) < 1000 {
 			break
 		}
 		seq = entries[len(entries)-1].Seq
 	}
-	p.view, p.head, p.seqs, p.loaded = view, head, seqs, true
+	p.view, p.head, p.seqs, p.devs, p.loaded = view, head, seqs, devs, true
 	p.seen = p.failed.Load()
 	return nil
 }
@@ -525,6 +550,9 @@ func (s *Server) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushRespons
 	if !own && !s.limits.allow(dev.ID, s.opts.Now()) {
 		return nil, status.Errorf(codes.ResourceExhausted, "rate: device %s pushes faster than %.0f batches a second; slow down", dev.ID, s.opts.PushRate)
 	}
+	if err := s.writable(ctx); err != nil {
+		return nil, err
+	}
 	now := s.opts.Now()
 	var skew int64
 	if t := req.GetDeviceTimeMicros(); t != 0 {
@@ -562,7 +590,7 @@ func (s *Server) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushRespons
 		}
 		return nil, s.internal(ctx, "append", err)
 	}
-	s.deviceEffects(ctx, rows)
+	s.deviceEffects(ctx, req.GetProjectId(), rows)
 	s.log.InfoContext(ctx, "push", "project", req.GetProjectId(), "events", len(items), "accepted", len(rows), "head", resp.GetHead().GetSequence())
 	return resp, nil
 }
@@ -582,6 +610,7 @@ func (s *Server) decide(ctx context.Context, p *project, req *pb.PushRequest, it
 	rows := make([]Row, 0, len(items))
 	slab := make([]pb.PushOutcome, len(items)) // the accepted events' outcomes, in one allocation
 	next := head
+	gaps := 0 // gaps in device sequences the accepted entries opened
 	auth := s.authorizer(ctx, req.GetProjectId(), p.view)
 	for i, it := range items {
 		id := ""
@@ -621,10 +650,12 @@ func (s *Server) decide(ctx context.Context, p *project, req *pb.PushRequest, it
 			return nil, head, nil, s.internal(ctx, "authorize", err)
 		}
 		if deny != nil {
+			p.devs.offer(&e)
 			resp.Outcomes = append(resp.Outcomes, rejected(id, deny))
 			continue
 		}
 		if waiting := p.view.Missing(&e); len(waiting) > 0 {
+			p.devs.offer(&e)
 			resp.Outcomes = append(resp.Outcomes, &pb.PushOutcome{EventId: id, Status: pb.PushStatus_PUSH_STATUS_WAITING, WaitingFor: waiting,
 				Message: "refers to records the server has not received yet: " + strings.Join(waiting, ", ")})
 			continue
@@ -643,6 +674,9 @@ func (s *Server) decide(ctx context.Context, p *project, req *pb.PushRequest, it
 		}
 		rows = append(rows, row)
 		p.seqs[id] = next.Seq
+		if p.devs.hold(&e) {
+			gaps++
+		}
 		o := &slab[i]
 		o.EventId, o.Status, o.Sequence = id, pb.PushStatus_PUSH_STATUS_ACCEPTED, next.Seq
 		resp.Outcomes = append(resp.Outcomes, o)
@@ -650,6 +684,11 @@ func (s *Server) decide(ctx context.Context, p *project, req *pb.PushRequest, it
 	if skewed && len(rows) > 0 {
 		s.log.WarnContext(ctx, "device clock skew beyond the limit", "project", req.GetProjectId(), "skew", time.Duration(skew)*time.Microsecond,
 			"events", len(rows))
+	}
+	resp.Missing = p.devs.missing()
+	if gaps > 0 && len(resp.Missing) > 0 {
+		s.log.WarnContext(ctx, "the ledger lacks entries that pushed entries follow; asking devices for them", "project", req.GetProjectId(),
+			"missing", missingAttr(resp.Missing))
 	}
 	resp.Head = ledger.CheckpointToProto(next)
 	p.head = next

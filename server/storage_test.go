@@ -111,7 +111,9 @@ func pushAccepted(t *testing.T, c *cluster, d *rawDevice, project string, events
 
 func closeServer(t *testing.T, c *cluster) {
 	t.Cleanup(func() {
-
+		if err := c.srv.Close(); err != nil {
+			t.Errorf("close: %v", err)
+		}
 	})
 }
 

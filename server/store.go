@@ -12,8 +12,16 @@ import (
 // the devices. It is narrow so that a PostgreSQL store can stand beside the
 // SQLite one (package sqlitestore) when a deployment outgrows one machine.
 // Implementations return ErrNoProject, ErrNoDevice, ErrCodeInvalid and
-// ErrConflict (wrapped) where those apply, and must be safe for concurrent use.
+// ErrConflict (wrapped) where those apply, wrap ErrStorageFull,
+// ErrStorageReadOnly or ErrStorageIO into the error of any call that failed
+// because the storage could not write or read, and must be safe for
+// concurrent use.
 type Store interface {
+	// Probe commits a small write, to tell whether the store can write now
+	// (after a storage fault). It returns the storage fault, wrapped, when
+	// it cannot, and recovers what a fault left unusable (a connection
+	// opened read-only) before it reports one.
+	Probe(ctx context.Context) error
 	// CreateProject creates an empty ledger at epoch 1.
 	CreateProject(ctx context.Context, id, name string, now time.Time) error
 	// Head returns a project's chain head.

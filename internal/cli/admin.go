@@ -45,7 +45,9 @@ func newAdmin() *cobra.Command {
 		Use:   "admin",
 		Short: "Manage projects, members and devices (administrators)",
 		Long: `Manage projects, their members and devices on the server this device is enrolled
-with. Each command prints one line per result, tab-separated, for scripts.`,
+with. Each command prints one line per result, tab-separated, for scripts;
+control characters in names are escaped (\n, \t, \x1b), so a name never
+breaks a line or a column.`,
 	}
 	f.register(c)
 
@@ -79,8 +81,7 @@ with. Each command prints one line per result, tab-separated, for scripts.`,
 				if err != nil {
 					return err
 				}
-				_, err = fmt.Fprintln(out, escape(resp.GetUserId()))
-				return err
+				return printAdded(out, resp)
 			})
 		},
 	}
@@ -107,11 +108,12 @@ with. Each command prints one line per result, tab-separated, for scripts.`,
 	}
 	members.Flags().StringVar(&project, "project", "", "the project")
 
+	var validFor time.Duration
 	code := &cobra.Command{
 		Use: "issue-code", Short: "Issue a one-time code to enrol a user's device", Args: cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, _ []string) error {
 			return adminCall(cmd, &f, func(ctx context.Context, ac pb.AdminServiceClient, out io.Writer) error {
-				r, err := ac.IssueEnrollmentCode(ctx, &pb.IssueEnrollmentCodeRequest{UserId: user})
+				r, err := ac.IssueEnrollmentCode(ctx, &pb.IssueEnrollmentCodeRequest{UserId: user, ValidSeconds: int64(validFor / time.Second)})
 				if err != nil {
 					return err
 				}
@@ -121,6 +123,7 @@ with. Each command prints one line per result, tab-separated, for scripts.`,
 		},
 	}
 	code.Flags().StringVar(&user, "user", "", "the user whose device will be enrolled")
+	code.Flags().DurationVar(&validFor, "valid-for", 0, "how long the code stays valid, up to 168h (0: the server's default, 24h)")
 
 	var device, reason string
 	revoke := &cobra.Command{
@@ -161,5 +164,6 @@ with. Each command prints one line per result, tab-separated, for scripts.`,
 	devices.Flags().StringVar(&user, "user", "", "only this user's devices")
 
 	c.AddCommand(create, add, members, code, revoke, devices)
+	c.AddCommand(newInvitationCommands(&f)...)
 	return c
 }

@@ -2,6 +2,12 @@
 // staff and QA managers run, built on spf13/cobra (help and shell completion
 // for bash, zsh, fish and PowerShell come with it). cmd/tamp only calls Run.
 //
+// Text that users or devices chose (names, reasons, ids, server messages)
+// is printed with its control characters escaped (\n, \t, \x1b, \u202e;
+// a backslash as \\), so it can neither forge a line or a column of the
+// tab-separated output nor drive the terminal. A server certificate that
+// fails verification is reported with its problem and what to do about it.
+//
 // # tamp calc
 //
 // tamp calc computes with no project or server, so an inspector can check a

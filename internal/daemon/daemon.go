@@ -17,8 +17,6 @@ import (
 	"github.com/spf13/cobra"
 	"google.golang.org/grpc"
 	"google.golang.org/grpc/credentials"
-	"google.golang.org/grpc/health"
-	healthpb "google.golang.org/grpc/health/grpc_health_v1"
 	"google.golang.org/grpc/keepalive"
 	"google.golang.org/grpc/reflection"
 
@@ -127,6 +125,7 @@ has users.`,
 			}
 			defer st.Close()
 			srv := server.New(server.Options{Store: st, Logger: slog.New(slog.NewTextHandler(io.Discard, nil))})
+			defer srv.Close()
 			user, code, exp, err := srv.Bootstrap(cmd.Context(), admin)
 			if err != nil {
 				return err
@@ -190,7 +189,15 @@ func serve(ctx context.Context, f serveFlags, stdout, stderr io.Writer) error {
 	}
 	defer st.Close()
 	srv := server.New(server.Options{Store: st, Logger: log})
+	defer srv.Close()
+	// A data directory that cannot be written (a full disk, read-only) does
+	// not stop tampd: it serves reads, reports NOT_SERVING and resumes once
+	// a write succeeds.
+	if err := srv.CheckStorage(ctx); err != nil {
+		return err
+	}
 	opts = append(opts,
+		srv.RequestCodec(),
 		grpc.ChainUnaryInterceptor(deadline, srv.UnaryInterceptor),
 		grpc.ChainStreamInterceptor(srv.StreamInterceptor),
 		grpc.MaxRecvMsgSize(maxMessage), grpc.MaxSendMsgSize(maxMessage),
@@ -199,8 +206,6 @@ func serve(ctx context.Context, f serveFlags, stdout, stderr io.Writer) error {
 	)
 	g := grpc.NewServer(opts...)
 	srv.Register(g)
-	hs := health.NewServer()
-	healthpb.RegisterHealthServer(g, hs)
 	reflection.Register(g)
 
 	lis, err := net.Listen("tcp", f.listen)
@@ -217,7 +222,7 @@ func serve(ctx context.Context, f serveFlags, stdout, stderr io.Writer) error {
 	case <-ctx.Done():
 	}
 	log.Info("shutting down: finishing calls in flight")
-	hs.Shutdown()
+	srv.Close() // health reports NOT_SERVING from now on
 	stopped := make(chan struct{})
 	go func() { g.GracefulStop(); close(stopped) }()
 	select {

@@ -85,7 +85,7 @@ func ToProto(e Event) (*pb.EventBody, error) {
 		b.Kind = &pb.EventBody_ExceptionAccepted{ExceptionAccepted: &pb.ExceptionAccepted{TestId: k.TestID, Revision: k.Revision, Reason: k.Reason}}
 	case *DeviceEnrolled:
 		b.Kind = &pb.EventBody_DeviceEnrolled{DeviceEnrolled: &pb.DeviceEnrolled{DeviceId: k.DeviceID, UserId: k.UserID, PublicKey: k.PublicKey,
-			DeviceName: k.Name, UserName: k.UserName, EnrolledMicros: k.Enrolled.UnixMicro()}}
+			DeviceName: k.Name, UserName: k.UserName, EnrolledMicros: k.Enrolled.UnixMicro(), Role: k.Role}}
 	case *DeviceRevoked:
 		b.Kind = &pb.EventBody_DeviceRevoked{DeviceRevoked: &pb.DeviceRevoked{DeviceId: k.DeviceID, EffectiveMicros: k.Effective.UnixMicro(),
 			RevokedBy: k.RevokedBy, Reason: k.Reason}}
@@ -171,7 +171,7 @@ func FromProto(b *pb.EventBody) (Event, error) {
 	case *pb.EventBody_DeviceEnrolled:
 		m := k.DeviceEnrolled
 		e.Kind = &DeviceEnrolled{DeviceID: m.GetDeviceId(), UserID: m.GetUserId(), PublicKey: m.GetPublicKey(), Name: m.GetDeviceName(),
-			UserName: m.GetUserName(), Enrolled: time.UnixMicro(m.GetEnrolledMicros()).UTC()}
+			UserName: m.GetUserName(), Enrolled: time.UnixMicro(m.GetEnrolledMicros()).UTC(), Role: m.GetRole()}
 	case *pb.EventBody_DeviceRevoked:
 		m := k.DeviceRevoked
 		e.Kind = &DeviceRevoked{DeviceID: m.GetDeviceId(), Effective: time.UnixMicro(m.GetEffectiveMicros()).UTC(), RevokedBy: m.GetRevokedBy(),

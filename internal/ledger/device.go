@@ -1,6 +1,7 @@
 package ledger
 
 import (
+	"encoding/binary"
 	"fmt"
 	"slices"
 	"time"
@@ -111,4 +112,17 @@ func (p *Projection) sweepRevoked(device string) {
 	for _, e := range changed {
 		p.recompute(RecordID(e.Kind), e.Kind)
 	}
+}
+
+// resumeContext is what a device signs to prove it holds its key when it
+// asks a server for a new token.
+const resumeContext = "tamp.v1.ResumeDevice"
+
+// ResumeProof returns the bytes a device signs to resume its enrolment with
+// a server that lost it: the context, a zero byte, the device id and the
+// time in microseconds as 8 big-endian bytes.
+func ResumeProof(device string, micros int64) []byte {
+	b := append([]byte(resumeContext), 0)
+	b = append(b, device...)
+	return binary.BigEndian.AppendUint64(b, uint64(micros))
 }

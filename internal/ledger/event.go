@@ -287,6 +287,7 @@ type DeviceEnrolled struct {
 	Name      string
 	UserName  string
 	Enrolled  time.Time
+	Role      string // the user's role on the project then; empty in a certificate
 }
 
 // DeviceRevoked revokes a device's key from Effective on: entries the

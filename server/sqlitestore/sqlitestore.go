@@ -93,7 +93,7 @@ func (s *Store) CreateProject(ctx context.Context, id, name string, now time.Tim
 	_, err := s.db.Writer().ExecContext(ctx, `INSERT INTO projects (project_id, name, epoch, head_seq, head_hash, created_micros)
 		VALUES (?, ?, 1, 0, ?, ?)`, id, name, g[:], now.UnixMicro())
 	if err != nil {
-		return fmt.Errorf("sqlitestore: create project %s: %w", id, err)
+		return fmt.Errorf("sqlitestore: create project %s: %w", id, fault(err))
 	}
 	return nil
 }
@@ -168,7 +168,7 @@ func (s *Store) Append(ctx context.Context, project string, h ledger.Checkpoint,
 	if len(rows) == 0 {
 		return nil
 	}
-	return s.db.Tx(ctx, func(tx *sql.Tx) error {
+	return fault(s.db.Tx(ctx, func(tx *sql.Tx) error {
 		cur, err := head(ctx, tx, project)
 		if err != nil {
 			return err
@@ -209,13 +209,13 @@ func (s *Store) Append(ctx context.Context, project string, h ledger.Checkpoint,
 		last := rows[len(rows)-1]
 		_, err = tx.ExecContext(ctx, `UPDATE projects SET head_seq = ?, head_hash = ? WHERE project_id = ?`, last.Seq, last.Hash[:], project)
 		return err
-	})
+	}))
 }
 
 func (s *Store) SetEpoch(ctx context.Context, project string, epoch uint64) error {
 	res, err := s.db.Writer().ExecContext(ctx, `UPDATE projects SET epoch = ? WHERE project_id = ? AND epoch < ?`, epoch, project, epoch)
 	if err != nil {
-		return fmt.Errorf("sqlitestore: set epoch: %w", err)
+		return fmt.Errorf("sqlitestore: set epoch: %w", fault(err))
 	}
 	if n, _ := res.RowsAffected(); n == 0 {
 		return fmt.Errorf("sqlitestore: set epoch %d of %s: %w", epoch, project, server.ErrConflict)
@@ -254,7 +254,7 @@ func (s *Store) ClockSkews(ctx context.Context, project string) (map[string]int6
 func (s *Store) AddUser(ctx context.Context, id, name string, serverAdmin bool, now time.Time) error {
 	if _, err := s.db.Writer().ExecContext(ctx, `INSERT INTO users (user_id, name, server_admin, created_micros) VALUES (?, ?, ?, ?)`,
 		id, name, serverAdmin, now.UnixMicro()); err != nil {
-		return fmt.Errorf("sqlitestore: add user: %w", err)
+		return fmt.Errorf("sqlitestore: add user: %w", fault(err))
 	}
 	return nil
 }
@@ -282,7 +282,7 @@ func (s *Store) CountUsers(ctx context.Context) (int, error) {
 func (s *Store) SetMember(ctx context.Context, project, user string, role server.Role) error {
 	if _, err := s.db.Writer().ExecContext(ctx, `INSERT INTO members (project_id, user_id, role) VALUES (?, ?, ?)
 		ON CONFLICT (project_id, user_id) DO UPDATE SET role = excluded.role`, project, user, string(role)); err != nil {
-		return fmt.Errorf("sqlitestore: set member: %w", err)
+		return fmt.Errorf("sqlitestore: set member: %w", fault(err))
 	}
 	return nil
 }
@@ -343,7 +343,7 @@ func (s *Store) Devices(ctx context.Context, user string) ([]server.Device, erro
 func (s *Store) Revoke(ctx context.Context, device string, now time.Time) error {
 	res, err := s.db.Writer().ExecContext(ctx, `UPDATE devices SET revoked_micros = COALESCE(revoked_micros, ?) WHERE device_id = ?`, now.UnixMicro(), device)
 	if err != nil {
-		return fmt.Errorf("sqlitestore: revoke: %w", err)
+		return fmt.Errorf("sqlitestore: revoke: %w", fault(err))
 	}
 	if n, _ := res.RowsAffected(); n == 0 {
 		return fmt.Errorf("sqlitestore: revoke %s: %w", device, server.ErrNoDevice)
@@ -371,7 +371,7 @@ func (s *Store) ProjectsOf(ctx context.Context, user string) ([]string, error) {
 func (s *Store) AddEnrollmentCode(ctx context.Context, codeHash []byte, user string, expires time.Time) error {
 	if _, err := s.db.Writer().ExecContext(ctx, `INSERT INTO enrollment_codes (code_hash, user_id, expires_micros) VALUES (?, ?, ?)`,
 		codeHash, user, expires.UnixMicro()); err != nil {
-		return fmt.Errorf("sqlitestore: add enrolment code: %w", err)
+		return fmt.Errorf("sqlitestore: add enrolment code: %w", fault(err))
 	}
 	return nil
 }
@@ -401,7 +401,7 @@ func (s *Store) Enroll(ctx context.Context, codeHash []byte, d server.Device, to
 		return err
 	})
 	if err != nil {
-		return server.Device{}, fmt.Errorf("sqlitestore: enrol %s: %w", d.ID, err)
+		return server.Device{}, fmt.Errorf("sqlitestore: enrol %s: %w", d.ID, fault(err))
 	}
 	return d, nil
 }

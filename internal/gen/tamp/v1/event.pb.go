@@ -3552,8 +3552,13 @@ type DeviceEnrolled struct {
 	UserName string `protobuf:"bytes,5,opt,name=user_name,json=userName,proto3" json:"user_name,omitempty"`
 	// When the device was enrolled, microseconds since 1970-01-01 UTC.
 	EnrolledMicros int64 `protobuf:"varint,6,opt,name=enrolled_micros,json=enrolledMicros,proto3" json:"enrolled_micros,omitempty"`
-	unknownFields  protoimpl.UnknownFields
-	sizeCache      protoimpl.SizeCache
+	// The user's role on the project when the server introduced the device
+	// (inspector, office, qa or admin; empty in a certificate). A server
+	// restored from an older copy gives the user this role again when it has
+	// lost the membership.
+	Role          string `protobuf:"bytes,7,opt,name=role,proto3" json:"role,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
 }
 
 func (x *DeviceEnrolled) Reset() {
@@ -3626,6 +3631,13 @@ func (x *DeviceEnrolled) GetEnrolledMicros() int64 {
 		return x.EnrolledMicros
 	}
 	return 0
+}
+
+func (x *DeviceEnrolled) GetRole() string {
+	if x != nil {
+		return x.Role
+	}
+	return ""
 }
 
 // DeviceRevoked revokes a device's key from a time on: entries the device
@@ -3946,7 +3958,7 @@ const file_tamp_v1_event_proto_rawDesc = "" +
 	"\x11ExceptionAccepted\x12\x17\n" +
 	"\atest_id\x18\x01 \x01(\tR\x06testId\x12\x1a\n" +
 	"\brevision\x18\x02 \x01(\tR\brevision\x12\x16\n" +
-	"\x06reason\x18\x03 \x01(\tR\x06reason\"\xcc\x01\n" +
+	"\x06reason\x18\x03 \x01(\tR\x06reason\"\xe0\x01\n" +
 	"\x0eDeviceEnrolled\x12\x1b\n" +
 	"\tdevice_id\x18\x01 \x01(\tR\bdeviceId\x12\x17\n" +
 	"\auser_id\x18\x02 \x01(\tR\x06userId\x12\x1d\n" +
@@ -3955,7 +3967,8 @@ const file_tamp_v1_event_proto_rawDesc = "" +
 	"\vdevice_name\x18\x04 \x01(\tR\n" +
 	"deviceName\x12\x1b\n" +
 	"\tuser_name\x18\x05 \x01(\tR\buserName\x12'\n" +
-	"\x0fenrolled_micros\x18\x06 \x01(\x03R\x0eenrolledMicros\"\x8e\x01\n" +
+	"\x0fenrolled_micros\x18\x06 \x01(\x03R\x0eenrolledMicros\x12\x12\n" +
+	"\x04role\x18\a \x01(\tR\x04role\"\x8e\x01\n" +
 	"\rDeviceRevoked\x12\x1b\n" +
 	"\tdevice_id\x18\x01 \x01(\tR\bdeviceId\x12)\n" +
 	"\x10effective_micros\x18\x02 \x01(\x03R\x0feffectiveMicros\x12\x1d\n" +
