@@ -49,6 +49,21 @@
 // and opening a store of 5,000 tests, which rebuilds its views, about
 // 0.28 s (BenchmarkOpen). Figures on a tablet's flash storage will differ.
 //
+// # Syncing
+//
+// [Store.Sync] pulls and verifies the project's ledger, pushes, and pulls
+// again. An entry the server acknowledged counts as confirmed only once the
+// device has pulled it back at its place in the chain it verified; until
+// then it is offered again at every push (pushing is idempotent), so a
+// server restored from an older copy gets back what it lost from every
+// device that holds it, whichever device notices the restore. Entries
+// already confirmed are never pushed again. The server also lists entries
+// it lacks (a gap in a device's sequence); a device holding them pushes
+// them in the same sync. [Store.Status] says how many entries await
+// confirmation, how many the server lacks, which entries it asked for that
+// the device does not hold, and which entries have waited longer than
+// [Options] WaitLimit for records the server never received.
+//
 // The device key is kept in the store file; protecting the file at rest is
 // left to the device's disk encryption.
 package client

@@ -234,7 +234,8 @@ func (s *Store) serverCopyStatus(ctx context.Context, project string, st *SyncSt
 // longWaiting returns the entries that have waited longer than the wait
 // limit for records the server lacks, longest first, each with the records
 // it waits for and, when this device holds an entry that makes one, its
-// kind.
+// kind. Finding a kind reads the project's events (record ids carry no
+// index): it runs only for the rare entries past the limit.
 func (s *Store) longWaiting(ctx context.Context, project string) ([]WaitingEntry, error) {
 	r := s.db.Reader()
 	rows, err := r.QueryContext(ctx, `SELECT event_id, kind, record_id, waiting_for, waiting_since_micros FROM events

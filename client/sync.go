@@ -85,7 +85,7 @@ type SyncReport struct {
 	Pulled                                      int // events received and applied
 	Head                                        ledger.Checkpoint
 	ClockSkew                                   time.Duration // device clock minus server clock
-	Repushed                                    int           // events pushed back after a fork or a new epoch
+	Repushed                                    int           // events pushed back that the server had lost (a fork, a new epoch, a restore)
 	Supplied                                    int           // entries pushed because the server asked for them
 	NewEpoch                                    uint64        // the server's new epoch, when it opened one
 }
@@ -252,6 +252,9 @@ func retry(ctx context.Context, o SyncOptions, call func() error) error {
 // so the next attempt resumes. When the server's ledger no longer holds the
 // verified point, Sync pushes back everything the device holds and returns
 // ErrFork; a revoked device gets ErrRevoked and keeps its pending entries.
+// Each push also offers again every entry the server acknowledged that the
+// device has not seen in the chain it verified (a restored server may have
+// lost it), and the entries the server asks for that the device holds.
 func (s *Store) Sync(ctx context.Context, conn grpc.ClientConnInterface, project string, opts SyncOptions) (SyncReport, error) {
 	opts.defaults()
 	rep, err := s.sync(ctx, conn, project, opts)

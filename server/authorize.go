@@ -38,6 +38,8 @@ var entryRoles = map[string][]Role{
 	"test_voided":             {Inspector},
 	"test_reviewed":           {Office, QA},
 	"exception_accepted":      {QA},
+	"device_enrolled":         {}, // the server's own entries: no member makes them
+	"device_revoked":          {},
 }
 
 // EntryRoles returns the roles that may make an entry of kind.
@@ -245,6 +247,9 @@ const (
 	own
 	// codeHolders: whoever holds a valid one-time code; no token is needed.
 	codeHolders
+	// certificateHolders: a device proving its enrolment with the
+	// certificate the server gave it and its key; no token is needed.
+	certificateHolders
 )
 
 // adminCall is the rule of one administration call.
@@ -262,6 +267,7 @@ var adminCalls = map[string]adminCall{
 	pb.AdminService_ListMembers_FullMethodName:         {projectMembers, "list its members"},
 	pb.AdminService_IssueEnrollmentCode_FullMethodName: {userAdmins, "issue enrolment codes"},
 	pb.AdminService_EnrollDevice_FullMethodName:        {codeHolders, "enrol devices"},
+	pb.AdminService_ResumeDevice_FullMethodName:        {certificateHolders, "resume devices"},
 	pb.AdminService_RevokeDevice_FullMethodName:        {ownOrServerAdmin, "revoke devices"},
 	pb.AdminService_ListDevices_FullMethodName:         {ownOrServerAdmin, "list devices"},
 	pb.AdminService_ListInvitations_FullMethodName:     {own, "list invitations"},
@@ -283,7 +289,7 @@ func (a *adminService) allow(ctx context.Context, method string, t target) (User
 	if !ok {
 		return User{}, status.Errorf(codes.PermissionDenied, "admin_call: %s has no rule in the table of administration calls; nobody may make it", method)
 	}
-	if call.access == codeHolders {
+	if call.access == codeHolders || call.access == certificateHolders {
 		return User{}, nil
 	}
 	_, u, err := a.caller(ctx)
@@ -388,7 +394,7 @@ func (a *adminService) CreateProject(ctx context.Context, req *pb.CreateProjectR
 	if err != nil {
 		return nil, a.s.internal(ctx, "create project", err)
 	}
-	if err := a.s.opts.Store.SetMember(ctx, id, u.ID, Admin); err != nil {
+	if err := a.s.AddMember(ctx, id, u.ID, Admin); err != nil {
 		return nil, a.s.internal(ctx, "create project", err)
 	}
 	return &pb.CreateProjectResponse{ProjectId: id}, nil
@@ -435,7 +441,7 @@ func (a *adminService) AddMember(ctx context.Context, req *pb.AddMemberRequest) 
 		if err != nil {
 			return nil, a.s.internal(ctx, "add user", err)
 		}
-		if err := a.s.opts.Store.SetMember(ctx, project, id, role); err != nil {
+		if err := a.s.AddMember(ctx, project, id, role); err != nil {
 			return nil, a.s.internal(ctx, "add member", err)
 		}
 		return &pb.AddMemberResponse{UserId: id}, nil
@@ -467,7 +473,7 @@ func (a *adminService) AddMember(ctx context.Context, req *pb.AddMemberRequest) 
 		a.s.log.InfoContext(ctx, "user invited", "project", project, "user", user, "role", role, "by", u.ID)
 		return &pb.AddMemberResponse{UserId: user, InvitationId: id}, nil
 	}
-	if err := a.s.opts.Store.SetMember(ctx, project, user, role); err != nil {
+	if err := a.s.AddMember(ctx, project, user, role); err != nil {
 		return nil, a.s.internal(ctx, "add member", err)
 	}
 	if prev == "" {

@@ -42,13 +42,14 @@ func TestEveryAdminCallHasARule(t *testing.T) {
 
 // accessText says in words who may make a call of each access.
 var accessText = map[access]string{
-	serverAdmins:     "server administrators",
-	projectAdmins:    "a server administrator, or an administrator of the project",
-	projectMembers:   "a server administrator, or any member of the project",
-	userAdmins:       "a server administrator; or an administrator of every project on which the user holds a role, never for a server administrator",
-	ownOrServerAdmin: "the user concerned, or a server administrator",
-	own:              "the user concerned only",
-	codeHolders:      "whoever holds a valid one-time code (no token)",
+	serverAdmins:       "server administrators",
+	projectAdmins:      "a server administrator, or an administrator of the project",
+	projectMembers:     "a server administrator, or any member of the project",
+	userAdmins:         "a server administrator; or an administrator of every project on which the user holds a role, never for a server administrator",
+	ownOrServerAdmin:   "the user concerned, or a server administrator",
+	own:                "the user concerned only",
+	codeHolders:        "whoever holds a valid one-time code (no token)",
+	certificateHolders: "a device proving its enrolment with its certificate and key (no token)",
 }
 
 // roleTables renders the role table and the table of administration calls

@@ -44,6 +44,18 @@
 // epoch: devices that see it push back everything they hold, and verify
 // the new epoch from its start, so no acknowledged event is lost.
 //
+// # Gaps in a device's entries
+//
+// Every entry names its device's previous entry in the same project
+// (prev_device_seq; device sequence numbers count across all of a device's
+// projects, so they skip within one). The server keeps, per project, the
+// sequence numbers it holds of each device. When it accepts an entry whose
+// predecessor it neither holds nor was offered, it logs the gap and lists
+// it in every push reply (MissingEntries: the device, and the range of its
+// numbers the ledger lacks) until the entry arrives or is offered; any
+// device holding entries in that range pushes them. The knowledge is kept
+// in memory and rebuilt when a project is loaded.
+//
 // # Clock skew
 //
 // Each push carries the device's clock. A difference from the server's
@@ -59,6 +71,19 @@
 // UnaryInterceptor and StreamInterceptor. Names of projects, users and
 // devices are listed in terminals, so they may hold no control characters
 // (C0, DEL, C1, bidirectional controls, line and paragraph separators).
+//
+// # Authority
+//
+// Two tables in authorize.go hold every rule of who may do what: entryRoles
+// says which roles may make each kind of entry (a kind with none is the
+// server's own), and adminCalls who may make each administration call. No
+// one decides on a test they recorded (no review, no accepted exception),
+// whatever their role. An enrolment code lets its holder act as its user
+// everywhere the user has a role, so a project administrator may issue one
+// only for a user whose every role is on a project it administers, and
+// never for a server administrator; adding an existing user from elsewhere
+// is an invitation the user accepts from their own device, and a user's
+// unused codes lapse when they join another project.
 //
 // The Store interface is narrow so that a PostgreSQL store can serve a
 // deployment of several servers; the in-memory projections assume one server

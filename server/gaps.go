@@ -9,8 +9,14 @@ import (
 	"tamp/internal/ledger"
 )
 
-// maxMissing bounds the gaps one push response lists.
-const maxMissing = 100
+// maxMissing bounds the gaps one push response lists; maxOffered the
+// entries a project remembers as offered and not accepted (beyond it, a
+// gap named by a later entry is asked for once more, and the device offers
+// the entry again).
+const (
+	maxMissing = 100
+	maxOffered = 10_000
+)
 
 // devSeq names an entry by its device and device sequence number.
 type devSeq struct {
@@ -74,7 +80,9 @@ func (d *deviceSeqs) offer(e *ledger.Event) {
 		return
 	}
 	delete(d.gaps, k)
-	d.offered[k] = struct{}{}
+	if len(d.offered) < maxOffered {
+		d.offered[k] = struct{}{}
+	}
 }
 
 // missing lists the open gaps, at most maxMissing of them, by device and

@@ -83,6 +83,9 @@ func (a *adminService) AcceptInvitation(ctx context.Context, req *pb.AcceptInvit
 			return nil, err
 		}
 	}
+	if err := a.s.IntroduceDevices(ctx, inv.Project, inv.User); err != nil {
+		return nil, a.s.internal(ctx, "accept invitation", err)
+	}
 	a.s.log.InfoContext(ctx, "invitation accepted", "project", inv.Project, "user", inv.User, "role", inv.Role, "invited_by", inv.InvitedBy)
 	return &pb.AcceptInvitationResponse{ProjectId: inv.Project, Role: roleToProto(inv.Role)}, nil
 }

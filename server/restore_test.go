@@ -181,12 +181,21 @@ func TestRestoreKeepsEntriesAcknowledgedBeforeTheCrash(t *testing.T) {
 		t.Errorf("after a pull of the restored ledger, ann's status shows %d entries the server lacks, want 3", st.ServerLacks)
 	}
 
+	if rep := syncOK(t, ann, c.conn(""), project); rep.Repushed != 3 {
+		t.Errorf("ann's sync pushed back %d entries the server had lost, want 3", rep.Repushed)
+	}
 	for range 2 {
 		for _, name := range []string{"quinn", "ann", "bo"} {
 			syncOK(t, devices[name], c.conn(""), project)
 		}
 	}
 	converged(t, c, acknowledged, devices)
+	// Confirmed entries are not offered again.
+	for name, s := range devices {
+		if rep := syncOK(t, s, c.conn(""), project); rep.Accepted+rep.AlreadyPresent+rep.Supplied != 0 {
+			t.Errorf("%s's sync after converging offered entries again: %+v", name, rep)
+		}
+	}
 }
 
 // After a restore, every device that syncs re-offers what the server lacks,

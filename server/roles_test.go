@@ -6,6 +6,7 @@ import (
 	"slices"
 	"strings"
 	"testing"
+	"time"
 
 	"google.golang.org/grpc/codes"
 	"google.golang.org/grpc/status"
@@ -35,6 +36,8 @@ var documentedEntryRoles = map[string][]server.Role{
 	"test_voided":             {server.Inspector},
 	"test_reviewed":           {server.Office, server.QA},
 	"exception_accepted":      {server.QA},
+	"device_enrolled":         {},
+	"device_revoked":          {},
 }
 
 var allRoles = []server.Role{server.Inspector, server.Office, server.QA, server.Admin}
@@ -42,7 +45,8 @@ var allRoles = []server.Role{server.Inspector, server.Office, server.QA, server.
 // Every (role, entry kind) cell of the role table, pushed as a real signed
 // entry through a real server: the server allows exactly the documented
 // cells, and refuses the others as role_may_make_entry (or, for a server
-// administrator without a role on the project, member_of_project).
+// administrator without a role on the project, member_of_project). A kind
+// with no roles is the server's own: refused from every member.
 func TestRoleTableCells(t *testing.T) {
 	c := startCluster(t, t.TempDir())
 	a := c.newProject("Quarry Road embankment")
@@ -152,6 +156,13 @@ func TestRoleTableCells(t *testing.T) {
 		"exception_accepted": func(*member) ledger.Kind {
 			return &ledger.ExceptionAccepted{TestID: shared.TestID, Revision: sharedRev, Reason: "accepted by the engineer of record"}
 		},
+		"device_enrolled": func(m *member) ledger.Kind {
+			pub, _, _ := ed25519.GenerateKey(nil)
+			return &ledger.DeviceEnrolled{DeviceID: newV7(), UserID: m.d.user, PublicKey: pub, Name: "spare tablet", Enrolled: time.Now().UTC().Truncate(time.Microsecond)}
+		},
+		"device_revoked": func(*member) ledger.Kind {
+			return &ledger.DeviceRevoked{DeviceID: insp.id, Effective: time.Now().UTC().Truncate(time.Microsecond), Reason: "tablet lost"}
+		},
 	}
 
 	kinds := (&pb.EventBody{}).ProtoReflect().Descriptor().Oneofs().ByName("kind").Fields()
@@ -179,15 +190,15 @@ func TestRoleTableCells(t *testing.T) {
 				if got != want {
 					t.Errorf("%s by a member with the role %s: %v %s, want allowed=%v", kind, r, o.GetStatus(), o.GetMessage(), want)
 				}
-				if !want && (o.GetReason() != pb.RejectReason_REJECT_REASON_PERMISSION_DENIED || !strings.Contains(o.GetMessage(), "role_may_make_entry")) {
-					t.Errorf("%s by %s: refused for %v (%s), want permission denied (role_may_make_entry)", kind, r, o.GetReason(), o.GetMessage())
+				if !want && (o.GetReason() != pb.RejectReason_REJECT_REASON_PERMISSION_DENIED || !strings.Contains(o.GetMessage(), refusal(documented, "role_may_make_entry"))) {
+					t.Errorf("%s by %s: refused for %v (%s), want permission denied (%s)", kind, r, o.GetReason(), o.GetMessage(), refusal(documented, "role_may_make_entry"))
 				}
 			})
 		}
 		t.Run(kind+"/server administrator without a role", func(t *testing.T) {
 			o := root.d.first(t, c, a, root.d.sign(t, a, make(root)))
-			if o.GetReason() != pb.RejectReason_REJECT_REASON_PERMISSION_DENIED || !strings.Contains(o.GetMessage(), "member_of_project") {
-				t.Errorf("%s by a server administrator with no role: %v %s, want permission denied (member_of_project)", kind, o.GetStatus(), o.GetMessage())
+			if o.GetReason() != pb.RejectReason_REJECT_REASON_PERMISSION_DENIED || !strings.Contains(o.GetMessage(), refusal(documented, "member_of_project")) {
+				t.Errorf("%s by a server administrator with no role: %v %s, want permission denied (%s)", kind, o.GetStatus(), o.GetMessage(), refusal(documented, "member_of_project"))
 			}
 		})
 	}
@@ -196,6 +207,15 @@ func TestRoleTableCells(t *testing.T) {
 			t.Errorf("the documented role table names %s, which the wire format lacks", kind)
 		}
 	}
+}
+
+// refusal is the rule a refused entry of a kind allowed to roles breaks:
+// rule, or server_entries_only when no role may make it.
+func refusal(roles []server.Role, rule string) string {
+	if len(roles) == 0 {
+		return "server_entries_only"
+	}
+	return rule
 }
 
 func sameRoles(a, b []server.Role) bool {
@@ -282,6 +302,25 @@ func TestAdminCallTable(t *testing.T) {
 			}
 			pub, _, _ := ed25519.GenerateKey(nil)
 			_, err = ac.EnrollDevice(caller(who, self).ctx(), &pb.EnrollDeviceRequest{Code: code, DeviceId: newV7(), PublicKey: pub})
+			return err
+		}},
+		{pb.AdminService_ResumeDevice_FullMethodName, adminCallers, func(t *testing.T, who string) error {
+			// The certificate and the proof authorise a resume; the caller's
+			// token, if any, plays no part.
+			self := inspectorOfA(t)
+			code, _, err := c.srv.IssueEnrollmentCode(ctx, self.user)
+			if err != nil {
+				t.Fatal(err)
+			}
+			pub, key, _ := ed25519.GenerateKey(nil)
+			dev := newV7()
+			enrolled, err := ac.EnrollDevice(ctx, &pb.EnrollDeviceRequest{Code: code, DeviceId: dev, PublicKey: pub})
+			if err != nil {
+				t.Fatal(err)
+			}
+			micros := time.Now().UnixMicro()
+			_, err = ac.ResumeDevice(caller(who, self).ctx(), &pb.ResumeDeviceRequest{Certificate: enrolled.GetCertificate(), ProofMicros: micros,
+				Proof: ed25519.Sign(key, ledger.ResumeProof(dev, micros))})
 			return err
 		}},
 		{pb.AdminService_RevokeDevice_FullMethodName, []string{"server admin", "self"}, func(t *testing.T, who string) error {

@@ -24,7 +24,6 @@ WHERE status = 'accepted' AND server_seq IS NOT NULL
 CREATE INDEX events_unconfirmed ON events (project_id, hlc_wall, hlc_logical, device_id, event_id) WHERE confirmed = 0;
 CREATE INDEX events_by_device ON events (project_id, device_id, device_seq);
 CREATE INDEX events_waiting ON events (project_id, waiting_since_micros) WHERE waiting_since_micros > 0;
-CREATE INDEX events_by_record ON events (project_id, record_id);
 
 -- Entries the server asked for (a gap in a device's sequence) that this
 -- device does not hold, as of its last push of the project.

@@ -207,6 +207,7 @@ func newStatus() *cobra.Command {
 				if st.LastError != "" {
 					fmt.Fprintf(out, "  last error: %s\n", escape(st.LastError))
 				}
+				printServerCopy(out, st, now)
 			}
 			rs, err := s.Rejected(ctx)
 			if err != nil {

@@ -37,8 +37,8 @@ func EncodeBody(e Event) ([]byte, error) {
 	return deterministic.Marshal(b)
 }
 
-// Seal validates e, encodes it canonically and signs it with the device key.
-// It returns a *Rejection when e breaks a rule.
+// Seal checks e as a new entry (Admit), encodes it canonically and signs it
+// with the device key. It returns a *Rejection when e breaks a rule.
 func Seal(e Event, key ed25519.PrivateKey) (Signed, error) {
 	if err := Validate(e); err != nil {
 		return Signed{}, err
@@ -49,6 +49,9 @@ func Seal(e Event, key ed25519.PrivateKey) (Signed, error) {
 	}
 	if len(body) > MaxEventBytes {
 		return Signed{}, reject(Malformed, "", fmt.Sprintf("the event encodes to %d bytes, above the limit of %d", len(body), MaxEventBytes))
+	}
+	if err := admit(e, body); err != nil {
+		return Signed{}, err
 	}
 	return Signed{Event: e, Body: body, Signature: ed25519.Sign(key, signed(body))}, nil
 }

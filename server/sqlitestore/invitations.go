@@ -25,7 +25,7 @@ func (s *Store) Invite(ctx context.Context, inv server.Invitation) (string, erro
 		return err
 	})
 	if err != nil {
-		return "", fmt.Errorf("sqlitestore: invite %s to %s: %w", inv.User, inv.Project, err)
+		return "", fmt.Errorf("sqlitestore: invite %s to %s: %w", inv.User, inv.Project, fault(err))
 	}
 	return id, nil
 }
@@ -107,14 +107,14 @@ func (s *Store) ResolveInvitation(ctx context.Context, id string, accept bool, n
 		return err
 	})
 	if err != nil {
-		return server.Invitation{}, fmt.Errorf("sqlitestore: %s invitation %s: %w", verb, id, err)
+		return server.Invitation{}, fmt.Errorf("sqlitestore: %s invitation %s: %w", verb, id, fault(err))
 	}
 	return inv, nil
 }
 
 func (s *Store) DropEnrollmentCodes(ctx context.Context, user string) error {
 	if _, err := s.db.Writer().ExecContext(ctx, `DELETE FROM enrollment_codes WHERE user_id = ? AND used_micros IS NULL`, user); err != nil {
-		return fmt.Errorf("sqlitestore: void enrolment codes of %s: %w", user, err)
+		return fmt.Errorf("sqlitestore: void enrolment codes of %s: %w", user, fault(err))
 	}
 	return nil
 }

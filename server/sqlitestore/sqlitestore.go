@@ -456,7 +456,7 @@ func (s *Store) ServerIdentity(ctx context.Context, fresh func() server.Identity
 		return err
 	})
 	if err != nil {
-		return server.Identity{}, fmt.Errorf("sqlitestore: server identity: %w", err)
+		return server.Identity{}, fmt.Errorf("sqlitestore: server identity: %w", fault(err))
 	}
 	return id, nil
 }
@@ -489,7 +489,7 @@ func (s *Store) RegisterDevice(ctx context.Context, d server.Device, userName st
 		return nil
 	})
 	if err != nil {
-		return false, fmt.Errorf("sqlitestore: register device %s: %w", d.ID, err)
+		return false, fmt.Errorf("sqlitestore: register device %s: %w", d.ID, fault(err))
 	}
 	return created, nil
 }
@@ -497,7 +497,7 @@ func (s *Store) RegisterDevice(ctx context.Context, d server.Device, userName st
 func (s *Store) SetToken(ctx context.Context, device string, tokenHash []byte) error {
 	res, err := s.db.Writer().ExecContext(ctx, `UPDATE devices SET token_hash = ? WHERE device_id = ?`, tokenHash, device)
 	if err != nil {
-		return fmt.Errorf("sqlitestore: set token of %s: %w", device, err)
+		return fmt.Errorf("sqlitestore: set token of %s: %w", device, fault(err))
 	}
 	if n, _ := res.RowsAffected(); n == 0 {
 		return fmt.Errorf("sqlitestore: set token of %s: %w", device, server.ErrNoDevice)
