@@ -104,7 +104,9 @@ func (s *Store) newIdentity() (string, ed25519.PrivateKey, error) {
 }
 
 // resign signs again, with the new device's key, the entries the old
-// device made that no server acknowledged, in their order.
+// device made for user that no server acknowledged, in their order. An
+// entry of another user, or one today's checks refuse, is marked rejected
+// with the reason, for the user to see.
 func (s *Store) resign(ctx context.Context, tx *sql.Tx, old, id string, key ed25519.PrivateKey, user string) error {
 	rows, err := tx.QueryContext(ctx, `SELECT body, signature FROM events WHERE origin = 'local' AND device_id = ? AND status IN ('pending', 'waiting')
 		ORDER BY device_seq`, old)
@@ -130,23 +132,33 @@ func (s *Store) resign(ctx context.Context, tx *sql.Tx, old, id string, key ed25
 		return err
 	}
 	prev := map[string]uint64{} // project -> the new device's previous entry in it
-	for i, sg := range held {
+	var seq uint64
+	for _, sg := range held {
 		e := sg.Event
-		e.Device, e.DeviceSeq, e.ResignedFrom = id, uint64(i+1), old
-		e.PrevDeviceSeq, prev[e.Project] = prev[e.Project], e.DeviceSeq
-		if user != "" {
-			e.Author = user
+		e.Device, e.DeviceSeq, e.ResignedFrom = id, seq+1, old
+		e.PrevDeviceSeq = prev[e.Project]
+		if e.Author != user { // enrolled now for someone else: their entries are not handed over
+			if _, err := tx.ExecContext(ctx, `UPDATE events SET status = 'rejected', reason = ?, message = ? WHERE event_id = ?`,
+				ledger.PermissionDenied.String(), "not signed again at re-enrolment: the device is now enrolled for another user", e.ID); err != nil {
+				return err
+			}
+			continue
 		}
 		again, err := ledger.Seal(e, key)
-		if err != nil {
-			return fmt.Errorf("sign %s again: %w", e.ID, err)
+		if err != nil { // an entry today's checks refuse stays, refused, for the user to see
+			if _, err := tx.ExecContext(ctx, `UPDATE events SET status = 'rejected', reason = ?, message = ? WHERE event_id = ?`,
+				ledger.ReasonOf(err).String(), "not signed again at re-enrolment: "+err.Error(), e.ID); err != nil {
+				return err
+			}
+			continue
 		}
 		if _, err := tx.ExecContext(ctx, `UPDATE events SET device_id = ?, device_seq = ?, body = ?, signature = ? WHERE event_id = ?`,
 			id, e.DeviceSeq, again.Body, again.Signature, e.ID); err != nil {
 			return err
 		}
+		seq, prev[e.Project] = e.DeviceSeq, e.DeviceSeq
 	}
-	_, err = tx.ExecContext(ctx, `UPDATE device SET last_seq = ? WHERE id = 1`, len(held))
+	_, err = tx.ExecContext(ctx, `UPDATE device SET last_seq = ? WHERE id = 1`, seq)
 	return err
 }
 

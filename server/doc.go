@@ -61,7 +61,23 @@
 // Each push carries the device's clock. A difference from the server's
 // beyond the project's limit (five minutes unless the set-up says otherwise)
 // is logged, returned to the device, and recorded on every event of that
-// push for review.
+// push for review. An entry whose hybrid time or device time runs more than
+// a day past the server's clock is rejected (ledger.CheckAhead), as is one
+// that breaks a bound on new entries (ledger.Admit: physical bounds,
+// finite numbers, clocks before 2000, fields this version does not know).
+// An entry the ledger holds already is "already present" whatever it says.
+//
+// # Storage faults
+//
+// When the store cannot write (a full disk, a read-only data directory, an
+// I/O error: the store wraps ErrStorageFull, ErrStorageReadOnly or
+// ErrStorageIO), the call fails with Unavailable naming the cause, which
+// devices retry, and the standard health service reports the server and
+// its writing services NOT_SERVING (the read service stays SERVING). While
+// the fault lasts a push first writes a probe (Store.Probe), and a
+// background probe, stopped by Close, tries every StorageProbeInterval:
+// the first write that succeeds turns health SERVING again, with no
+// restart.
 //
 // # Bad requests
 //

@@ -98,6 +98,7 @@ func (c *cluster) stop() {
 	}
 	c.g.GracefulStop()
 	<-c.done
+	c.srv.Close()
 	c.store.Close()
 	c.g = nil
 }

@@ -71,9 +71,10 @@ type storageHealth struct {
 
 func newStorageHealth(probe func(context.Context) error, interval time.Duration, log *slog.Logger) *storageHealth {
 	h := &storageHealth{hs: health.NewServer(), probe: probe, interval: interval, log: log, stop: make(chan struct{})}
-	for _, svc := range append(writeServices, pb.LedgerReadService_ServiceDesc.ServiceName) {
+	for _, svc := range writeServices {
 		h.hs.SetServingStatus(svc, healthpb.HealthCheckResponse_SERVING)
 	}
+	h.hs.SetServingStatus(pb.LedgerReadService_ServiceDesc.ServiceName, healthpb.HealthCheckResponse_SERVING)
 	return h
 }
 

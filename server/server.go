@@ -478,6 +478,10 @@ const minVerifyPart = 512
 type decoded struct {
 	signed ledger.Signed
 	err    error
+	// refused is why the event may not join the ledger as a new entry
+	// (ledger.Admit), nil when it may; an event the ledger holds already
+	// is present whatever it says.
+	refused error
 }
 
 // verifyAll decodes, verifies and validates events, checking signatures in
@@ -517,6 +521,9 @@ func (s *Server) verifyAll(ctx context.Context, events []*pb.Event) []decoded {
 					err = ledger.Validate(out[i].signed.Event)
 				}
 				out[i].err = err
+				if err == nil {
+					out[i].refused = ledger.Admit(out[i].signed)
+				}
 			}
 		}()
 	}
@@ -636,6 +643,10 @@ func (s *Server) decide(ctx context.Context, p *project, req *pb.PushRequest, it
 				continue
 			}
 			resp.Outcomes = append(resp.Outcomes, &pb.PushOutcome{EventId: id, Status: pb.PushStatus_PUSH_STATUS_ALREADY_PRESENT, Sequence: seq})
+			continue
+		}
+		if refused := cmp.Or(it.refused, ledger.CheckAhead(e, now)); refused != nil { // bounds of a new entry, and its clock against ours
+			resp.Outcomes = append(resp.Outcomes, rejected(id, refused))
 			continue
 		}
 		deny, err := s.checkOwnEntry(ctx, e)

@@ -8,7 +8,6 @@ import (
 	"time"
 
 	"google.golang.org/protobuf/encoding/protowire"
-	"google.golang.org/protobuf/proto"
 	"google.golang.org/protobuf/reflect/protoreflect"
 
 	pb "tamp/internal/gen/tamp/v1"
@@ -66,38 +65,35 @@ const (
 // a factory reset.
 var MinWallTime = time.Date(2000, 1, 1, 0, 0, 0, 0, time.UTC)
 
-// Admit checks an entry offered to a ledger: what Validate checks, that its
-// signed body holds only fields and enum values this version of tamp knows
-// and only finite numbers, and that its values lie within the bounds of
-// this file. A device runs it (through Seal) when it makes an entry and the
-// server when it accepts a push; the server also refuses an entry that runs
-// ahead of its clock (CheckAhead). Errors are *Rejection values naming the
-// field and the rule: UnknownKind for what only a newer version can read,
-// InvalidField or ImpossibleReadings for a value out of bounds.
+// Admit checks what an entry offered to a ledger must satisfy beyond
+// Validate: that its signed body holds only fields and enum values this
+// version of tamp knows and only finite numbers, and that its values lie
+// within the bounds of this file. A device runs it (through Seal) when it
+// makes an entry, and the server on every pushed entry it does not hold
+// yet, with CheckAhead against its own clock. Errors are *Rejection values
+// naming the field and the rule: UnknownKind for what only a newer version
+// can read, InvalidField or ImpossibleReadings for a value out of bounds.
 //
 // Events already held in a ledger are read with Validate alone (Open,
-// Projection.Apply): a signed history cannot be changed, so a bound added
-// later applies to new entries and never makes a stored ledger unreadable.
+// Projection.Apply), and a push of one is answered "already present":
+// a signed history cannot be changed, so a bound added later applies to new
+// entries and never makes a stored ledger unreadable.
 func Admit(s Signed) error {
-	if err := Validate(s.Event); err != nil {
-		return err
-	}
 	return admit(s.Event, s.Body)
 }
 
 func admit(e Event, body []byte) error {
-	var b pb.EventBody
-	if err := proto.Unmarshal(body, &b); err != nil {
-		return &Rejection{Reason: Malformed, Field: "body", Detail: "the event body does not decode", Err: err}
-	}
-	if r := checkMessage(b.ProtoReflect(), ""); r != nil {
+	if r := checkWire(body, bodyDescriptor); r != nil {
 		r.Field = entryField(r.Field)
 		return r
 	}
 	return checkBounds(e)
 }
 
-var kinds = (&pb.EventBody{}).ProtoReflect().Descriptor().Oneofs().ByName("kind").Fields()
+var (
+	bodyDescriptor = (&pb.EventBody{}).ProtoReflect().Descriptor()
+	kinds          = bodyDescriptor.Oneofs().ByName("kind").Fields()
+)
 
 // entryField names a field of the body as the entry's own: without the
 // event kind, and without a test's "content".
@@ -108,57 +104,131 @@ func entryField(path string) string {
 	return strings.TrimPrefix(path, "content.")
 }
 
-// checkMessage refuses, anywhere in m, an unknown field, an enum value this
-// version does not define and a number that is not finite. path names m.
-func checkMessage(m protoreflect.Message, path string) *Rejection {
-	if u := m.GetUnknown(); len(u) > 0 {
-		num, _, _ := protowire.ConsumeTag(u)
-		return reject(UnknownKind, join(path, "#"+strconv.Itoa(int(num))), fmt.Sprintf(
-			"the entry holds field number %d (%d bytes), which this version of tamp does not know: it was made by a newer "+
-				"version, and this one cannot check or grade what it cannot read (upgrade the server before the devices)", num, len(u)))
-	}
-	var bad *Rejection
-	m.Range(func(fd protoreflect.FieldDescriptor, v protoreflect.Value) bool {
-		name := join(path, string(fd.Name()))
-		switch {
-		case fd.IsList():
-			l := v.List()
-			for i := 0; i < l.Len() && bad == nil; i++ {
-				bad = checkValue(fd, l.Get(i), fmt.Sprintf("%s[%d]", name, i))
-			}
-		case fd.IsMap():
-			v.Map().Range(func(k protoreflect.MapKey, mv protoreflect.Value) bool {
-				bad = checkValue(fd.MapValue(), mv, fmt.Sprintf("%s[%v]", name, k.Interface()))
-				return bad == nil
-			})
-		default:
-			bad = checkValue(fd, v, name)
+// checkWire refuses, anywhere in the encoded message b of descriptor md,
+// a field this version does not know (or one encoded as another type,
+// which decoding keeps as unknown), an enum value it does not define and a
+// number that is not finite, naming the field within the message. It reads
+// the encoding as it is, allocating nothing unless it refuses.
+func checkWire(b []byte, md protoreflect.MessageDescriptor) *Rejection {
+	for off := 0; off < len(b); {
+		num, typ, n := protowire.ConsumeTag(b[off:])
+		if n < 0 {
+			return reject(Malformed, "", "the event body does not decode")
 		}
-		return bad == nil
-	})
-	return bad
-}
-
-func checkValue(fd protoreflect.FieldDescriptor, v protoreflect.Value, name string) *Rejection {
-	switch fd.Kind() {
-	case protoreflect.MessageKind, protoreflect.GroupKind:
-		return checkMessage(v.Message(), name)
-	case protoreflect.DoubleKind, protoreflect.FloatKind:
-		if f := v.Float(); math.IsNaN(f) || math.IsInf(f, 0) {
-			return reject(InvalidField, name, fmt.Sprintf("must be a finite number, not %v", f))
+		at := off
+		off += n
+		m := protowire.ConsumeFieldValue(num, typ, b[off:])
+		if m < 0 {
+			return reject(Malformed, "", "the event body does not decode")
 		}
-	case protoreflect.EnumKind:
-		if fd.Enum().Values().ByNumber(v.Enum()) == nil {
-			return reject(UnknownKind, name, fmt.Sprintf("value %d is not one this version of tamp knows: the entry was made by a newer version "+
-				"(upgrade the server before the devices)", v.Enum()))
+		v := b[off : off+m]
+		off += m
+		fd := md.Fields().ByNumber(num)
+		if fd == nil || !wireFits(fd, typ) {
+			return reject(UnknownKind, "#"+strconv.Itoa(int(num)), fmt.Sprintf(
+				"the entry holds field number %d (%d bytes), which this version of tamp does not know: it was made by a newer "+
+					"version, and this one cannot check or grade what it cannot read (upgrade the server before the devices)", num, m))
+		}
+		if r := checkWireValue(fd, typ, v); r != nil {
+			r.Field = join(wireName(b[:at], fd), r.Field)
+			return r
 		}
 	}
 	return nil
 }
 
-func join(path, name string) string {
-	if path == "" {
+// wireFits reports whether a field of fd's kind may be encoded as typ.
+func wireFits(fd protoreflect.FieldDescriptor, typ protowire.Type) bool {
+	want := protowire.VarintType
+	switch fd.Kind() {
+	case protoreflect.MessageKind, protoreflect.StringKind, protoreflect.BytesKind:
+		want = protowire.BytesType
+	case protoreflect.GroupKind:
+		want = protowire.StartGroupType
+	case protoreflect.DoubleKind, protoreflect.Fixed64Kind, protoreflect.Sfixed64Kind:
+		want = protowire.Fixed64Type
+	case protoreflect.FloatKind, protoreflect.Fixed32Kind, protoreflect.Sfixed32Kind:
+		want = protowire.Fixed32Type
+	}
+	return typ == want || fd.IsList() && want != protowire.BytesType && want != protowire.StartGroupType && typ == protowire.BytesType
+}
+
+// checkWireValue checks one encoded value v of field fd; the field of a
+// rejection is relative to fd.
+func checkWireValue(fd protoreflect.FieldDescriptor, typ protowire.Type, v []byte) *Rejection {
+	switch fd.Kind() {
+	case protoreflect.MessageKind:
+		inner, _ := protowire.ConsumeBytes(v)
+		return checkWire(inner, fd.Message())
+	case protoreflect.DoubleKind, protoreflect.FloatKind, protoreflect.EnumKind:
+	default:
+		return nil
+	}
+	if typ == protowire.BytesType { // packed
+		v, _ = protowire.ConsumeBytes(v)
+	}
+	for len(v) > 0 {
+		var n int
+		switch fd.Kind() {
+		case protoreflect.DoubleKind:
+			var x uint64
+			x, n = protowire.ConsumeFixed64(v)
+			if f := math.Float64frombits(x); n > 0 && (math.IsNaN(f) || math.IsInf(f, 0)) {
+				return reject(InvalidField, "", fmt.Sprintf("must be a finite number, not %v", f))
+			}
+		case protoreflect.FloatKind:
+			var x uint32
+			x, n = protowire.ConsumeFixed32(v)
+			if f := float64(math.Float32frombits(x)); n > 0 && (math.IsNaN(f) || math.IsInf(f, 0)) {
+				return reject(InvalidField, "", fmt.Sprintf("must be a finite number, not %v", f))
+			}
+		case protoreflect.EnumKind:
+			var x uint64
+			x, n = protowire.ConsumeVarint(v)
+			if n > 0 && fd.Enum().Values().ByNumber(protoreflect.EnumNumber(int32(x))) == nil {
+				return reject(UnknownKind, "", fmt.Sprintf("value %d is not one this version of tamp knows: the entry was made by a newer version "+
+					"(upgrade the server before the devices)", int32(x)))
+			}
+		}
+		if n < 0 {
+			return reject(Malformed, "", "the event body does not decode")
+		}
+		v = v[n:]
+	}
+	return nil
+}
+
+// wireName names field fd of the message whose encoding before it is
+// before, with its index when it is repeated.
+func wireName(before []byte, fd protoreflect.FieldDescriptor) string {
+	name := string(fd.Name())
+	if !fd.IsList() {
 		return name
+	}
+	i := 0
+	for len(before) > 0 {
+		num, typ, n := protowire.ConsumeTag(before)
+		if n < 0 {
+			break
+		}
+		m := protowire.ConsumeFieldValue(num, typ, before[n:])
+		if m < 0 {
+			break
+		}
+		if num == fd.Number() {
+			i++
+		}
+		before = before[n+m:]
+	}
+	return fmt.Sprintf("%s[%d]", name, i)
+}
+
+func join(path, name string) string {
+	switch {
+	case path == "":
+		return name
+	case name == "":
+		return path
 	}
 	return path + "." + name
 }
@@ -166,7 +236,7 @@ func join(path, name string) string {
 // CheckAhead refuses an entry whose hybrid time or device time is more
 // than MaxTimeAhead after now, the receiving replica's clock. Stored
 // entries are never checked again: it is for admission only.
-func CheckAhead(e Event, now time.Time) *Rejection {
+func CheckAhead(e Event, now time.Time) error {
 	limit := now.Add(MaxTimeAhead)
 	if hlc := time.UnixMicro(e.HLC.Wall).UTC(); hlc.After(limit) {
 		return reject(InvalidField, "hlc", fmt.Sprintf("%s is %s ahead of this server's clock (%s); at most %s is accepted: "+

@@ -14,6 +14,33 @@
 // received event, verifies its signature and validates it; every refusal
 // is a [*Rejection] naming a [Reason], the field and the rule.
 //
+// # New entries and history
+//
+// A new entry must pass more than a held one. [Admit] (which [Seal] runs on
+// the device and the server runs on every pushed entry it does not hold)
+// refuses values outside physical bounds ([MinDensity] to [MaxDensity] for
+// a wet density in place, finite numbers everywhere, masses and volumes of
+// a size a field test can have, a moisture of 0 to 100 %) and a clock
+// before [MinWallTime]; the server also refuses an entry whose hybrid or
+// device time runs more than [MaxTimeAhead] past its own clock
+// ([CheckAhead]). Events a ledger already holds are read with [Validate]
+// alone: a signed history cannot be changed, so a bound added later never
+// makes a stored ledger unreadable.
+//
+// # Forward compatibility
+//
+// Because signed bytes are kept verbatim, an entry made by a newer version
+// of tamp may carry fields (or enum values) this version does not know.
+// Such an entry is refused as a new entry, with reason unknown_kind and
+// the field's number, like an entry of an unknown kind: a replica cannot
+// check, authorise or grade what it cannot read, and storing it would put
+// into the ledger, under a valid signature, content every replica of this
+// version silently ignores. So a change that adds a field to an event body
+// ships to the server before the devices that write it. Entries already in
+// a ledger are read as they are, unknown fields and all: an older device
+// pulling a ledger that a newer server admitted keeps the bytes, verifies
+// the chain and shows what it can read.
+//
 // # The chain
 //
 // The server numbers a project's events 1, 2, ... and links them:

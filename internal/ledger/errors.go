@@ -11,7 +11,7 @@ type Reason int
 // The reasons an event is refused.
 const (
 	Malformed          Reason = iota + 1 // does not decode
-	UnknownKind                          // no kind this version knows
+	UnknownKind                          // a kind, field or enum value this version does not know
 	BadSignature                         // signature does not verify
 	InvalidField                         // a required field is missing or breaks a rule
 	ImpossibleReadings                   // readings no real test can produce
