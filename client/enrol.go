@@ -189,9 +189,9 @@ func isUnauthenticated(err error) bool {
 	return false
 }
 
-// ErrNoCertificate is returned by Resume for a device that holds no
+// ErrNoEnrolmentCertificate is returned by Resume for a device that holds no
 // enrolment certificate (it enrolled with an older server).
-var ErrNoCertificate = errors.New("client: this device holds no enrolment certificate; enrol it again with a new code")
+var ErrNoEnrolmentCertificate = errors.New("client: this device holds no enrolment certificate; enrol it again with a new code")
 
 // Resume proves the device's enrolment to a server that no longer knows
 // it (restored from a copy older than the enrolment), with the certificate
@@ -203,18 +203,23 @@ func (s *Store) Resume(ctx context.Context, conn grpc.ClientConnInterface) error
 		return err
 	}
 	if c == "" {
-		return ErrNoCertificate
+		return ErrNoEnrolmentCertificate
 	}
 	var cert pb.Event
 	if err := proto.Unmarshal([]byte(c), &cert); err != nil {
 		return fmt.Errorf("client: resume: the stored certificate: %w", err)
 	}
+	held, err := ledger.FromEnvelope(&cert)
+	if err != nil {
+		return fmt.Errorf("client: resume: the stored certificate: %w", err)
+	}
+	server := held.Event.Device // the server's own device signed it
 	s.mu.Lock()
 	id, key := s.deviceID, s.key
 	s.mu.Unlock()
 	micros := s.now().UnixMicro()
 	resp, err := pb.NewAdminServiceClient(conn).ResumeDevice(ctx, &pb.ResumeDeviceRequest{Certificate: &cert, ProofMicros: micros,
-		Proof: ed25519.Sign(key, ledger.ResumeProof(id, micros))})
+		Proof: ed25519.Sign(key, ledger.ResumeProof(server, id, micros))})
 	if err != nil {
 		return fmt.Errorf("client: resume: %w", err)
 	}

@@ -76,13 +76,27 @@ func (a *authorizer) role(user string) (Role, error) {
 	return r, nil
 }
 
+// deviceUser returns the user a device is enrolled for: from the device
+// table, or from a device_enrolled entry earlier in the batch (a device
+// relaying, to a server restored from an older copy, the introduction and
+// the entries of a device it lost). It returns "" with a nil error for a
+// device neither knows. A device the table says is revoked, of which the
+// project's ledger holds no revocation, counts as unknown here: its
+// entries are refused rather than let into a project its revocation never
+// reached.
 func (a *authorizer) deviceUser(device string) (string, error) {
 	if u, ok := a.users[device]; ok {
 		return u, nil
 	}
 	d, err := a.s.opts.Store.Device(a.ctx, device)
+	if errors.Is(err, ErrNoDevice) {
+		return "", nil
+	}
 	if err != nil {
 		return "", err
+	}
+	if dv, ok := a.view.Device(device); d.Revoked && (!ok || dv.Revoked == nil) {
+		return "", nil
 	}
 	a.users[device] = d.UserID
 	return d.UserID, nil
@@ -104,6 +118,9 @@ func (a *authorizer) check(e ledger.Event) (*ledger.Rejection, error) {
 	user, err := a.deviceUser(e.Device)
 	if err != nil {
 		return nil, err
+	}
+	if user == "" {
+		return denied("enrolled_device", fmt.Sprintf("device %s is not enrolled on this server, or was revoked", e.Device)), nil
 	}
 	if user != e.Author {
 		return denied("author_is_device_user", fmt.Sprintf("the entry's author %s is not the user device %s is enrolled for", e.Author, e.Device)), nil
@@ -544,16 +561,19 @@ func (a *adminService) IssueEnrollmentCode(ctx context.Context, req *pb.IssueEnr
 }
 
 func (a *adminService) RevokeDevice(ctx context.Context, req *pb.RevokeDeviceRequest) (*pb.RevokeDeviceResponse, error) {
-	_, u, err := a.caller(ctx)
-	if err != nil {
+	if _, _, err := a.caller(ctx); err != nil {
 		return nil, err
 	}
 	d, err := a.s.opts.Store.Device(ctx, req.GetDeviceId())
-	if err != nil {
+	if errors.Is(err, ErrNoDevice) || a.s.isOwnDevice(req.GetDeviceId()) {
 		return nil, status.Errorf(codes.NotFound, "device_id: no device %s", req.GetDeviceId())
 	}
-	if !u.ServerAdmin && d.UserID != u.ID {
-		return nil, status.Error(codes.PermissionDenied, "own_device: only a server administrator or the device's own user may revoke it")
+	if err != nil {
+		return nil, a.s.internal(ctx, "revoke", err)
+	}
+	u, err := a.allow(ctx, pb.AdminService_RevokeDevice_FullMethodName, target{user: d.UserID})
+	if err != nil {
+		return nil, err
 	}
 	now := a.s.opts.Now()
 	if err := a.s.opts.Store.Revoke(ctx, d.ID, now); err != nil {

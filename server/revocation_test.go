@@ -16,10 +16,11 @@ import (
 	"tamp/server"
 )
 
-// Revocation is a signed entry of the ledger with its effective time:
-// entries the revoked key signed after it are refused whoever relays them,
-// entries signed before it stand, and devices learn the revocation on pull
-// (issue 10, rule 5).
+// Revocation is a signed entry of the ledger with its effective time and
+// the last of the device's entries the ledger held then: later entries of
+// the revoked key are refused whoever relays them and whatever time they
+// claim, entries held before it stand, and devices learn the revocation on
+// pull (issue 10, rule 5).
 func TestRevocationIsALedgerEntry(t *testing.T) {
 	c := startCluster(t, t.TempDir())
 	p := c.newProject("Willow Bend outfall")
@@ -29,21 +30,32 @@ func TestRevocationIsALedgerEntry(t *testing.T) {
 	office := c.device("office", server.Office)
 
 	before := lost.sign(t, p, &ledger.TestRecorded{TestID: newV7(), Content: ledger.TestContent{Readings: sandCone(110, 12)}})
+	if o := lost.first(t, c, p, before); o.GetStatus() != pb.PushStatus_PUSH_STATUS_ACCEPTED {
+		t.Fatalf("the device's own entry before the revocation: %v", o)
+	}
 	if _, err := pb.NewAdminServiceClient(c.conn("")).RevokeDevice(root.ctx(), &pb.RevokeDeviceRequest{DeviceId: lost.id, Reason: "tablet lost"}); err != nil {
 		t.Fatal(err)
 	}
-	time.Sleep(2 * time.Millisecond) // the next hybrid time is after the revocation's
 	after := lost.sign(t, p, &ledger.TestRecorded{TestID: newV7(), Content: ledger.TestContent{Readings: sandCone(90, 25)}})
-
-	resp, err := relay.push(t, c, p, before, after)
+	// A stolen key dates an entry before the revocation: the number decides.
+	backdated := after.Event
+	backdated.ID, backdated.DeviceSeq, backdated.HLC = newV7(), after.Event.DeviceSeq+1, before.Event.HLC
+	back, err := ledger.Seal(backdated, lost.key)
 	if err != nil {
 		t.Fatal(err)
 	}
-	if o := resp.GetOutcomes()[0]; o.GetStatus() != pb.PushStatus_PUSH_STATUS_ACCEPTED {
-		t.Errorf("an entry signed before the revocation, relayed: %v", o)
+
+	resp, err := relay.push(t, c, p, before, after, back)
+	if err != nil {
+		t.Fatal(err)
 	}
-	if o := resp.GetOutcomes()[1]; o.GetReason() != pb.RejectReason_REJECT_REASON_PERMISSION_DENIED || !strings.Contains(o.GetMessage(), "signed_after_revocation") {
-		t.Errorf("an entry signed after the revocation, relayed: %v, want refused as signed_after_revocation", o)
+	if o := resp.GetOutcomes()[0]; o.GetStatus() != pb.PushStatus_PUSH_STATUS_ALREADY_PRESENT {
+		t.Errorf("an entry held before the revocation, relayed: %v", o)
+	}
+	for i, name := range map[int]string{1: "after the revocation", 2: "after the revocation, dated before it"} {
+		if o := resp.GetOutcomes()[i]; o.GetReason() != pb.RejectReason_REJECT_REASON_PERMISSION_DENIED || !strings.Contains(o.GetMessage(), "signed_after_revocation") {
+			t.Errorf("an entry made %s, relayed: %v, want refused as signed_after_revocation", name, o)
+		}
 	}
 
 	// Nobody but the server makes a device entry.

@@ -320,7 +320,7 @@ func TestAdminCallTable(t *testing.T) {
 			}
 			micros := time.Now().UnixMicro()
 			_, err = ac.ResumeDevice(caller(who, self).ctx(), &pb.ResumeDeviceRequest{Certificate: enrolled.GetCertificate(), ProofMicros: micros,
-				Proof: ed25519.Sign(key, ledger.ResumeProof(dev, micros))})
+				Proof: ed25519.Sign(key, ledger.ResumeProof(certSigner(t, enrolled.GetCertificate()), dev, micros))})
 			return err
 		}},
 		{pb.AdminService_RevokeDevice_FullMethodName, []string{"server admin", "self"}, func(t *testing.T, who string) error {

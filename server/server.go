@@ -219,6 +219,9 @@ func (s *Server) Bootstrap(ctx context.Context, name string) (user, code string,
 	if user, err = s.AddUser(ctx, name, true); err != nil {
 		return "", "", time.Time{}, err
 	}
+	if _, err = s.identity(ctx); err != nil { // the server's signing key, kept in the store from the start
+		return "", "", time.Time{}, err
+	}
 	code, expires, err = s.IssueEnrollmentCode(ctx, user)
 	return user, code, expires, err
 }
@@ -265,7 +268,7 @@ func (a *adminService) EnrollDevice(ctx context.Context, req *pb.EnrollDeviceReq
 		}
 		return nil, s.internal(ctx, "enrol", err)
 	}
-	cert, err := s.introduceDevice(ctx, d, s.opts.Now())
+	cert, err := s.certificate(ctx, d, s.opts.Now())
 	if err != nil {
 		return nil, s.internal(ctx, "enrol", err)
 	}
@@ -273,6 +276,14 @@ func (a *adminService) EnrollDevice(ctx context.Context, req *pb.EnrollDeviceReq
 	projects, err := s.opts.Store.ProjectsOf(ctx, d.UserID)
 	if err != nil {
 		return nil, s.internal(ctx, "enrol", err)
+	}
+	// The device is enrolled and its code used up: an introduction that
+	// fails here is made at the device's first push (ensureIntroduced), so
+	// the enrolment is not refused for it.
+	for _, p := range projects {
+		if err := s.ensureIntroduced(ctx, p, d); err != nil {
+			s.log.WarnContext(ctx, "introduce an enrolled device to a project; its first push will", "device", d.ID, "project", p, "err", err)
+		}
 	}
 	return &pb.EnrollDeviceResponse{Token: token, UserId: d.UserID, ProjectIds: projects, Certificate: cert.Proto()}, nil
 }
@@ -330,6 +341,9 @@ func (s *Server) authenticate(ctx context.Context, method string) (context.Conte
 	}
 	if d.Revoked {
 		return nil, status.Error(codes.Unauthenticated, "authorization: this device was revoked")
+	}
+	if s.isOwnDevice(d.ID) { // the server's own device has no token; refuse one all the same
+		return nil, status.Error(codes.Unauthenticated, "authorization: the token is not valid")
 	}
 	return context.WithValue(ctx, deviceKey{}, d), nil
 }
@@ -418,6 +432,7 @@ func (s *Server) load(ctx context.Context, p *project, id string) error {
 		}
 		seq = entries[len(entries)-1].Seq
 	}
+	s.syncDevices(ctx, id, view)
 	p.view, p.head, p.seqs, p.devs, p.loaded = view, head, seqs, devs, true
 	p.seen = p.failed.Load()
 	return nil
@@ -553,6 +568,9 @@ func (s *Server) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushRespons
 		if dev, err = s.requireMember(ctx, req.GetProjectId()); err != nil {
 			return nil, err
 		}
+		if err := s.ensureIntroduced(ctx, req.GetProjectId(), dev); err != nil {
+			return nil, projectErr(s, ctx, req.GetProjectId(), err)
+		}
 	}
 	if !own && !s.limits.allow(dev.ID, s.opts.Now()) {
 		return nil, status.Errorf(codes.ResourceExhausted, "rate: device %s pushes faster than %.0f batches a second; slow down", dev.ID, s.opts.PushRate)
@@ -618,7 +636,16 @@ func (s *Server) decide(ctx context.Context, p *project, req *pb.PushRequest, it
 	slab := make([]pb.PushOutcome, len(items)) // the accepted events' outcomes, in one allocation
 	next := head
 	gaps := 0 // gaps in device sequences the accepted entries opened
+	own, err := s.identity(ctx)
+	if err != nil {
+		return nil, head, nil, s.internal(ctx, "identity", err)
+	}
 	auth := s.authorizer(ctx, req.GetProjectId(), p.view)
+	for _, it := range items { // devices this batch introduces, signed by the server's own key
+		if k, ok := it.signed.Event.Kind.(*ledger.DeviceEnrolled); ok && it.err == nil && s.isOwnDevice(it.signed.Event.Device) {
+			auth.users[k.DeviceID] = k.UserID
+		}
+	}
 	for i, it := range items {
 		id := ""
 		if it.err == nil {
@@ -649,8 +676,9 @@ func (s *Server) decide(ctx context.Context, p *project, req *pb.PushRequest, it
 			resp.Outcomes = append(resp.Outcomes, rejected(id, refused))
 			continue
 		}
-		deny, err := s.checkOwnEntry(ctx, e)
-		if err == nil && deny == nil && !isDeviceEntry(e.Kind) {
+		deny := checkOwnEntry(own, e)
+		var err error
+		if deny == nil && !ledger.ServerMade(e.Kind) {
 			deny, err = auth.check(e)
 		}
 		if err == nil && deny == nil {

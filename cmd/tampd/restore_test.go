@@ -177,7 +177,8 @@ func syncOK(t *testing.T, s *client.Store, cc *grpc.ClientConn, project string) 
 }
 
 // A restore of tampd's data directory from an older copy, with the real
-// binary: devices enrolled before and after the copy, a push acknowledged
+// binary: devices enrolled before and after the copy (one of them lost
+// before the restore, whose work only the others can hand back), a push acknowledged
 // just before a crash (the device's closing pull never happens), a
 // revocation after the copy. After the restore every device syncs twice:
 // the server then holds every entry any device had acknowledged, once, every
@@ -243,6 +244,12 @@ func TestRestoreFromOlderCopy(t *testing.T) {
 	syncOK(t, cy, cc, c.project)
 	cyTests := c.record(cy, 2, 108)
 	syncOK(t, cy, cc, c.project)
+	// Dot's tablet, enrolled after the copy, syncs once and is lost: only
+	// the others can hand its work back.
+	dot := c.member(cc, "Dot", pb.Role_ROLE_INSPECTOR)
+	syncOK(t, dot, cc, c.project)
+	dotTests := c.record(dot, 2, 106)
+	syncOK(t, dot, cc, c.project)
 	if _, err := pb.NewAdminServiceClient(cc).RevokeDevice(c.adminCtx(), &pb.RevokeDeviceRequest{DeviceId: rae.DeviceID(), Reason: "tablet lost"}); err != nil {
 		t.Fatal(err)
 	}
@@ -270,7 +277,7 @@ func TestRestoreFromOlderCopy(t *testing.T) {
 
 	for round := range 2 {
 		for _, s := range []*client.Store{c.admin, qa, ana, cy} {
-			if _, err := s.Sync(context.Background(), cc, c.project, client.SyncOptions{}); err != nil && round == 1 {
+			if _, err := s.Sync(context.Background(), cc, c.project, client.SyncOptions{}); err != nil && !errors.Is(err, client.ErrFork) {
 				t.Errorf("round %d: sync: %v", round, err)
 			}
 		}
@@ -304,7 +311,7 @@ func TestRestoreFromOlderCopy(t *testing.T) {
 			t.Errorf("%s: %d unconfirmed, %d the server lacks, %d pending", name, st.Unconfirmed, st.ServerLacks, st.Outbox.Pending)
 		}
 	}
-	for _, id := range append(anaTests, cyTests...) {
+	for _, id := range append(append(anaTests, cyTests...), dotTests...) {
 		if _, err := c.admin.Test(c.project, id); err != nil {
 			t.Errorf("test %s, acknowledged before the restore, is not in the server's ledger: %v", id, err)
 		}

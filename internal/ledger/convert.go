@@ -88,7 +88,7 @@ func ToProto(e Event) (*pb.EventBody, error) {
 			DeviceName: k.Name, UserName: k.UserName, EnrolledMicros: k.Enrolled.UnixMicro(), Role: k.Role}}
 	case *DeviceRevoked:
 		b.Kind = &pb.EventBody_DeviceRevoked{DeviceRevoked: &pb.DeviceRevoked{DeviceId: k.DeviceID, EffectiveMicros: k.Effective.UnixMicro(),
-			RevokedBy: k.RevokedBy, Reason: k.Reason}}
+			RevokedBy: k.RevokedBy, Reason: k.Reason, LastDeviceSeq: k.LastDeviceSeq}}
 	default:
 		return nil, fmt.Errorf("ledger: encode event %s: %w", e.ID, reject(UnknownKind, "kind", fmt.Sprintf("unknown event kind %T", e.Kind)))
 	}
@@ -175,7 +175,7 @@ func FromProto(b *pb.EventBody) (Event, error) {
 	case *pb.EventBody_DeviceRevoked:
 		m := k.DeviceRevoked
 		e.Kind = &DeviceRevoked{DeviceID: m.GetDeviceId(), Effective: time.UnixMicro(m.GetEffectiveMicros()).UTC(), RevokedBy: m.GetRevokedBy(),
-			Reason: m.GetReason()}
+			Reason: m.GetReason(), LastDeviceSeq: m.GetLastDeviceSeq()}
 	default:
 		return Event{}, reject(UnknownKind, "kind", "the event holds no kind this version of tamp knows")
 	}

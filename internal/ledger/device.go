@@ -3,6 +3,7 @@ package ledger
 import (
 	"encoding/binary"
 	"fmt"
+	"math"
 	"slices"
 	"time"
 )
@@ -11,36 +12,46 @@ import (
 // the server introduced it, and its revocation, if any.
 type Device struct {
 	DeviceEnrolled
-	// Revoked is the earliest revocation of the device; nil while it stands.
+	// Role is the user's role on the project as the latest introduction of
+	// the device gives it, at RoleHLC.
+	Role    string `json:",omitempty"`
+	RoleHLC HLC    `json:"-"`
+	// Revoked is the revocation that cuts the device off earliest (the
+	// lowest LastDeviceSeq); nil while it stands.
 	Revoked *DeviceRevoked `json:",omitempty"`
 	// Revocations lists the events that revoked it.
 	Revocations []string `json:",omitempty"`
 }
 
-func (d *Device) revokedAt() time.Time {
+// cutoff is the highest device sequence number of the device's entries in
+// effect: all of them while it stands.
+func (d *Device) cutoff() uint64 {
 	if d == nil || d.Revoked == nil {
-		return time.Time{}
+		return math.MaxUint64
 	}
-	return d.Revoked.Effective
+	return d.Revoked.LastDeviceSeq
 }
 
 func buildDevice(evs []*Event) *Device {
 	var d *Device
 	for _, e := range evs {
 		switch k := e.Kind.(type) {
-		case *DeviceEnrolled:
+		case *DeviceEnrolled: // evs are in event order: the latest introduction gives the role
 			if d == nil {
 				d = &Device{}
 			}
 			if d.DeviceID == "" {
 				d.DeviceEnrolled = *k
 			}
+			if k.Role != "" {
+				d.Role, d.RoleHLC = k.Role, e.HLC
+			}
 		case *DeviceRevoked:
 			if d == nil {
 				d = &Device{}
 			}
 			d.Revocations = append(d.Revocations, e.ID)
-			if d.Revoked == nil || k.Effective.Before(d.Revoked.Effective) {
+			if d.Revoked == nil || k.LastDeviceSeq < d.Revoked.LastDeviceSeq {
 				r := *k
 				d.Revoked = &r
 			}
@@ -49,28 +60,52 @@ func buildDevice(evs []*Event) *Device {
 	return d
 }
 
+// ServerMade reports whether only the server makes entries of kind k,
+// signed with its own key: a device's introduction and its revocation.
+func ServerMade(k Kind) bool {
+	switch k.(type) {
+	case *DeviceEnrolled, *DeviceRevoked:
+		return true
+	}
+	return false
+}
+
 // Device returns what the ledger says of a device.
 func (p *Projection) Device(id string) (*Device, bool) { d, ok := p.devices[id]; return d, ok }
 
 // SignedAfterRevocation returns a PermissionDenied rejection when e's device
-// was revoked and e's hybrid time is after the revocation's effective time:
-// such an entry has no effect on any replica, and the server refuses it on
-// push whoever relays it. A device's own revocation entries are exempt.
+// was revoked and e is numbered above the last of the device's entries the
+// project's ledger held then: such an entry has no effect on any replica,
+// and the server refuses it on push whoever relays it. The device's own
+// device entries are exempt.
 func (p *Projection) SignedAfterRevocation(e *Event) *Rejection {
 	d, ok := p.devices[e.Device]
-	if !ok || d.Revoked == nil {
+	if !ok || e.DeviceSeq <= d.cutoff() {
 		return nil
 	}
 	switch e.Kind.(type) {
 	case *DeviceEnrolled, *DeviceRevoked:
 		return nil
 	}
-	if e.HLC.Wall <= d.Revoked.Effective.UnixMicro() {
-		return nil
-	}
-	return reject(PermissionDenied, "signed_after_revocation", fmt.Sprintf("device %s was revoked from %s; entry %s was signed after that",
-		e.Device, d.Revoked.Effective.Format(time.RFC3339), e.ID))
+	return reject(PermissionDenied, "signed_after_revocation", fmt.Sprintf("device %s was revoked at %s, when the ledger held its entries up to number %d; entry %s is number %d",
+		e.Device, d.Revoked.Effective.Format(time.RFC3339), d.Revoked.LastDeviceSeq, e.ID, e.DeviceSeq))
 }
+
+// LatestRole returns the role on the project that the latest introduction
+// of any of user's devices records, or "".
+func (p *Projection) LatestRole(user string) string {
+	var role string
+	var at HLC
+	for _, d := range p.devices {
+		if d.UserID == user && d.Role != "" && (role == "" || d.RoleHLC.Compare(at) > 0) {
+			role, at = d.Role, d.RoleHLC
+		}
+	}
+	return role
+}
+
+// Devices returns what the ledger says of every device, by id.
+func (p *Projection) Devices() []*Device { return sorted(p.devices) }
 
 // sweepRevoked takes out of effect the held events a device signed after
 // its revocation, and puts back any that no longer are, recomputing the
@@ -119,10 +154,13 @@ func (p *Projection) sweepRevoked(device string) {
 const resumeContext = "tamp.v1.ResumeDevice"
 
 // ResumeProof returns the bytes a device signs to resume its enrolment with
-// a server that lost it: the context, a zero byte, the device id and the
-// time in microseconds as 8 big-endian bytes.
-func ResumeProof(device string, micros int64) []byte {
+// a server that lost it: the context, a zero byte, the server's own device
+// id (so a proof serves one server only), a zero byte, the device id and
+// the time in microseconds as 8 big-endian bytes.
+func ResumeProof(server, device string, micros int64) []byte {
 	b := append([]byte(resumeContext), 0)
+	b = append(b, server...)
+	b = append(b, 0)
 	b = append(b, device...)
 	return binary.BigEndian.AppendUint64(b, uint64(micros))
 }

@@ -290,12 +290,15 @@ type DeviceEnrolled struct {
 	Role      string // the user's role on the project then; empty in a certificate
 }
 
-// DeviceRevoked revokes a device's key from Effective on: entries the
-// device signed with a later hybrid time have no effect and are refused on
-// push, wherever they come from. Only the server makes it.
+// DeviceRevoked revokes a device's key at Effective (the server's clock):
+// the device's entries numbered above LastDeviceSeq, the highest the
+// project's ledger held then, have no effect and are refused on push,
+// wherever they come from. A device sets its own clock, so the number, not
+// an entry's time, decides. Only the server makes it.
 type DeviceRevoked struct {
-	DeviceID  string
-	Effective time.Time
-	RevokedBy string
-	Reason    string
+	DeviceID      string
+	Effective     time.Time
+	RevokedBy     string
+	Reason        string
+	LastDeviceSeq uint64
 }

@@ -332,9 +332,9 @@ func (p *Projection) recompute(key string, kind Kind) {
 	case *HaulRecorded:
 		p.hauls = setOrDelete(p.hauls, key, buildHaul(evs))
 	case *DeviceEnrolled, *DeviceRevoked:
-		before := p.devices[key].revokedAt()
+		before := p.devices[key].cutoff()
 		p.devices = setOrDelete(p.devices, key, buildDevice(evs))
-		if after := p.devices[key].revokedAt(); !after.Equal(before) {
+		if p.devices[key].cutoff() != before {
 			p.sweepRevoked(key)
 		}
 	}

@@ -6,6 +6,7 @@ package sqlitestore
 import (
 	"context"
 	"crypto/ed25519"
+	"crypto/rand"
 	"crypto/sha256"
 	"database/sql"
 	"embed"
@@ -447,7 +448,7 @@ func (s *Store) ServerIdentity(ctx context.Context, fresh func() server.Identity
 		if _, err := tx.ExecContext(ctx, `INSERT INTO users (user_id, name, server_admin, created_micros) VALUES (?, 'tampd', 0, ?)`, id.UserID, now); err != nil {
 			return err
 		}
-		th := sha256.Sum256([]byte("no token: the server's own device " + id.DeviceID))
+		th := sha256.Sum256(standIn())
 		if _, err := tx.ExecContext(ctx, `INSERT INTO devices (device_id, user_id, name, public_key, token_hash, enrolled_micros) VALUES (?, ?, 'tampd', ?, ?, ?)`,
 			id.DeviceID, id.UserID, []byte(id.Key.Public().(ed25519.PublicKey)), th[:], now); err != nil {
 			return err
@@ -474,7 +475,7 @@ func (s *Store) RegisterDevice(ctx context.Context, d server.Device, userName st
 		}
 		th := d.TokenHash
 		if len(th) == 0 { // no token until the device proves its key
-			h := sha256.Sum256([]byte("no token yet: " + d.ID))
+			h := sha256.Sum256(standIn())
 			th = h[:]
 		}
 		var revoked any
@@ -503,4 +504,14 @@ func (s *Store) SetToken(ctx context.Context, device string, tokenHash []byte) e
 		return fmt.Errorf("sqlitestore: set token of %s: %w", device, server.ErrNoDevice)
 	}
 	return nil
+}
+
+// standIn returns 32 random bytes, whose hash stands in the token column of
+// a device that has no token: nobody knows a token that hashes to it.
+func standIn() []byte {
+	b := make([]byte, 32)
+	if _, err := rand.Read(b); err != nil {
+		panic(fmt.Sprintf("sqlitestore: random: %v", err))
+	}
+	return b
 }

@@ -3640,20 +3640,25 @@ func (x *DeviceEnrolled) GetRole() string {
 	return ""
 }
 
-// DeviceRevoked revokes a device's key from a time on: entries the device
-// signed after it are refused wherever they come from. Only the server
-// makes it, signed with its own key.
+// DeviceRevoked revokes a device's key: entries the device made after the
+// ones the project's ledger held at that moment are refused wherever they
+// come from. Only the server makes it, signed with its own key.
 type DeviceRevoked struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
 	// The revoked device.
 	DeviceId string `protobuf:"bytes,1,opt,name=device_id,json=deviceId,proto3" json:"device_id,omitempty"`
-	// From when, microseconds since 1970-01-01 UTC; entries with a later
-	// hybrid time are refused.
+	// When, microseconds since 1970-01-01 UTC, by the server's clock.
 	EffectiveMicros int64 `protobuf:"varint,2,opt,name=effective_micros,json=effectiveMicros,proto3" json:"effective_micros,omitempty"`
 	// The user who revoked it.
 	RevokedBy string `protobuf:"bytes,3,opt,name=revoked_by,json=revokedBy,proto3" json:"revoked_by,omitempty"`
 	// Why, as the administrator gave it.
-	Reason        string `protobuf:"bytes,4,opt,name=reason,proto3" json:"reason,omitempty"`
+	Reason string `protobuf:"bytes,4,opt,name=reason,proto3" json:"reason,omitempty"`
+	// The highest device sequence number of the device's entries that this
+	// project's ledger held when the device was revoked (0 for none). An
+	// entry of the device with a higher number was signed, or reached the
+	// server, after the revocation, and is refused: a device sets its own
+	// clock, so the number, not the entry's time, is what counts.
+	LastDeviceSeq uint64 `protobuf:"varint,5,opt,name=last_device_seq,json=lastDeviceSeq,proto3" json:"last_device_seq,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -3714,6 +3719,13 @@ func (x *DeviceRevoked) GetReason() string {
 		return x.Reason
 	}
 	return ""
+}
+
+func (x *DeviceRevoked) GetLastDeviceSeq() uint64 {
+	if x != nil {
+		return x.LastDeviceSeq
+	}
+	return 0
 }
 
 var File_tamp_v1_event_proto protoreflect.FileDescriptor
@@ -3968,13 +3980,14 @@ const file_tamp_v1_event_proto_rawDesc = "" +
 	"deviceName\x12\x1b\n" +
 	"\tuser_name\x18\x05 \x01(\tR\buserName\x12'\n" +
 	"\x0fenrolled_micros\x18\x06 \x01(\x03R\x0eenrolledMicros\x12\x12\n" +
-	"\x04role\x18\a \x01(\tR\x04role\"\x8e\x01\n" +
+	"\x04role\x18\a \x01(\tR\x04role\"\xb6\x01\n" +
 	"\rDeviceRevoked\x12\x1b\n" +
 	"\tdevice_id\x18\x01 \x01(\tR\bdeviceId\x12)\n" +
 	"\x10effective_micros\x18\x02 \x01(\x03R\x0feffectiveMicros\x12\x1d\n" +
 	"\n" +
 	"revoked_by\x18\x03 \x01(\tR\trevokedBy\x12\x16\n" +
-	"\x06reason\x18\x04 \x01(\tR\x06reason*Q\n" +
+	"\x06reason\x18\x04 \x01(\tR\x06reason\x12&\n" +
+	"\x0flast_device_seq\x18\x05 \x01(\x04R\rlastDeviceSeq*Q\n" +
 	"\n" +
 	"UnitSystem\x12\x1b\n" +
 	"\x17UNIT_SYSTEM_UNSPECIFIED\x10\x00\x12\x12\n" +
