@@ -6,34 +6,30 @@ import (
 	"slices"
 	"testing"
 	"time"
-
-	"tamp/internal/ledger"
-	"tamp/internal/soil"
-	"tamp/internal/sqlite"
 )
 
 // BenchmarkRecordTest measures record-a-test latency, from the call to the
 // committed event and updated view, with both durability settings. It
 // reports the median and the 99th percentile.
 func BenchmarkRecordTest(b *testing.B) {
-	for _, sync := range []sqlite.Synchronous{sqlite.Full, sqlite.Normal} {
+	for _, sync := range []Durability{DurabilityFull, DurabilityNormal} {
 		b.Run(string(sync), func(b *testing.B) {
 			ctx := context.Background()
-			s, err := Open(ctx, filepath.Join(b.TempDir(), "bench.db"), Options{User: "ines", Synchronous: sync})
+			s, err := Open(ctx, filepath.Join(b.TempDir(), "bench.db"), Options{User: "ines", Durability: sync})
 			if err != nil {
 				b.Fatal(err)
 			}
 			defer s.Close()
 			project := s.NewID()
 			ref, spec := s.NewID(), s.NewID()
-			for _, k := range []ledger.Kind{
-				&ledger.ProjectSetUp{Name: "bench", Units: soil.US},
-				&ledger.SpecDefined{ID: spec, Name: "95", MinCompaction: "95", MoistureLow: "-2", MoistureHigh: "2"},
-				&ledger.ReferenceAdded{ID: ref, Procedure: soil.Procedure{Standard: soil.ASTMD698, Method: "A"}, MaxDryDensity: pcf(116), OptimumMoisture: 13.5},
-			} {
-				if _, _, err := s.Record(ctx, project, k); err != nil {
-					b.Fatal(err)
-				}
+			if err := s.SetUpProject(ctx, project, ProjectSetUp{Name: "bench", Units: USCustomary}); err != nil {
+				b.Fatal(err)
+			}
+			if _, err := s.DefineSpec(ctx, project, Spec{ID: spec, Name: "95", MinCompaction: "95", MoistureLow: "-2", MoistureHigh: "2"}); err != nil {
+				b.Fatal(err)
+			}
+			if _, err := s.AddReference(ctx, project, Reference{ID: ref, Standard: ASTMD698, Method: "A", MaxDryDensity: pcf(116), OptimumMoisture: 13.5}); err != nil {
+				b.Fatal(err)
 			}
 			lat := make([]time.Duration, 0, b.N)
 			b.ResetTimer()
@@ -58,7 +54,7 @@ func BenchmarkRecordTest(b *testing.B) {
 func BenchmarkOpen(b *testing.B) {
 	ctx := context.Background()
 	path := filepath.Join(b.TempDir(), "open.db")
-	s, err := Open(ctx, path, Options{User: "ines", Synchronous: sqlite.Normal})
+	s, err := Open(ctx, path, Options{User: "ines", Durability: DurabilityNormal})
 	if err != nil {
 		b.Fatal(err)
 	}

@@ -94,14 +94,14 @@ func TestRecordLinksPreviousEntryInProject(t *testing.T) {
 	e := newEnv(t, "ines")
 	other := e.store.NewID()
 	ctx := context.Background()
-	first, _, err := e.store.Record(ctx, other, &ledger.ProjectSetUp{Name: "Red Mesa trench", Units: soil.US})
+	first, _, err := e.store.recordEntry(ctx, other, &ledger.ProjectSetUp{Name: "Red Mesa trench", Units: soil.US})
 	if err != nil {
 		t.Fatal(err)
 	}
 	if first.Event.PrevDeviceSeq != 0 {
 		t.Errorf("first entry in a project links to %d, want 0", first.Event.PrevDeviceSeq)
 	}
-	refused, _, err := e.store.Record(ctx, e.project, &ledger.SpecDefined{ID: e.store.NewID(), Name: "refused", MinCompaction: "95"})
+	refused, _, err := e.store.recordEntry(ctx, e.project, &ledger.SpecDefined{ID: e.store.NewID(), Name: "refused", MinCompaction: "95"})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -111,7 +111,7 @@ func TestRecordLinksPreviousEntryInProject(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	next, _, err := e.store.Record(ctx, e.project, &ledger.SpecDefined{ID: e.store.NewID(), Name: "next", MinCompaction: "95"})
+	next, _, err := e.store.recordEntry(ctx, e.project, &ledger.SpecDefined{ID: e.store.NewID(), Name: "next", MinCompaction: "95"})
 	if err != nil {
 		t.Fatal(err)
 	}

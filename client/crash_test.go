@@ -12,8 +12,6 @@ import (
 	"syscall"
 	"testing"
 	"time"
-
-	"tamp/internal/ledger"
 )
 
 // TestCrashChild is the writer the crash test kills; it runs only when
@@ -38,7 +36,7 @@ func TestCrashChild(t *testing.T) {
 		}
 		fmt.Println("committed", r.EventID)
 		if i%3 == 0 {
-			c, err := s.CorrectTest(ctx, project, r.TestID, "re-weighed", func(c *ledger.TestContent) { c.Readings.SandCone.SoilMass *= 1.01 })
+			c, err := s.CorrectTest(ctx, project, r.TestID, "re-weighed", func(c *TestInput) { c.Readings.SandCone.SoilMass *= 1.01 })
 			if err != nil {
 				fmt.Println("correct error:", err)
 				os.Exit(5)

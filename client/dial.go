@@ -35,10 +35,11 @@ type DialOptions struct {
 // certificate against opts.CAFile or the system roots. A call refused
 // because the certificate failed verification returns a *CertificateError
 // (errors.Is ErrCertificate) instead of Unavailable, so that it is not
-// retried.
+// retried. A server's refusal of any call over the connection is a
+// *ServerError, as it is from the Store's methods.
 func Dial(addr string, opts DialOptions) (*grpc.ClientConn, error) {
 	var creds credentials.TransportCredentials
-	var dopts []grpc.DialOption
+	dopts := []grpc.DialOption{grpc.WithChainUnaryInterceptor(wireUnary), grpc.WithChainStreamInterceptor(wireStream)}
 	if opts.Plaintext {
 		if !opts.AllowPlaintextRemote && !loopback(addr) {
 			return nil, fmt.Errorf("client: dial %s: plaintext is allowed only to a loopback address", addr)

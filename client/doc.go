@@ -25,26 +25,53 @@
 // in history. [Store.VoidTest] withdraws a test with a reason.
 // [Store.RecordRetest] retests a failing test, taking its location, lift,
 // reference and spec. Only a test's author may correct or void it; office
-// reviews are separate entries. Other entries (specs, references, gauges and
-// their daily standard counts, placements) go through [Store.Record].
+// reviews are separate entries.
+//
+// Every other entry a role makes has its own method: the set-up
+// ([Store.SetUpProject]); QA's specs, laboratory references, borrow sources,
+// moisture corrections and accepted exceptions ([Store.DefineSpec],
+// [Store.AddReference], [Store.MeasureBorrowSource],
+// [Store.SetMoistureCorrection], [Store.AcceptException]); the office's
+// equipment, placements, hauls and reviews ([Store.RegisterEquipment],
+// [Store.RecordPlacement], [Store.RecordHaul], [Store.ReviewTest]); and the
+// inspector's daily standard counts ([Store.RecordStandardCount]). An entry
+// that breaks a rule is refused with an error wrapping [ErrInvalid] that
+// names the field and the rule, and nothing is stored.
+//
+// The package's types are its own: readings, locations, records, results
+// and reports are plain values in SI units (kg, m, m3, kg/m3, percent),
+// with words for choices, so an app names every value it passes or
+// receives. Apps convert units at their edges.
 //
 // Nuclear gauges are licensed radioactive sources: their use, transport and
 // storage follow the licensee's radiation-safety programme. Results support,
 // and never replace, review by qualified personnel; the project's
 // specifications and local codes govern every acceptance limit.
 //
+// # Reading
+//
+// [Store.Test] returns a test with its history (revisions with their
+// reasons and authors, voids, reviews, exceptions, retests, flags, records
+// the device lacks). [Store.Today], [Store.TestsOn], [Store.OpenFailures] and
+// [Store.Conflicts] list tests; [Store.Rejected] the entries the server
+// refused and why; [Store.Status] the sync. The reports of the read side
+// ([Store.ReviewQueue], [Store.RetestAudit], [Store.Frequency], [Store.Lots],
+// [Store.Reconcile]) are computed from the device's own copy of the ledger
+// with the code the server runs, so an office laptop that holds a project
+// answers them offline as the server would.
+//
 // # Durability and speed
 //
-// The store runs with synchronous=FULL by default, because field devices
-// lose power: a test reported recorded is on disk. A test kills a process
-// writing in a loop at random moments and checks, each time, that the store
-// opens, passes PRAGMA integrity_check and holds every entry reported
-// committed, whole and correctly signed. Measured on the project's 2-core
-// machine (go test -run XXX -bench RecordTest -benchtime 2000x ./client),
-// recording a test takes:
+// The store runs with [DurabilityFull] (SQLite synchronous=FULL) by
+// default, because field devices lose power: a test reported recorded is on
+// disk. A test kills a process writing in a loop at random moments and
+// checks, each time, that the store opens, passes PRAGMA integrity_check
+// and holds every entry reported committed, whole and correctly signed.
+// Measured on the project's 2-core machine (go test -run XXX -bench
+// RecordTest -benchtime 2000x ./client), recording a test takes:
 //
-//	synchronous=FULL     median 0.32 ms, 99th percentile 0.88 ms
-//	synchronous=NORMAL   median 0.10 ms, 99th percentile 0.76 ms
+//	DurabilityFull       median 0.32 ms, 99th percentile 0.88 ms
+//	DurabilityNormal     median 0.10 ms, 99th percentile 0.76 ms
 //
 // and opening a store of 5,000 tests, which rebuilds its views, about
 // 0.28 s (BenchmarkOpen). Figures on a tablet's flash storage will differ.
@@ -63,6 +90,16 @@
 // confirmation, how many the server lacks, which entries it asked for that
 // the device does not hold, and which entries have waited longer than
 // [Options] WaitLimit for records the server never received.
+//
+// # Errors from the server
+//
+// A server's refusal, from [Store.Sync], [Store.Enroll], [Store.Resume],
+// [Store.Export] or any call over a connection from [Dial], is a
+// [*ServerError] carrying the reason code, field and rule the server sent.
+// errors.Is matches it against this package's errors by its reason
+// ([ErrRevoked], [ErrNotMember], [ErrCodeInvalid], [ErrServerStorage]...),
+// and errors.As gives the reason, field and rule; no caller needs to read
+// its message, which is for people.
 //
 // The device key is kept in the store file; protecting the file at rest is
 // left to the device's disk encryption.

@@ -10,8 +10,6 @@ import (
 
 	"github.com/google/uuid"
 	"google.golang.org/grpc"
-	"google.golang.org/grpc/codes"
-	"google.golang.org/grpc/status"
 	"google.golang.org/protobuf/proto"
 
 	pb "tamp/internal/gen/tamp/v1"
@@ -46,7 +44,7 @@ func (s *Store) Enroll(ctx context.Context, conn grpc.ClientConnInterface, code,
 	resp, err := pb.NewAdminServiceClient(conn).EnrollDevice(ctx, &pb.EnrollDeviceRequest{
 		Code: code, DeviceId: id, PublicKey: key.Public().(ed25519.PublicKey), DeviceName: name})
 	if err != nil {
-		return fmt.Errorf("client: enrol: %w", err)
+		return fmt.Errorf("client: enrol: %w", fromWire(err))
 	}
 	cert, err := proto.Marshal(resp.GetCertificate())
 	if err != nil {
@@ -173,20 +171,11 @@ func (s *Store) loadIdentityCounters(ctx context.Context) error {
 // the device's token (it was restored from a copy older than the
 // enrolment), and the device holds a certificate to resume with.
 func (s *Store) resumable(err error) bool {
-	if !isUnauthenticated(err) {
+	if !errors.Is(err, ErrUnauthenticated) {
 		return false
 	}
 	c, _ := s.Setting(context.Background(), certificateSetting)
 	return c != ""
-}
-
-func isUnauthenticated(err error) bool {
-	for e := err; e != nil; e = errors.Unwrap(e) {
-		if st, ok := status.FromError(e); ok && st.Code() == codes.Unauthenticated {
-			return true
-		}
-	}
-	return false
 }
 
 // ErrNoEnrolmentCertificate is returned by Resume for a device that holds no
@@ -221,7 +210,7 @@ func (s *Store) Resume(ctx context.Context, conn grpc.ClientConnInterface) error
 	resp, err := pb.NewAdminServiceClient(conn).ResumeDevice(ctx, &pb.ResumeDeviceRequest{Certificate: &cert, ProofMicros: micros,
 		Proof: ed25519.Sign(key, ledger.ResumeProof(server, id, micros))})
 	if err != nil {
-		return fmt.Errorf("client: resume: %w", err)
+		return fmt.Errorf("client: resume: %w", fromWire(err))
 	}
 	s.mu.Lock()
 	defer s.mu.Unlock()

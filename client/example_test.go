@@ -8,8 +8,15 @@ import (
 	"path/filepath"
 
 	"tamp/client"
-	"tamp/internal/ledger"
-	"tamp/internal/soil"
+)
+
+// The store keeps SI values; this example's crew works in US customary
+// units and converts at its edge, with the exact factors of the
+// international foot and pound.
+const (
+	foot  = 0.3048     // m
+	pound = 0.45359237 // kg
+	pcf   = pound / (foot * foot * foot)
 )
 
 // An inspector's morning on the basin embankment: open the device's store,
@@ -28,31 +35,33 @@ func Example_inspectorsMorning() {
 
 	// The project, spec and laboratory reference came down with the last
 	// sync; here the store records them itself.
-	project, spec, ref := store.NewID(), store.NewID(), store.NewID()
-	pcf := func(v float64) float64 { return v * soil.PoundPerCubicFoot }
-	for _, k := range []ledger.Kind{
-		&ledger.ProjectSetUp{Name: "Juniper Wash detention basin", Units: soil.US, WaterDensity: soil.Water624},
-		&ledger.SpecDefined{ID: spec, Name: "embankment", MinCompaction: "95", MoistureLow: "-2", MoistureHigh: "2"},
-		&ledger.ReferenceAdded{ID: ref, Material: "tan clayey sand", Procedure: soil.Procedure{Standard: soil.ASTMD698, Method: "A", Edition: 2012},
-			MaxDryDensity: pcf(116.0), OptimumMoisture: 13.5},
-	} {
-		if _, _, err := store.Record(ctx, project, k); err != nil {
-			log.Fatal(err)
-		}
+	project := store.NewID()
+	if err := store.SetUpProject(ctx, project, client.ProjectSetUp{Name: "Juniper Wash detention basin",
+		Units: client.USCustomary, WaterDensity: 62.4 * pcf}); err != nil {
+		log.Fatal(err)
+	}
+	spec, err := store.DefineSpec(ctx, project, client.Spec{Name: "embankment", MinCompaction: "95", MoistureLow: "-2", MoistureHigh: "2"})
+	if err != nil {
+		log.Fatal(err)
+	}
+	ref, err := store.AddReference(ctx, project, client.Reference{Material: "tan clayey sand", Standard: client.ASTMD698,
+		Method: "A", Edition: 2012, MaxDryDensity: 116.0 * pcf, OptimumMoisture: 13.5})
+	if err != nil {
+		log.Fatal(err)
 	}
 
 	// Sand-cone readings: sand of 99.0 pcf, 7.00 lb used, 0.53 lb in the cone.
-	cone := func(soilLb, w float64) ledger.Readings {
-		return ledger.Readings{SandCone: &soil.SandCone{SandDensity: pcf(99.0), SandUsed: 7.00 * soil.Pound,
-			ConeCorrection: 0.53 * soil.Pound, SoilMass: soilLb * soil.Pound, Moisture: w}}
+	cone := func(soilLb, w float64) client.Readings {
+		return client.Readings{SandCone: &client.SandCone{SandDensity: 99.0 * pcf, SandUsed: 7.00 * pound,
+			ConeCorrection: 0.53 * pound, SoilMass: soilLb * pound, Moisture: w}}
 	}
 	show := func(what string, r client.TestResult) {
 		fmt.Printf("%-26s dry %.1f pcf  RC %.1f %%  %+.1f points  %s\n", what,
-			r.Result.DryDensity/soil.PoundPerCubicFoot, r.Result.RelativeCompaction, r.Result.MoistureDeviation, r.Result.Verdict)
+			r.Result.DryDensity/pcf, r.Result.RelativeCompaction, r.Result.MoistureDeviation, r.Result.Verdict)
 	}
 	at := func(station float64) client.TestInput {
 		return client.TestInput{Project: project, ReferenceID: ref, SpecID: spec, Feature: "embankment", LiftNumber: 6,
-			Location: ledger.Location{Station: station * soil.Foot}}
+			Location: client.Location{Station: station * foot}}
 	}
 
 	in := at(1210)
@@ -71,7 +80,7 @@ func Example_inspectorsMorning() {
 	show("sta 13+10", c)
 
 	fixed, _ := store.CorrectTest(ctx, project, c.TestID, "soil mass typed as 6.11 lb, weighed 8.11 lb",
-		func(t *ledger.TestContent) { t.Readings.SandCone.SoilMass = 8.11 * soil.Pound })
+		func(t *client.TestInput) { t.Readings.SandCone.SoilMass = 8.11 * pound })
 	show("sta 13+10 corrected", fixed)
 	fmt.Println("open failures:", len(store.OpenFailures(project)))
 

@@ -27,7 +27,7 @@ func (s *Store) Export(ctx context.Context, conn grpc.ClientConnInterface, proje
 	}
 	stream, err := pb.NewLedgerReadServiceClient(conn).ExportLedger(ctx, &pb.ExportLedgerRequest{ProjectId: project})
 	if err != nil {
-		return 0, fmt.Errorf("client: export: %w", err)
+		return 0, fmt.Errorf("client: export: %w", fromWire(err))
 	}
 	n := 0
 	bw := bufio.NewWriter(w)
@@ -37,7 +37,7 @@ func (s *Store) Export(ctx context.Context, conn grpc.ClientConnInterface, proje
 			break
 		}
 		if err != nil {
-			return n, fmt.Errorf("client: export: %w", err)
+			return n, fmt.Errorf("client: export: %w", fromWire(err))
 		}
 		if _, err := protodelim.MarshalTo(bw, resp); err != nil {
 			return n, fmt.Errorf("client: export: %w", err)
@@ -54,16 +54,15 @@ func (s *Store) Export(ctx context.Context, conn grpc.ClientConnInterface, proje
 type ExportReport struct {
 	Project string
 	Events  int
-	Head    ledger.Checkpoint // epoch unknown in a file: zero
-	Digest  ledger.Hash       // of the state the events imply
+	Head    Checkpoint // epoch unknown in a file: zero
+	Digest  string     // of the state the events imply (hex), as Store.Digest gives it
 	Tests   int
 }
 
 // VerifyExport checks an exported ledger offline: every event decodes, is
 // signed by its device's key and obeys the rules, and the hash chain runs
-// unbroken from the project's genesis. It returns the first failure, with
-// the chain errors of package ledger (ErrChainBroken, ErrChainGap) or a
-// *ledger.Rejection.
+// unbroken from the project's genesis. It returns the first failure, which
+// says which event broke which rule.
 func VerifyExport(r io.Reader) (ExportReport, error) {
 	var rep ExportReport
 	br := bufio.NewReader(r)
@@ -110,6 +109,6 @@ func VerifyExport(r io.Reader) (ExportReport, error) {
 	if v == nil {
 		return rep, fmt.Errorf("client: verify export: the file holds no events")
 	}
-	rep.Head, rep.Digest, rep.Tests = v.At(), p.Digest(), len(p.Tests())
+	rep.Head, rep.Digest, rep.Tests = checkpointOf(v.At()), p.Digest().String(), len(p.Tests())
 	return rep, nil
 }

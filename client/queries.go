@@ -13,26 +13,34 @@ import (
 	"tamp/internal/qc"
 )
 
-// Test returns a test with its whole history: every revision, voids and
-// reviews.
-func (s *Store) Test(project, testID string) (*ledger.Test, error) {
+// Test returns a test with its whole history: every revision, voids,
+// reviews and exceptions. It returns ErrNotFound for a test this device
+// does not hold.
+func (s *Store) Test(project, testID string) (Test, error) {
 	s.mu.Lock()
 	defer s.mu.Unlock()
-	t, ok := s.view(project).Test(testID)
+	v := s.view(project)
+	t, ok := v.Test(testID)
 	if !ok {
-		return nil, fmt.Errorf("client: test %s: %w", testID, ErrNotFound)
+		return Test{}, fmt.Errorf("client: test %s: %w", testID, ErrNotFound)
 	}
-	return t, nil
+	return testOf(v, t), nil
 }
 
 // TestsOn returns the tests taken on day (YYYY-MM-DD, the project's time
 // zone), in the order they were taken.
-func (s *Store) TestsOn(project, day string) []*ledger.Test {
+func (s *Store) TestsOn(project, day string) []Test {
 	s.mu.Lock()
 	defer s.mu.Unlock()
+	v := s.view(project)
+	return testsOf(v, byHLC(v.Tests(), func(t *ledger.Test) bool { return t.Day == day }))
+}
+
+// byHLC returns the tests that keep holds, in hybrid time order.
+func byHLC(ts []*ledger.Test, keep func(*ledger.Test) bool) []*ledger.Test {
 	var out []*ledger.Test
-	for _, t := range s.view(project).Tests() {
-		if t.Day == day {
+	for _, t := range ts {
+		if keep(t) {
 			out = append(out, t)
 		}
 	}
@@ -40,8 +48,8 @@ func (s *Store) TestsOn(project, day string) []*ledger.Test {
 	return out
 }
 
-// Today returns the tests taken today.
-func (s *Store) Today(project string) []*ledger.Test {
+// Today returns the tests taken today, in the project's time zone.
+func (s *Store) Today(project string) []Test {
 	s.mu.Lock()
 	day := s.view(project).Day(s.now())
 	s.mu.Unlock()
@@ -50,30 +58,39 @@ func (s *Store) Today(project string) []*ledger.Test {
 
 // OpenFailures returns the failing tests that still need a retest: failing,
 // not voided, not accepted as they stand by QA, and with no retest that has
-// been graded (a retest that failed
-// is itself listed; a retest that passed closes the failure). Oldest first.
-func (s *Store) OpenFailures(project string) []*ledger.Test {
+// been graded (a retest that failed is itself listed; a retest that passed
+// closes the failure). Oldest first.
+func (s *Store) OpenFailures(project string) []Test {
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	v := s.view(project)
-	var out []*ledger.Test
-	for _, t := range v.Tests() {
+	return testsOf(v, byHLC(v.Tests(), func(t *ledger.Test) bool {
 		if t.Result.Verdict != qc.Fail || t.Voided() || t.ExceptionAccepted() {
-			continue
+			return false
 		}
-		closed := false
 		for _, id := range v.RetestsOf(t.ID) {
 			r, _ := v.Test(id)
 			if !r.Voided() && (r.Result.Verdict == qc.Pass || r.Result.Verdict == qc.Fail) {
-				closed = true
+				return false
 			}
 		}
-		if !closed {
-			out = append(out, t)
-		}
-	}
-	slices.SortFunc(out, func(a, b *ledger.Test) int { return a.HLC.Compare(b.HLC) })
-	return out
+		return true
+	}))
+}
+
+// Conflicts returns the tests whose history holds concurrent revisions (two
+// corrections of the same revision, made apart; the latest in hybrid time
+// stands and both stay in history) or two recordings of one test id, for a
+// reviewer to settle. Oldest first.
+func (s *Store) Conflicts(project string) []Test {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	v := s.view(project)
+	return testsOf(v, byHLC(v.Tests(), func(t *ledger.Test) bool {
+		return slices.ContainsFunc(t.Flags, func(f qc.Finding) bool {
+			return f.Code == ledger.ConcurrentRevisions || f.Code == ledger.DuplicateTestID
+		})
+	}))
 }
 
 // Outbox is the state of the device's unsent entries.
@@ -107,19 +124,20 @@ func (s *Store) Outbox(ctx context.Context) (Outbox, error) {
 
 // Rejected is an entry the server refused, kept for the user.
 type Rejected struct {
-	EventID  string
-	Project  string
-	Kind     string
-	RecordID string // the test, spec... it concerns
-	Reason   string // machine-readable reason
-	Message  string // the server's words
-	Created  time.Time
+	EventID   string
+	Project   string
+	DeviceSeq uint64 // the entry's number on this device
+	Kind      string
+	RecordID  string // the test, spec... it concerns
+	Reason    string // machine-readable reason
+	Message   string // the server's words
+	Created   time.Time
 }
 
 // Rejected returns the entries the server refused that the user has not
 // discarded, oldest first.
 func (s *Store) Rejected(ctx context.Context) ([]Rejected, error) {
-	rows, err := s.db.Reader().QueryContext(ctx, `SELECT event_id, project_id, kind, record_id, reason, message, created_micros
+	rows, err := s.db.Reader().QueryContext(ctx, `SELECT event_id, project_id, device_seq, kind, record_id, reason, message, created_micros
 		FROM events WHERE origin = 'local' AND status = 'rejected' ORDER BY created_micros, event_id`)
 	if err != nil {
 		return nil, fmt.Errorf("client: rejected: %w", err)
@@ -129,7 +147,7 @@ func (s *Store) Rejected(ctx context.Context) ([]Rejected, error) {
 	for rows.Next() {
 		var r Rejected
 		var created int64
-		if err := rows.Scan(&r.EventID, &r.Project, &r.Kind, &r.RecordID, &r.Reason, &r.Message, &created); err != nil {
+		if err := rows.Scan(&r.EventID, &r.Project, &r.DeviceSeq, &r.Kind, &r.RecordID, &r.Reason, &r.Message, &created); err != nil {
 			return nil, fmt.Errorf("client: rejected: %w", err)
 		}
 		r.Created = time.UnixMicro(created).UTC()
@@ -164,12 +182,12 @@ func (s *Store) markRejected(ctx context.Context, eventID, reason, message strin
 	return s.loadViews(ctx)
 }
 
-// Digest returns a hash of the project's view: two replicas holding the
-// same events have the same digest.
-func (s *Store) Digest(project string) ledger.Hash {
+// Digest returns a hash (SHA-256, hex) of the project's view: two replicas
+// holding the same entries have the same digest, the server's included.
+func (s *Store) Digest(project string) string {
 	s.mu.Lock()
 	defer s.mu.Unlock()
-	return s.view(project).Digest()
+	return s.view(project).Digest().String()
 }
 
 // KnownProjects returns the projects this device holds events of or has

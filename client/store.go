@@ -38,10 +38,10 @@ type Options struct {
 	// User is the user entries are signed for. It is kept in the store;
 	// empty keeps the one stored.
 	User string
-	// Synchronous is the store's durability: sqlite.Full (the default)
-	// survives power loss, which field devices suffer; sqlite.Normal is
+	// Durability is how the store commits: DurabilityFull (the default)
+	// survives power loss, which field devices suffer; DurabilityNormal is
 	// faster and survives a crash of the program but not of the power.
-	Synchronous sqlite.Synchronous
+	Durability Durability
 	// Now is the clock (time.Now when nil); Rand the source of keys and ids
 	// (crypto/rand when nil). Tests pin both.
 	Now  func() time.Time
@@ -49,6 +49,29 @@ type Options struct {
 	// WaitLimit is how long an entry may wait for records the server lacks
 	// before Status names it (default 24 hours).
 	WaitLimit time.Duration
+}
+
+// Durability is how a store commits its writes.
+type Durability string
+
+// The durabilities.
+const (
+	// DurabilityFull: a write reported done is on disk and survives a power
+	// cut (SQLite synchronous=FULL). The default.
+	DurabilityFull Durability = "full"
+	// DurabilityNormal: faster; a write survives a crash of the program but
+	// may be lost in a power cut (SQLite synchronous=NORMAL in WAL mode).
+	DurabilityNormal Durability = "normal"
+)
+
+func (d Durability) sqlite() (sqlite.Synchronous, error) {
+	switch d {
+	case "", DurabilityFull:
+		return sqlite.Full, nil
+	case DurabilityNormal:
+		return sqlite.Normal, nil
+	}
+	return "", fmt.Errorf("client: open: durability must be %q or %q, not %q", DurabilityFull, DurabilityNormal, d)
 }
 
 // Store is a device's local store: its identity, every event it holds, and
@@ -84,7 +107,11 @@ func Open(ctx context.Context, path string, opts Options) (*Store, error) {
 	if s.rand == nil {
 		s.rand = rand.Reader
 	}
-	db, err := sqlite.Open(ctx, path, sqlite.Options{Synchronous: opts.Synchronous}, sub(migrationFiles))
+	sync, err := opts.Durability.sqlite()
+	if err != nil {
+		return nil, err
+	}
+	db, err := sqlite.Open(ctx, path, sqlite.Options{Synchronous: sync}, sub(migrationFiles))
 	if err != nil {
 		return nil, fmt.Errorf("client: open: %w", err)
 	}
@@ -236,17 +263,18 @@ func (s *Store) NewID() string {
 	return id.String()
 }
 
-// Record signs and stores one event of kind k on project, in one
+// recordEntry signs and stores one entry of kind k on project, in one
 // transaction with the device's counters, and applies it to the project's
-// view. It is the primitive under the test methods, and records every other
-// kind (a spec, a reference, a placement). A kind that breaks a rule gets an
-// error wrapping ErrInvalid and a *ledger.Rejection naming the field.
-func (s *Store) Record(ctx context.Context, project string, k ledger.Kind) (ledger.Signed, ledger.Outcome, error) {
+// view. It is the primitive under the typed methods of entries.go and
+// tests.go. A kind that breaks a rule gets an error wrapping ErrInvalid and
+// a *ledger.Rejection naming the field.
+func (s *Store) recordEntry(ctx context.Context, project string, k ledger.Kind) (ledger.Signed, ledger.Outcome, error) {
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	return s.record(ctx, project, k)
 }
 
+// record is recordEntry with s.mu held.
 func (s *Store) record(ctx context.Context, project string, k ledger.Kind) (ledger.Signed, ledger.Outcome, error) {
 	if s.closed {
 		return ledger.Signed{}, ledger.Outcome{}, ErrClosed

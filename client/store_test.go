@@ -48,11 +48,24 @@ func newEnv(t *testing.T, user string) *env {
 		clock: &clock{time.Date(2026, 9, 14, 13, 30, 0, 0, time.UTC)}}
 	e.open(user)
 	e.project = e.store.NewID()
-	e.rec(&ledger.ProjectSetUp{Name: "Juniper Wash detention basin", Units: soil.US, WaterDensity: soil.Water624, TimeZone: "America/Denver"})
-	e.spec, e.ref = e.store.NewID(), e.store.NewID()
-	e.rec(&ledger.SpecDefined{ID: e.spec, Name: "basin embankment", MinCompaction: "95", MoistureLow: "-2", MoistureHigh: "2"})
-	e.rec(&ledger.ReferenceAdded{ID: e.ref, Material: "tan clayey sand", Procedure: soil.Procedure{Standard: soil.ASTMD698, Method: "A", Edition: 2012},
+	ctx := context.Background()
+	e.tick()
+	if err := e.store.SetUpProject(ctx, e.project, ProjectSetUp{Name: "Juniper Wash detention basin", Units: USCustomary,
+		WaterDensity: soil.Water624, TimeZone: "America/Denver"}); err != nil {
+		t.Fatal(err)
+	}
+	e.tick()
+	spec, err := e.store.DefineSpec(ctx, e.project, Spec{Name: "basin embankment", MinCompaction: "95", MoistureLow: "-2", MoistureHigh: "2"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	e.tick()
+	ref, err := e.store.AddReference(ctx, e.project, Reference{Material: "tan clayey sand", Standard: ASTMD698, Method: "A", Edition: 2012,
 		MaxDryDensity: pcf(116.0), OptimumMoisture: 13.5})
+	if err != nil {
+		t.Fatal(err)
+	}
+	e.spec, e.ref = spec, ref
 	return e
 }
 
@@ -66,10 +79,14 @@ func (e *env) open(user string) {
 	e.t.Cleanup(func() { s.Close() })
 }
 
+// tick moves the clock on a minute, as between two entries.
+func (e *env) tick() { e.clock.t = e.clock.t.Add(time.Minute) }
+
+// rec records an entry of any kind, as the typed methods do.
 func (e *env) rec(k ledger.Kind) ledger.Signed {
 	e.t.Helper()
-	e.clock.t = e.clock.t.Add(time.Minute)
-	s, _, err := e.store.Record(context.Background(), e.project, k)
+	e.tick()
+	s, _, err := e.store.recordEntry(context.Background(), e.project, k)
 	if err != nil {
 		e.t.Fatal(err)
 	}
@@ -77,11 +94,11 @@ func (e *env) rec(k ledger.Kind) ledger.Signed {
 }
 
 // sandCone gives readings of dry density dry pcf at moisture w.
-func sandCone(dry, w float64) ledger.Readings {
+func sandCone(dry, w float64) Readings {
 	sd := pcf(99.0)
 	used, cone := 7.00*soil.Pound, 0.53*soil.Pound
 	vol := (used - cone) / sd
-	return ledger.Readings{SandCone: &soil.SandCone{SandDensity: sd, SandUsed: used, ConeCorrection: cone,
+	return Readings{SandCone: &SandCone{SandDensity: sd, SandUsed: used, ConeCorrection: cone,
 		SoilMass: pcf(dry) * (1 + w/100) * vol, Moisture: w}}
 }
 
@@ -90,7 +107,7 @@ func (e *env) test(dry, w float64) TestResult {
 	e.clock.t = e.clock.t.Add(20 * time.Minute)
 	r, err := e.store.RecordTest(context.Background(), TestInput{Project: e.project, Readings: sandCone(dry, w),
 		ReferenceID: e.ref, SpecID: e.spec, Feature: "embankment", LiftNumber: 6, LiftThickness: 8 * soil.Inch,
-		Location: ledger.Location{Station: 410 * soil.Foot, Offset: 15 * soil.Foot}})
+		Location: Location{Station: 410 * soil.Foot, Offset: 15 * soil.Foot}})
 	if err != nil {
 		e.t.Fatal(err)
 	}
@@ -100,7 +117,7 @@ func (e *env) test(dry, w float64) TestResult {
 func TestRecordTestResultAtOnce(t *testing.T) {
 	e := newEnv(t, "ines")
 	r := e.test(111.6, 12.0) // C1: RC 96.2 %, -1.5 points -> pass
-	if r.Result.Verdict != qc.Pass {
+	if r.Result.Verdict != Pass {
 		t.Fatalf("verdict = %v %v", r.Result.Verdict, r.Result.Reasons)
 	}
 	if got := r.Result.RelativeCompaction; got < 96.15 || got > 96.25 {
@@ -109,16 +126,18 @@ func TestRecordTestResultAtOnce(t *testing.T) {
 	if len(r.Steps) == 0 {
 		t.Error("no arithmetic steps returned")
 	}
-	tt, err := e.store.Test(e.project, r.TestID)
-	if err != nil {
-		t.Fatal(err)
+	e.store.mu.Lock()
+	tt, ok := e.store.view(e.project).Test(r.TestID)
+	e.store.mu.Unlock()
+	if !ok {
+		t.Fatal("the test is not in the view")
 	}
-	if tt.Content.DeviceResults == nil || tt.Content.DeviceResults.Verdict != qc.Pass || hasFlag(tt.Flags, ledger.DeviceResultMismatch) {
+	if tt.Content.DeviceResults == nil || tt.Content.DeviceResults.Verdict != qc.Pass || hasFlag(findingsOf(tt.Flags), FlagDeviceResultMismatch) {
 		t.Errorf("device results travel with the test and agree: %+v flags %v", tt.Content.DeviceResults, tt.Flags)
 	}
 }
 
-func hasFlag(fs []qc.Finding, code string) bool {
+func hasFlag(fs []Finding, code string) bool {
 	for _, f := range fs {
 		if f.Code == code {
 			return true
@@ -134,13 +153,15 @@ func TestPendingUntilReferenceArrives(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if r.Result.Verdict != qc.Pending || len(r.Missing) != 1 || r.Missing[0] != ref {
+	if r.Result.Verdict != Pending || len(r.Missing) != 1 || r.Missing[0] != ref {
 		t.Fatalf("without its reference: %v, missing %v", r.Result.Verdict, r.Missing)
 	}
-	e.rec(&ledger.ReferenceAdded{ID: ref, Material: "new borrow", Procedure: soil.Procedure{Standard: soil.ASTMD698, Method: "A"},
-		MaxDryDensity: pcf(118), OptimumMoisture: 12.5})
+	if _, err := e.store.AddReference(context.Background(), e.project, Reference{ID: ref, Material: "new borrow", Standard: ASTMD698, Method: "A",
+		MaxDryDensity: pcf(118), OptimumMoisture: 12.5}); err != nil {
+		t.Fatal(err)
+	}
 	tt, _ := e.store.Test(e.project, r.TestID)
-	if tt.Result.Verdict != qc.Fail { // 110 / 118 = 93.2 %
+	if tt.Result.Verdict != Fail { // 110 / 118 = 93.2 %
 		t.Errorf("after the reference arrived: %v", tt.Result.Verdict)
 	}
 }
@@ -150,10 +171,10 @@ func TestCorrectVoidRetestRules(t *testing.T) {
 	ctx := context.Background()
 	pass := e.test(112, 13)
 	fail := e.test(104, 13)
-	if fail.Result.Verdict != qc.Fail {
+	if fail.Result.Verdict != Fail {
 		t.Fatalf("104 pcf: %v", fail.Result.Verdict)
 	}
-	if _, err := e.store.CorrectTest(ctx, e.project, fail.TestID, " ", func(*ledger.TestContent) {}); !errors.Is(err, ErrReasonRequired) {
+	if _, err := e.store.CorrectTest(ctx, e.project, fail.TestID, " ", func(*TestInput) {}); !errors.Is(err, ErrReasonRequired) {
 		t.Errorf("correction without a reason: %v", err)
 	}
 	if err := e.store.VoidTest(ctx, e.project, fail.TestID, ""); !errors.Is(err, ErrReasonRequired) {
@@ -162,13 +183,13 @@ func TestCorrectVoidRetestRules(t *testing.T) {
 	if _, err := e.store.RecordRetest(ctx, e.project, pass.TestID, RetestInput{Readings: sandCone(113, 13)}); !errors.Is(err, ErrNotFailing) {
 		t.Errorf("retest of a passing test: %v", err)
 	}
-	if _, err := e.store.CorrectTest(ctx, e.project, e.store.NewID(), "x", func(*ledger.TestContent) {}); !errors.Is(err, ErrNotFound) {
+	if _, err := e.store.CorrectTest(ctx, e.project, e.store.NewID(), "x", func(*TestInput) {}); !errors.Is(err, ErrNotFound) {
 		t.Errorf("correction of an unknown test: %v", err)
 	}
 	// Another user on the same device may not edit ines's test.
 	e.store.Close()
 	e.open("omar")
-	if _, err := e.store.CorrectTest(ctx, e.project, fail.TestID, "typo", func(*ledger.TestContent) {}); !errors.Is(err, ErrNotAuthor) {
+	if _, err := e.store.CorrectTest(ctx, e.project, fail.TestID, "typo", func(*TestInput) {}); !errors.Is(err, ErrNotAuthor) {
 		t.Errorf("correction by another user: %v", err)
 	}
 	if err := e.store.VoidTest(ctx, e.project, fail.TestID, "not mine"); !errors.Is(err, ErrNotAuthor) {
@@ -179,10 +200,10 @@ func TestCorrectVoidRetestRules(t *testing.T) {
 	if err := e.store.VoidTest(ctx, e.project, pass.TestID, "tested the wrong lift"); err != nil {
 		t.Fatal(err)
 	}
-	if _, err := e.store.CorrectTest(ctx, e.project, pass.TestID, "typo", func(*ledger.TestContent) {}); !errors.Is(err, ErrVoided) {
+	if _, err := e.store.CorrectTest(ctx, e.project, pass.TestID, "typo", func(*TestInput) {}); !errors.Is(err, ErrVoided) {
 		t.Errorf("correction of a voided test: %v", err)
 	}
-	bad, err := e.store.CorrectTest(ctx, e.project, fail.TestID, "soil mass", func(c *ledger.TestContent) { c.Readings.SandCone.SoilMass = -2 })
+	bad, err := e.store.CorrectTest(ctx, e.project, fail.TestID, "soil mass", func(c *TestInput) { c.Readings.SandCone.SoilMass = -2 })
 	var rej *ledger.Rejection
 	if !errors.Is(err, ErrInvalid) || !errors.As(err, &rej) || rej.Field != "readings.soil_mass" {
 		t.Errorf("impossible correction: %+v %v", bad, err)
@@ -262,7 +283,7 @@ func TestIdentityAndCountersPersist(t *testing.T) {
 func TestMultipleProjects(t *testing.T) {
 	e := newEnv(t, "ines")
 	other := e.store.NewID()
-	if _, _, err := e.store.Record(context.Background(), other, &ledger.ProjectSetUp{Name: "Ridge Road widening", Units: soil.SI}); err != nil {
+	if err := e.store.SetUpProject(context.Background(), other, ProjectSetUp{Name: "Ridge Road widening", Units: SI}); err != nil {
 		t.Fatal(err)
 	}
 	e.test(112, 13)
@@ -281,27 +302,33 @@ func TestEquipmentChecks(t *testing.T) {
 	e := newEnv(t, "ines")
 	ctx := context.Background()
 	gauge := e.store.NewID()
-	e.rec(&ledger.EquipmentRegistered{ID: gauge, Kind: ledger.NuclearGauge, Model: "MD-9", SerialNumber: "G-4410", CalibrationDue: "2026-09-01"})
-	nuclear := ledger.Readings{Nuclear: &ledger.NuclearReadings{ProbeDepth: 6 * soil.Inch, OvenMoisture: ptr(13.0),
-		Counts: []soil.NuclearReading{{WetDensity: pcf(126.5), WaterPerVolume: pcf(14.1)}}}}
+	if _, err := e.store.RegisterEquipment(ctx, e.project, Equipment{ID: gauge, Kind: NuclearGaugeEquipment, Model: "MD-9",
+		SerialNumber: "G-4410", CalibrationDue: "2026-09-01"}); err != nil {
+		t.Fatal(err)
+	}
+	nuclear := Readings{Nuclear: &NuclearGauge{ProbeDepth: 6 * soil.Inch, OvenMoisture: ptr(13.0),
+		Readings: []GaugeReading{{WetDensity: pcf(126.5), WaterPerVolume: pcf(14.1)}}}}
 	in := TestInput{Project: e.project, Readings: nuclear, ReferenceID: e.ref, SpecID: e.spec, EquipmentID: gauge, LiftThickness: 8 * soil.Inch}
 	r, err := e.store.RecordTest(ctx, in)
 	if err != nil {
 		t.Fatal(err)
 	}
-	if !hasFlag(r.Flags, ledger.GaugeCalibrationLapsed) || !hasFlag(r.Flags, ledger.NoStandardCount) {
+	if !hasFlag(r.Flags, FlagGaugeCalibrationLapsed) || !hasFlag(r.Flags, FlagNoStandardCount) {
 		t.Errorf("lapsed gauge without a count: flags %v", r.Flags)
 	}
 	day := "2026-09-14"
-	if err := e.store.RecordStandardCount(ctx, e.project, ledger.StandardCountRecorded{EquipmentID: gauge, Date: day, DensityCount: 2790, MoistureCount: 655, Accepted: true}); err != nil {
+	if err := e.store.RecordStandardCount(ctx, e.project, StandardCount{EquipmentID: gauge, Date: day, DensityCount: 2790, MoistureCount: 655, Accepted: true}); err != nil {
 		t.Fatal(err)
 	}
-	e.rec(&ledger.EquipmentRegistered{ID: gauge, Kind: ledger.NuclearGauge, Model: "MD-9", SerialNumber: "G-4410", CalibrationDue: "2027-09-01"})
+	if _, err := e.store.RegisterEquipment(ctx, e.project, Equipment{ID: gauge, Kind: NuclearGaugeEquipment, Model: "MD-9",
+		SerialNumber: "G-4410", CalibrationDue: "2027-09-01"}); err != nil { // recalibrated
+		t.Fatal(err)
+	}
 	r, err = e.store.RecordTest(ctx, in)
 	if err != nil {
 		t.Fatal(err)
 	}
-	if hasFlag(r.Flags, ledger.GaugeCalibrationLapsed) || hasFlag(r.Flags, ledger.NoStandardCount) {
+	if hasFlag(r.Flags, FlagGaugeCalibrationLapsed) || hasFlag(r.Flags, FlagNoStandardCount) {
 		t.Errorf("calibrated gauge with a count: flags %v", r.Flags)
 	}
 }
@@ -314,10 +341,11 @@ func TestExceptionClosesFailure(t *testing.T) {
 	if n := len(e.store.OpenFailures(e.project)); n != 1 {
 		t.Fatalf("open failures = %d", n)
 	}
-	tt, _ := e.store.Test(e.project, fail.TestID)
 	e.store.Close()
 	e.open("quinn") // QA accepts it: no one decides on their own test
-	e.rec(&ledger.ExceptionAccepted{TestID: fail.TestID, Revision: tt.Current, Reason: "accepted by the engineer of record"})
+	if err := e.store.AcceptException(context.Background(), e.project, fail.TestID, "accepted by the engineer of record"); err != nil {
+		t.Fatal(err)
+	}
 	if n := len(e.store.OpenFailures(e.project)); n != 0 {
 		t.Errorf("open failures after an accepted exception = %d", n)
 	}
@@ -346,9 +374,9 @@ func TestBatchesBoundCountAndBytes(t *testing.T) {
 func TestRecordRefusesTakenTestID(t *testing.T) {
 	e := newEnv(t, "inspector")
 	id := e.store.NewID()
-	first := e.rec(&ledger.TestRecorded{TestID: id, Content: ledger.TestContent{Readings: sandCone(110, 12), SpecID: e.spec, ReferenceID: e.ref}})
-	_, _, err := e.store.Record(context.Background(), e.project, &ledger.TestRecorded{TestID: id,
-		Content: ledger.TestContent{Readings: sandCone(95, 18), SpecID: e.spec, ReferenceID: e.ref}})
+	first := e.rec(&ledger.TestRecorded{TestID: id, Content: TestInput{Readings: sandCone(110, 12), SpecID: e.spec, ReferenceID: e.ref}.content()})
+	_, _, err := e.store.recordEntry(context.Background(), e.project, &ledger.TestRecorded{TestID: id,
+		Content: TestInput{Readings: sandCone(95, 18), SpecID: e.spec, ReferenceID: e.ref}.content()})
 	if ledger.ReasonOf(err) != ledger.ConflictingID {
 		t.Fatalf("second recording of test %s: %v, want a conflicting_id rejection", id, err)
 	}

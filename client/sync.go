@@ -21,16 +21,6 @@ import (
 	"tamp/internal/ledger"
 )
 
-// ErrFork is returned (wrapped with the chain error that shows it) when the
-// server's ledger no longer contains the point this device verified: it was
-// restored from an older copy or rewritten. The device has pushed back
-// everything it holds; the next sync continues in the server's new epoch.
-var ErrFork = errors.New("client: the server's ledger forked from what this device verified")
-
-// ErrRevoked is returned by Sync when the server says this device was
-// revoked. Its pending entries stay in the store and are listed by Outbox.
-var ErrRevoked = errors.New("client: the server revoked this device")
-
 // EnrolledProjects returns the projects the server listed at enrolment.
 func (s *Store) EnrolledProjects() []string {
 	s.mu.Lock()
@@ -81,9 +71,9 @@ func (o *SyncOptions) defaults() {
 
 // SyncReport says what a sync did.
 type SyncReport struct {
-	Accepted, AlreadyPresent, Waiting, Rejected int // outcomes of pushed events
-	Pulled                                      int // events received and applied
-	Head                                        ledger.Checkpoint
+	Accepted, AlreadyPresent, Waiting, Rejected int           // outcomes of pushed events
+	Pulled                                      int           // events received and applied
+	Head                                        Checkpoint    // the point of the server's ledger verified
 	ClockSkew                                   time.Duration // device clock minus server clock
 	Repushed                                    int           // events pushed back that the server had lost (a fork, a new epoch, a restore)
 	Supplied                                    int           // entries pushed because the server asked for them
@@ -95,7 +85,7 @@ type SyncStatus struct {
 	LastSuccess time.Time
 	LastAttempt time.Time
 	LastError   string
-	Verified    ledger.Checkpoint
+	Verified    Checkpoint // the last point of the server's ledger this device verified
 	Outbox      Outbox
 	// Unconfirmed counts entries the server acknowledged that this device
 	// has not yet seen in the ledger it verified; ServerLacks those it
@@ -138,7 +128,7 @@ func (s *Store) Status(ctx context.Context, project string) (SyncStatus, error) 
 	if err != nil {
 		return st, err
 	}
-	st.Verified = cp
+	st.Verified = checkpointOf(cp)
 	var ok, at int64
 	err = s.db.Reader().QueryRowContext(ctx, `SELECT last_success_micros, last_attempt_micros, last_error FROM sync_state WHERE project_id = ?`, project).
 		Scan(&ok, &at, &st.LastError)
@@ -252,6 +242,8 @@ func retry(ctx context.Context, o SyncOptions, call func() error) error {
 // so the next attempt resumes. When the server's ledger no longer holds the
 // verified point, Sync pushes back everything the device holds and returns
 // ErrFork; a revoked device gets ErrRevoked and keeps its pending entries.
+// A server's refusal is a *ServerError, which errors.Is matches against
+// ErrRevoked, ErrNotMember and the other errors of a server's reasons.
 // Each push also offers again every entry the server acknowledged that the
 // device has not seen in the chain it verified (a restored server may have
 // lost it), and the entries the server asks for that the device holds.
@@ -260,9 +252,6 @@ func (s *Store) Sync(ctx context.Context, conn grpc.ClientConnInterface, project
 	rep, err := s.sync(ctx, conn, project, opts)
 	if s.resumable(err) && s.Resume(ctx, conn) == nil {
 		rep, err = s.sync(ctx, conn, project, opts)
-	}
-	if status.Code(err) == codes.Unauthenticated && strings.Contains(err.Error(), "revoked") {
-		err = fmt.Errorf("%w: %w", ErrRevoked, err)
 	}
 	return rep, errors.Join(err, s.noteAttempt(context.WithoutCancel(ctx), project, err))
 }
@@ -445,7 +434,7 @@ func (s *Store) pushOutbox(ctx context.Context, sc pb.SyncServiceClient, project
 				acked[e.id] = e.acked
 			}
 			var resp *pb.PushResponse
-			if err := retry(ctx, opts, func() (err error) { resp, err = sc.Push(ctx, req); return err }); err != nil {
+			if err := retry(ctx, opts, func() (err error) { resp, err = sc.Push(ctx, req); return fromWire(err) }); err != nil {
 				return head, fmt.Errorf("client: push: %w", err)
 			}
 			head = ledger.CheckpointFromProto(resp.GetHead())
@@ -601,7 +590,7 @@ func (s *Store) repushAll(ctx context.Context, sc pb.SyncServiceClient, project 
 			req.Events = append(req.Events, &pb.Event{Body: e.body, Signature: e.sig})
 		}
 		var resp *pb.PushResponse
-		if err := retry(ctx, opts, func() (err error) { resp, err = sc.Push(ctx, req); return err }); err != nil {
+		if err := retry(ctx, opts, func() (err error) { resp, err = sc.Push(ctx, req); return fromWire(err) }); err != nil {
 			return head, fmt.Errorf("client: push back: %w", err)
 		}
 		head = ledger.CheckpointFromProto(resp.GetHead())
@@ -632,7 +621,7 @@ func (s *Store) pull(ctx context.Context, sc pb.SyncServiceClient, project strin
 	}
 	stream, err := sc.Pull(ctx, &pb.PullRequest{ProjectId: project, After: ledger.CheckpointToProto(cp), ReferenceDataFirst: cp.Seq == 0})
 	if err != nil {
-		return err
+		return fromWire(err)
 	}
 	v := ledger.NewVerifier(cp)
 	checked := false
@@ -644,7 +633,7 @@ func (s *Store) pull(ctx context.Context, sc pb.SyncServiceClient, project strin
 			break
 		}
 		if err != nil {
-			return err
+			return fromWire(err)
 		}
 		if a := resp.GetAnchor(); a != nil && !checked {
 			anchor := ledger.CheckpointFromProto(a)
@@ -706,7 +695,7 @@ func (s *Store) pull(ctx context.Context, sc pb.SyncServiceClient, project strin
 			opts.Progress(Progress{Phase: "pull", Events: received, Bytes: bytes})
 		}
 	}
-	rep.Head = v.At()
+	rep.Head = checkpointOf(v.At())
 	if !checked {
 		return fmt.Errorf("client: pull: the server sent no anchor")
 	}

@@ -3,52 +3,13 @@ package client
 import (
 	"context"
 	"fmt"
+	"slices"
 	"strings"
 
 	"tamp/internal/ledger"
 	"tamp/internal/qc"
 	"tamp/internal/soil"
 )
-
-// TestInput is what an inspector enters for an in-place density test. All
-// values are SI (kg, m, kg/m3, percent).
-type TestInput struct {
-	Project       string
-	Readings      ledger.Readings
-	Location      ledger.Location
-	PlacementID   string
-	Feature       string
-	LiftNumber    uint32
-	LiftThickness float64 // m
-	ReferenceID   string  // the laboratory reference graded against
-	SpecID        string  // the specification graded against
-	EquipmentID   string  // the gauge or apparatus used
-	Oversize      *soil.Oversize
-	Remarks       string
-}
-
-func (in TestInput) content() ledger.TestContent {
-	return ledger.TestContent{Readings: in.Readings, Location: in.Location, PlacementID: in.PlacementID, Feature: in.Feature,
-		LiftNumber: in.LiftNumber, LiftThickness: in.LiftThickness, ReferenceID: in.ReferenceID, SpecID: in.SpecID,
-		EquipmentID: in.EquipmentID, Oversize: in.Oversize, Remarks: in.Remarks}
-}
-
-// TestResult is what the inspector sees the moment a test is recorded.
-type TestResult struct {
-	TestID  string
-	EventID string // the revision just recorded
-	// Result holds dry density, relative compaction, moisture deviation, the
-	// verdict (pending while the reference or spec has not reached the
-	// device), the reasons and the flags of the arithmetic.
-	Result qc.Result
-	// Flags are the review flags of the record: equipment, retests,
-	// conflicts.
-	Flags []qc.Finding
-	// Missing names records the test refers to that the device lacks.
-	Missing []string
-	// Steps show the arithmetic, for the inspector and the reviewer.
-	Steps []soil.Step
-}
 
 // RecordTest records a new test and returns its result at once.
 func (s *Store) RecordTest(ctx context.Context, in TestInput) (TestResult, error) {
@@ -70,7 +31,8 @@ func (s *Store) recordTest(ctx context.Context, project, testID string, c ledger
 
 func (s *Store) result(v *ledger.Projection, testID, eventID string, steps []soil.Step) TestResult {
 	t, _ := v.Test(testID)
-	return TestResult{TestID: testID, EventID: eventID, Result: t.Result, Flags: t.Flags, Missing: t.Missing, Steps: steps}
+	return TestResult{TestID: testID, EventID: eventID, Result: resultOf(v, t.Content, t.Result), Flags: findingsOf(t.Flags),
+		Missing: slices.Clone(t.Missing), Steps: stepsOf(steps)}
 }
 
 // ownTest returns a test the store's user may change. Call with s.mu held.
@@ -107,11 +69,12 @@ func (s *Store) notOwnTest(project string, k ledger.Kind) error {
 }
 
 // CorrectTest records a new revision of a test: edit changes a copy of the
-// current revision's content, reason says why. The earlier revision stays in
-// history. Only the test's author may correct it (an office review is a
-// separate entry). It returns ErrReasonRequired, ErrNotFound, ErrNotAuthor
-// or ErrVoided.
-func (s *Store) CorrectTest(ctx context.Context, project, testID, reason string, edit func(*ledger.TestContent)) (TestResult, error) {
+// current revision's content (its Project is ignored), reason says why. The
+// earlier revision stays in history. Only the test's author may correct it
+// (an office review is a separate entry). It returns ErrReasonRequired,
+// ErrNotFound, ErrNotAuthor or ErrVoided, and ErrInvalid, naming the field,
+// for content that breaks a rule.
+func (s *Store) CorrectTest(ctx context.Context, project, testID, reason string, edit func(*TestInput)) (TestResult, error) {
 	if strings.TrimSpace(reason) == "" {
 		return TestResult{}, fmt.Errorf("client: correct test %s: %w", testID, ErrReasonRequired)
 	}
@@ -121,8 +84,9 @@ func (s *Store) CorrectTest(ctx context.Context, project, testID, reason string,
 	if err != nil {
 		return TestResult{}, err
 	}
-	c := t.Content
-	edit(&c)
+	in := inputOf(project, t.Content)
+	edit(&in)
+	c := in.content()
 	v := s.view(project)
 	a := v.Assess(c, t.Day, t.RetestOf)
 	c.DeviceResults = ledger.ResultsOf(a.Result)
@@ -149,16 +113,6 @@ func (s *Store) VoidTest(ctx context.Context, project, testID, reason string) er
 	return err
 }
 
-// RetestInput is what an inspector enters for a retest after rework. Where
-// a field is left zero it is taken from the failing test: location, lift,
-// reference, spec, equipment and oversize.
-type RetestInput struct {
-	Readings    ledger.Readings
-	Location    *ledger.Location
-	EquipmentID string
-	Remarks     string
-}
-
 // RecordRetest records a retest of a failing test. It returns ErrNotFailing
 // for a test that did not fail (or is not graded yet), ErrVoided, or
 // ErrNotFound.
@@ -175,18 +129,12 @@ func (s *Store) RecordRetest(ctx context.Context, project, failedID string, in R
 		return TestResult{}, fmt.Errorf("client: retest of %s, whose verdict is %s: %w", failedID, t.Result.Verdict, ErrNotFailing)
 	}
 	c := t.Content
-	c.Readings, c.Remarks, c.DeviceResults = in.Readings, in.Remarks, nil
+	c.Readings, c.Remarks, c.DeviceResults = in.Readings.ledger(), in.Remarks, nil
 	if in.Location != nil {
-		c.Location = *in.Location
+		c.Location = in.Location.ledger()
 	}
 	if in.EquipmentID != "" {
 		c.EquipmentID = in.EquipmentID
 	}
 	return s.recordTest(ctx, project, s.NewID(), c, failedID)
-}
-
-// RecordStandardCount records a gauge's daily standard count.
-func (s *Store) RecordStandardCount(ctx context.Context, project string, c ledger.StandardCountRecorded) error {
-	_, _, err := s.Record(ctx, project, &c)
-	return err
 }

@@ -124,7 +124,7 @@ func TestStoredOutOfBoundsEntriesStayReadable(t *testing.T) {
 	head := c.head()
 	env := sg.Bytes()
 	row := server.Row{Seq: head.Seq + 1, EventID: sg.Event.ID, DeviceID: d.id, DeviceSeq: sg.Event.DeviceSeq, Kind: "test_recorded",
-		RecordID: ledger.RecordID(sg.Event.Kind), Envelope: env, Hash: ledger.Link(head.Hash, head.Seq+1, env), Received: time.Now()}
+		RecordID: ledger.RecordID(sg.Event.Kind), Envelope: env, Hash: server.Hash(ledger.Link(ledger.Hash(head.Hash), head.Seq+1, env)), Received: time.Now()}
 	if err := c.store.Append(ctx, project, head, []server.Row{row}); err != nil {
 		t.Fatal(err)
 	}

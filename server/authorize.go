@@ -10,7 +10,6 @@ import (
 	"time"
 
 	"google.golang.org/grpc/codes"
-	"google.golang.org/grpc/status"
 
 	pb "tamp/internal/gen/tamp/v1"
 	"tamp/internal/ledger"
@@ -175,9 +174,9 @@ func (a *authorizer) notOwnTest(author, test, decision string) (*ledger.Rejectio
 
 // requireMember fails unless the calling device's user may use the project.
 func (s *Server) requireMember(ctx context.Context, project string) (Device, error) {
-	d, ok := DeviceFrom(ctx)
+	d, ok := deviceFrom(ctx)
 	if !ok {
-		return d, status.Error(codes.Unauthenticated, "authorization: a bearer token is required")
+		return d, statusError(codes.Unauthenticated, reasonTokenRequired, "authorization", "", "a bearer token is required")
 	}
 	u, err := s.opts.Store.User(ctx, d.UserID)
 	if err != nil {
@@ -191,7 +190,7 @@ func (s *Server) requireMember(ctx context.Context, project string) (Device, err
 		return d, s.internal(ctx, "role", err)
 	}
 	if r == "" {
-		return d, status.Errorf(codes.PermissionDenied, "member_of_project: %s is not a member of project %s", d.UserID, project)
+		return d, statusError(codes.PermissionDenied, reasonNotAMember, "", "member_of_project", fmt.Sprintf("%s is not a member of project %s", d.UserID, project))
 	}
 	return d, nil
 }
@@ -229,9 +228,9 @@ func (l *limiter) allow(device string, now time.Time) bool {
 // The administration calls.
 
 func (a *adminService) caller(ctx context.Context) (Device, User, error) {
-	d, ok := DeviceFrom(ctx)
+	d, ok := deviceFrom(ctx)
 	if !ok {
-		return d, User{}, status.Error(codes.Unauthenticated, "authorization: a bearer token is required")
+		return d, User{}, statusError(codes.Unauthenticated, reasonTokenRequired, "authorization", "", "a bearer token is required")
 	}
 	u, err := a.s.opts.Store.User(ctx, d.UserID)
 	if err != nil {
@@ -304,7 +303,8 @@ type target struct {
 func (a *adminService) allow(ctx context.Context, method string, t target) (User, error) {
 	call, ok := adminCalls[method]
 	if !ok {
-		return User{}, status.Errorf(codes.PermissionDenied, "admin_call: %s has no rule in the table of administration calls; nobody may make it", method)
+		return User{}, statusError(codes.PermissionDenied, reasonPermissionDenied, "", "admin_call",
+			fmt.Sprintf("%s has no rule in the table of administration calls; nobody may make it", method))
 	}
 	if call.access == codeHolders || call.access == certificateHolders {
 		return User{}, nil
@@ -318,7 +318,7 @@ func (a *adminService) allow(ctx context.Context, method string, t target) (User
 		if u.ServerAdmin {
 			return u, nil
 		}
-		return u, status.Errorf(codes.PermissionDenied, "server_admin: only a server administrator may %s", call.action)
+		return u, statusError(codes.PermissionDenied, reasonPermissionDenied, "", "server_admin", "only a server administrator may "+call.action)
 	case projectAdmins, projectMembers:
 		if u.ServerAdmin {
 			return u, nil
@@ -331,30 +331,32 @@ func (a *adminService) allow(ctx context.Context, method string, t target) (User
 		case r == Admin, r != "" && call.access == projectMembers:
 			return u, nil
 		case call.access == projectMembers:
-			return u, status.Errorf(codes.PermissionDenied, "member_of_project: %s is not a member of project %s", u.ID, t.project)
+			return u, statusError(codes.PermissionDenied, reasonNotAMember, "", "member_of_project", fmt.Sprintf("%s is not a member of project %s", u.ID, t.project))
 		}
-		return u, status.Errorf(codes.PermissionDenied, "project_admin: only a server administrator or an administrator of project %s may %s", t.project, call.action)
+		return u, statusError(codes.PermissionDenied, reasonPermissionDenied, "", "project_admin",
+			fmt.Sprintf("only a server administrator or an administrator of project %s may %s", t.project, call.action))
 	case userAdmins:
 		why, err := a.s.actsFor(ctx, u, t.user)
 		if err != nil {
 			return u, a.s.internal(ctx, "roles", err)
 		}
 		if why != "" {
-			return u, status.Errorf(codes.PermissionDenied, "user_admin: only a server administrator, or an administrator of every project on which a user holds a role, may %s for them: %s", call.action, why)
+			return u, statusError(codes.PermissionDenied, reasonPermissionDenied, "", "user_admin",
+				fmt.Sprintf("only a server administrator, or an administrator of every project on which a user holds a role, may %s for them: %s", call.action, why))
 		}
 		return u, nil
 	case ownOrServerAdmin:
 		if u.ServerAdmin || t.user == u.ID {
 			return u, nil
 		}
-		return u, status.Errorf(codes.PermissionDenied, "own_user: only a server administrator or the user concerned may %s", call.action)
+		return u, statusError(codes.PermissionDenied, reasonPermissionDenied, "", "own_user", "only a server administrator or the user concerned may "+call.action)
 	case own:
 		if t.user == u.ID {
 			return u, nil
 		}
-		return u, status.Errorf(codes.PermissionDenied, "own_user: only the user concerned may %s", call.action)
+		return u, statusError(codes.PermissionDenied, reasonPermissionDenied, "", "own_user", "only the user concerned may "+call.action)
 	}
-	return u, status.Errorf(codes.PermissionDenied, "admin_call: %s has an unknown rule; nobody may make it", method)
+	return u, statusError(codes.PermissionDenied, reasonPermissionDenied, "", "admin_call", method+" has an unknown rule; nobody may make it")
 }
 
 // actsFor returns why caller may not act for user (issue their enrolment
@@ -405,7 +407,7 @@ func (a *adminService) CreateProject(ctx context.Context, req *pb.CreateProjectR
 		return nil, err
 	}
 	if strings.TrimSpace(req.GetName()) == "" {
-		return nil, status.Error(codes.InvalidArgument, "name: is required")
+		return nil, statusError(codes.InvalidArgument, reasonInvalidArgument, "name", "", "is required")
 	}
 	id, err := a.s.CreateProject(ctx, req.GetName())
 	if err != nil {
@@ -443,7 +445,7 @@ func (a *adminService) AddMember(ctx context.Context, req *pb.AddMemberRequest) 
 	}
 	role, ok := rolesFromProto[req.GetRole()]
 	if !ok {
-		return nil, status.Error(codes.InvalidArgument, "role: must be inspector, office, qa or admin")
+		return nil, statusError(codes.InvalidArgument, reasonInvalidArgument, "role", "", "must be inspector, office, qa or admin")
 	}
 	project := req.GetProjectId()
 	if _, err := a.s.opts.Store.Head(ctx, project); err != nil {
@@ -452,7 +454,7 @@ func (a *adminService) AddMember(ctx context.Context, req *pb.AddMemberRequest) 
 	user := req.GetUserId()
 	switch {
 	case user == "" && strings.TrimSpace(req.GetUserName()) == "":
-		return nil, status.Error(codes.InvalidArgument, "user_id: give a user id, or a user_name for a new user")
+		return nil, statusError(codes.InvalidArgument, reasonInvalidArgument, "user_id", "", "give a user id, or a user_name for a new user")
 	case user == "":
 		id, err := a.s.AddUser(ctx, req.GetUserName(), false)
 		if err != nil {
@@ -465,7 +467,7 @@ func (a *adminService) AddMember(ctx context.Context, req *pb.AddMemberRequest) 
 	}
 	existing, err := a.s.opts.Store.User(ctx, user)
 	if errors.Is(err, ErrNoUser) {
-		return nil, status.Errorf(codes.NotFound, "user_id: no user %s", user)
+		return nil, statusError(codes.NotFound, reasonNoUser, "user_id", "", "no user "+user)
 	}
 	if err != nil {
 		return nil, a.s.internal(ctx, "user", err)
@@ -537,7 +539,8 @@ func codeLifetime(seconds int64, def time.Duration) (time.Duration, error) {
 	case seconds == 0:
 		return def, nil
 	case seconds < 0 || seconds > most:
-		return 0, status.Errorf(codes.InvalidArgument, "valid_seconds: must be from 1 to %d (7 days), or 0 for the server's default; got %d", most, seconds)
+		return 0, statusError(codes.InvalidArgument, reasonInvalidArgument, "valid_seconds", "",
+			fmt.Sprintf("must be from 1 to %d (7 days), or 0 for the server's default; got %d", most, seconds))
 	}
 	return time.Duration(seconds) * time.Second, nil
 }
@@ -551,7 +554,7 @@ func (a *adminService) IssueEnrollmentCode(ctx context.Context, req *pb.IssueEnr
 		return nil, err
 	}
 	if _, err := a.s.opts.Store.User(ctx, req.GetUserId()); err != nil {
-		return nil, status.Errorf(codes.NotFound, "user_id: no user %s", req.GetUserId())
+		return nil, statusError(codes.NotFound, reasonNoUser, "user_id", "", "no user "+req.GetUserId())
 	}
 	code, exp, err := a.s.issueCode(ctx, req.GetUserId(), life)
 	if err != nil {
@@ -566,7 +569,7 @@ func (a *adminService) RevokeDevice(ctx context.Context, req *pb.RevokeDeviceReq
 	}
 	d, err := a.s.opts.Store.Device(ctx, req.GetDeviceId())
 	if errors.Is(err, ErrNoDevice) || a.s.isOwnDevice(req.GetDeviceId()) {
-		return nil, status.Errorf(codes.NotFound, "device_id: no device %s", req.GetDeviceId())
+		return nil, statusError(codes.NotFound, reasonNoDevice, "device_id", "", "no device "+req.GetDeviceId())
 	}
 	if err != nil {
 		return nil, a.s.internal(ctx, "revoke", err)

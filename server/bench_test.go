@@ -6,7 +6,6 @@ import (
 	"path/filepath"
 	"runtime"
 	"runtime/debug"
-	"strings"
 	"sync"
 	"syscall"
 	"testing"
@@ -15,7 +14,6 @@ import (
 	"tamp/internal/daemon"
 	pb "tamp/internal/gen/tamp/v1"
 	"tamp/internal/ledger"
-	"tamp/internal/sqlite"
 	"tamp/server"
 	"tamp/server/sqlitestore"
 )
@@ -36,12 +34,15 @@ const (
 // --synchronous-normal; the process collects garbage as tampd's does.
 func BenchmarkPush(b *testing.B) {
 	defer debug.SetGCPercent(daemon.TuneGC())
-	for _, mode := range []sqlite.Synchronous{sqlite.Full, sqlite.Normal} {
-		b.Run("sync="+strings.ToLower(string(mode)), func(b *testing.B) { benchmarkPush(b, mode) })
+	for _, mode := range []struct {
+		name string
+		opts sqlitestore.Options
+	}{{"full", sqlitestore.Options{}}, {"normal", sqlitestore.Options{SynchronousNormal: true}}} {
+		b.Run("sync="+mode.name, func(b *testing.B) { benchmarkPush(b, mode.opts) })
 	}
 }
 
-func benchmarkPush(b *testing.B, mode sqlite.Synchronous) {
+func benchmarkPush(b *testing.B, mode sqlitestore.Options) {
 	c := startClusterSync(b, b.TempDir(), mode)
 	ctx := context.Background()
 	project, _ := c.srv.CreateProject(ctx, "bench")
@@ -64,9 +65,10 @@ func benchmarkPush(b *testing.B, mode sqlite.Synchronous) {
 		b.Fatal(err)
 	}
 	defer raw.Close()
-	if err := raw.CreateProject(ctx, project, "bench", time.Now()); err != nil {
+	if err := raw.CreateProject(ctx, project, "bench", server.Hash(ledger.Genesis(project)), time.Now()); err != nil {
 		b.Fatal(err)
 	}
+	rawDB := storeDB(b, raw)
 	sc := pb.NewSyncServiceClient(c.conn(""))
 	push := func(round []batch) {
 		var wg sync.WaitGroup
@@ -95,7 +97,7 @@ func benchmarkPush(b *testing.B, mode sqlite.Synchronous) {
 	var n uint64 // raw rows inserted
 	insert := func(round []batch) {
 		for _, bt := range round {
-			err := raw.DB().Tx(ctx, func(tx *sql.Tx) error {
+			err := rawDB.Tx(ctx, func(tx *sql.Tx) error {
 				ins, err := tx.Prepare(`INSERT INTO ledger (project_id, seq, event_id, device_id, device_seq, kind, record_id, envelope, hash, received_micros)
 					VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`)
 				if err != nil {

@@ -10,7 +10,6 @@ import (
 	"google.golang.org/grpc/encoding"
 	encproto "google.golang.org/grpc/encoding/proto"
 	"google.golang.org/grpc/mem"
-	"google.golang.org/grpc/status"
 	"google.golang.org/protobuf/encoding/protowire"
 	"google.golang.org/protobuf/proto"
 	"google.golang.org/protobuf/reflect/protoreflect"
@@ -48,7 +47,8 @@ func (c *requestCodec) Unmarshal(data mem.BufferSlice, v any) error {
 	if !ok {
 		return err
 	}
-	c.failed.Store(v, status.Error(codes.InvalidArgument, malformed(m.ProtoReflect().Descriptor(), data.Materialize(), err)))
+	field, problem := malformed(m.ProtoReflect().Descriptor(), data.Materialize(), err)
+	c.failed.Store(v, statusError(codes.InvalidArgument, reasonInvalidArgument, field, "", problem))
 	proto.Reset(m)
 	return nil
 }
@@ -80,17 +80,17 @@ func (s checkedStream) RecvMsg(m any) error {
 }
 
 // malformed says where b fails to decode as a message of type d: the path
-// of the field and what is wrong with it, or err when the fault lies
-// outside any field.
-func malformed(d protoreflect.MessageDescriptor, b []byte, err error) string {
+// of the field ("request" when the fault lies outside any field) and what
+// is wrong with it, err when nothing more precise is found.
+func malformed(d protoreflect.MessageDescriptor, b []byte, err error) (field, problem string) {
 	path, problem := locate(d, b)
 	switch {
 	case problem != "" && path != "":
-		return path + ": " + problem
+		return path, problem
 	case problem != "":
-		return "request: " + problem
+		return "request", problem
 	}
-	return fmt.Sprintf("request: malformed protobuf: %v", err)
+	return "request", fmt.Sprintf("malformed protobuf: %v", err)
 }
 
 // locate finds the first field of b, read as a message of type d, that

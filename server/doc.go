@@ -88,6 +88,19 @@
 // devices are listed in terminals, so they may hold no control characters
 // (C0, DEL, C1, bidirectional controls, line and paragraph separators).
 //
+// # Errors
+//
+// Every status the server returns carries a google.rpc.ErrorInfo detail in
+// the domain "tamp": a reason code in upper snake case (NOT_A_MEMBER,
+// DEVICE_REVOKED, INVALID_ARGUMENT, STORAGE_FULL...), and in its metadata
+// the request field ("field") and the rule ("rule") the refusal concerns.
+// Clients branch on the reason, never on the message, which is for people.
+// status.go holds the table of reasons and the gRPC code each is sent with;
+// the interceptors give a status that gRPC or the health service made
+// without a reason the one its code names, and answer any other error with
+// Internal. A status gRPC makes before any interceptor runs (an unknown
+// method, a message over the size limit) carries none.
+//
 // # Authority
 //
 // Two tables in authorize.go hold every rule of who may do what: entryRoles
@@ -103,5 +116,17 @@
 //
 // The Store interface is narrow so that a PostgreSQL store can serve a
 // deployment of several servers; the in-memory projections assume one server
-// per project until then.
+// per project until then. It names only this package's types (Hash,
+// Checkpoint, Entry, Row and the account types), so a store may live outside
+// this module; the server hands it the genesis hash of a new project and
+// computes h(0) itself.
+//
+// # Embedding
+//
+// A program serves tamp with New over a Store, Register on its own
+// *grpc.Server built with RequestCodec, UnaryInterceptor and
+// StreamInterceptor, CheckStorage before serving, and Close as it stops;
+// Bootstrap, AddUser, AddMember, CreateProject and IssueEnrollmentCode set a
+// server up without a device. The services' wire types are not part of this
+// API: apps in other languages generate their own from proto/tamp/v1.
 package server

@@ -32,7 +32,7 @@ func TestThreeDevicesConverge(t *testing.T) {
 	record(t, ann, project, spec, ref, 12, 0)
 	record(t, bo, project, spec, ref, 9, 0.5)
 	for _, tt := range ann.Today(project) {
-		if tt.Result.Verdict != qc.Pending {
+		if tt.Result.Verdict != client.Pending {
 			t.Fatalf("offline test without its reference: %v", tt.Result.Verdict)
 		}
 	}
@@ -54,7 +54,7 @@ func TestThreeDevicesConverge(t *testing.T) {
 		t.Errorf("server holds %d of the devices' events, want 24", n)
 	}
 	for name, s := range map[string]*client.Store{"qa": qa, "ann": ann, "bo": bo} {
-		if v := verified(t, s, project); v != head {
+		if v := verified(t, s, project); !sameCheckpoint(v, head) {
 			t.Errorf("%s verified %d %s, server head %d %s", name, v.Seq, v.Hash, head.Seq, head.Hash)
 		}
 		if s.Digest(project) != c.digest() {
@@ -65,7 +65,7 @@ func TestThreeDevicesConverge(t *testing.T) {
 		}
 	}
 	for _, tt := range bo.Today(project) {
-		if tt.Result.Verdict == qc.Pending {
+		if tt.Result.Verdict == client.Pending {
 			t.Errorf("after sync a test is still pending: %s", tt.ID)
 		}
 	}
@@ -74,7 +74,7 @@ func TestThreeDevicesConverge(t *testing.T) {
 	record(t, ann, project, spec, ref, 20, 1)
 	record(t, bo, project, spec, ref, 20, 2)
 	for range 5 {
-		if _, _, err := qa.Record(context.Background(), project, &ledger.SpecDefined{ID: qa.NewID(), Name: "trench backfill", MinCompaction: "90"}); err != nil {
+		if _, err := qa.DefineSpec(context.Background(), project, client.Spec{Name: "trench backfill", MinCompaction: "90"}); err != nil {
 			t.Fatal(err)
 		}
 	}
@@ -96,7 +96,7 @@ func TestThreeDevicesConverge(t *testing.T) {
 		t.Errorf("server holds %d of the devices' events, want 69", n)
 	}
 	for _, s := range []*client.Store{qa, ann, bo} {
-		if v := verified(t, s, project); v != head {
+		if v := verified(t, s, project); !sameCheckpoint(v, head) {
 			t.Errorf("after concurrent syncs a device verified %d, head %d", v.Seq, head.Seq)
 		}
 		if s.Digest(project) != c.digest() {
@@ -125,11 +125,11 @@ func TestNewDeviceGetsEverything(t *testing.T) {
 	if rep.Pulled < 8 || len(phases) == 0 {
 		t.Errorf("new device pulled %d, progress %v", rep.Pulled, phases)
 	}
-	r, err := cy.RecordTest(context.Background(), client.TestInput{Project: project, SpecID: spec, ReferenceID: ref, Readings: sandCone(112, 13)})
+	r, err := cy.RecordTest(context.Background(), client.TestInput{Project: project, SpecID: spec, ReferenceID: ref, Readings: coneReadings(112, 13)})
 	if err != nil {
 		t.Fatal(err)
 	}
-	if r.Result.Verdict != qc.Pass {
+	if r.Result.Verdict != client.Pass {
 		t.Errorf("a test on the new device, offline: %v", r.Result.Verdict)
 	}
 	if len(cy.Today(project)) != 6 {
@@ -142,19 +142,26 @@ func TestNewDeviceGetsEverything(t *testing.T) {
 func TestServerFlagsTamperedResult(t *testing.T) {
 	c := startCluster(t, t.TempDir())
 	project := c.newProject("Sagebrush Flats pad")
-	qa, ann := c.device("quinn", server.QA), c.device("ann", server.Inspector)
+	qa := c.device("quinn", server.QA)
+	// The device library always reports what the readings give, so the
+	// tampering device signs its entry itself.
+	ann := c.rawDevice(t, "ann", map[string]server.Role{project: server.Inspector}, false)
 	cc := c.conn("")
 	spec, ref := setUp(t, c, qa, project)
 	syncOK(t, qa, cc, project)
-	syncOK(t, ann, cc, project)
-	id := ann.NewID()
+	id := newV7()
 	// 100 pcf against 116 is 86 %: a fail, reported as a pass at 97 %.
 	tampered := &ledger.TestRecorded{TestID: id, Content: ledger.TestContent{Readings: sandCone(100, 13), SpecID: spec, ReferenceID: ref,
 		DeviceResults: &ledger.Results{WetDensity: pcf(100) * 1.13, DryDensity: pcf(112.5), Moisture: 13, RelativeCompaction: 97, Verdict: qc.Pass}}}
-	if _, _, err := ann.Record(context.Background(), project, tampered); err != nil {
-		t.Fatal(err)
+	if o := ann.first(t, c, project, ann.sign(t, project, tampered)); o.GetStatus() != pb.PushStatus_PUSH_STATUS_ACCEPTED {
+		t.Fatalf("the tampered test: %v %s", o.GetStatus(), o.GetMessage())
 	}
-	syncOK(t, ann, cc, project)
+	// A device that pulls it sees the recomputed fail, flagged.
+	syncOK(t, qa, cc, project)
+	if tt, err := qa.Test(project, id); err != nil || tt.Result.Verdict != client.Fail || !hasFinding(tt.Flags, client.FlagDeviceResultMismatch) {
+		t.Errorf("on a device that pulled it: %v, verdict %v, flags %v; want a fail flagged %s", err, tt.Result.Verdict, tt.Flags,
+			client.FlagDeviceResultMismatch)
+	}
 	err := c.srv.Inspect(context.Background(), project, func(p *ledger.Projection) {
 		tt, ok := p.Test(id)
 		if !ok {
@@ -246,7 +253,7 @@ func TestLargeEntriesSync(t *testing.T) {
 	ann := c.device("ann", server.Inspector)
 	long := strings.Repeat("sandy lens at the toe; ", 5000) // about 115 kB
 	for range 60 {
-		if _, err := ann.RecordTest(context.Background(), client.TestInput{Project: project, Readings: sandCone(110, 12), Remarks: long}); err != nil {
+		if _, err := ann.RecordTest(context.Background(), client.TestInput{Project: project, Readings: coneReadings(110, 12), Remarks: long}); err != nil {
 			t.Fatal(err)
 		}
 	}
@@ -280,7 +287,7 @@ func TestExportVerifiesOffline(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if rep.Events != 11+countKind(t, c, project, "device_enrolled") || rep.Head.Hash != c.head().Hash || rep.Digest != c.digest() || rep.Tests != 8 {
+	if rep.Events != 11+countKind(t, c, project, "device_enrolled") || rep.Head.Hash != c.head().Hash.String() || rep.Digest != c.digest() || rep.Tests != 8 {
 		t.Errorf("verified %+v; server head %s", rep, c.head().Hash)
 	}
 	// Change one byte inside the body of the fifth event (a soil mass, a
@@ -314,4 +321,14 @@ func TestExportVerifiesOffline(t *testing.T) {
 	if err != nil || len(q.GetTests()) != 8 {
 		t.Errorf("review queue: %d tests, %v", len(q.GetTests()), err)
 	}
+}
+
+// hasFinding reports whether fs holds a finding of code.
+func hasFinding(fs []client.Finding, code string) bool {
+	for _, f := range fs {
+		if f.Code == code {
+			return true
+		}
+	}
+	return false
 }

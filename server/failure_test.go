@@ -12,8 +12,8 @@ import (
 
 	pb "tamp/internal/gen/tamp/v1"
 	"tamp/internal/ledger"
-	"tamp/internal/sqlite"
 	"tamp/server"
+	"tamp/server/sqlitestore"
 )
 
 // failingStore fails the next Append once armed, after holding it until
@@ -28,7 +28,7 @@ type failingStore struct {
 
 var errDiskFull = errors.New("disk full")
 
-func (f *failingStore) Append(ctx context.Context, project string, head ledger.Checkpoint, rows []server.Row) error {
+func (f *failingStore) Append(ctx context.Context, project string, head server.Checkpoint, rows []server.Row) error {
 	f.mu.Lock()
 	armed := f.armed
 	f.armed = false
@@ -47,7 +47,7 @@ func (f *failingStore) Append(ctx context.Context, project string, head ledger.C
 // events are accepted once pushed again.
 func TestFailedWriteAcknowledgesNothingUnstored(t *testing.T) {
 	f := &failingStore{entered: make(chan struct{}), release: make(chan struct{})}
-	c := &cluster{tb: t, dir: t.TempDir(), sync: sqlite.Normal, wrap: func(s server.Store) server.Store { f.Store = s; return f }}
+	c := &cluster{tb: t, dir: t.TempDir(), storage: sqlitestore.Options{SynchronousNormal: true}, wrap: func(s server.Store) server.Store { f.Store = s; return f }}
 	c.start("")
 	project := c.newProject("Juniper Wash detention basin")
 	d := c.rawDevice(t, "ines", map[string]server.Role{project: server.Inspector}, false)

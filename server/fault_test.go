@@ -141,7 +141,7 @@ func TestCutConnections(t *testing.T) {
 		if s.Digest(project) != c.digest() {
 			t.Error("a device's state differs from the server's")
 		}
-		if v := verified(t, s, project); v != head {
+		if v := verified(t, s, project); !sameCheckpoint(v, head) {
 			t.Errorf("device verified %d, head %d", v.Seq, head.Seq)
 		}
 	}
@@ -163,7 +163,7 @@ func TestCutConnections(t *testing.T) {
 			t.Fatal(err)
 		}
 	}
-	if want.Digest() != c.digest() {
+	if want.Digest().String() != c.digest() {
 		t.Error("the server's projection differs from its own ledger")
 	}
 }
@@ -231,7 +231,7 @@ func TestRestoredFromBackup(t *testing.T) {
 		t.Error("the server's state differs from what it had acknowledged")
 	}
 	for _, s := range []*client.Store{qa, ann, bo} {
-		if v := verified(t, s, project); v != head {
+		if v := verified(t, s, project); !sameCheckpoint(v, head) {
 			t.Errorf("device verified %d/%d, head %d/%d", v.Epoch, v.Seq, head.Epoch, head.Seq)
 		}
 		if s.Digest(project) != ackDigest {

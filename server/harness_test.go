@@ -17,7 +17,6 @@ import (
 	pb "tamp/internal/gen/tamp/v1"
 	"tamp/internal/ledger"
 	"tamp/internal/soil"
-	"tamp/internal/sqlite"
 	"tamp/server"
 	"tamp/server/sqlitestore"
 )
@@ -33,8 +32,8 @@ type cluster struct {
 	project string
 	done    chan struct{}
 	extra   []grpc.ServerOption
-	rate    float64 // pushes a second per device; zero for the server's default
-	sync    sqlite.Synchronous
+	rate    float64                         // pushes a second per device; zero for the server's default
+	storage sqlitestore.Options             // how the store commits
 	wrap    func(server.Store) server.Store // stands between server and store when set
 	now     func() time.Time                // the server's clock; time.Now when nil
 }
@@ -46,20 +45,20 @@ func hashOf(secret string) []byte {
 
 func startCluster(t testing.TB, dir string) *cluster {
 	t.Helper()
-	return startClusterSync(t, dir, sqlite.Normal)
+	return startClusterSync(t, dir, sqlitestore.Options{SynchronousNormal: true})
 }
 
-// startClusterSync starts a cluster whose store commits with sync.
-func startClusterSync(t testing.TB, dir string, sync sqlite.Synchronous) *cluster {
+// startClusterSync starts a cluster whose store commits as storage says.
+func startClusterSync(t testing.TB, dir string, storage sqlitestore.Options) *cluster {
 	t.Helper()
-	c := &cluster{tb: t, dir: dir, sync: sync}
+	c := &cluster{tb: t, dir: dir, storage: storage}
 	c.start("")
 	return c
 }
 
 func (c *cluster) start(addr string) {
 	c.tb.Helper()
-	st, err := sqlitestore.Open(context.Background(), filepath.Join(c.dir, "ledger.db"), c.sync)
+	st, err := sqlitestore.Open(context.Background(), filepath.Join(c.dir, "ledger.db"), c.storage)
 	if err != nil {
 		c.tb.Fatal(err)
 	}
@@ -121,7 +120,7 @@ func (c *cluster) conn(addr string, opts ...grpc.DialOption) *grpc.ClientConn {
 func (c *cluster) device(name string, role server.Role) *client.Store {
 	c.tb.Helper()
 	ctx := context.Background()
-	s, err := client.Open(ctx, filepath.Join(c.tb.TempDir(), name+".db"), client.Options{Synchronous: sqlite.Normal})
+	s, err := client.Open(ctx, filepath.Join(c.tb.TempDir(), name+".db"), client.Options{Durability: client.DurabilityNormal})
 	if err != nil {
 		c.tb.Fatal(err)
 	}
@@ -153,7 +152,7 @@ func (c *cluster) newProject(name string) string {
 	return id
 }
 
-func (c *cluster) head() ledger.Checkpoint {
+func (c *cluster) head() server.Checkpoint {
 	c.tb.Helper()
 	h, err := c.store.Head(context.Background(), c.project)
 	if err != nil {
@@ -162,10 +161,12 @@ func (c *cluster) head() ledger.Checkpoint {
 	return h
 }
 
-func (c *cluster) digest() ledger.Hash {
+// digest returns the digest of the server's projection of the project, in
+// hexadecimal as a device's Digest.
+func (c *cluster) digest() string {
 	c.tb.Helper()
-	var d ledger.Hash
-	if err := c.srv.Inspect(context.Background(), c.project, func(p *ledger.Projection) { d = p.Digest() }); err != nil {
+	var d string
+	if err := c.srv.Inspect(context.Background(), c.project, func(p *ledger.Projection) { d = p.Digest().String() }); err != nil {
 		c.tb.Fatal(err)
 	}
 	return d
@@ -173,12 +174,27 @@ func (c *cluster) digest() ledger.Hash {
 
 func pcf(v float64) float64 { return v * soil.PoundPerCubicFoot }
 
+// coneReadings gives sand-cone readings of dry density dry pcf at moisture
+// w, as an inspector enters them on a device.
+func coneReadings(dry, w float64) client.Readings {
+	sd, used, cone, mass := coneMasses(dry, w)
+	return client.Readings{SandCone: &client.SandCone{SandDensity: sd, SandUsed: used, ConeCorrection: cone, SoilMass: mass, Moisture: w}}
+}
+
+// sandCone gives the same readings as a raw device signs them.
 func sandCone(dry, w float64) ledger.Readings {
-	sd := pcf(99.0)
-	used, cone := 7.00*soil.Pound, 0.53*soil.Pound
-	vol := (used - cone) / sd
-	return ledger.Readings{SandCone: &soil.SandCone{SandDensity: sd, SandUsed: used, ConeCorrection: cone,
-		SoilMass: pcf(dry) * (1 + w/100) * vol, Moisture: w}}
+	sd, used, cone, mass := coneMasses(dry, w)
+	return ledger.Readings{SandCone: &soil.SandCone{SandDensity: sd, SandUsed: used, ConeCorrection: cone, SoilMass: mass, Moisture: w}}
+}
+
+// coneMasses are the sand density and masses of a sand-cone test of dry
+// density dry pcf at moisture w: sand of 99.0 pcf, 7.00 lb used, 0.53 lb
+// in the cone.
+func coneMasses(dry, w float64) (sandDensity, used, cone, soilMass float64) {
+	sandDensity = pcf(99.0)
+	used, cone = 7.00*soil.Pound, 0.53*soil.Pound
+	vol := (used - cone) / sandDensity
+	return sandDensity, used, cone, pcf(dry) * (1 + w/100) * vol
 }
 
 // setUp has an administrator set the project up and the QA device define
@@ -187,19 +203,19 @@ func setUp(t *testing.T, c *cluster, qa *client.Store, project string) (spec, re
 	t.Helper()
 	ctx := context.Background()
 	admin := c.device("ada", server.Admin)
-	if _, _, err := admin.Record(ctx, project, &ledger.ProjectSetUp{Name: "Sagebrush Flats pad", Units: soil.US, WaterDensity: soil.Water624}); err != nil {
+	if err := admin.SetUpProject(ctx, project, client.ProjectSetUp{Name: "Sagebrush Flats pad", Units: client.USCustomary,
+		WaterDensity: soil.Water624}); err != nil {
 		t.Fatal(err)
 	}
 	syncOK(t, admin, c.conn(""), project)
-	spec, ref = qa.NewID(), qa.NewID()
-	for _, k := range []ledger.Kind{
-		&ledger.SpecDefined{ID: spec, Name: "pad fill", MinCompaction: "95", MoistureLow: "-2", MoistureHigh: "2"},
-		&ledger.ReferenceAdded{ID: ref, Material: "crushed fines", Procedure: soil.Procedure{Standard: soil.ASTMD698, Method: "A"},
-			MaxDryDensity: pcf(116), OptimumMoisture: 13.5},
-	} {
-		if _, _, err := qa.Record(ctx, project, k); err != nil {
-			t.Fatal(err)
-		}
+	spec, err := qa.DefineSpec(ctx, project, client.Spec{Name: "pad fill", MinCompaction: "95", MoistureLow: "-2", MoistureHigh: "2"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ref, err = qa.AddReference(ctx, project, client.Reference{Material: "crushed fines", Standard: client.ASTMD698, Method: "A",
+		MaxDryDensity: pcf(116), OptimumMoisture: 13.5})
+	if err != nil {
+		t.Fatal(err)
 	}
 	return spec, ref
 }
@@ -208,7 +224,7 @@ func record(t *testing.T, s *client.Store, project, spec, ref string, n int, see
 	t.Helper()
 	for i := range n {
 		if _, err := s.RecordTest(context.Background(), client.TestInput{Project: project, SpecID: spec, ReferenceID: ref,
-			Readings: sandCone(104+float64((i*7)%14)+seed, 12.5), Feature: "pad", LiftNumber: uint32(i%5 + 1)}); err != nil {
+			Readings: coneReadings(104+float64((i*7)%14)+seed, 12.5), Feature: "pad", LiftNumber: uint32(i%5 + 1)}); err != nil {
 			t.Fatal(err)
 		}
 	}
@@ -223,13 +239,18 @@ func syncOK(t *testing.T, s *client.Store, cc *grpc.ClientConn, project string) 
 	return rep
 }
 
-func verified(t *testing.T, s *client.Store, project string) ledger.Checkpoint {
+func verified(t *testing.T, s *client.Store, project string) client.Checkpoint {
 	t.Helper()
 	st, err := s.Status(context.Background(), project)
 	if err != nil {
 		t.Fatal(err)
 	}
 	return st.Verified
+}
+
+// sameCheckpoint reports whether a device verified the server's point h.
+func sameCheckpoint(v client.Checkpoint, h server.Checkpoint) bool {
+	return v.Project == h.Project && v.Epoch == h.Epoch && v.Seq == h.Seq && v.Hash == h.Hash.String()
 }
 
 // tests signs n test records of project, with no reference or spec.

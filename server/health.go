@@ -11,7 +11,6 @@ import (
 	"google.golang.org/grpc/codes"
 	"google.golang.org/grpc/health"
 	healthpb "google.golang.org/grpc/health/grpc_health_v1"
-	"google.golang.org/grpc/status"
 
 	pb "tamp/internal/gen/tamp/v1"
 )
@@ -182,9 +181,17 @@ func (s *Server) storageFault(ctx context.Context, op string, err error) (st err
 	return unavailable(cause), true
 }
 
+// unavailable returns the Unavailable status of a storage fault, naming it.
 func unavailable(cause error) error {
-	return status.Error(codes.Unavailable, strings.TrimPrefix(cause.Error(), "server: ")+
-		"; nothing of this call was stored: try again later (the server resumes by itself once its operator clears the fault)")
+	msg := strings.TrimPrefix(cause.Error(), "server: ") +
+		"; nothing of this call was stored: try again later (the server resumes by itself once its operator clears the fault)"
+	switch cause {
+	case ErrStorageFull:
+		return statusError(codes.Unavailable, reasonStorageFull, "", "", msg)
+	case ErrStorageReadOnly:
+		return statusError(codes.Unavailable, reasonStorageReadOnly, "", "", msg)
+	}
+	return statusError(codes.Unavailable, reasonStorageIO, "", "", msg)
 }
 
 // writable returns nil when the store can write: at once while no storage

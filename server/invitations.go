@@ -3,9 +3,9 @@ package server
 import (
 	"context"
 	"errors"
+	"fmt"
 
 	"google.golang.org/grpc/codes"
-	"google.golang.org/grpc/status"
 
 	pb "tamp/internal/gen/tamp/v1"
 )
@@ -16,7 +16,7 @@ import (
 // them a member.
 
 func (a *adminService) ListInvitations(ctx context.Context, _ *pb.ListInvitationsRequest) (*pb.ListInvitationsResponse, error) {
-	d, _ := DeviceFrom(ctx)
+	d, _ := deviceFrom(ctx)
 	u, err := a.allow(ctx, pb.AdminService_ListInvitations_FullMethodName, target{user: d.UserID})
 	if err != nil {
 		return nil, err
@@ -38,7 +38,7 @@ func (a *adminService) ListInvitations(ctx context.Context, _ *pb.ListInvitation
 func (a *adminService) pendingInvitation(ctx context.Context, method, id string) (Invitation, error) {
 	inv, err := a.s.opts.Store.Invitation(ctx, id)
 	if errors.Is(err, ErrNoInvitation) {
-		return inv, status.Errorf(codes.NotFound, "invitation_id: no pending invitation %s", id)
+		return inv, statusError(codes.NotFound, reasonNoInvitation, "invitation_id", "", "no pending invitation "+id)
 	}
 	if err != nil {
 		return inv, a.s.internal(ctx, "invitation", err)
@@ -64,8 +64,8 @@ func (a *adminService) AcceptInvitation(ctx context.Context, req *pb.AcceptInvit
 		return nil, a.s.internal(ctx, "role", err)
 	}
 	if !inviter.ServerAdmin && r != Admin {
-		return nil, status.Errorf(codes.FailedPrecondition, "invitation_id: %s no longer administers project %s; ask one of its administrators to invite you again",
-			inv.InvitedBy, inv.Project)
+		return nil, statusError(codes.FailedPrecondition, reasonInvitationLapsed, "invitation_id", "", fmt.Sprintf("%s no longer administers project %s; ask one of its administrators to invite you again",
+			inv.InvitedBy, inv.Project))
 	}
 	prev, err := a.s.opts.Store.Role(ctx, inv.Project, inv.User)
 	if err != nil {
@@ -73,7 +73,7 @@ func (a *adminService) AcceptInvitation(ctx context.Context, req *pb.AcceptInvit
 	}
 	inv, err = a.s.opts.Store.ResolveInvitation(ctx, inv.ID, true, a.s.opts.Now())
 	if errors.Is(err, ErrNoInvitation) {
-		return nil, status.Errorf(codes.NotFound, "invitation_id: no pending invitation %s", req.GetInvitationId())
+		return nil, statusError(codes.NotFound, reasonNoInvitation, "invitation_id", "", "no pending invitation "+req.GetInvitationId())
 	}
 	if err != nil {
 		return nil, a.s.internal(ctx, "accept invitation", err)
@@ -83,7 +83,7 @@ func (a *adminService) AcceptInvitation(ctx context.Context, req *pb.AcceptInvit
 			return nil, err
 		}
 	}
-	if err := a.s.IntroduceDevices(ctx, inv.Project, inv.User); err != nil {
+	if err := a.s.introduceDevices(ctx, inv.Project, inv.User); err != nil {
 		return nil, a.s.internal(ctx, "accept invitation", err)
 	}
 	a.s.log.InfoContext(ctx, "invitation accepted", "project", inv.Project, "user", inv.User, "role", inv.Role, "invited_by", inv.InvitedBy)
@@ -96,7 +96,7 @@ func (a *adminService) DeclineInvitation(ctx context.Context, req *pb.DeclineInv
 		return nil, err
 	}
 	if _, err := a.s.opts.Store.ResolveInvitation(ctx, inv.ID, false, a.s.opts.Now()); errors.Is(err, ErrNoInvitation) {
-		return nil, status.Errorf(codes.NotFound, "invitation_id: no pending invitation %s", req.GetInvitationId())
+		return nil, statusError(codes.NotFound, reasonNoInvitation, "invitation_id", "", "no pending invitation "+req.GetInvitationId())
 	} else if err != nil {
 		return nil, a.s.internal(ctx, "decline invitation", err)
 	}

@@ -1,8 +1,9 @@
 package server
 
 import (
+	"fmt"
+
 	"google.golang.org/grpc/codes"
-	"google.golang.org/grpc/status"
 )
 
 // checkName refuses a name (of a project, user or device) holding a
@@ -15,7 +16,8 @@ import (
 func checkName(field, name string) error {
 	for i, r := range name {
 		if nameControl(r) {
-			return status.Errorf(codes.InvalidArgument, "%s: must not hold control characters (%U at byte %d)", field, r, i)
+			return statusError(codes.InvalidArgument, reasonInvalidArgument, field, "no_control_characters",
+				fmt.Sprintf("must not hold control characters (%U at byte %d)", r, i))
 		}
 	}
 	return nil

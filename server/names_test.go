@@ -3,7 +3,6 @@ package server_test
 import (
 	"context"
 	"crypto/ed25519"
-	"strings"
 	"testing"
 
 	"github.com/google/uuid"
@@ -25,7 +24,8 @@ func TestNamesWithControlCharactersRefused(t *testing.T) {
 	ac := pb.NewAdminServiceClient(c.conn(""))
 	refused := func(t *testing.T, err error, field string) {
 		t.Helper()
-		if status.Code(err) != codes.InvalidArgument || !strings.HasPrefix(status.Convert(err).Message(), field+":") {
+		if reason, f, rule := reasonOf(err); status.Code(err) != codes.InvalidArgument || reason != "INVALID_ARGUMENT" || f != field ||
+			rule != "no_control_characters" {
 			t.Errorf("%v, want InvalidArgument naming %s", err, field)
 		}
 	}

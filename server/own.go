@@ -9,7 +9,6 @@ import (
 	"time"
 
 	"google.golang.org/grpc/codes"
-	"google.golang.org/grpc/status"
 
 	pb "tamp/internal/gen/tamp/v1"
 	"tamp/internal/ledger"
@@ -108,7 +107,7 @@ func (s *Server) appendOwn(ctx context.Context, project string, k ledger.Kind) e
 	}
 	id, _ := s.identity(ctx)
 	octx := context.WithValue(ctx, deviceKey{}, Device{ID: id.DeviceID, UserID: id.UserID})
-	resp, err := s.Push(octx, &pb.PushRequest{ProjectId: project, Events: []*pb.Event{sg.Proto()}})
+	resp, err := s.push(octx, &pb.PushRequest{ProjectId: project, Events: []*pb.Event{sg.Proto()}})
 	if err != nil {
 		return err
 	}
@@ -148,11 +147,11 @@ func (s *Server) certificate(ctx context.Context, d Device, at time.Time) (ledge
 	return s.sealOwn(ctx, certificateProject, k)
 }
 
-// IntroduceDevices records user's devices in a project's ledger when the
+// introduceDevices records user's devices in a project's ledger when the
 // user joins it or changes role there: a device_enrolled entry, with the
 // role, for each device, and a device_revoked entry for each revoked one,
 // so a key revoked before the user joined cannot write there.
-func (s *Server) IntroduceDevices(ctx context.Context, project, user string) error {
+func (s *Server) introduceDevices(ctx context.Context, project, user string) error {
 	ds, err := s.opts.Store.Devices(ctx, user)
 	if err != nil {
 		return err
@@ -292,7 +291,7 @@ func (s *Server) deviceEffects(ctx context.Context, project string, rows []Row) 
 	if !devices {
 		return
 	}
-	if err := s.Inspect(ctx, project, func(v *ledger.Projection) { s.syncDevices(ctx, project, v) }); err != nil {
+	if err := s.inspect(ctx, project, func(v *ledger.Projection) { s.syncDevices(ctx, project, v) }); err != nil {
 		s.log.ErrorContext(ctx, "bring devices in line with the ledger", "project", project, "err", err)
 	}
 }
@@ -364,19 +363,20 @@ func (a *adminService) ResumeDevice(ctx context.Context, req *pb.ResumeDeviceReq
 	}
 	cert, err := ledger.FromEnvelope(req.GetCertificate())
 	if err != nil {
-		return nil, status.Error(codes.InvalidArgument, "certificate: does not decode")
+		return nil, statusError(codes.InvalidArgument, reasonInvalidArgument, "certificate", "", "does not decode")
 	}
 	k, ok := cert.Event.Kind.(*ledger.DeviceEnrolled)
 	if !ok || cert.Event.Device != id.DeviceID || cert.Event.Project != certificateProject || cert.Verify(id.Key.Public().(ed25519.PublicKey)) != nil {
-		return nil, status.Error(codes.Unauthenticated, "certificate: not an enrolment certificate this server signed")
+		return nil, statusError(codes.Unauthenticated, reasonCertificateInvalid, "certificate", "", "not an enrolment certificate this server signed")
 	}
 	now := s.opts.Now()
 	micros := req.GetProofMicros()
 	if d := now.Sub(time.UnixMicro(micros)); d > resumeWindow || d < -resumeWindow {
-		return nil, status.Errorf(codes.Unauthenticated, "proof_micros: the proof's time is more than %s from the server's clock", resumeWindow)
+		return nil, statusError(codes.Unauthenticated, reasonProofInvalid, "proof_micros", "",
+			fmt.Sprintf("the proof's time is more than %s from the server's clock", resumeWindow))
 	}
 	if !ed25519.Verify(k.PublicKey, ledger.ResumeProof(id.DeviceID, k.DeviceID, micros), req.GetProof()) {
-		return nil, status.Error(codes.Unauthenticated, "proof: the signature does not verify with the certificate's key")
+		return nil, statusError(codes.Unauthenticated, reasonProofInvalid, "proof", "", "the signature does not verify with the certificate's key")
 	}
 	o := &s.self
 	o.mu.Lock()
@@ -389,7 +389,7 @@ func (a *adminService) ResumeDevice(ctx context.Context, req *pb.ResumeDeviceReq
 	}
 	o.mu.Unlock()
 	if replay {
-		return nil, status.Error(codes.Unauthenticated, "proof_micros: a proof no later than one this device used before; sign a new one")
+		return nil, statusError(codes.Unauthenticated, reasonProofInvalid, "proof_micros", "", "a proof no later than one this device used before; sign a new one")
 	}
 	d := Device{ID: k.DeviceID, UserID: k.UserID, Name: k.Name, PublicKey: k.PublicKey}
 	held, err := s.opts.Store.Device(ctx, d.ID)
@@ -406,7 +406,7 @@ func (a *adminService) ResumeDevice(ctx context.Context, req *pb.ResumeDeviceReq
 		return nil, s.internal(ctx, "resume", err)
 	}
 	if held.Revoked || revoked {
-		return nil, status.Error(codes.PermissionDenied, "device_revoked: this device was revoked; enrol again with a new code")
+		return nil, statusError(codes.PermissionDenied, reasonDeviceRevoked, "certificate", "", "this device was revoked; enrol again with a new code")
 	}
 	token := s.secret()
 	if err := s.opts.Store.SetToken(ctx, d.ID, hash(token)); err != nil {
@@ -429,7 +429,7 @@ func (s *Server) revokedInLedgers(ctx context.Context, d Device) (bool, error) {
 	}
 	for _, p := range projects {
 		var rev *ledger.DeviceRevoked
-		if err := s.Inspect(ctx, p, func(v *ledger.Projection) {
+		if err := s.inspect(ctx, p, func(v *ledger.Projection) {
 			if dv, ok := v.Device(d.ID); ok {
 				rev = dv.Revoked
 			}

@@ -37,7 +37,7 @@ func (r *readService) view(ctx context.Context, project string, fn func(*ledger.
 		return err
 	}
 	var ferr error
-	if err := r.s.Inspect(ctx, project, func(p *ledger.Projection) { ferr = fn(p) }); err != nil {
+	if err := r.s.inspect(ctx, project, func(p *ledger.Projection) { ferr = fn(p) }); err != nil {
 		return projectErr(r.s, ctx, project, err)
 	}
 	if ferr != nil {
@@ -96,12 +96,12 @@ func (r *readService) ExportLedger(req *pb.ExportLedgerRequest, stream grpc.Serv
 	if _, err := r.s.requireMember(ctx, req.GetProjectId()); err != nil {
 		return err
 	}
-	head, err := r.s.opts.Store.Head(ctx, req.GetProjectId())
+	head, err := r.s.storeHead(ctx, req.GetProjectId())
 	if err != nil {
 		return projectErr(r.s, ctx, req.GetProjectId(), err)
 	}
 	for cursor := uint64(0); cursor < head.Seq; {
-		entries, err := r.s.opts.Store.After(ctx, req.GetProjectId(), cursor, min(r.s.opts.ChunkSize, int(head.Seq-cursor)))
+		entries, err := r.s.storeAfter(ctx, req.GetProjectId(), cursor, min(r.s.opts.ChunkSize, int(head.Seq-cursor)))
 		if err != nil {
 			return r.s.internal(ctx, "export", err)
 		}

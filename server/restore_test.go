@@ -17,7 +17,6 @@ import (
 	"tamp/client"
 	pb "tamp/internal/gen/tamp/v1"
 	"tamp/internal/ledger"
-	"tamp/internal/soil"
 	"tamp/server"
 )
 
@@ -121,7 +120,7 @@ func converged(t *testing.T, c *cluster, acknowledged map[string]int, devices ma
 	head, digest := c.head(), c.digest()
 	for name, s := range devices {
 		st := syncStatus(t, s, c.project)
-		if st.Verified != head {
+		if !sameCheckpoint(st.Verified, head) {
 			t.Errorf("%s verified %d/%d, server head %d/%d", name, st.Verified.Epoch, st.Verified.Seq, head.Epoch, head.Seq)
 		}
 		if s.Digest(c.project) != digest {
@@ -354,8 +353,8 @@ func TestDeviceSuppliesEntryTheServerAsksFor(t *testing.T) {
 	spec, ref := setUp(t, c, qa, project)
 	syncOK(t, qa, c.conn(""), project)
 	ctx := context.Background()
-	refused, _, err := ann.Record(ctx, project, &ledger.ReferenceAdded{ID: ann.NewID(), Material: "silty sand",
-		Procedure: soil.Procedure{Standard: soil.ASTMD698, Method: "A"}, MaxDryDensity: pcf(112), OptimumMoisture: 14})
+	refusedRef, err := ann.AddReference(ctx, project, client.Reference{Material: "silty sand", Standard: client.ASTMD698, Method: "A",
+		MaxDryDensity: pcf(112), OptimumMoisture: 14})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -363,14 +362,19 @@ func TestDeviceSuppliesEntryTheServerAsksFor(t *testing.T) {
 	if rep := syncOK(t, ann, c.conn(""), project); rep.Rejected != 1 || rep.Accepted != 1 {
 		t.Fatalf("ann's sync: %+v, want her reference refused and her test accepted", rep)
 	}
+	rejected, err := ann.Rejected(ctx)
+	if err != nil || len(rejected) != 1 || rejected[0].RecordID != refusedRef {
+		t.Fatalf("ann's rejected entries: %+v, %v; want her reference %s", rejected, err, refusedRef)
+	}
+	refused := rejected[0]
 	addr := c.addr
 	c.stop()
 	c.start(addr)
 
 	syncOK(t, bo, c.conn(""), project)
 	st := syncStatus(t, bo, project)
-	if len(st.ServerMissing) != 1 || st.ServerMissing[0].Device != ann.DeviceID() || st.ServerMissing[0].Seq != refused.Event.DeviceSeq {
-		t.Fatalf("bo's status lists %+v as asked for, want ann's entry %d", st.ServerMissing, refused.Event.DeviceSeq)
+	if len(st.ServerMissing) != 1 || st.ServerMissing[0].Device != ann.DeviceID() || st.ServerMissing[0].Seq != refused.DeviceSeq {
+		t.Fatalf("bo's status lists %+v as asked for, want ann's entry %d", st.ServerMissing, refused.DeviceSeq)
 	}
 	rep := syncOK(t, ann, c.conn(""), project)
 	if rep.Supplied != 1 {

@@ -196,7 +196,7 @@ func TestRolesAgainstEntries(t *testing.T) {
 		// A member of B pushing to A is refused outright.
 		t.Run(kind+"/member of B to A", func(t *testing.T) {
 			_, err := outsider.push(t, c, a, outsider.sign(t, a, make()))
-			if status.Code(err) != codes.PermissionDenied || !strings.Contains(err.Error(), "member_of_project") {
+			if reason, _, rule := reasonOf(err); status.Code(err) != codes.PermissionDenied || reason != "NOT_A_MEMBER" || rule != "member_of_project" {
 				t.Errorf("outsider push: %v", err)
 			}
 		})
@@ -273,7 +273,7 @@ func TestRefusals(t *testing.T) {
 	}
 	t.Run("replayed code", func(t *testing.T) {
 		_, err := admin.EnrollDevice(ctx, &pb.EnrollDeviceRequest{Code: code, DeviceId: uuid.Must(uuid.NewV7()).String(), PublicKey: pub})
-		if status.Code(err) != codes.Unauthenticated || !strings.Contains(err.Error(), "already used") {
+		if reason, _, _ := reasonOf(err); status.Code(err) != codes.Unauthenticated || reason != "CODE_INVALID" {
 			t.Errorf("replayed code: %v", err)
 		}
 	})
@@ -287,14 +287,14 @@ func TestRefusals(t *testing.T) {
 			t.Fatal(err)
 		}
 		_, err := pb.NewAdminServiceClient(c2.conn("")).EnrollDevice(ctx, &pb.EnrollDeviceRequest{Code: "stale-code", DeviceId: uuid.Must(uuid.NewV7()).String(), PublicKey: pub})
-		if status.Code(err) != codes.Unauthenticated || !strings.Contains(err.Error(), "expired") {
+		if reason, _, _ := reasonOf(err); status.Code(err) != codes.Unauthenticated || reason != "CODE_INVALID" {
 			t.Errorf("expired code: %v", err)
 		}
 	})
 	t.Run("wrong token", func(t *testing.T) {
 		bad := metadata.AppendToOutgoingContext(ctx, "authorization", "Bearer not-a-token")
 		_, err := pb.NewSyncServiceClient(c.conn("")).Push(bad, &pb.PushRequest{ProjectId: a})
-		if status.Code(err) != codes.Unauthenticated || !strings.Contains(err.Error(), "not valid") {
+		if reason, _, _ := reasonOf(err); status.Code(err) != codes.Unauthenticated || reason != "TOKEN_INVALID" {
 			t.Errorf("wrong token: %v", err)
 		}
 	})
@@ -350,7 +350,7 @@ func TestRefusals(t *testing.T) {
 			t.Fatal(err)
 		}
 		_, err := d.push(t, c, a)
-		if status.Code(err) != codes.Unauthenticated || !strings.Contains(err.Error(), "revoked") {
+		if reason, _, _ := reasonOf(err); status.Code(err) != codes.Unauthenticated || reason != "DEVICE_REVOKED" {
 			t.Errorf("revoked device's token: %v", err)
 		}
 	})
@@ -490,7 +490,7 @@ func TestPushRateLimit(t *testing.T) {
 			break
 		}
 	}
-	if status.Code(limited) != codes.ResourceExhausted || !strings.Contains(limited.Error(), "rate") {
+	if reason, _, rule := reasonOf(limited); status.Code(limited) != codes.ResourceExhausted || reason != "RATE_LIMITED" || rule != "push_rate" {
 		t.Errorf("ten pushes at once with a rate of 3: %v, want ResourceExhausted", limited)
 	}
 }

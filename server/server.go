@@ -24,7 +24,6 @@ import (
 	"google.golang.org/grpc/codes"
 	healthpb "google.golang.org/grpc/health/grpc_health_v1"
 	"google.golang.org/grpc/metadata"
-	"google.golang.org/grpc/status"
 
 	pb "tamp/internal/gen/tamp/v1"
 	"tamp/internal/ledger"
@@ -58,8 +57,6 @@ type Options struct {
 // keeps each project's projection in memory, loaded on first use, and
 // serialises writes to one project. It is safe for concurrent use.
 type Server struct {
-	pb.UnimplementedSyncServiceServer
-
 	opts Options
 	log  *slog.Logger
 
@@ -141,7 +138,7 @@ func New(opts Options) *Server {
 // write.
 func (s *Server) Register(g *grpc.Server) {
 	healthpb.RegisterHealthServer(g, s.health.hs)
-	pb.RegisterSyncServiceServer(g, s)
+	pb.RegisterSyncServiceServer(g, &syncService{s: s})
 	pb.RegisterAdminServiceServer(g, &adminService{s: s})
 	pb.RegisterLedgerReadServiceServer(g, &readService{s: s})
 }
@@ -150,6 +147,20 @@ func (s *Server) Register(g *grpc.Server) {
 type adminService struct {
 	pb.UnimplementedAdminServiceServer
 	s *Server
+}
+
+// syncService implements the sync service.
+type syncService struct {
+	pb.UnimplementedSyncServiceServer
+	s *Server
+}
+
+func (x *syncService) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushResponse, error) {
+	return x.s.push(ctx, req)
+}
+
+func (x *syncService) Pull(req *pb.PullRequest, stream grpc.ServerStreamingServer[pb.PullResponse]) error {
+	return x.s.pull(req, stream)
 }
 
 func (s *Server) newID() string {
@@ -176,7 +187,7 @@ func hash(secret string) []byte {
 // CreateProject creates a project ledger and returns its id.
 func (s *Server) CreateProject(ctx context.Context, name string) (string, error) {
 	id := s.newID()
-	if err := s.opts.Store.CreateProject(ctx, id, name, s.opts.Now()); err != nil {
+	if err := s.storeCreateProject(ctx, id, name); err != nil {
 		return "", err
 	}
 	return id, nil
@@ -202,7 +213,7 @@ func (s *Server) AddMember(ctx context.Context, project, user string, role Role)
 	if err := s.opts.Store.SetMember(ctx, project, user, role); err != nil {
 		return err
 	}
-	return s.IntroduceDevices(ctx, project, user)
+	return s.introduceDevices(ctx, project, user)
 }
 
 // Bootstrap creates the first administrator of an empty server and returns
@@ -251,20 +262,21 @@ func (a *adminService) EnrollDevice(ctx context.Context, req *pb.EnrollDeviceReq
 	}
 	s := a.s
 	if len(req.GetPublicKey()) != ed25519.PublicKeySize {
-		return nil, status.Error(codes.InvalidArgument, "public_key: must be a 32-byte Ed25519 key")
+		return nil, statusError(codes.InvalidArgument, reasonInvalidArgument, "public_key", "", "must be a 32-byte Ed25519 key")
 	}
 	if _, err := uuid.Parse(req.GetDeviceId()); err != nil {
-		return nil, status.Error(codes.InvalidArgument, "device_id: must be a UUID")
+		return nil, statusError(codes.InvalidArgument, reasonInvalidArgument, "device_id", "", "must be a UUID")
 	}
 	token := s.secret()
 	d, err := s.opts.Store.Enroll(ctx, hash(req.GetCode()), Device{ID: req.GetDeviceId(), Name: req.GetDeviceName(), PublicKey: req.GetPublicKey()},
 		hash(token), s.opts.Now())
 	if err != nil {
 		if errors.Is(err, ErrCodeInvalid) {
-			return nil, status.Error(codes.Unauthenticated, "code: the enrolment code is unknown, already used or expired")
+			return nil, statusError(codes.Unauthenticated, reasonCodeInvalid, "code", "", "the enrolment code is unknown, already used or expired")
 		}
 		if errors.Is(err, ErrDeviceExists) {
-			return nil, status.Errorf(codes.AlreadyExists, "device_id: device %s is enrolled already; a device enrols again under a new id and key", req.GetDeviceId())
+			return nil, statusError(codes.AlreadyExists, reasonDeviceExists, "device_id", "",
+				fmt.Sprintf("device %s is enrolled already; a device enrols again under a new id and key", req.GetDeviceId()))
 		}
 		return nil, s.internal(ctx, "enrol", err)
 	}
@@ -297,13 +309,13 @@ func (s *Server) internal(ctx context.Context, op string, err error) error {
 		return st
 	}
 	s.log.ErrorContext(ctx, "internal error", "op", op, "err", err)
-	return status.Error(codes.Internal, "internal error; the server logged the cause")
+	return internalError()
 }
 
 type deviceKey struct{}
 
-// DeviceFrom returns the authenticated device of a call.
-func DeviceFrom(ctx context.Context) (Device, bool) {
+// deviceFrom returns the authenticated device of a call.
+func deviceFrom(ctx context.Context) (Device, bool) {
 	d, ok := ctx.Value(deviceKey{}).(Device)
 	return d, ok
 }
@@ -323,13 +335,13 @@ func (s *Server) authenticate(ctx context.Context, method string) (context.Conte
 	md, _ := metadata.FromIncomingContext(ctx)
 	vals := md.Get("authorization")
 	if len(vals) != 1 || !strings.HasPrefix(vals[0], "Bearer ") {
-		return nil, status.Error(codes.Unauthenticated, "authorization: a bearer token is required")
+		return nil, statusError(codes.Unauthenticated, reasonTokenRequired, "authorization", "", "a bearer token is required")
 	}
 	token := strings.TrimPrefix(vals[0], "Bearer ")
 	th := hash(token)
 	d, err := s.opts.Store.DeviceByToken(ctx, th)
 	if errors.Is(err, ErrNoDevice) {
-		return nil, status.Error(codes.Unauthenticated, "authorization: the token is not valid")
+		return nil, statusError(codes.Unauthenticated, reasonTokenInvalid, "authorization", "", "the token is not valid")
 	}
 	if err != nil {
 		return nil, s.internal(ctx, "authenticate", err)
@@ -337,19 +349,20 @@ func (s *Server) authenticate(ctx context.Context, method string) (context.Conte
 	// The index lookup compares hashes, not tokens; confirm the stored hash
 	// in constant time all the same.
 	if subtle.ConstantTimeCompare(d.TokenHash, th) != 1 {
-		return nil, status.Error(codes.Unauthenticated, "authorization: the token is not valid")
+		return nil, statusError(codes.Unauthenticated, reasonTokenInvalid, "authorization", "", "the token is not valid")
 	}
 	if d.Revoked {
-		return nil, status.Error(codes.Unauthenticated, "authorization: this device was revoked")
+		return nil, statusError(codes.Unauthenticated, reasonDeviceRevoked, "authorization", "", "this device was revoked")
 	}
 	if s.isOwnDevice(d.ID) { // the server's own device has no token; refuse one all the same
-		return nil, status.Error(codes.Unauthenticated, "authorization: the token is not valid")
+		return nil, statusError(codes.Unauthenticated, reasonTokenInvalid, "authorization", "", "the token is not valid")
 	}
 	return context.WithValue(ctx, deviceKey{}, d), nil
 }
 
 // UnaryInterceptor refuses a request RequestCodec could not decode, and
-// authenticates unary calls.
+// authenticates unary calls. Every status a call ends with carries its
+// reason (see status.go).
 func (s *Server) UnaryInterceptor(ctx context.Context, req any, info *grpc.UnaryServerInfo, h grpc.UnaryHandler) (any, error) {
 	if err := s.requests.refuse(req); err != nil {
 		return nil, err
@@ -358,7 +371,8 @@ func (s *Server) UnaryInterceptor(ctx context.Context, req any, info *grpc.Unary
 	if err != nil {
 		return nil, err
 	}
-	return h(ctx, req)
+	resp, err := h(ctx, req)
+	return resp, s.detailed(ctx, err)
 }
 
 type authedStream struct {
@@ -369,13 +383,14 @@ type authedStream struct {
 func (a authedStream) Context() context.Context { return a.ctx }
 
 // StreamInterceptor authenticates streaming calls, and refuses a request
-// RequestCodec could not decode.
+// RequestCodec could not decode. Every status a call ends with carries its
+// reason (see status.go).
 func (s *Server) StreamInterceptor(srv any, ss grpc.ServerStream, info *grpc.StreamServerInfo, h grpc.StreamHandler) error {
 	ctx, err := s.authenticate(ss.Context(), info.FullMethod)
 	if err != nil {
 		return err
 	}
-	return h(srv, authedStream{s.requests.stream(ss), ctx})
+	return s.detailed(ctx, h(srv, authedStream{s.requests.stream(ss), ctx}))
 }
 
 // lockProject returns a project's state with its mu held, loading it from
@@ -403,7 +418,7 @@ func (s *Server) lockProject(ctx context.Context, id string) (*project, error) {
 func (s *Server) load(ctx context.Context, p *project, id string) error {
 	p.write.Lock()
 	defer p.write.Unlock()
-	head, err := s.opts.Store.Head(ctx, id)
+	head, err := s.storeHead(ctx, id)
 	if err != nil {
 		return err
 	}
@@ -412,7 +427,7 @@ func (s *Server) load(ctx context.Context, p *project, id string) error {
 	devs := newDeviceSeqs()
 	var seq uint64
 	for {
-		entries, err := s.opts.Store.After(ctx, id, seq, 1000)
+		entries, err := s.storeAfter(ctx, id, seq, 1000)
 		if err != nil {
 			return err
 		}
@@ -438,9 +453,9 @@ func (s *Server) load(ctx context.Context, p *project, id string) error {
 	return nil
 }
 
-// Inspect runs fn with a project's projection as the store holds it, under
+// inspect runs fn with a project's projection as the store holds it, under
 // the project's lock.
-func (s *Server) Inspect(ctx context.Context, id string, fn func(*ledger.Projection)) error {
+func (s *Server) inspect(ctx context.Context, id string, fn func(*ledger.Projection)) error {
 	p, err := s.lockProject(ctx, id)
 	if err != nil {
 		return err
@@ -459,14 +474,6 @@ func (s *Server) Inspect(ctx context.Context, id string, fn func(*ledger.Project
 	return nil
 }
 
-// Forget drops the projections held in memory, so the next call reloads them
-// from the store (after the store was replaced, in tests of restores).
-func (s *Server) Forget() {
-	s.mu.Lock()
-	defer s.mu.Unlock()
-	s.projects = map[string]*project{}
-}
-
 func (s *Server) key(ctx context.Context, device string) (ed25519.PublicKey, bool) {
 	if k, ok := s.keys.Load(device); ok {
 		return k.(ed25519.PublicKey), true
@@ -481,7 +488,7 @@ func (s *Server) key(ctx context.Context, device string) (ed25519.PublicKey, boo
 
 func projectErr(s *Server, ctx context.Context, id string, err error) error {
 	if errors.Is(err, ErrNoProject) {
-		return status.Errorf(codes.NotFound, "project_id: no project %s on this server", id)
+		return statusError(codes.NotFound, reasonNoProject, "project_id", "", fmt.Sprintf("no project %s on this server", id))
 	}
 	return s.internal(ctx, "load project", err)
 }
@@ -556,12 +563,13 @@ func rejected(id string, err error) *pb.PushOutcome {
 	return &pb.PushOutcome{EventId: id, Status: pb.PushStatus_PUSH_STATUS_REJECTED, Reason: reason, Message: msg}
 }
 
-// Push appends a batch of events to a project's ledger.
-func (s *Server) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushResponse, error) {
+// push appends a batch of events to a project's ledger.
+func (s *Server) push(ctx context.Context, req *pb.PushRequest) (*pb.PushResponse, error) {
 	if n := len(req.GetEvents()); n > s.opts.MaxBatch {
-		return nil, status.Errorf(codes.ResourceExhausted, "events: a batch holds at most %d events, not %d", s.opts.MaxBatch, n)
+		return nil, statusError(codes.ResourceExhausted, reasonBatchTooLarge, "events", "",
+			fmt.Sprintf("a batch holds at most %d events, not %d", s.opts.MaxBatch, n))
 	}
-	dev, own := DeviceFrom(ctx)
+	dev, own := deviceFrom(ctx)
 	own = own && s.isOwnDevice(dev.ID) // the server's own entries: no membership, no rate limit
 	if !own {
 		var err error
@@ -573,7 +581,8 @@ func (s *Server) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushRespons
 		}
 	}
 	if !own && !s.limits.allow(dev.ID, s.opts.Now()) {
-		return nil, status.Errorf(codes.ResourceExhausted, "rate: device %s pushes faster than %.0f batches a second; slow down", dev.ID, s.opts.PushRate)
+		return nil, statusError(codes.ResourceExhausted, reasonRateLimited, "", "push_rate",
+			fmt.Sprintf("device %s pushes faster than %.0f batches a second; slow down", dev.ID, s.opts.PushRate))
 	}
 	if err := s.writable(ctx); err != nil {
 		return nil, err
@@ -605,13 +614,13 @@ func (s *Server) Push(ctx context.Context, req *pb.PushRequest) (*pb.PushRespons
 	p.mu.Unlock()
 	if p.failed.Load() != gen {
 		err = ErrConflict
-	} else if err = s.opts.Store.Append(ctx, req.GetProjectId(), head, rows); err != nil {
+	} else if err = s.storeAppend(ctx, req.GetProjectId(), head, rows); err != nil {
 		p.failed.Add(1) // the decided batch is applied to the view, not stored
 	}
 	p.write.Unlock()
 	if err != nil {
 		if errors.Is(err, ErrConflict) {
-			return nil, status.Error(codes.Aborted, "the ledger moved during the push; push again")
+			return nil, statusError(codes.Aborted, reasonLedgerMoved, "", "", "the ledger moved during the push; push again")
 		}
 		return nil, s.internal(ctx, "append", err)
 	}
@@ -707,7 +716,7 @@ func (s *Server) decide(ctx context.Context, p *project, req *pb.PushRequest, it
 		next.Seq++
 		next.Hash = ledger.Link(next.Hash, next.Seq, env)
 		row := Row{Seq: next.Seq, EventID: id, DeviceID: e.Device, DeviceSeq: e.DeviceSeq, Kind: e.Kind.KindName(),
-			RecordID: ledger.RecordID(e.Kind), Envelope: env, Hash: next.Hash, Received: now}
+			RecordID: ledger.RecordID(e.Kind), Envelope: env, Hash: storeHash(next.Hash), Received: now}
 		if skewed {
 			row.SkewMicros = skew
 		}
@@ -766,7 +775,7 @@ func (s *Server) checkVerified(ctx context.Context, p *project, v *pb.Checkpoint
 	case cp.Epoch > head.Epoch:
 		lost = true
 	case cp.Epoch == head.Epoch:
-		h, ok, err := s.opts.Store.HashAt(ctx, head.Project, cp.Seq)
+		h, ok, err := s.storeHashAt(ctx, head.Project, cp.Seq)
 		if err != nil {
 			return head, err
 		}
@@ -789,13 +798,13 @@ func (s *Server) checkVerified(ctx context.Context, p *project, v *pb.Checkpoint
 	return head, nil
 }
 
-// Pull streams a project's ledger after the request's cursor.
-func (s *Server) Pull(req *pb.PullRequest, stream grpc.ServerStreamingServer[pb.PullResponse]) error {
+// pull streams a project's ledger after the request's cursor.
+func (s *Server) pull(req *pb.PullRequest, stream grpc.ServerStreamingServer[pb.PullResponse]) error {
 	ctx := stream.Context()
 	if _, err := s.requireMember(ctx, req.GetProjectId()); err != nil {
 		return err
 	}
-	head, err := s.opts.Store.Head(ctx, req.GetProjectId())
+	head, err := s.storeHead(ctx, req.GetProjectId())
 	if err != nil {
 		return projectErr(s, ctx, req.GetProjectId(), err)
 	}
@@ -804,7 +813,7 @@ func (s *Server) Pull(req *pb.PullRequest, stream grpc.ServerStreamingServer[pb.
 		cursor = min(cursor, head.Seq) // the device decides what a new epoch means; anchor where it can compare
 	}
 	at := min(cursor, head.Seq)
-	h, _, err := s.opts.Store.HashAt(ctx, req.GetProjectId(), at)
+	h, _, err := s.storeHashAt(ctx, req.GetProjectId(), at)
 	if err != nil {
 		return s.internal(ctx, "anchor", err)
 	}
@@ -814,7 +823,7 @@ func (s *Server) Pull(req *pb.PullRequest, stream grpc.ServerStreamingServer[pb.
 		chunk = m
 	}
 	if req.GetReferenceDataFirst() && cursor == 0 {
-		ref, err := s.opts.Store.ReferenceData(ctx, req.GetProjectId())
+		ref, err := s.storeReferenceData(ctx, req.GetProjectId())
 		if err != nil {
 			return s.internal(ctx, "reference data", err)
 		}
@@ -832,7 +841,7 @@ func (s *Server) Pull(req *pb.PullRequest, stream grpc.ServerStreamingServer[pb.
 	}
 	first := true
 	for cursor < head.Seq || first {
-		entries, err := s.opts.Store.After(ctx, req.GetProjectId(), cursor, min(chunk, int(head.Seq-cursor)))
+		entries, err := s.storeAfter(ctx, req.GetProjectId(), cursor, min(chunk, int(head.Seq-cursor)))
 		if err != nil {
 			return s.internal(ctx, "read ledger", err)
 		}
@@ -862,17 +871,17 @@ func (s *Server) Pull(req *pb.PullRequest, stream grpc.ServerStreamingServer[pb.
 	return nil
 }
 
-// MaxChunkBytes bounds the events of one pulled chunk, well under the 4 MiB a
+// maxChunkBytes bounds the events of one pulled chunk, well under the 4 MiB a
 // gRPC client accepts by default.
-const MaxChunkBytes = 2 << 20
+const maxChunkBytes = 2 << 20
 
 // bounded returns the longest prefix of es (at least one entry) whose
-// events fit in MaxChunkBytes.
+// events fit in maxChunkBytes.
 func bounded(es []ledger.Entry) []ledger.Entry {
 	total := 0
 	for i, e := range es {
 		total += len(e.Event)
-		if total > MaxChunkBytes && i > 0 {
+		if total > maxChunkBytes && i > 0 {
 			return es[:i]
 		}
 	}

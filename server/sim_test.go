@@ -6,8 +6,6 @@ import (
 	"testing"
 
 	"tamp/client"
-	"tamp/internal/ledger"
-	"tamp/internal/qc"
 	"tamp/server"
 )
 
@@ -33,7 +31,7 @@ func TestRandomCrewDay(t *testing.T) {
 			switch k := rng.IntN(10); {
 			case k < 4:
 				if _, err := in.RecordTest(ctx, client.TestInput{Project: project, SpecID: spec, ReferenceID: ref,
-					Readings: sandCone(104+rng.Float64()*12, 11+rng.Float64()*3)}); err != nil {
+					Readings: coneReadings(104+rng.Float64()*12, 11+rng.Float64()*3)}); err != nil {
 					t.Fatal(err)
 				}
 				made++
@@ -43,15 +41,15 @@ func TestRandomCrewDay(t *testing.T) {
 					continue
 				}
 				tt := tests[rng.IntN(len(tests))]
-				if tt.Author != in.User() || tt.Voided() {
+				if tt.Author != in.User() || tt.Voided {
 					continue
 				}
 				if rng.IntN(3) == 0 {
 					if err := in.VoidTest(ctx, project, tt.ID, "wrong lift"); err != nil {
 						t.Fatal(err)
 					}
-				} else if _, err := in.CorrectTest(ctx, project, tt.ID, "re-read the sheet", func(c *ledger.TestContent) {
-					c.Readings = sandCone(104+rng.Float64()*12, 12)
+				} else if _, err := in.CorrectTest(ctx, project, tt.ID, "re-read the sheet", func(c *client.TestInput) {
+					c.Readings = coneReadings(104+rng.Float64()*12, 12)
 				}); err != nil {
 					t.Fatal(err)
 				}
@@ -61,7 +59,7 @@ func TestRandomCrewDay(t *testing.T) {
 				if len(fails) == 0 {
 					continue
 				}
-				if _, err := in.RecordRetest(ctx, project, fails[0].ID, client.RetestInput{Readings: sandCone(113, 12)}); err != nil {
+				if _, err := in.RecordRetest(ctx, project, fails[0].ID, client.RetestInput{Readings: coneReadings(113, 12)}); err != nil {
 					t.Fatal(err)
 				}
 				made++
@@ -71,11 +69,11 @@ func TestRandomCrewDay(t *testing.T) {
 					continue
 				}
 				tt := tests[rng.IntN(len(tests))]
-				d := ledger.Approve
-				if tt.Result.Verdict == qc.Fail {
-					d = ledger.Return
+				d := client.Approve
+				if tt.Result.Verdict == client.Fail {
+					d = client.Return
 				}
-				if _, _, err := office.Record(ctx, project, &ledger.TestReviewed{TestID: tt.ID, Revision: tt.Current, Decision: d, Comment: "see the sheet"}); err != nil {
+				if err := office.ReviewTest(ctx, project, tt.ID, d, "see the sheet"); err != nil {
 					t.Fatal(err)
 				}
 				made++

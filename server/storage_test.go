@@ -16,6 +16,7 @@ import (
 
 	pb "tamp/internal/gen/tamp/v1"
 	"tamp/internal/ledger"
+	"tamp/internal/sqlite"
 	"tamp/server"
 )
 
@@ -59,11 +60,22 @@ func setReadOnly(dir string, on bool) {
 	}
 }
 
+// storeDB returns the database under a SQLite store, which its package
+// does not export.
+func storeDB(tb testing.TB, st server.Store) *sqlite.DB {
+	tb.Helper()
+	db, ok := sqlite.DBOf(st)
+	if !ok {
+		tb.Fatalf("no database under the store %T", st)
+	}
+	return db
+}
+
 // fillDisk makes the store's writer fail every write that needs a new page
 // (full true), or lifts that limit.
 func fillDisk(t *testing.T, c *cluster, full bool) {
 	t.Helper()
-	w := c.store.DB().Writer()
+	w := storeDB(t, c.store).Writer()
 	limit := int64(1<<32 - 2)
 	if full {
 		if err := w.QueryRow("PRAGMA page_count").Scan(&limit); err != nil {
@@ -85,12 +97,12 @@ func healthOf(t *testing.T, c *cluster, service string) healthpb.HealthCheckResp
 	return r.GetStatus()
 }
 
-// wantStorageUnavailable checks that a push failed with Unavailable naming
-// the cause.
+// wantStorageUnavailable checks that a push failed with Unavailable giving
+// the reason of the cause.
 func wantStorageUnavailable(t *testing.T, err error, cause string) {
 	t.Helper()
-	if status.Code(err) != codes.Unavailable || !strings.Contains(status.Convert(err).Message(), cause) {
-		t.Fatalf("push while the store cannot write: %v, want Unavailable saying %q", err, cause)
+	if reason, _, _ := reasonOf(err); status.Code(err) != codes.Unavailable || reason != cause {
+		t.Fatalf("push while the store cannot write: %v, want Unavailable for %s", err, cause)
 	}
 }
 
@@ -131,7 +143,7 @@ func TestFullDiskPushUnavailableThenResumes(t *testing.T) {
 	fillDisk(t, c, true)
 	events := d.tests(t, project, 300)
 	_, err := d.push(t, c, project, events...)
-	wantStorageUnavailable(t, err, "the server's disk is full")
+	wantStorageUnavailable(t, err, "STORAGE_FULL")
 	for _, svc := range []string{"", "tamp.v1.SyncService", "tamp.v1.AdminService"} {
 		if h := healthOf(t, c, svc); h != healthpb.HealthCheckResponse_NOT_SERVING {
 			t.Errorf("health of %q with a full disk: %v, want NOT_SERVING", svc, h)
@@ -142,7 +154,7 @@ func TestFullDiskPushUnavailableThenResumes(t *testing.T) {
 	}
 	// Still full: the next push is refused the same way.
 	_, err = d.push(t, c, project, events...)
-	wantStorageUnavailable(t, err, "the server's disk is full")
+	wantStorageUnavailable(t, err, "STORAGE_FULL")
 	if h := c.head(); h.Seq != before {
 		t.Fatalf("head at %d with a full disk, want %d as before", h.Seq, before)
 	}
@@ -175,7 +187,7 @@ func TestReadOnlyDataDirPushUnavailableThenResumes(t *testing.T) {
 	closeServer(t, c)
 	events := d.tests(t, project, 5)
 	_, err := d.push(t, c, project, events...)
-	wantStorageUnavailable(t, err, "the server's data directory is read-only")
+	wantStorageUnavailable(t, err, "STORAGE_READ_ONLY")
 	if h := healthOf(t, c, ""); h != healthpb.HealthCheckResponse_NOT_SERVING {
 		t.Errorf("health with a read-only data directory: %v, want NOT_SERVING", h)
 	}
@@ -199,7 +211,7 @@ func TestStorageHealthRecoversWithoutPushes(t *testing.T) {
 	d := c.rawDevice(t, "ines", map[string]server.Role{project: server.Inspector}, false)
 	fillDisk(t, c, true)
 	_, err := d.push(t, c, project, d.tests(t, project, 300)...)
-	wantStorageUnavailable(t, err, "the server's disk is full")
+	wantStorageUnavailable(t, err, "STORAGE_FULL")
 
 	ctx, cancel := context.WithTimeout(context.Background(), time.Minute)
 	defer cancel()

@@ -3,9 +3,8 @@ package server
 import (
 	"context"
 	"crypto/ed25519"
+	"encoding/hex"
 	"time"
-
-	"tamp/internal/ledger"
 )
 
 // Store is what the server needs of its storage: the project ledgers and
@@ -22,17 +21,19 @@ type Store interface {
 	// it cannot, and recovers what a fault left unusable (a connection
 	// opened read-only) before it reports one.
 	Probe(ctx context.Context) error
-	// CreateProject creates an empty ledger at epoch 1.
-	CreateProject(ctx context.Context, id, name string, now time.Time) error
+	// CreateProject creates an empty ledger at epoch 1, whose head is
+	// genesis (h(0), which the server computes) at sequence 0.
+	CreateProject(ctx context.Context, id, name string, genesis Hash, now time.Time) error
 	// Head returns a project's chain head.
-	Head(ctx context.Context, project string) (ledger.Checkpoint, error)
+	Head(ctx context.Context, project string) (Checkpoint, error)
 	// After returns up to limit entries after seq, in order.
-	After(ctx context.Context, project string, seq uint64, limit int) ([]ledger.Entry, error)
-	// HashAt returns h(seq) of a project's chain (seq 0: the genesis hash).
-	HashAt(ctx context.Context, project string, seq uint64) (ledger.Hash, bool, error)
+	After(ctx context.Context, project string, seq uint64, limit int) ([]Entry, error)
+	// HashAt returns h(seq) of a project's chain for seq 1 and later, and
+	// false when the ledger holds no entry seq.
+	HashAt(ctx context.Context, project string, seq uint64) (Hash, bool, error)
 	// Append adds rows after head in one transaction, failing with
 	// ErrConflict when the ledger's head is no longer head.
-	Append(ctx context.Context, project string, head ledger.Checkpoint, rows []Row) error
+	Append(ctx context.Context, project string, head Checkpoint, rows []Row) error
 	// SetEpoch opens a new epoch of a project's ledger.
 	SetEpoch(ctx context.Context, project string, epoch uint64) error
 	// ClockSkews returns, for the events appended with a device clock skew
@@ -40,7 +41,7 @@ type Store interface {
 	ClockSkews(ctx context.Context, project string) (map[string]int64, error)
 	// ReferenceData returns the entries of reference kinds (set-up, specs,
 	// references, equipment, corrections), in order.
-	ReferenceData(ctx context.Context, project string) ([]ledger.Entry, error)
+	ReferenceData(ctx context.Context, project string) ([]Entry, error)
 
 	// AddUser creates a user; a server administrator may create projects
 	// and manage all of them.
@@ -107,6 +108,29 @@ type Identity struct {
 	Key      ed25519.PrivateKey
 }
 
+// Hash is a SHA-256 hash of a project's chain: h(n) = SHA-256(h(n-1) || n
+// || event bytes), h(0) a hash of the project's id.
+type Hash [32]byte
+
+// String returns the hash in hexadecimal.
+func (h Hash) String() string { return hex.EncodeToString(h[:]) }
+
+// Checkpoint is a point of a project's chain: after Seq entries of epoch
+// Epoch, the chain's hash is Hash.
+type Checkpoint struct {
+	Project string
+	Epoch   uint64
+	Seq     uint64
+	Hash    Hash
+}
+
+// Entry is one stored event at its place in a project's chain.
+type Entry struct {
+	Seq   uint64
+	Event []byte // the envelope's bytes, exactly as signed and pushed
+	Hash  Hash   // h(Seq)
+}
+
 // Row is one event appended to a ledger, with its place in the chain.
 type Row struct {
 	Seq        uint64
@@ -116,7 +140,7 @@ type Row struct {
 	Kind       string
 	RecordID   string
 	Envelope   []byte
-	Hash       ledger.Hash
+	Hash       Hash
 	SkewMicros int64 // the pushing device's clock skew, when beyond the limit
 	Received   time.Time
 }

@@ -9,9 +9,6 @@ import (
 	"time"
 
 	"tamp/client"
-	"tamp/internal/ledger"
-	"tamp/internal/soil"
-	"tamp/internal/sqlite"
 	"tamp/server"
 )
 
@@ -38,7 +35,7 @@ func (c *clock) advance(d time.Duration) {
 func (c *cluster) deviceWith(name string, role server.Role, opts client.Options) *client.Store {
 	c.tb.Helper()
 	ctx := context.Background()
-	opts.Synchronous = sqlite.Normal
+	opts.Durability = client.DurabilityNormal
 	s, err := client.Open(ctx, filepath.Join(c.tb.TempDir(), name+".db"), opts)
 	if err != nil {
 		c.tb.Fatal(err)
@@ -77,15 +74,15 @@ func TestStatusNamesEntryWaitingPastTheBound(t *testing.T) {
 
 	// Ann adds a reference herself (refused: an inspector may not) and
 	// grades a test against it; a second test names a reference nobody has.
-	own := ann.NewID()
-	if _, _, err := ann.Record(ctx, project, &ledger.ReferenceAdded{ID: own, Material: "silty sand",
-		Procedure: soil.Procedure{Standard: soil.ASTMD698, Method: "A"}, MaxDryDensity: pcf(112), OptimumMoisture: 14}); err != nil {
+	own, err := ann.AddReference(ctx, project, client.Reference{Material: "silty sand", Standard: client.ASTMD698, Method: "A",
+		MaxDryDensity: pcf(112), OptimumMoisture: 14})
+	if err != nil {
 		t.Fatal(err)
 	}
 	unknown := ann.NewID()
 	var tests []string
 	for _, ref := range []string{own, unknown} {
-		res, err := ann.RecordTest(ctx, client.TestInput{Project: project, SpecID: spec, ReferenceID: ref, Readings: sandCone(105, 12.5), Feature: "pad"})
+		res, err := ann.RecordTest(ctx, client.TestInput{Project: project, SpecID: spec, ReferenceID: ref, Readings: coneReadings(105, 12.5), Feature: "pad"})
 		if err != nil {
 			t.Fatal(err)
 		}

@@ -20,7 +20,6 @@ import (
 	pb "tamp/internal/gen/tamp/v1"
 	"tamp/internal/ledger"
 	"tamp/internal/soil"
-	"tamp/internal/sqlite"
 )
 
 // tampd is a running tampd process.
@@ -115,7 +114,7 @@ type crew struct {
 
 func (c *crew) open(name string) *client.Store {
 	c.t.Helper()
-	s, err := client.Open(context.Background(), filepath.Join(c.dir, name+".db"), client.Options{Synchronous: sqlite.Normal})
+	s, err := client.Open(context.Background(), filepath.Join(c.dir, name+".db"), client.Options{Durability: client.DurabilityNormal})
 	if err != nil {
 		c.t.Fatal(err)
 	}
@@ -159,7 +158,7 @@ func (c *crew) record(s *client.Store, n int, dry float64) []string {
 		w := 12.0
 		mass := (dry + float64(i)) * soil.PoundPerCubicFoot * (1 + w/100) * (used - cone) / sd
 		r, err := s.RecordTest(context.Background(), client.TestInput{Project: c.project, SpecID: c.spec, ReferenceID: c.ref,
-			Readings: ledger.Readings{SandCone: &soil.SandCone{SandDensity: sd, SandUsed: used, ConeCorrection: cone, SoilMass: mass, Moisture: w}},
+			Readings: client.Readings{SandCone: &client.SandCone{SandDensity: sd, SandUsed: used, ConeCorrection: cone, SoilMass: mass, Moisture: w}},
 			Feature:  "pad fill", LiftNumber: uint32(1 + i)})
 		if err != nil {
 			c.t.Fatal(err)
@@ -213,15 +212,13 @@ func TestRestoreFromOlderCopy(t *testing.T) {
 	qa := c.member(cc, "Quill", pb.Role_ROLE_QA)
 	ana := c.member(cc, "Ana", pb.Role_ROLE_INSPECTOR)
 	rae := c.member(cc, "Rae", pb.Role_ROLE_INSPECTOR)
-	c.spec, c.ref = qa.NewID(), qa.NewID()
-	for _, k := range []ledger.Kind{
-		&ledger.SpecDefined{ID: c.spec, Name: "pad fill 95", MinCompaction: "95", MoistureLow: "-2", MoistureHigh: "2"},
-		&ledger.ReferenceAdded{ID: c.ref, Material: "red sandy clay", Procedure: soil.Procedure{Standard: soil.ASTMD698, Method: "A", Edition: 2012},
-			MaxDryDensity: 116 * soil.PoundPerCubicFoot, OptimumMoisture: 13.5},
-	} {
-		if _, _, err := qa.Record(context.Background(), c.project, k); err != nil {
-			t.Fatal(err)
-		}
+	if c.spec, err = qa.DefineSpec(context.Background(), c.project, client.Spec{Name: "pad fill 95", MinCompaction: "95",
+		MoistureLow: "-2", MoistureHigh: "2"}); err != nil {
+		t.Fatal(err)
+	}
+	if c.ref, err = qa.AddReference(context.Background(), c.project, client.Reference{Material: "red sandy clay",
+		Standard: client.ASTMD698, Method: "A", Edition: 2012, MaxDryDensity: 116 * soil.PoundPerCubicFoot, OptimumMoisture: 13.5}); err != nil {
+		t.Fatal(err)
 	}
 	everyone := []*client.Store{c.admin, qa, ana, rae}
 	for _, s := range everyone {

@@ -3,6 +3,7 @@ package cli
 import (
 	"bufio"
 	"context"
+	"errors"
 	"io"
 	"path/filepath"
 	"strings"
@@ -11,8 +12,6 @@ import (
 
 	"tamp/client"
 	"tamp/internal/daemon"
-	"tamp/internal/ledger"
-	"tamp/internal/soil"
 )
 
 // startServer runs tampd init and serve in-process on 127.0.0.1:0 and
@@ -85,8 +84,7 @@ func TestAdminFlow(t *testing.T) {
 	if !strings.Contains(out, "enrolled device") {
 		t.Fatalf("enroll: %s", out)
 	}
-	if _, _, err := run(t, "enroll", "--store", filepath.Join(t.TempDir(), "x.db"), "--server", addr, "--plaintext", "--code", code); err == nil ||
-		!strings.Contains(err.Error(), "already used") {
+	if _, _, err := run(t, "enroll", "--store", filepath.Join(t.TempDir(), "x.db"), "--server", addr, "--plaintext", "--code", code); !errors.Is(err, client.ErrCodeInvalid) {
 		t.Errorf("second use of the code: %v", err)
 	}
 	project := must(t, "admin", "--store", adminStore, "create-project", "--name", "Larkspur Creek levee")
@@ -101,7 +99,7 @@ func TestAdminFlow(t *testing.T) {
 	if !strings.Contains(out, "project "+project) {
 		t.Errorf("the inspector's enrolment did not pull the project: %s", out)
 	}
-	if _, _, err := run(t, "admin", "--store", inspStore, "create-project", "--name", "mine"); err == nil || !strings.Contains(err.Error(), "server_admin") {
+	if _, _, err := run(t, "admin", "--store", inspStore, "create-project", "--name", "mine"); refusal(err).Rule != "server_admin" {
 		t.Errorf("an inspector created a project: %v", err)
 	}
 	devices := must(t, "admin", "--store", adminStore, "devices")
@@ -121,7 +119,7 @@ func TestAdminFlow(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if _, _, err := s.Record(context.Background(), project, &ledger.ProjectSetUp{Name: "Larkspur Creek levee", Units: soil.US}); err != nil {
+	if err := s.SetUpProject(context.Background(), project, client.ProjectSetUp{Name: "Larkspur Creek levee", Units: client.USCustomary}); err != nil {
 		t.Fatal(err)
 	}
 	s.Close()
@@ -137,7 +135,7 @@ func TestAdminFlow(t *testing.T) {
 		t.Errorf("status: %s", st)
 	}
 	must(t, "admin", "--store", adminStore, "revoke-device", "--device", inspDevice, "--reason", "tablet lost")
-	if _, _, err := run(t, "sync", "--store", inspStore, "--project", project); err == nil || !strings.Contains(err.Error(), "revoked") {
+	if _, _, err := run(t, "sync", "--store", inspStore, "--project", project); !errors.Is(err, client.ErrRevoked) {
 		t.Errorf("sync after revocation: %v", err)
 	}
 	if st := must(t, "status", "--store", inspStore); !strings.Contains(st, "last error:") || !strings.Contains(st, "revoked") {

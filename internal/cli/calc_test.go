@@ -4,7 +4,6 @@ import (
 	"bytes"
 	"context"
 	"encoding/json"
-	"errors"
 	"math"
 	"strings"
 	"testing"
@@ -289,18 +288,4 @@ func FuzzCalcTest(f *testing.F) {
 			t.Fatalf("verdict %v", v)
 		}
 	})
-}
-
-func TestPlainErrors(t *testing.T) {
-	base := errors.New("client: push: rpc error: code = PermissionDenied desc = member_of_project: u is not a member of project p")
-	err := plain(base)
-	if err.Error() != "client: push: member_of_project: u is not a member of project p [PermissionDenied]" {
-		t.Errorf("plain = %q", err)
-	}
-	if !errors.Is(err, base) {
-		t.Error("the original error is lost")
-	}
-	if plain(nil) != nil {
-		t.Error("plain(nil) != nil")
-	}
 }

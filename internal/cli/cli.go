@@ -1,10 +1,10 @@
 package cli
 
 import (
+	"cmp"
 	"context"
 	"errors"
 	"io"
-	"regexp"
 
 	"github.com/spf13/cobra"
 
@@ -22,23 +22,18 @@ func Run(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	return plain(root.ExecuteContext(ctx))
 }
 
-var rpcPrefix = regexp.MustCompile(`rpc error: code = (\w+) desc = `)
-
-// plain rewrites gRPC's "rpc error: code = X desc = " into words a person
-// reads: the server's message, then its code in brackets. It escapes
-// control characters (the message may quote what a user or a server wrote)
-// and says what to do about a server certificate that failed verification.
-// The original error stays reachable for errors.Is.
+// plain makes an error fit for a person to read: a server's refusal reads
+// as the server's message and its reason in brackets (client.ServerError),
+// control characters are escaped (the message may quote what a user or a
+// server wrote), and a line of advice follows a server certificate that
+// failed verification or a refusal the user can act on. The original error
+// stays reachable for errors.Is and errors.As.
 func plain(err error) error {
 	if err == nil {
 		return nil
 	}
-	msg := err.Error()
-	if m := rpcPrefix.FindStringSubmatch(msg); m != nil {
-		msg = rpcPrefix.ReplaceAllString(msg, "") + " [" + m[1] + "]"
-	}
-	msg = escape(msg)
-	if advice := certificateAdvice(err); advice != "" {
+	msg := escape(err.Error())
+	if advice := cmp.Or(certificateAdvice(err), refusalAdvice(err)); advice != "" {
 		msg += "\n" + advice
 	}
 	if msg == err.Error() {
@@ -66,6 +61,30 @@ func certificateAdvice(err error) string {
 			"server's operator to renew the certificate."
 	}
 	return "Ask the server's operator to check the server's certificate."
+}
+
+// refusalAdvice says what to do about a server's refusal the user can act
+// on, by its reason, or returns "" for any other error.
+func refusalAdvice(err error) string {
+	var se *client.ServerError
+	if !errors.As(err, &se) {
+		return ""
+	}
+	switch {
+	case errors.Is(se, client.ErrRevoked):
+		return "This device was revoked. Ask an administrator for a new enrolment code and run tamp enroll again: the\n" +
+			"entries it holds that never reached the server are kept and signed again."
+	case errors.Is(se, client.ErrCodeInvalid):
+		return "A code enrols one device, once, before it expires. Ask an administrator for a new one (tamp admin issue-code)."
+	case errors.Is(se, client.ErrNotMember):
+		return "Ask an administrator of the project to add you (tamp admin add-member), or check --project."
+	case errors.Is(se, client.ErrServerStorage):
+		return "The server cannot store data now; nothing was lost on this device. Try again later, and tell the\n" +
+			"server's operator."
+	case errors.Is(se, client.ErrRateLimited):
+		return "Wait a few seconds and try again."
+	}
+	return ""
 }
 
 type plainError struct {

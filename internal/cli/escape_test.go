@@ -13,10 +13,8 @@ import (
 
 	"github.com/google/uuid"
 	grpccodes "google.golang.org/grpc/codes"
-	"google.golang.org/grpc/status"
 
 	"tamp/client"
-	"tamp/internal/sqlite"
 	"tamp/server"
 	"tamp/server/sqlitestore"
 )
@@ -36,7 +34,7 @@ var hostileNames = []string{
 func seedHostile(t *testing.T, data string) string {
 	t.Helper()
 	ctx := context.Background()
-	st, err := sqlitestore.Open(ctx, filepath.Join(data, "ledger.db"), sqlite.Normal)
+	st, err := sqlitestore.Open(ctx, filepath.Join(data, "ledger.db"), sqlitestore.Options{SynchronousNormal: true})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -145,8 +143,9 @@ func TestEscape(t *testing.T) {
 // escaped, gRPC's prefix rewritten, and advice for a refused certificate,
 // with the original error still reachable.
 func TestPlainErrorsEscapeAndAdvise(t *testing.T) {
-	err := plain(fmt.Errorf("project p: %w", status.Error(grpccodes.PermissionDenied, "member_of_project: Eve\n\x1b[2Jforged")))
-	if want := `project p: member_of_project: Eve\n\x1b[2Jforged [PermissionDenied]`; err.Error() != want {
+	err := plain(fmt.Errorf("project p: %w", &client.ServerError{Code: grpccodes.PermissionDenied, Reason: "PERMISSION_DENIED",
+		Rule: "project_admin", Message: "project_admin: Eve\n\x1b[2Jforged"}))
+	if want := `project p: project_admin: Eve\n\x1b[2Jforged [PERMISSION_DENIED]`; err.Error() != want {
 		t.Errorf("plain = %q, want %q", err.Error(), want)
 	}
 	for _, tc := range []struct {

@@ -20,7 +20,6 @@ import (
 	"google.golang.org/grpc/keepalive"
 	"google.golang.org/grpc/reflection"
 
-	"tamp/internal/sqlite"
 	"tamp/server"
 	"tamp/server/sqlitestore"
 )
@@ -119,7 +118,7 @@ has users.`,
 			if err := os.MkdirAll(data, 0o700); err != nil {
 				return fmt.Errorf("--data: %w", err)
 			}
-			st, err := sqlitestore.Open(cmd.Context(), filepath.Join(data, "ledger.db"), sqlite.Full)
+			st, err := sqlitestore.Open(cmd.Context(), filepath.Join(data, "ledger.db"), sqlitestore.Options{})
 			if err != nil {
 				return err
 			}
@@ -179,11 +178,7 @@ func serve(ctx context.Context, f serveFlags, stdout, stderr io.Writer) error {
 	if err := os.MkdirAll(f.data, 0o700); err != nil {
 		return fmt.Errorf("--data: %w", err)
 	}
-	sync := sqlite.Full
-	if f.synchronousNormal {
-		sync = sqlite.Normal
-	}
-	st, err := sqlitestore.Open(ctx, filepath.Join(f.data, "ledger.db"), sync)
+	st, err := sqlitestore.Open(ctx, filepath.Join(f.data, "ledger.db"), sqlitestore.Options{SynchronousNormal: f.synchronousNormal})
 	if err != nil {
 		return err
 	}

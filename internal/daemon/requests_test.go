@@ -2,9 +2,9 @@ package daemon
 
 import (
 	"context"
-	"strings"
 	"testing"
 
+	"google.golang.org/genproto/googleapis/rpc/errdetails"
 	"google.golang.org/grpc"
 	"google.golang.org/grpc/codes"
 	"google.golang.org/grpc/credentials/insecure"
@@ -43,7 +43,17 @@ func TestServeMalformedRequestIsInvalidArgument(t *testing.T) {
 	req := protowire.AppendString(protowire.AppendTag(nil, num, protowire.BytesType), "tablet \xff")
 	var reply []byte
 	err = cc.Invoke(context.Background(), pb.AdminService_EnrollDevice_FullMethodName, &req, &reply, grpc.ForceCodec(rawBytes{}))
-	if status.Code(err) != codes.InvalidArgument || !strings.Contains(status.Convert(err).Message(), "device_name") {
+	if info := errorInfo(err); status.Code(err) != codes.InvalidArgument || info.GetReason() != "INVALID_ARGUMENT" || info.GetMetadata()["field"] != "device_name" {
 		t.Errorf("EnrollDevice with a device_name that is not UTF-8: %v, want InvalidArgument naming device_name", err)
 	}
+}
+
+// errorInfo returns the server's ErrorInfo detail of a status error, or nil.
+func errorInfo(err error) *errdetails.ErrorInfo {
+	for _, d := range status.Convert(err).Details() {
+		if info, ok := d.(*errdetails.ErrorInfo); ok && info.GetDomain() == "tamp" {
+			return info
+		}
+	}
+	return nil
 }

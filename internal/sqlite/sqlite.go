@@ -188,7 +188,7 @@ func Migrate(ctx context.Context, w *sql.DB, migrations fs.FS, upTo int) error {
 		return err
 	}
 	if current > len(ms) {
-		return fmt.Errorf("sqlite: the database is at schema version %d, newer than this program's %d", current, len(ms))
+		return fmt.Errorf("%w: the database is at schema version %d, this program's is %d", ErrSchemaNewer, current, len(ms))
 	}
 	for _, m := range ms[current:] {
 		if upTo >= 0 && m.version > upTo {

@@ -3,8 +3,8 @@ package sqlite
 import (
 	"context"
 	"database/sql"
+	"errors"
 	"path/filepath"
-	"strings"
 	"sync"
 	"testing"
 	"testing/fstest"
@@ -102,7 +102,7 @@ func TestMigrateFreshAndUpgrade(t *testing.T) {
 	db.Close()
 	// A newer database than the program is refused.
 	newer := fstest.MapFS{"0001_init.sql": testMigrations["0001_init.sql"]}
-	if _, err := Open(ctx, file, Options{}, newer); err == nil || !strings.Contains(err.Error(), "newer") {
+	if _, err := Open(ctx, file, Options{}, newer); !errors.Is(err, ErrSchemaNewer) {
 		t.Errorf("newer schema: %v", err)
 	}
 	bad := fstest.MapFS{"0001_a.sql": {Data: []byte("CREATE TABLE x(i);")}, "0003_c.sql": {Data: []byte("SELECT 1;")}}

@@ -13,13 +13,13 @@ import (
 )
 
 // rowsOf returns n ledger rows of about size bytes each after head.
-func rowsOf(head ledger.Checkpoint, n, size int) []server.Row {
+func rowsOf(head server.Checkpoint, n, size int) []server.Row {
 	log := ledger.NewLog(head.Project, head.Epoch)
 	rows := make([]server.Row, 0, n)
 	for i := range n {
 		e := log.Append([]byte(strings.Repeat(fmt.Sprint(i%10), size)))
 		rows = append(rows, server.Row{Seq: e.Seq, EventID: fmt.Sprintf("e%d", i), DeviceID: "d", DeviceSeq: uint64(i + 1),
-			Kind: "test_recorded", Envelope: e.Event, Hash: e.Hash, Received: time.Now()})
+			Kind: "test_recorded", Envelope: e.Event, Hash: server.Hash(e.Hash), Received: time.Now()})
 	}
 	return rows
 }
@@ -32,11 +32,11 @@ func TestFullDiskIsErrStorageFull(t *testing.T) {
 	s := open(t)
 	ctx := context.Background()
 	const p = "0190d3a0-0000-7000-8000-0000000000ab"
-	if err := s.CreateProject(ctx, p, "haul road", time.Now()); err != nil {
+	if err := s.CreateProject(ctx, p, "haul road", genesis(p), time.Now()); err != nil {
 		t.Fatal(err)
 	}
 	head, _ := s.Head(ctx, p)
-	w := s.DB().Writer()
+	w := s.db.Writer()
 	var pages int64
 	if err := w.QueryRow("PRAGMA page_count").Scan(&pages); err != nil {
 		t.Fatal(err)
@@ -64,7 +64,7 @@ func TestFullDiskIsErrStorageFull(t *testing.T) {
 		t.Fatalf("append once space is freed: %v", err)
 	}
 	var left int
-	if err := s.DB().Reader().QueryRow("SELECT COUNT(*) FROM storage_probe").Scan(&left); err != nil || left != 0 {
+	if err := s.db.Reader().QueryRow("SELECT COUNT(*) FROM storage_probe").Scan(&left); err != nil || left != 0 {
 		t.Errorf("probe rows left: %d, %v; want none", left, err)
 	}
 }
@@ -76,11 +76,11 @@ func TestFullDiskIsErrStorageFull(t *testing.T) {
 func TestReadOnlyWriterIsErrStorageReadOnlyAndProbeReopensIt(t *testing.T) {
 	s := open(t)
 	ctx := context.Background()
-	if _, err := s.DB().Writer().Exec("PRAGMA query_only = 1"); err != nil {
+	if _, err := s.db.Writer().Exec("PRAGMA query_only = 1"); err != nil {
 		t.Fatal(err)
 	}
 	const p = "0190d3a0-0000-7000-8000-0000000000ac"
-	if err := s.CreateProject(ctx, p, "haul road", time.Now()); !errors.Is(err, server.ErrStorageReadOnly) {
+	if err := s.CreateProject(ctx, p, "haul road", genesis(p), time.Now()); !errors.Is(err, server.ErrStorageReadOnly) {
 		t.Fatalf("create project on a read-only connection: %v, want ErrStorageReadOnly", err)
 	}
 	if err := s.AddUser(ctx, "u1", "Wren Halloway", false, time.Now()); !errors.Is(err, server.ErrStorageReadOnly) {
@@ -89,7 +89,7 @@ func TestReadOnlyWriterIsErrStorageReadOnlyAndProbeReopensIt(t *testing.T) {
 	if err := s.Probe(ctx); err != nil {
 		t.Fatalf("probe: %v, want a new, writable connection", err)
 	}
-	if err := s.CreateProject(ctx, p, "haul road", time.Now()); err != nil {
+	if err := s.CreateProject(ctx, p, "haul road", genesis(p), time.Now()); err != nil {
 		t.Fatalf("create project after the probe: %v", err)
 	}
 	head, _ := s.Head(ctx, p)
@@ -103,10 +103,10 @@ func TestFaultLeavesOtherErrors(t *testing.T) {
 	s := open(t)
 	ctx := context.Background()
 	const p = "0190d3a0-0000-7000-8000-0000000000ad"
-	if err := s.CreateProject(ctx, p, "haul road", time.Now()); err != nil {
+	if err := s.CreateProject(ctx, p, "haul road", genesis(p), time.Now()); err != nil {
 		t.Fatal(err)
 	}
-	err := s.CreateProject(ctx, p, "haul road", time.Now()) // a unique constraint
+	err := s.CreateProject(ctx, p, "haul road", genesis(p), time.Now()) // a unique constraint
 	if err == nil {
 		t.Fatal("second project with one id: no error")
 	}

@@ -19,7 +19,7 @@ func TestInvitations(t *testing.T) {
 	now := time.Date(2026, 10, 5, 7, 0, 0, 0, time.UTC)
 	const p, q = "0190d3a0-0000-7000-8000-0000000000c1", "0190d3a0-0000-7000-8000-0000000000c2"
 	for _, id := range []string{p, q} {
-		if err := s.CreateProject(ctx, id, "pad "+id[len(id)-2:], now); err != nil {
+		if err := s.CreateProject(ctx, id, "pad "+id[len(id)-2:], genesis(id), now); err != nil {
 			t.Fatal(err)
 		}
 	}

@@ -16,7 +16,6 @@ import (
 	"strings"
 	"time"
 
-	"tamp/internal/ledger"
 	"tamp/internal/sqlite"
 	"tamp/server"
 )
@@ -58,11 +57,38 @@ func (s *Store) prepare(ctx context.Context) error {
 
 var _ server.Store = (*Store)(nil)
 
-// Open opens (creating) the store at path.
-func Open(ctx context.Context, path string, sync sqlite.Synchronous) (*Store, error) {
+func init() {
+	// Tests and benchmarks of other packages reach the database under a
+	// Store through sqlite.DBOf.
+	sqlite.RegisterDBOf(func(v any) (*sqlite.DB, bool) {
+		s, ok := v.(*Store)
+		if !ok || s == nil {
+			return nil, false
+		}
+		return s.db, true
+	})
+}
+
+// Options configure Open. The zero value commits with SQLite's
+// synchronous=FULL: a commit, and so a push, is on disk before it returns.
+type Options struct {
+	// SynchronousNormal commits with synchronous=NORMAL instead: no sync
+	// of the disk at each commit, so faster; a commit survives a crash of
+	// the process, but the last commits before a loss of power may be
+	// lost.
+	SynchronousNormal bool
+}
+
+// Open opens (creating) the store at path and brings its schema up to
+// date.
+func Open(ctx context.Context, path string, opts Options) (*Store, error) {
 	m, err := fs.Sub(migrationFiles, "migrations")
 	if err != nil {
 		return nil, err
+	}
+	sync := sqlite.Full
+	if opts.SynchronousNormal {
+		sync = sqlite.Normal
 	}
 	db, err := sqlite.Open(ctx, path, sqlite.Options{Synchronous: sync, Readers: 8}, m)
 	if err != nil {
@@ -86,11 +112,7 @@ func (s *Store) Close() error {
 	return s.db.Close()
 }
 
-// DB returns the underlying database, for tests and benchmarks.
-func (s *Store) DB() *sqlite.DB { return s.db }
-
-func (s *Store) CreateProject(ctx context.Context, id, name string, now time.Time) error {
-	g := ledger.Genesis(id)
+func (s *Store) CreateProject(ctx context.Context, id, name string, g server.Hash, now time.Time) error {
 	_, err := s.db.Writer().ExecContext(ctx, `INSERT INTO projects (project_id, name, epoch, head_seq, head_hash, created_micros)
 		VALUES (?, ?, 1, 0, ?, ?)`, id, name, g[:], now.UnixMicro())
 	if err != nil {
@@ -99,7 +121,7 @@ func (s *Store) CreateProject(ctx context.Context, id, name string, now time.Tim
 	return nil
 }
 
-func (s *Store) Head(ctx context.Context, project string) (ledger.Checkpoint, error) {
+func (s *Store) Head(ctx context.Context, project string) (server.Checkpoint, error) {
 	return head(ctx, s.db.Reader(), project)
 }
 
@@ -107,8 +129,8 @@ type queryer interface {
 	QueryRowContext(ctx context.Context, query string, args ...any) *sql.Row
 }
 
-func head(ctx context.Context, q queryer, project string) (ledger.Checkpoint, error) {
-	cp := ledger.Checkpoint{Project: project}
+func head(ctx context.Context, q queryer, project string) (server.Checkpoint, error) {
+	cp := server.Checkpoint{Project: project}
 	var h []byte
 	err := q.QueryRowContext(ctx, `SELECT epoch, head_seq, head_hash FROM projects WHERE project_id = ?`, project).Scan(&cp.Epoch, &cp.Seq, &h)
 	if errors.Is(err, sql.ErrNoRows) {
@@ -121,7 +143,7 @@ func head(ctx context.Context, q queryer, project string) (ledger.Checkpoint, er
 	return cp, nil
 }
 
-func (s *Store) After(ctx context.Context, project string, seq uint64, limit int) ([]ledger.Entry, error) {
+func (s *Store) After(ctx context.Context, project string, seq uint64, limit int) ([]server.Entry, error) {
 	rows, err := s.db.Reader().QueryContext(ctx, `SELECT seq, envelope, hash FROM ledger WHERE project_id = ? AND seq > ? ORDER BY seq LIMIT ?`,
 		project, seq, limit)
 	if err != nil {
@@ -130,11 +152,11 @@ func (s *Store) After(ctx context.Context, project string, seq uint64, limit int
 	return scanEntries(rows)
 }
 
-func scanEntries(rows *sql.Rows) ([]ledger.Entry, error) {
+func scanEntries(rows *sql.Rows) ([]server.Entry, error) {
 	defer rows.Close()
-	var out []ledger.Entry
+	var out []server.Entry
 	for rows.Next() {
-		var e ledger.Entry
+		var e server.Entry
 		var h []byte
 		if err := rows.Scan(&e.Seq, &e.Event, &h); err != nil {
 			return nil, fmt.Errorf("sqlitestore: scan entry: %w", err)
@@ -148,24 +170,21 @@ func scanEntries(rows *sql.Rows) ([]ledger.Entry, error) {
 	return out, nil
 }
 
-func (s *Store) HashAt(ctx context.Context, project string, seq uint64) (ledger.Hash, bool, error) {
-	if seq == 0 {
-		return ledger.Genesis(project), true, nil
-	}
+func (s *Store) HashAt(ctx context.Context, project string, seq uint64) (server.Hash, bool, error) {
 	var h []byte
 	err := s.db.Reader().QueryRowContext(ctx, `SELECT hash FROM ledger WHERE project_id = ? AND seq = ?`, project, seq).Scan(&h)
 	if errors.Is(err, sql.ErrNoRows) {
-		return ledger.Hash{}, false, nil
+		return server.Hash{}, false, nil
 	}
 	if err != nil {
-		return ledger.Hash{}, false, fmt.Errorf("sqlitestore: hash at %d: %w", seq, err)
+		return server.Hash{}, false, fmt.Errorf("sqlitestore: hash at %d: %w", seq, err)
 	}
-	var out ledger.Hash
+	var out server.Hash
 	copy(out[:], h)
 	return out, true, nil
 }
 
-func (s *Store) Append(ctx context.Context, project string, h ledger.Checkpoint, rows []server.Row) error {
+func (s *Store) Append(ctx context.Context, project string, h server.Checkpoint, rows []server.Row) error {
 	if len(rows) == 0 {
 		return nil
 	}
@@ -224,7 +243,7 @@ func (s *Store) SetEpoch(ctx context.Context, project string, epoch uint64) erro
 	return nil
 }
 
-func (s *Store) ReferenceData(ctx context.Context, project string) ([]ledger.Entry, error) {
+func (s *Store) ReferenceData(ctx context.Context, project string) ([]server.Entry, error) {
 	rows, err := s.db.Reader().QueryContext(ctx, `SELECT seq, envelope, hash FROM ledger WHERE project_id = ?
 		AND kind IN ('project_set_up', 'spec_defined', 'reference_added', 'equipment_registered', 'standard_count_recorded', 'moisture_correction_set')
 		ORDER BY seq`, project)

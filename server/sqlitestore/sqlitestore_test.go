@@ -16,9 +16,12 @@ import (
 	"tamp/server"
 )
 
+// genesis is h(0) of project's chain, which the server gives CreateProject.
+func genesis(project string) server.Hash { return server.Hash(ledger.Genesis(project)) }
+
 func open(t *testing.T) *Store {
 	t.Helper()
-	s, err := Open(context.Background(), filepath.Join(t.TempDir(), "ledger.db"), sqlite.Normal)
+	s, err := Open(context.Background(), filepath.Join(t.TempDir(), "ledger.db"), Options{SynchronousNormal: true})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -30,11 +33,11 @@ func TestAppendHeadAndConflict(t *testing.T) {
 	s := open(t)
 	ctx := context.Background()
 	const p = "0190d3a0-0000-7000-8000-0000000000aa"
-	if err := s.CreateProject(ctx, p, "levee", time.Now()); err != nil {
+	if err := s.CreateProject(ctx, p, "levee", genesis(p), time.Now()); err != nil {
 		t.Fatal(err)
 	}
 	head, err := s.Head(ctx, p)
-	if err != nil || head.Seq != 0 || head.Epoch != 1 || head.Hash != ledger.Genesis(p) {
+	if err != nil || head.Seq != 0 || head.Epoch != 1 || head.Hash != genesis(p) {
 		t.Fatalf("new head = %+v, %v", head, err)
 	}
 	log := ledger.NewLog(p, 1)
@@ -42,13 +45,13 @@ func TestAppendHeadAndConflict(t *testing.T) {
 	for i := range 3 {
 		e := log.Append([]byte{byte(i), 1, 2})
 		rows = append(rows, server.Row{Seq: e.Seq, EventID: string(rune('a' + i)), DeviceID: "d", DeviceSeq: uint64(i + 1), Kind: "test_recorded",
-			Envelope: e.Event, Hash: e.Hash, Received: time.Now()})
+			Envelope: e.Event, Hash: server.Hash(e.Hash), Received: time.Now()})
 	}
 	if err := s.Append(ctx, p, head, rows); err != nil {
 		t.Fatal(err)
 	}
 	got, _ := s.Head(ctx, p)
-	if got.Seq != 3 || got.Hash != log.Head().Hash {
+	if got.Seq != 3 || got.Hash != server.Hash(log.Head().Hash) {
 		t.Errorf("head after append = %d %s, want %d %s", got.Seq, got.Hash, 3, log.Head().Hash)
 	}
 	// Appending after a stale head is refused and changes nothing.
@@ -58,6 +61,14 @@ func TestAppendHeadAndConflict(t *testing.T) {
 	entries, _ := s.After(ctx, p, 1, 10)
 	if len(entries) != 2 || entries[0].Seq != 2 {
 		t.Errorf("after 1: %+v", entries)
+	}
+	// HashAt answers for the stored entries only: h(0) is the server's.
+	for seq := range uint64(5) {
+		h, ok, err := s.HashAt(ctx, p, seq)
+		held := seq >= 1 && seq <= 3
+		if err != nil || ok != held || held && h != rows[seq-1].Hash {
+			t.Errorf("HashAt(%d) = %s, %v, %v; want held %v", seq, h, ok, err, held)
+		}
 	}
 	if err := s.SetEpoch(ctx, p, 2); err != nil {
 		t.Fatal(err)
@@ -122,7 +133,7 @@ func TestMigrateFromFirstSchema(t *testing.T) {
 		t.Fatal(err)
 	}
 	w.Close()
-	s, err := Open(ctx, path, sqlite.Full)
+	s, err := Open(ctx, path, Options{})
 	if err != nil {
 		t.Fatalf("open a first-release ledger: %v", err)
 	}
@@ -140,7 +151,7 @@ func TestAppendBatchOfMixedStatementSizes(t *testing.T) {
 	s := open(t)
 	ctx := context.Background()
 	const p = "0190d3a0-0000-7000-8000-0000000000bb"
-	if err := s.CreateProject(ctx, p, "pad", time.Now()); err != nil {
+	if err := s.CreateProject(ctx, p, "pad", genesis(p), time.Now()); err != nil {
 		t.Fatal(err)
 	}
 	head, _ := s.Head(ctx, p)
@@ -149,7 +160,7 @@ func TestAppendBatchOfMixedStatementSizes(t *testing.T) {
 	for i := range 87 {
 		e := log.Append([]byte{byte(i), byte(i >> 8), 7})
 		rows = append(rows, server.Row{Seq: e.Seq, EventID: fmt.Sprintf("ev-%03d", i), DeviceID: "d", DeviceSeq: uint64(i + 1), Kind: "test_recorded",
-			RecordID: fmt.Sprintf("t-%03d", i), Envelope: e.Event, Hash: e.Hash, Received: time.Now()})
+			RecordID: fmt.Sprintf("t-%03d", i), Envelope: e.Event, Hash: server.Hash(e.Hash), Received: time.Now()})
 	}
 	if err := s.Append(ctx, p, head, rows); err != nil {
 		t.Fatal(err)
@@ -166,11 +177,30 @@ func TestAppendBatchOfMixedStatementSizes(t *testing.T) {
 			t.Fatalf("entry %d = seq %d, want %d with its hash and bytes", i, e.Seq, rows[i].Seq)
 		}
 	}
-	if h, _ := s.Head(ctx, p); h.Seq != 87 || h.Hash != log.Head().Hash {
+	if h, _ := s.Head(ctx, p); h.Seq != 87 || h.Hash != server.Hash(log.Head().Hash) {
 		t.Errorf("head = %d, want 87 with the log's hash", h.Seq)
 	}
 	var mark uint64
-	if err := s.DB().Reader().QueryRowContext(ctx, `SELECT high_seq FROM device_marks WHERE project_id = ? AND device_id = 'd'`, p).Scan(&mark); err != nil || mark != 87 {
+	if err := s.db.Reader().QueryRowContext(ctx, `SELECT high_seq FROM device_marks WHERE project_id = ? AND device_id = 'd'`, p).Scan(&mark); err != nil || mark != 87 {
 		t.Errorf("device mark = %d, %v; want 87", mark, err)
+	}
+}
+
+// The zero Options commit with synchronous=FULL on the writer connection,
+// SynchronousNormal with NORMAL.
+func TestOpenOptionsSetDurability(t *testing.T) {
+	for _, tc := range []struct {
+		opts Options
+		want int // PRAGMA synchronous: 2 FULL, 1 NORMAL
+	}{{Options{}, 2}, {Options{SynchronousNormal: true}, 1}} {
+		s, err := Open(context.Background(), filepath.Join(t.TempDir(), "ledger.db"), tc.opts)
+		if err != nil {
+			t.Fatal(err)
+		}
+		var got int
+		if err := s.db.Writer().QueryRow("PRAGMA synchronous").Scan(&got); err != nil || got != tc.want {
+			t.Errorf("Open(%+v): writer's synchronous = %d, %v; want %d", tc.opts, got, err, tc.want)
+		}
+		s.Close()
 	}
 }

@@ -1,0 +1,85 @@
+package client
+
+import (
+	"fmt"
+
+	"tamp/internal/report"
+)
+
+// The reports of the read side, computed from this device's own copy of
+// the project's ledger with the code the server runs, so an office machine
+// that holds the project answers offline what the server answers for the
+// same entries. They are as recent as the device's last sync.
+
+// ReviewQueue returns the tests whose current revision awaits the office:
+// not voided and not approved (unreviewed, or returned and since
+// corrected). With day set (YYYY-MM-DD, the project's time zone), only the
+// tests taken that day. Oldest first.
+func (s *Store) ReviewQueue(project, day string) []Test {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	v := s.view(project)
+	return testsOf(v, report.ReviewQueue(v, day))
+}
+
+// RetestAudit returns, oldest first, one chain per failing test that is not
+// itself a retest: the retests that followed it and how it was closed.
+func (s *Store) RetestAudit(project string) []RetestChain {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	v := s.view(project)
+	var out []RetestChain
+	for _, c := range report.RetestAudit(v) {
+		out = append(out, chainOf(v, c))
+	}
+	return out
+}
+
+// Frequency compares, for every placement whose tests name a spec with a
+// required volume per test, the tests taken with the tests the spec asks
+// for. Retests do not count.
+func (s *Store) Frequency(project string) []Frequency {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	var out []Frequency
+	for _, f := range report.TestFrequency(s.view(project)) {
+		out = append(out, frequencyOf(f))
+	}
+	return out
+}
+
+// Lots estimates, for every placement with at least three graded original
+// tests against one spec with a minimum relative compaction, the percent of
+// the lot within the minimum.
+func (s *Store) Lots(project string) ([]Lot, error) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	v := s.view(project)
+	lots, err := report.Lots(v)
+	if err != nil {
+		return nil, fmt.Errorf("client: lots: %w", err)
+	}
+	var out []Lot
+	for _, l := range lots {
+		out = append(out, lotOf(v, l))
+	}
+	return out, nil
+}
+
+// Reconcile balances, for each borrow source, the compacted volume placed
+// from it with the bank volume consumed and the loose volume hauled,
+// through dry mass. A source without graded tests on its placements, or
+// without a bank density, gets no bank volume.
+func (s *Store) Reconcile(project string) ([]VolumeBalance, error) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	bs, err := report.Reconcile(s.view(project))
+	if err != nil {
+		return nil, fmt.Errorf("client: reconcile: %w", err)
+	}
+	var out []VolumeBalance
+	for _, b := range bs {
+		out = append(out, balanceOf(b))
+	}
+	return out, nil
+}

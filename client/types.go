@@ -1,0 +1,367 @@
+package client
+
+import "time"
+
+// This file holds the values an app enters: readings, locations and the
+// records of each role. All values are SI (kg, m, m2, m3, kg/m3, percent);
+// apps convert units at their edges. Words stand for choices (a verdict, a
+// standard, a kind of equipment), so that they read the same in a log, a
+// JSON document or a debugger. convert.go is the one place they become the
+// ledger's types.
+
+// Readings are one test's raw readings: exactly one method is set.
+type Readings struct {
+	Nuclear       *NuclearGauge
+	SandCone      *SandCone
+	DriveCylinder *DriveCylinder
+	RubberBalloon *RubberBalloon
+	WetDensity    *MeasuredDensity
+}
+
+// Method returns the method the readings are of, or "" when none is set.
+func (r Readings) Method() Method {
+	switch {
+	case r.Nuclear != nil && r.Nuclear.Backscatter:
+		return NuclearBackscatter
+	case r.Nuclear != nil:
+		return NuclearDirect
+	case r.SandCone != nil:
+		return SandConeMethod
+	case r.DriveCylinder != nil:
+		return DriveCylinderMethod
+	case r.RubberBalloon != nil:
+		return RubberBalloonMethod
+	case r.WetDensity != nil:
+		return MeasuredWetDensity
+	}
+	return ""
+}
+
+// Method is an in-place density test method.
+type Method string
+
+// The in-place methods.
+const (
+	NuclearDirect       Method = "nuclear_direct"      // ASTM D6938, probe in a punched hole
+	NuclearBackscatter  Method = "nuclear_backscatter" // ASTM D6938, gauge on the surface
+	SandConeMethod      Method = "sand_cone"           // ASTM D1556, AASHTO T 191
+	DriveCylinderMethod Method = "drive_cylinder"      // ASTM D2937
+	RubberBalloonMethod Method = "rubber_balloon"      // ASTM D2167
+	MeasuredWetDensity  Method = "wet_density"         // a wet density measured by other means
+)
+
+// NuclearGauge holds a nuclear moisture-density gauge test (ASTM D6938), in
+// direct transmission (the probe lowered into a punched hole) or in
+// backscatter (the gauge on the surface). Nuclear gauges hold licensed
+// radioactive sources: their use, transport and storage follow the
+// licensee's radiation-safety programme.
+type NuclearGauge struct {
+	Backscatter bool
+	// ProbeDepth is the direct-transmission depth, m (up to 300 mm); zero
+	// when not recorded, and always zero in backscatter.
+	ProbeDepth float64
+	// Readings holds one reading, or two taken with the gauge turned 90
+	// degrees between them; two are averaged when their wet densities agree
+	// within Agreement.
+	Readings  []GaugeReading
+	Agreement float64 // kg/m3; zero means 32 kg/m3 (2 pcf)
+	// CorrectionID names a moisture correction (SetMoistureCorrection)
+	// applied to the gauge's moisture.
+	CorrectionID string
+	// OvenMoisture, when set, is an oven-dry moisture (percent) of the same
+	// material that replaces the gauge's moisture.
+	OvenMoisture *float64
+}
+
+// GaugeReading is one reading of a nuclear gauge, as the gauge shows it.
+type GaugeReading struct {
+	WetDensity     float64 // kg/m3
+	WaterPerVolume float64 // mass of water per unit volume, kg/m3
+}
+
+// SandCone holds a sand-cone test (ASTM D1556, AASHTO T 191). Give either
+// SandUsed, or the apparatus's masses before and after.
+type SandCone struct {
+	SandDensity    float64 // bulk density of the calibrated sand, kg/m3
+	InitialMass    float64 // apparatus with sand before the test, kg
+	FinalMass      float64 // apparatus with the sand left after, kg
+	SandUsed       float64 // sand that left the apparatus, kg (instead of the two masses)
+	ConeCorrection float64 // sand that fills the cone and base plate, kg
+	SoilMass       float64 // moist soil dug from the hole, kg
+	Moisture       float64 // percent
+}
+
+// DriveCylinder holds a drive-cylinder test (ASTM D2937).
+type DriveCylinder struct {
+	Diameter float64 // inside diameter, m
+	Length   float64 // length of the soil core, m
+	SoilMass float64 // moist soil in the cylinder, kg
+	Moisture float64 // percent
+}
+
+// RubberBalloon holds a rubber-balloon test (ASTM D2167): the apparatus's
+// volume readings before and after the hole is dug.
+type RubberBalloon struct {
+	InitialReading float64 // m3
+	FinalReading   float64 // m3
+	SoilMass       float64 // moist soil from the hole, kg
+	Moisture       float64 // percent
+}
+
+// MeasuredDensity is a wet density measured by other means and entered as
+// it is, with its moisture.
+type MeasuredDensity struct {
+	WetDensity float64 // kg/m3
+	Moisture   float64 // percent
+}
+
+// Location is where a test was taken: station and offset along the
+// alignment (m), elevation (m; a depth below a datum where the project
+// records depths), an optional satellite position and a description.
+type Location struct {
+	Station, Offset, Elevation float64
+	Position                   *GeoPosition
+	Description                string
+}
+
+// GeoPosition is a WGS84 position with its accuracy in metres.
+type GeoPosition struct {
+	Latitude, Longitude, Accuracy float64
+}
+
+// Oversize is the coarse fraction of a tested material, for correcting the
+// laboratory maximum to the total material (ASTM D4718, AASHTO T 224).
+type Oversize struct {
+	Percent             float64 // of the total dry mass, retained on the method's sieve
+	BulkSpecificGravity float64 // of the oversize particles
+	Moisture            float64 // of the oversize, percent
+}
+
+// TestInput is what an inspector enters for an in-place density test.
+// All values are SI (kg, m, kg/m3, percent).
+type TestInput struct {
+	Project       string
+	Readings      Readings
+	Location      Location
+	PlacementID   string
+	Feature       string // e.g. "embankment", "trench backfill"
+	LiftNumber    uint32
+	LiftThickness float64 // m
+	ReferenceID   string  // the laboratory reference graded against
+	SpecID        string  // the specification graded against
+	EquipmentID   string  // the gauge or apparatus used
+	Oversize      *Oversize
+	Remarks       string
+}
+
+// RetestInput is what an inspector enters for a retest after rework. Where
+// a field is left zero it is taken from the failing test: location, lift,
+// reference, spec, equipment and oversize.
+type RetestInput struct {
+	Readings    Readings
+	Location    *Location
+	EquipmentID string
+	Remarks     string
+}
+
+// Units is the unit system a project shows its values in; values are kept
+// in SI whatever it is.
+type Units string
+
+// The unit systems.
+const (
+	USCustomary Units = "us" // lb, ft, ft3, yd3, pcf
+	SI          Units = "si" // g, m, cm3, m3, kg/m3 (the default)
+)
+
+// ShrinkageBasis is how a project defines shrinkage.
+type ShrinkageBasis string
+
+// The shrinkage bases.
+const (
+	// BankBasis: shrinkage = (bank volume - compacted volume) / bank volume
+	// (the default).
+	BankBasis ShrinkageBasis = "bank"
+	// CompactedBasis: shrinkage = (bank volume - compacted volume) /
+	// compacted volume.
+	CompactedBasis ShrinkageBasis = "compacted"
+)
+
+// ProjectSetUp names a project and fixes its conventions. An
+// administrator makes it; a later set-up replaces an earlier one.
+type ProjectSetUp struct {
+	Name           string
+	Units          Units
+	WaterDensity   float64 // kg/m3; zero means 1000
+	Shrinkage      ShrinkageBasis
+	ClockSkewLimit time.Duration // a device clock further off is flagged; zero means 5 minutes
+	TimeZone       string        // IANA name, e.g. "America/Denver"; empty means UTC
+}
+
+// MoistureBasis says how a spec's moisture window is written.
+type MoistureBasis string
+
+// The moisture bases.
+const (
+	// PointsOfOptimum bounds w - w_opt, in percentage points (the default).
+	PointsOfOptimum MoistureBasis = "points_of_optimum"
+	// PercentOfOptimum bounds w / w_opt x 100.
+	PercentOfOptimum MoistureBasis = "percent_of_optimum"
+)
+
+// Spec is an acceptance specification. Limits are kept as written:
+// conformance is decided on each value rounded to the last place of its
+// limit (AASHTO R 11 / ASTM E29), so 94.6 conforms to "95" and not to
+// "95.0".
+type Spec struct {
+	ID                string // empty: the store makes one
+	Name              string
+	MinCompaction     string // minimum relative compaction, percent, e.g. "95"; empty for none
+	MoistureBasis     MoistureBasis
+	MoistureLow       string  // e.g. "-2"; empty for none
+	MoistureHigh      string  // e.g. "2"; empty for none
+	SuspectCompaction float64 // percent; results above it are flagged (zero means 105)
+	VolumePerTest     float64 // m3 of compacted fill per test required; zero for none
+}
+
+// Standard is a laboratory compaction test standard.
+type Standard string
+
+// The compaction standards. D698 and T 99 are standard effort; D1557 and
+// T 180 are modified effort.
+const (
+	ASTMD698   Standard = "ASTM D698"
+	ASTMD1557  Standard = "ASTM D1557"
+	AASHTOT99  Standard = "AASHTO T 99"
+	AASHTOT180 Standard = "AASHTO T 180"
+)
+
+// CurvePoint is one point of a laboratory compaction curve.
+type CurvePoint struct {
+	Moisture   float64 // percent
+	DryDensity float64 // kg/m3
+}
+
+// Reference is a laboratory compaction reference: the procedure (standard,
+// method letter, edition), the curve's points, and the maximum dry density
+// and optimum moisture as reported, or zero to use the peak fitted to the
+// points.
+type Reference struct {
+	ID              string // empty: the store makes one
+	Material        string
+	LabSampleID     string
+	Standard        Standard
+	Method          string // the method letter, "A" to "D"
+	Edition         int    // the edition's year, e.g. 2012; zero if unknown
+	Points          []CurvePoint
+	MaxDryDensity   float64 // kg/m3
+	OptimumMoisture float64 // percent
+	SpecificGravity float64 // of the soil solids; zero if unknown
+}
+
+// EquipmentKind is a kind of test equipment.
+type EquipmentKind string
+
+// The kinds of equipment.
+const (
+	NuclearGaugeEquipment  EquipmentKind = "nuclear_gauge"
+	SandConeApparatus      EquipmentKind = "sand_cone"
+	DriveCylinderSet       EquipmentKind = "drive_cylinder"
+	RubberBalloonApparatus EquipmentKind = "rubber_balloon"
+	Balance                EquipmentKind = "balance"
+)
+
+// Equipment is a piece of test equipment; registering it again with the
+// same id records a recalibration.
+type Equipment struct {
+	ID             string // empty: the store makes one
+	Kind           EquipmentKind
+	Model          string
+	SerialNumber   string
+	CalibrationDue string // YYYY-MM-DD
+}
+
+// StandardCount is a nuclear gauge's daily standard count.
+type StandardCount struct {
+	EquipmentID   string
+	Date          string // YYYY-MM-DD, the project's time zone
+	DensityCount  float64
+	MoistureCount float64
+	Accepted      bool
+}
+
+// CorrectionKind says how a moisture correction applies.
+type CorrectionKind string
+
+// The kinds of moisture correction.
+const (
+	// OffsetCorrection adds a number of percentage points to the gauge's
+	// moisture.
+	OffsetCorrection CorrectionKind = "offset"
+	// FactorCorrection multiplies the gauge's moisture by a ratio.
+	FactorCorrection CorrectionKind = "factor"
+)
+
+// MoisturePair is one comparison of a gauge's moisture with the oven-dry
+// moisture of the same material, both percent.
+type MoisturePair struct {
+	Gauge, Oven float64
+}
+
+// MoistureCorrection adjusts a nuclear gauge's moisture for one material
+// and gauge, established from paired oven-dry tests (ASTM D6938 annex).
+type MoistureCorrection struct {
+	ID          string // empty: the store makes one
+	EquipmentID string
+	ReferenceID string         // the material's laboratory reference
+	Kind        CorrectionKind // offset or factor
+	Value       float64        // points for an offset, a ratio for a factor
+	Pairs       []MoisturePair
+}
+
+// BorrowSource is a borrow source with its in-place (bank) density tests.
+type BorrowSource struct {
+	ID              string // empty: the store makes one
+	Name            string
+	BankTests       []Readings
+	LooseDryDensity float64 // kg/m3 in the hauling units; zero if not measured
+	ReferenceID     string
+}
+
+// StationRange is a lift's extent along the alignment, metres.
+type StationRange struct {
+	From, To                float64
+	OffsetLeft, OffsetRight float64
+}
+
+// Placement is a lift placed and compacted.
+type Placement struct {
+	ID              string // empty: the store makes one
+	Feature         string
+	LiftNumber      uint32
+	Stations        *StationRange
+	Area            float64 // m2
+	Thickness       float64 // m
+	CompactedVolume float64 // m3
+	BorrowSourceID  string
+	PlacedOn        string // YYYY-MM-DD
+}
+
+// Haul is a count of loads hauled from a borrow source.
+type Haul struct {
+	ID                 string // empty: the store makes one
+	BorrowSourceID     string
+	Loads              uint32
+	LooseVolumePerLoad float64 // m3
+	PlacementID        string
+	HauledOn           string // YYYY-MM-DD
+}
+
+// Decision is an office review's outcome.
+type Decision string
+
+// The review decisions.
+const (
+	Approve Decision = "approve" // approved for the record
+	Return  Decision = "return"  // sent back to the inspector, with a comment
+)
