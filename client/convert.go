@@ -1,6 +1,7 @@
 package client
 
 import (
+	"errors"
 	"fmt"
 	"slices"
 	"time"
@@ -16,10 +17,34 @@ import (
 // ledger, soil, qc and report packages and back. Values are copied, never
 // shared, so a value handed to an app never aliases the projection.
 
-// invalid is the error of a value the ledger has no word for: ErrInvalid
-// with a rejection naming the field, as the ledger's own checks give.
+// invalid is the error of a value the ledger has no word for, named as the
+// ledger's own checks name theirs.
 func invalid(field, detail string) error {
-	return fmt.Errorf("%w: %w", ErrInvalid, &ledger.Rejection{Reason: ledger.InvalidField, Field: field, Detail: detail})
+	return &EntryError{Reason: ledger.InvalidField.String(), Field: field, Message: detail, err: ErrInvalid}
+}
+
+// refused is the error of an entry the ledger refuses: the *EntryError
+// its *ledger.Rejection makes, matching ErrInvalid. An error that holds no
+// rejection is returned wrapped in ErrInvalid.
+func refused(err error) error {
+	var r *ledger.Rejection
+	if !errors.As(err, &r) {
+		return fmt.Errorf("%w: %w", ErrInvalid, err)
+	}
+	field, rule := r.FieldRule()
+	return &EntryError{Reason: r.Reason.String(), Field: field, Rule: rule, Message: r.Detail, err: ErrInvalid}
+}
+
+// denied is the error of an entry the user may not make, by the rule the
+// server refuses it by; it matches err.
+func denied(rule, msg string, err error) error {
+	return &EntryError{Reason: ledger.PermissionDenied.String(), Rule: rule, Message: msg, err: err}
+}
+
+// reasonRequired is the error of a correction, void or accepted exception
+// without a reason; what says what it is.
+func reasonRequired(what string) error {
+	return &EntryError{Reason: ledger.InvalidField.String(), Field: "reason", Message: what + " needs a reason", err: ErrReasonRequired}
 }
 
 // each converts a list. An empty list stays nil, as the ledger decodes

@@ -1,7 +1,6 @@
 package client
 
 import (
-	"errors"
 	"reflect"
 	"testing"
 
@@ -130,7 +129,6 @@ func TestPlacementRoundTrip(t *testing.T) {
 // A word the ledger has no value for is refused as invalid, naming the
 // field, and each word maps to a distinct value.
 func TestChoicesRefuseUnknownWords(t *testing.T) {
-	var rej *ledger.Rejection
 	for name, err := range map[string]error{
 		"units":           func() error { _, err := ProjectSetUp{Units: "imperial"}.kind(); return err }(),
 		"shrinkage":       func() error { _, err := ProjectSetUp{Shrinkage: "loose"}.kind(); return err }(),
@@ -139,9 +137,7 @@ func TestChoicesRefuseUnknownWords(t *testing.T) {
 		"correction.kind": func() error { _, err := MoistureCorrection{Kind: "table"}.kind(); return err }(),
 		"decision":        func() error { _, err := Decision("maybe").ledger(); return err }(),
 	} {
-		if !errors.Is(err, ErrInvalid) || !errors.As(err, &rej) || rej.Field != name {
-			t.Errorf("%s: %v, want ErrInvalid naming the field", name, err)
-		}
+		wantEntryError(t, name, err, ErrInvalid, "invalid_field", name, "")
 	}
 	distinct := func(name string, n, values int) {
 		if n != values {

@@ -2,7 +2,6 @@ package client
 
 import (
 	"context"
-	"errors"
 	"testing"
 )
 
@@ -14,12 +13,10 @@ func TestNoDecisionOnOwnTestOnDevice(t *testing.T) {
 	e := newEnv(t, "ines")
 	fail := e.test(104, 13)
 	before, _ := e.store.Outbox(ctx)
-	if err := e.store.AcceptException(ctx, e.project, fail.TestID, "within the engineer's tolerance"); !errors.Is(err, ErrOwnTest) {
-		t.Errorf("an exception on one's own test: %v, want ErrOwnTest", err)
-	}
-	if err := e.store.ReviewTest(ctx, e.project, fail.TestID, Approve, ""); !errors.Is(err, ErrOwnTest) {
-		t.Errorf("a review of one's own test: %v, want ErrOwnTest", err)
-	}
+	wantEntryError(t, "an exception on one's own test", e.store.AcceptException(ctx, e.project, fail.TestID, "within the engineer's tolerance"),
+		ErrOwnTest, "permission_denied", "", "no_self_review")
+	wantEntryError(t, "a review of one's own test", e.store.ReviewTest(ctx, e.project, fail.TestID, Approve, ""),
+		ErrOwnTest, "permission_denied", "", "no_self_review")
 	if after, _ := e.store.Outbox(ctx); after.Pending != before.Pending {
 		t.Errorf("outbox holds %d entries after the refusals, want %d", after.Pending, before.Pending)
 	}

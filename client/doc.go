@@ -35,8 +35,10 @@
 // equipment, placements, hauls and reviews ([Store.RegisterEquipment],
 // [Store.RecordPlacement], [Store.RecordHaul], [Store.ReviewTest]); and the
 // inspector's daily standard counts ([Store.RecordStandardCount]). An entry
-// that breaks a rule is refused with an error wrapping [ErrInvalid] that
-// names the field and the rule, and nothing is stored.
+// that breaks a rule is refused with an [*EntryError] naming the field (or,
+// for an entry the user may not make, the rule) as a server names it, and
+// nothing is stored; errors.Is matches it to [ErrInvalid] or to the error
+// the method documents.
 //
 // The package's types are its own: readings, locations, records, results
 // and reports are plain values in SI units (kg, m, m3, kg/m3, percent),

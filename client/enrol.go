@@ -136,16 +136,22 @@ func (s *Store) resign(ctx context.Context, tx *sql.Tx, old, id string, key ed25
 		e.Device, e.DeviceSeq, e.ResignedFrom = id, seq+1, old
 		e.PrevDeviceSeq = prev[e.Project]
 		if e.Author != user { // enrolled now for someone else: their entries are not handed over
-			if _, err := tx.ExecContext(ctx, `UPDATE events SET status = 'rejected', reason = ?, message = ? WHERE event_id = ?`,
-				ledger.PermissionDenied.String(), "not signed again at re-enrolment: the device is now enrolled for another user", e.ID); err != nil {
+			if _, err := tx.ExecContext(ctx, `UPDATE events SET status = 'rejected', reason = ?, field = '', rule = ?, message = ? WHERE event_id = ?`,
+				ledger.PermissionDenied.String(), "author_is_device_user",
+				"not signed again at re-enrolment: the device is now enrolled for another user", e.ID); err != nil {
 				return err
 			}
 			continue
 		}
 		again, err := ledger.Seal(e, key)
 		if err != nil { // an entry today's checks refuse stays, refused, for the user to see
-			if _, err := tx.ExecContext(ctx, `UPDATE events SET status = 'rejected', reason = ?, message = ? WHERE event_id = ?`,
-				ledger.ReasonOf(err).String(), "not signed again at re-enrolment: "+err.Error(), e.ID); err != nil {
+			var field, rule string
+			var r *ledger.Rejection
+			if errors.As(err, &r) {
+				field, rule = r.FieldRule()
+			}
+			if _, err := tx.ExecContext(ctx, `UPDATE events SET status = 'rejected', reason = ?, field = ?, rule = ?, message = ? WHERE event_id = ?`,
+				ledger.ReasonOf(err).String(), field, rule, "not signed again at re-enrolment: "+err.Error(), e.ID); err != nil {
 				return err
 			}
 			continue

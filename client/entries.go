@@ -12,8 +12,8 @@ import (
 // the device for its user, stored in one transaction and applied to the
 // project's view at once; the server decides on sync whether the user's
 // role on the project allows it. An entry that breaks a rule is refused
-// with an error wrapping ErrInvalid that names the field and the rule, and
-// nothing is stored. A record id left empty is made by the store and
+// with an *EntryError (ErrInvalid) that names the field, and nothing is
+// stored. A record id left empty is made by the store and
 // returned; an id the project holds a record of already is refused
 // (conflicting_id), as the server refuses it.
 
@@ -133,7 +133,7 @@ func (s *Store) ReviewTest(ctx context.Context, project, testID string, d Decisi
 // not hold.
 func (s *Store) AcceptException(ctx context.Context, project, testID, reason string) error {
 	if strings.TrimSpace(reason) == "" {
-		return fmt.Errorf("client: accept an exception on test %s: %w", testID, ErrReasonRequired)
+		return reasonRequired("an exception on test " + testID)
 	}
 	s.mu.Lock()
 	defer s.mu.Unlock()

@@ -4,7 +4,6 @@ import (
 	"context"
 	"errors"
 	"math"
-	"strings"
 	"testing"
 	"time"
 
@@ -19,12 +18,27 @@ func (e *env) as(user string) {
 	e.open(user)
 }
 
-// wantField checks that err is ErrInvalid naming field.
+// wantField checks that err is an *EntryError of an invalid value, naming
+// field.
 func wantField(t *testing.T, what string, err error, field string) {
 	t.Helper()
-	var rej *ledger.Rejection
-	if !errors.Is(err, ErrInvalid) || !errors.As(err, &rej) || rej.Field != field || !strings.Contains(err.Error(), field) {
-		t.Errorf("%s: %v, want ErrInvalid naming %s", what, err, field)
+	wantEntryError(t, what, err, ErrInvalid, "", field, "")
+}
+
+// wantEntryError checks that err is an *EntryError that matches target and
+// gives reason (any but permission_denied when empty), field and rule.
+func wantEntryError(t *testing.T, what string, err, target error, reason, field, rule string) {
+	t.Helper()
+	var ee *EntryError
+	if !errors.Is(err, target) || !errors.As(err, &ee) {
+		t.Errorf("%s: %v (%T), want an *EntryError matching %v", what, err, err, target)
+		return
+	}
+	if reason == "" && ee.Reason == "permission_denied" || reason != "" && ee.Reason != reason || ee.Field != field || ee.Rule != rule {
+		t.Errorf("%s: reason %q, field %q, rule %q; want reason %q, field %q, rule %q", what, ee.Reason, ee.Field, ee.Rule, reason, field, rule)
+	}
+	if ee.Message == "" {
+		t.Errorf("%s: the error has no message for the user", what)
 	}
 }
 
@@ -139,9 +153,8 @@ func TestEveryEntryThroughTypedMethods(t *testing.T) {
 	if err := e.store.ReviewTest(ctx, e.project, e.store.NewID(), Approve, ""); !errors.Is(err, ErrNotFound) {
 		t.Errorf("a review of a test the device does not hold: %v", err)
 	}
-	if err := e.store.AcceptException(ctx, e.project, r.TestID, ""); !errors.Is(err, ErrReasonRequired) {
-		t.Errorf("an exception without a reason: %v", err)
-	}
+	wantEntryError(t, "an exception without a reason", e.store.AcceptException(ctx, e.project, r.TestID, ""),
+		ErrReasonRequired, "invalid_field", "reason", "")
 	if err := e.store.ReviewTest(ctx, e.project, r.TestID, Approve, ""); err != nil {
 		t.Fatal(err)
 	}
@@ -151,9 +164,7 @@ func TestEveryEntryThroughTypedMethods(t *testing.T) {
 
 	// A record id belongs to its first recorder.
 	_, err = e.store.DefineSpec(ctx, e.project, Spec{ID: freq, Name: "again", MinCompaction: "90"})
-	if !errors.Is(err, ErrInvalid) || ledger.ReasonOf(err) != ledger.ConflictingID {
-		t.Errorf("a spec id defined again: %v, want conflicting_id", err)
-	}
+	wantEntryError(t, "a spec id defined again", err, ErrInvalid, "conflicting_id", "record_id", "")
 }
 
 // Bad input is refused naming the field and the rule, and nothing is

@@ -1,6 +1,7 @@
 package client
 
 import (
+	"cmp"
 	"context"
 	"errors"
 	"fmt"
@@ -29,11 +30,49 @@ var (
 	ErrVoided = errors.New("client: the test was voided")
 	// ErrNoUser: the store has no user to sign entries for.
 	ErrNoUser = errors.New("client: no user is set for this device")
-	// ErrInvalid: the entry breaks a rule; the error names the field.
+	// ErrInvalid: the entry breaks a rule; the error is an *EntryError
+	// naming the field.
 	ErrInvalid = errors.New("client: invalid entry")
 	// ErrNotRejected: only an event the server rejected can be discarded.
 	ErrNotRejected = errors.New("client: the event was not rejected")
 )
+
+// EntryError is the error of an entry the store refuses before storing
+// anything, as a server would refuse it: a value breaks a rule
+// (errors.Is(err, ErrInvalid)), or the user may not make it
+// (ErrOwnTest, ErrNotAuthor), or a required reason is missing
+// (ErrReasonRequired). errors.As gives it to an app that wants the field or
+// the rule; its Reason, Field and Rule take the values of a Rejected entry
+// refused by a server for the same cause.
+type EntryError struct {
+	// Reason is machine-readable: "invalid_field", "impossible_readings",
+	// "unknown_kind", "conflicting_id", "malformed" or "permission_denied".
+	Reason string
+	// Field is the field at fault, as a path within the entry (e.g.
+	// "readings.sand_cone.soil_mass", "spec_id", "reason"), for every
+	// reason but permission_denied; empty when no one field is.
+	Field string
+	// Rule is the rule the entry breaks, for permission_denied (e.g.
+	// "no_self_review", "own_tests_only"); empty otherwise.
+	Rule string
+	// Message says what is wrong, for people. It may quote what the user
+	// typed: escape it before printing it to a terminal.
+	Message string
+
+	err error // the error of this package it matches
+}
+
+func (e *EntryError) Error() string {
+	s := cmp.Or(e.err, ErrInvalid).Error()
+	if p := cmp.Or(e.Field, e.Rule); p != "" {
+		s += ": " + p
+	}
+	return s + ": " + e.Message
+}
+
+// Unwrap returns the error of this package the refusal matches: ErrInvalid
+// for an EntryError made outside this package.
+func (e *EntryError) Unwrap() error { return cmp.Or(e.err, ErrInvalid) }
 
 // ErrCertificate: the server's TLS certificate failed verification, so no
 // call reached the server. Waiting does not mend it and it is not retried.

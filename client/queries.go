@@ -95,8 +95,8 @@ func (s *Store) Conflicts(project string) []Test {
 
 // Outbox is the state of the device's unsent entries.
 type Outbox struct {
-	Pending int       // entries not yet accepted by the server
-	Oldest  time.Time // when the oldest was made; zero when none
+	Pending int       `json:"pending"` // entries not yet accepted by the server
+	Oldest  time.Time `json:"oldest"`  // when the oldest was made; zero when none
 }
 
 // Age returns how long the oldest pending entry has waited at now.
@@ -124,20 +124,28 @@ func (s *Store) Outbox(ctx context.Context) (Outbox, error) {
 
 // Rejected is an entry the server refused, kept for the user.
 type Rejected struct {
-	EventID   string
-	Project   string
-	DeviceSeq uint64 // the entry's number on this device
-	Kind      string
-	RecordID  string // the test, spec... it concerns
-	Reason    string // machine-readable reason
-	Message   string // the server's words
-	Created   time.Time
+	EventID   string `json:"event_id"`
+	Project   string `json:"project"`
+	DeviceSeq uint64 `json:"device_seq"` // the entry's number on this device
+	Kind      string `json:"kind"`
+	RecordID  string `json:"record_id"` // the test, spec... it concerns
+	Reason    string `json:"reason"`    // machine-readable reason, e.g. "permission_denied", "invalid_field"
+	// Field is the field at fault, as a path within the entry (e.g.
+	// "readings.sand_cone.soil_mass"), for every reason but
+	// permission_denied; empty when no one field is.
+	Field string `json:"field"`
+	// Rule is the rule the entry breaks, for permission_denied (e.g.
+	// "role_may_make_entry", "own_tests_only", "no_self_review"); empty
+	// otherwise.
+	Rule    string    `json:"rule"`
+	Message string    `json:"message"` // the server's words, for people
+	Created time.Time `json:"created"`
 }
 
 // Rejected returns the entries the server refused that the user has not
 // discarded, oldest first.
 func (s *Store) Rejected(ctx context.Context) ([]Rejected, error) {
-	rows, err := s.db.Reader().QueryContext(ctx, `SELECT event_id, project_id, device_seq, kind, record_id, reason, message, created_micros
+	rows, err := s.db.Reader().QueryContext(ctx, `SELECT event_id, project_id, device_seq, kind, record_id, reason, field, rule, message, created_micros
 		FROM events WHERE origin = 'local' AND status = 'rejected' ORDER BY created_micros, event_id`)
 	if err != nil {
 		return nil, fmt.Errorf("client: rejected: %w", err)
@@ -147,7 +155,7 @@ func (s *Store) Rejected(ctx context.Context) ([]Rejected, error) {
 	for rows.Next() {
 		var r Rejected
 		var created int64
-		if err := rows.Scan(&r.EventID, &r.Project, &r.DeviceSeq, &r.Kind, &r.RecordID, &r.Reason, &r.Message, &created); err != nil {
+		if err := rows.Scan(&r.EventID, &r.Project, &r.DeviceSeq, &r.Kind, &r.RecordID, &r.Reason, &r.Field, &r.Rule, &r.Message, &created); err != nil {
 			return nil, fmt.Errorf("client: rejected: %w", err)
 		}
 		r.Created = time.UnixMicro(created).UTC()
@@ -175,8 +183,8 @@ func (s *Store) Discard(ctx context.Context, eventID string) error {
 // markRejected records the server's refusal of a local entry and rebuilds
 // the views without it. Call with s.mu held.
 func (s *Store) markRejected(ctx context.Context, eventID, reason, message string) error {
-	if _, err := s.db.Writer().ExecContext(ctx, `UPDATE events SET status = 'rejected', reason = ?, message = ? WHERE event_id = ? AND origin = 'local'`,
-		reason, message, eventID); err != nil {
+	if _, err := s.db.Writer().ExecContext(ctx, `UPDATE events SET status = 'rejected', reason = ?, field = '', rule = '', message = ?
+		WHERE event_id = ? AND origin = 'local'`, reason, message, eventID); err != nil {
 		return fmt.Errorf("client: mark %s rejected: %w", eventID, err)
 	}
 	return s.loadViews(ctx)

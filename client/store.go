@@ -266,8 +266,8 @@ func (s *Store) NewID() string {
 // recordEntry signs and stores one entry of kind k on project, in one
 // transaction with the device's counters, and applies it to the project's
 // view. It is the primitive under the typed methods of entries.go and
-// tests.go. A kind that breaks a rule gets an error wrapping ErrInvalid and
-// a *ledger.Rejection naming the field.
+// tests.go. A kind that breaks a rule gets an *EntryError naming the field
+// (ErrInvalid).
 func (s *Store) recordEntry(ctx context.Context, project string, k ledger.Kind) (ledger.Signed, ledger.Outcome, error) {
 	s.mu.Lock()
 	defer s.mu.Unlock()
@@ -298,10 +298,11 @@ func (s *Store) record(ctx context.Context, project string, k ledger.Kind) (ledg
 		HLC: s.clock.Now(), DeviceTime: now, Kind: k}
 	signed, err := ledger.Seal(e, s.key)
 	if err != nil {
-		return ledger.Signed{}, ledger.Outcome{}, fmt.Errorf("%w: %w", ErrInvalid, err)
+		return ledger.Signed{}, ledger.Outcome{}, refused(err)
 	}
+	e = signed.Event // as every replica decodes it from the signed bytes
 	if taken := s.view(project).Claimed(&e); taken != nil {
-		return ledger.Signed{}, ledger.Outcome{}, fmt.Errorf("%w: %w", ErrInvalid, taken)
+		return ledger.Signed{}, ledger.Outcome{}, refused(taken)
 	}
 	err = s.db.Tx(ctx, func(tx *sql.Tx) error {
 		if _, err := tx.ExecContext(ctx, `INSERT INTO events (event_id, project_id, device_id, device_seq, kind, record_id,

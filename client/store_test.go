@@ -174,12 +174,9 @@ func TestCorrectVoidRetestRules(t *testing.T) {
 	if fail.Result.Verdict != Fail {
 		t.Fatalf("104 pcf: %v", fail.Result.Verdict)
 	}
-	if _, err := e.store.CorrectTest(ctx, e.project, fail.TestID, " ", func(*TestInput) {}); !errors.Is(err, ErrReasonRequired) {
-		t.Errorf("correction without a reason: %v", err)
-	}
-	if err := e.store.VoidTest(ctx, e.project, fail.TestID, ""); !errors.Is(err, ErrReasonRequired) {
-		t.Errorf("void without a reason: %v", err)
-	}
+	_, err := e.store.CorrectTest(ctx, e.project, fail.TestID, " ", func(*TestInput) {})
+	wantEntryError(t, "correction without a reason", err, ErrReasonRequired, "invalid_field", "reason", "")
+	wantEntryError(t, "void without a reason", e.store.VoidTest(ctx, e.project, fail.TestID, ""), ErrReasonRequired, "invalid_field", "reason", "")
 	if _, err := e.store.RecordRetest(ctx, e.project, pass.TestID, RetestInput{Readings: sandCone(113, 13)}); !errors.Is(err, ErrNotFailing) {
 		t.Errorf("retest of a passing test: %v", err)
 	}
@@ -189,12 +186,9 @@ func TestCorrectVoidRetestRules(t *testing.T) {
 	// Another user on the same device may not edit ines's test.
 	e.store.Close()
 	e.open("omar")
-	if _, err := e.store.CorrectTest(ctx, e.project, fail.TestID, "typo", func(*TestInput) {}); !errors.Is(err, ErrNotAuthor) {
-		t.Errorf("correction by another user: %v", err)
-	}
-	if err := e.store.VoidTest(ctx, e.project, fail.TestID, "not mine"); !errors.Is(err, ErrNotAuthor) {
-		t.Errorf("void by another user: %v", err)
-	}
+	_, err = e.store.CorrectTest(ctx, e.project, fail.TestID, "typo", func(*TestInput) {})
+	wantEntryError(t, "correction by another user", err, ErrNotAuthor, "permission_denied", "", "own_tests_only")
+	wantEntryError(t, "void by another user", e.store.VoidTest(ctx, e.project, fail.TestID, "not mine"), ErrNotAuthor, "permission_denied", "", "own_tests_only")
 	e.store.Close()
 	e.open("ines")
 	if err := e.store.VoidTest(ctx, e.project, pass.TestID, "tested the wrong lift"); err != nil {
@@ -203,11 +197,8 @@ func TestCorrectVoidRetestRules(t *testing.T) {
 	if _, err := e.store.CorrectTest(ctx, e.project, pass.TestID, "typo", func(*TestInput) {}); !errors.Is(err, ErrVoided) {
 		t.Errorf("correction of a voided test: %v", err)
 	}
-	bad, err := e.store.CorrectTest(ctx, e.project, fail.TestID, "soil mass", func(c *TestInput) { c.Readings.SandCone.SoilMass = -2 })
-	var rej *ledger.Rejection
-	if !errors.Is(err, ErrInvalid) || !errors.As(err, &rej) || rej.Field != "readings.soil_mass" {
-		t.Errorf("impossible correction: %+v %v", bad, err)
-	}
+	_, err = e.store.CorrectTest(ctx, e.project, fail.TestID, "soil mass", func(c *TestInput) { c.Readings.SandCone.SoilMass = -2 })
+	wantField(t, "impossible correction", err, "readings.soil_mass")
 	tt, _ := e.store.Test(e.project, fail.TestID)
 	if len(tt.Revisions) != 1 {
 		t.Errorf("a refused correction left %d revisions", len(tt.Revisions))
@@ -377,9 +368,7 @@ func TestRecordRefusesTakenTestID(t *testing.T) {
 	first := e.rec(&ledger.TestRecorded{TestID: id, Content: TestInput{Readings: sandCone(110, 12), SpecID: e.spec, ReferenceID: e.ref}.content()})
 	_, _, err := e.store.recordEntry(context.Background(), e.project, &ledger.TestRecorded{TestID: id,
 		Content: TestInput{Readings: sandCone(95, 18), SpecID: e.spec, ReferenceID: e.ref}.content()})
-	if ledger.ReasonOf(err) != ledger.ConflictingID {
-		t.Fatalf("second recording of test %s: %v, want a conflicting_id rejection", id, err)
-	}
+	wantEntryError(t, "second recording of test "+id, err, ErrInvalid, "conflicting_id", "record_id", "")
 	if tt, _ := e.store.Test(e.project, id); tt.Current != first.Event.ID {
 		t.Errorf("current revision %s, want the first recording %s", tt.Current, first.Event.ID)
 	}

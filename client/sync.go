@@ -38,10 +38,10 @@ func (s *Store) token(ctx context.Context) (string, error) {
 
 // Progress reports how far a sync has gone, for a progress bar.
 type Progress struct {
-	Phase  string // "push" or "pull"
-	Events int    // events sent or received so far in this phase
-	Bytes  int64  // their encoded size
-	Total  int    // events to push (push phase; zero when unknown)
+	Phase  string `json:"phase"`  // "push" or "pull"
+	Events int    `json:"events"` // events sent or received so far in this phase
+	Bytes  int64  `json:"bytes"`  // their encoded size
+	Total  int    `json:"total"`  // events to push (push phase; zero when unknown)
 }
 
 // SyncOptions configure Sync. The zero value is usable.
@@ -71,54 +71,58 @@ func (o *SyncOptions) defaults() {
 
 // SyncReport says what a sync did.
 type SyncReport struct {
-	Accepted, AlreadyPresent, Waiting, Rejected int           // outcomes of pushed events
-	Pulled                                      int           // events received and applied
-	Head                                        Checkpoint    // the point of the server's ledger verified
-	ClockSkew                                   time.Duration // device clock minus server clock
-	Repushed                                    int           // events pushed back that the server had lost (a fork, a new epoch, a restore)
-	Supplied                                    int           // entries pushed because the server asked for them
-	NewEpoch                                    uint64        // the server's new epoch, when it opened one
+	Accepted       int           `json:"accepted"`         // outcomes of pushed events
+	AlreadyPresent int           `json:"already_present"`  // outcomes of pushed events
+	Waiting        int           `json:"waiting"`          // outcomes of pushed events
+	Rejected       int           `json:"rejected"`         // outcomes of pushed events
+	Pulled         int           `json:"pulled"`           // events received and applied
+	Head           Checkpoint    `json:"head"`             // the point of the server's ledger verified
+	ClockSkew      time.Duration `json:"clock_skew_nanos"` // device clock minus server clock
+	Repushed       int           `json:"repushed"`         // events pushed back that the server had lost (a fork, a new epoch, a restore)
+	Supplied       int           `json:"supplied"`         // entries pushed because the server asked for them
+	NewEpoch       uint64        `json:"new_epoch"`        // the server's new epoch, when it opened one
 }
 
 // SyncStatus is what a user interface shows about a project's sync.
 type SyncStatus struct {
-	LastSuccess time.Time
-	LastAttempt time.Time
-	LastError   string
-	Verified    Checkpoint // the last point of the server's ledger this device verified
-	Outbox      Outbox
+	LastSuccess time.Time  `json:"last_success"`
+	LastAttempt time.Time  `json:"last_attempt"`
+	LastError   string     `json:"last_error"`
+	Verified    Checkpoint `json:"verified"` // the last point of the server's ledger this device verified
+	Outbox      Outbox     `json:"outbox"`
 	// Unconfirmed counts entries the server acknowledged that this device
 	// has not yet seen in the ledger it verified; ServerLacks those it
 	// found missing from the server's ledger.
-	Unconfirmed, ServerLacks int
+	Unconfirmed int `json:"unconfirmed"`
+	ServerLacks int `json:"server_lacks"`
 	// ServerMissing lists entries the server asked for that this device
 	// does not hold.
-	ServerMissing []MissingEntry
+	ServerMissing []MissingEntry `json:"server_missing"`
 	// LongWaiting lists entries that have waited longer than
 	// Options.WaitLimit for records the server lacks.
-	LongWaiting []WaitingEntry
+	LongWaiting []WaitingEntry `json:"long_waiting"`
 }
 
 // MissingEntry names an entry by its device and device sequence number.
 type MissingEntry struct {
-	Device string
-	Seq    uint64
+	Device string `json:"device"`
+	Seq    uint64 `json:"seq"`
 }
 
 // WaitingEntry is an entry the server holds back until it receives the
 // records the entry refers to.
 type WaitingEntry struct {
-	EventID  string
-	Kind     string // the entry's kind, e.g. test_recorded
-	RecordID string // the test, spec... it concerns
-	Since    time.Time
-	For      []WaitedRecord
+	EventID  string         `json:"event_id"`
+	Kind     string         `json:"kind"`      // the entry's kind, e.g. test_recorded
+	RecordID string         `json:"record_id"` // the test, spec... it concerns
+	Since    time.Time      `json:"since"`
+	For      []WaitedRecord `json:"for"`
 }
 
 // WaitedRecord is a record an entry waits for.
 type WaitedRecord struct {
-	ID   string
-	Kind string // the kind of the entry that makes it, when this device holds one; empty when unknown
+	ID   string `json:"id"`
+	Kind string `json:"kind"` // the kind of the entry that makes it, when this device holds one; empty when unknown
 }
 
 // Status returns a project's sync status.
@@ -539,7 +543,7 @@ func (s *Store) recordOutcomes(ctx context.Context, outs []*pb.PushOutcome, cp, 
 					rep.AlreadyPresent++
 				}
 				seen := head.Epoch == cp.Epoch && o.GetSequence() <= cp.Seq
-				q, args = `UPDATE events SET status = 'accepted', server_seq = ?, reason = '', message = '', server_lacks = 0,
+				q, args = `UPDATE events SET status = 'accepted', server_seq = ?, reason = '', field = '', rule = '', message = '', server_lacks = 0,
 					waiting_for = '', waiting_since_micros = 0, confirmed = MAX(confirmed, ?) WHERE event_id = ? AND status != 'discarded'`,
 					[]any{o.GetSequence(), seen, o.GetEventId()}
 			case pb.PushStatus_PUSH_STATUS_WAITING:
@@ -552,9 +556,9 @@ func (s *Store) recordOutcomes(ctx context.Context, outs []*pb.PushOutcome, cp, 
 			case pb.PushStatus_PUSH_STATUS_REJECTED:
 				rep.Rejected++
 				anyRejected = true
-				q, args = `UPDATE events SET status = 'rejected', reason = ?, message = ?, waiting_for = '', waiting_since_micros = 0
+				q, args = `UPDATE events SET status = 'rejected', reason = ?, field = ?, rule = ?, message = ?, waiting_for = '', waiting_since_micros = 0
 					WHERE event_id = ? AND origin = 'local' AND status IN ('pending', 'waiting')`,
-					[]any{ledger.ReasonFromProto(o.GetReason()).String(), o.GetMessage(), o.GetEventId()}
+					[]any{ledger.ReasonFromProto(o.GetReason()).String(), o.GetField(), o.GetRule(), o.GetMessage(), o.GetEventId()}
 			default:
 				continue
 			}

@@ -42,7 +42,7 @@ func (s *Store) ownTest(project, testID string) (*ledger.Test, error) {
 	case !ok:
 		return nil, fmt.Errorf("client: test %s: %w", testID, ErrNotFound)
 	case t.Author != s.user:
-		return nil, fmt.Errorf("client: test %s was recorded by %s, not %s: %w", testID, t.Author, s.user, ErrNotAuthor)
+		return nil, denied("own_tests_only", fmt.Sprintf("test %s was recorded by %s, not %s", testID, t.Author, s.user), ErrNotAuthor)
 	case t.Voided():
 		return nil, fmt.Errorf("client: test %s: %w", testID, ErrVoided)
 	}
@@ -63,7 +63,7 @@ func (s *Store) notOwnTest(project string, k ledger.Kind) error {
 		return nil
 	}
 	if t, ok := s.view(project).Test(test); ok && t.Author == s.user {
-		return fmt.Errorf("client: %s on test %s, which %s recorded: %w", k.KindName(), test, s.user, ErrOwnTest)
+		return denied("no_self_review", fmt.Sprintf("%s recorded test %s and may not make a %s entry on it", s.user, test, k.KindName()), ErrOwnTest)
 	}
 	return nil
 }
@@ -73,10 +73,11 @@ func (s *Store) notOwnTest(project string, k ledger.Kind) error {
 // earlier revision stays in history. Only the test's author may correct it
 // (an office review is a separate entry). It returns ErrReasonRequired,
 // ErrNotFound, ErrNotAuthor or ErrVoided, and ErrInvalid, naming the field,
-// for content that breaks a rule.
+// for content that breaks a rule; ErrReasonRequired, ErrNotAuthor and
+// ErrInvalid come as an *EntryError.
 func (s *Store) CorrectTest(ctx context.Context, project, testID, reason string, edit func(*TestInput)) (TestResult, error) {
 	if strings.TrimSpace(reason) == "" {
-		return TestResult{}, fmt.Errorf("client: correct test %s: %w", testID, ErrReasonRequired)
+		return TestResult{}, reasonRequired("the correction of test " + testID)
 	}
 	s.mu.Lock()
 	defer s.mu.Unlock()
@@ -102,7 +103,7 @@ func (s *Store) CorrectTest(ctx context.Context, project, testID, reason string,
 // or ErrVoided.
 func (s *Store) VoidTest(ctx context.Context, project, testID, reason string) error {
 	if strings.TrimSpace(reason) == "" {
-		return fmt.Errorf("client: void test %s: %w", testID, ErrReasonRequired)
+		return reasonRequired("the void of test " + testID)
 	}
 	s.mu.Lock()
 	defer s.mu.Unlock()

@@ -21,8 +21,8 @@ const (
 // Finding is a reason a test failed, or a flag for a reviewer: a code from
 // the lists below and a message in plain words.
 type Finding struct {
-	Code    string
-	Message string
+	Code    string `json:"code"`
+	Message string `json:"message"`
 }
 
 // Reason codes: why a test failed.
@@ -74,20 +74,20 @@ const (
 // Step is one intermediate value of a test's arithmetic, so that an
 // inspector or a reviewer can follow how the result was reached.
 type Step struct {
-	Name     string // e.g. "sand in hole = used - cone"
-	Value    float64
-	Quantity Quantity
+	Name     string   `json:"name"` // e.g. "sand in hole = used - cone"
+	Value    float64  `json:"value"`
+	Quantity Quantity `json:"quantity"`
 }
 
 // Limits are the acceptance limits a test was graded against, as its spec
 // writes them. They are empty while the spec has not reached the device.
 type Limits struct {
-	SpecID        string
-	SpecName      string
-	MinCompaction string // percent; empty for none
-	MoistureBasis MoistureBasis
-	MoistureLow   string // empty for none
-	MoistureHigh  string // empty for none
+	SpecID        string        `json:"spec_id"`
+	SpecName      string        `json:"spec_name"`
+	MinCompaction string        `json:"min_compaction"` // percent; empty for none
+	MoistureBasis MoistureBasis `json:"moisture_basis"`
+	MoistureLow   string        `json:"moisture_low"`  // empty for none
+	MoistureHigh  string        `json:"moisture_high"` // empty for none
 }
 
 // Result is a graded test: the densities and moisture, the reference's
@@ -95,43 +95,43 @@ type Limits struct {
 // deviation, the verdict with its reasons, the flags of the arithmetic, and
 // the limits applied.
 type Result struct {
-	Method          Method
-	WetDensity      float64 // kg/m3
-	DryDensity      float64 // kg/m3
-	Moisture        float64 // percent
-	MaxDryDensity   float64 // kg/m3
-	OptimumMoisture float64 // percent
+	Method          Method  `json:"method"`
+	WetDensity      float64 `json:"wet_density"`      // kg/m3
+	DryDensity      float64 `json:"dry_density"`      // kg/m3
+	Moisture        float64 `json:"moisture"`         // percent
+	MaxDryDensity   float64 `json:"max_dry_density"`  // kg/m3
+	OptimumMoisture float64 `json:"optimum_moisture"` // percent
 	// RelativeCompaction is dry density / maximum dry density x 100.
-	RelativeCompaction float64
+	RelativeCompaction float64 `json:"relative_compaction"`
 	// MoistureDeviation is w - w_opt in points; MoisturePercentOfOptimum
 	// w / w_opt x 100.
-	MoistureDeviation        float64
-	MoisturePercentOfOptimum float64
+	MoistureDeviation        float64 `json:"moisture_deviation"`
+	MoisturePercentOfOptimum float64 `json:"moisture_percent_of_optimum"`
 	// ZeroAirVoids (kg/m3) and Saturation (percent) are zero when the
 	// reference gives no specific gravity.
-	ZeroAirVoids float64
-	Saturation   float64
-	Verdict      Verdict
-	Reasons      []Finding
-	Flags        []Finding
-	Limits       Limits
+	ZeroAirVoids float64   `json:"zero_air_voids_density"`
+	Saturation   float64   `json:"saturation"`
+	Verdict      Verdict   `json:"verdict"`
+	Reasons      []Finding `json:"reasons"`
+	Flags        []Finding `json:"flags"`
+	Limits       Limits    `json:"limits"`
 }
 
 // TestResult is what the inspector sees the moment a test is recorded.
 type TestResult struct {
-	TestID  string
-	EventID string // the revision just recorded
+	TestID  string `json:"test_id"`
+	EventID string `json:"event_id"` // the revision just recorded
 	// Result holds dry density, relative compaction, moisture deviation, the
 	// verdict (pending while the reference or spec has not reached the
 	// device), the reasons and the flags of the arithmetic.
-	Result Result
+	Result Result `json:"result"`
 	// Flags are the review flags of the record: equipment, retests,
 	// conflicts.
-	Flags []Finding
+	Flags []Finding `json:"flags"`
 	// Missing names records the test refers to that the device lacks.
-	Missing []string
+	Missing []string `json:"missing"`
 	// Steps show the arithmetic, for the inspector and the reviewer.
-	Steps []Step
+	Steps []Step `json:"steps"`
 }
 
 // ReviewStatus is where a test's current revision stands with the office.
@@ -146,82 +146,82 @@ const (
 
 // Test is an in-place density test with its whole history.
 type Test struct {
-	ID       string
-	Project  string
-	Author   string // the user who recorded it
-	Device   string
-	Taken    time.Time // the recording device's clock
-	Day      string    // YYYY-MM-DD of Taken in the project's time zone
-	RetestOf string    // the failing test this retests
-	Retests  []string  // the tests that retest this one
+	ID       string    `json:"id"`
+	Project  string    `json:"project"`
+	Author   string    `json:"author"` // the user who recorded it
+	Device   string    `json:"device"`
+	Taken    time.Time `json:"taken"`     // the recording device's clock
+	Day      string    `json:"day"`       // YYYY-MM-DD of Taken in the project's time zone
+	RetestOf string    `json:"retest_of"` // the failing test this retests
+	Retests  []string  `json:"retests"`   // the tests that retest this one
 	// Current is the event id of the current revision, Content its
 	// content (with Project set) and Result its grade, recomputed from the
 	// readings against the reference and spec the revision names.
-	Current string
-	Content TestInput
-	Result  Result
+	Current string    `json:"current"`
+	Content TestInput `json:"content"`
+	Result  Result    `json:"result"`
 	// Revisions are every revision, the original first; Unattached the
 	// event ids of corrections whose base this device does not hold.
-	Revisions    []Revision
-	Unattached   []string
-	Voided       bool
-	Voids        []Void
-	Reviews      []Review
-	ReviewStatus ReviewStatus
+	Revisions    []Revision   `json:"revisions"`
+	Unattached   []string     `json:"unattached"`
+	Voided       bool         `json:"voided"`
+	Voids        []Void       `json:"voids"`
+	Reviews      []Review     `json:"reviews"`
+	ReviewStatus ReviewStatus `json:"review_status"`
 	// Exceptions are QA's acceptances; ExceptionAccepted says one accepts
 	// the current revision, which closes its failure without a retest.
-	Exceptions        []Exception
-	ExceptionAccepted bool
+	Exceptions        []Exception `json:"exceptions"`
+	ExceptionAccepted bool        `json:"exception_accepted"`
 	// Flags are for review: conflicts, disagreements, equipment. The
 	// arithmetic's own flags are in Result.Flags.
-	Flags []Finding
+	Flags []Finding `json:"flags"`
 	// Missing names the records the current revision refers to that this
 	// device does not hold; while any is missing the verdict is pending.
-	Missing []string
+	Missing []string `json:"missing"`
 }
 
 // Revision is one revision of a test: the original or a correction.
 type Revision struct {
-	EventID    string
-	Supersedes string // the revision it corrects; empty for the original
-	Reason     string
-	Author     string
-	Time       time.Time // its hybrid clock time
-	Content    TestInput
+	EventID    string    `json:"event_id"`
+	Supersedes string    `json:"supersedes"` // the revision it corrects; empty for the original
+	Reason     string    `json:"reason"`
+	Author     string    `json:"author"`
+	Time       time.Time `json:"time"` // its hybrid clock time
+	Content    TestInput `json:"content"`
 }
 
 // Void is one voiding of a test.
 type Void struct {
-	EventID string
-	Author  string
-	Reason  string
+	EventID string `json:"event_id"`
+	Author  string `json:"author"`
+	Reason  string `json:"reason"`
 }
 
 // Review is one office review of a revision.
 type Review struct {
-	EventID  string
-	Author   string
-	Time     time.Time // its hybrid clock time
-	Revision string
-	Decision Decision
-	Comment  string
+	EventID  string    `json:"event_id"`
+	Author   string    `json:"author"`
+	Time     time.Time `json:"time"` // its hybrid clock time
+	Revision string    `json:"revision"`
+	Decision Decision  `json:"decision"`
+	Comment  string    `json:"comment"`
 }
 
 // Exception is a QA acceptance of a failing revision as it stands.
 type Exception struct {
-	EventID  string
-	Author   string
-	Revision string
-	Reason   string
+	EventID  string `json:"event_id"`
+	Author   string `json:"author"`
+	Revision string `json:"revision"`
+	Reason   string `json:"reason"`
 }
 
 // Checkpoint is a point of a project's hash-chained ledger: after Seq
 // entries of epoch Epoch the chain's hash is Hash (SHA-256, hex).
 type Checkpoint struct {
-	Project string
-	Epoch   uint64
-	Seq     uint64
-	Hash    string
+	Project string `json:"project"`
+	Epoch   uint64 `json:"epoch"`
+	Seq     uint64 `json:"seq"`
+	Hash    string `json:"hash"`
 }
 
 // Closure says how a failure was dealt with.
@@ -237,64 +237,64 @@ const (
 
 // RetestChain is a failing test and the retests that followed it.
 type RetestChain struct {
-	Failed  Test
-	Retests []Test // in the order taken, retests of retests included
-	Closure Closure
+	Failed  Test    `json:"failed"`
+	Retests []Test  `json:"retests"` // in the order taken, retests of retests included
+	Closure Closure `json:"closure"`
 	// StationShift is the largest distance along the alignment between the
 	// failing test and a retest, m: a retest far from the failure did not
 	// test the reworked area.
-	StationShift float64
+	StationShift float64 `json:"station_shift"`
 }
 
 // Frequency is the test count of one placement against its spec.
 type Frequency struct {
-	Placement Placement
-	SpecID    string
-	Tests     int // graded, not voided, not retests
-	Required  int // ceil(compacted volume / volume per test)
-	Shortfall int // Required - Tests when positive
+	Placement Placement `json:"placement"`
+	SpecID    string    `json:"spec_id"`
+	Tests     int       `json:"tests"`     // graded, not voided, not retests
+	Required  int       `json:"required"`  // ceil(compacted volume / volume per test)
+	Shortfall int       `json:"shortfall"` // Required - Tests when positive
 }
 
 // Lot is the statistical acceptance of the graded original tests of one
 // placement against one spec's minimum relative compaction, by percent
 // within limits.
 type Lot struct {
-	Placement Placement
-	SpecID    string
-	Values    []float64 // relative compaction of each test, percent
-	N         int
-	Mean      float64
-	StdDev    float64 // sample standard deviation (n - 1)
+	Placement Placement `json:"placement"`
+	SpecID    string    `json:"spec_id"`
+	Values    []float64 `json:"values"` // relative compaction of each test, percent
+	N         int       `json:"n"`
+	Mean      float64   `json:"mean"`
+	StdDev    float64   `json:"std_dev"` // sample standard deviation (n - 1)
 	// LowerLimit is the spec's minimum relative compaction; QualityIndex is
 	// (Mean - LowerLimit) / StdDev, and PWL the estimated percent of the
 	// lot at or above the limit.
-	LowerLimit   float64
-	QualityIndex float64
-	PWL          float64
+	LowerLimit   float64 `json:"lower_limit"`
+	QualityIndex float64 `json:"quality_index"`
+	PWL          float64 `json:"pwl"`
 }
 
 // VolumeBalance reconciles one borrow source: the compacted volume placed
 // from it, the bank volume that took from borrow (through dry mass) and
 // the loose volume hauled.
 type VolumeBalance struct {
-	BorrowSourceID  string
-	BorrowSource    string  // its name
-	BankDryDensity  float64 // kg/m3, mean of its bank tests
-	LooseDryDensity float64 // kg/m3; zero if not measured
-	CompactedVolume float64 // m3 placed from the source
-	FillDryDensity  float64 // kg/m3, mean of the graded original tests on those placements
-	Tests           int     // tests the fill density comes from
-	DryMass         float64 // kg
-	BankVolume      float64 // m3 of borrow consumed
-	LooseHauled     float64 // m3 loose, from the haul records
-	LooseExpected   float64 // m3 loose the dry mass implies; zero without a loose density
+	BorrowSourceID  string  `json:"borrow_source_id"`
+	BorrowSource    string  `json:"borrow_source"`     // its name
+	BankDryDensity  float64 `json:"bank_dry_density"`  // kg/m3, mean of its bank tests
+	LooseDryDensity float64 `json:"loose_dry_density"` // kg/m3; zero if not measured
+	CompactedVolume float64 `json:"compacted_volume"`  // m3 placed from the source
+	FillDryDensity  float64 `json:"fill_dry_density"`  // kg/m3, mean of the graded original tests on those placements
+	Tests           int     `json:"tests"`             // tests the fill density comes from
+	DryMass         float64 `json:"dry_mass"`          // kg
+	BankVolume      float64 `json:"bank_volume"`       // m3 of borrow consumed
+	LooseHauled     float64 `json:"loose_hauled"`      // m3 loose, from the haul records
+	LooseExpected   float64 `json:"loose_expected"`    // m3 loose the dry mass implies; zero without a loose density
 	// ShrinkagePercent and ShrinkFactor (compacted / bank) follow the
 	// project's ShrinkageBasis, written out in ShrinkDefinition; swell is
 	// zero without a loose density.
-	ShrinkagePercent float64
-	ShrinkFactor     float64
-	SwellPercent     float64
-	SwellFactor      float64
-	ShrinkDefinition string
-	SwellDefinition  string
+	ShrinkagePercent float64 `json:"shrinkage_percent"`
+	ShrinkFactor     float64 `json:"shrink_factor"`
+	SwellPercent     float64 `json:"swell_percent"`
+	SwellFactor      float64 `json:"swell_factor"`
+	ShrinkDefinition string  `json:"shrink_definition"`
+	SwellDefinition  string  `json:"swell_definition"`
 }

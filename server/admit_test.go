@@ -62,21 +62,24 @@ func TestPushRefusesImpossibleEntries(t *testing.T) {
 			b.GetTestRecorded().GetContent().DeviceResults = r
 		}
 	}
+	impossible, invalid, unknown := pb.RejectReason_REJECT_REASON_IMPOSSIBLE_READINGS, pb.RejectReason_REJECT_REASON_INVALID_FIELD,
+		pb.RejectReason_REJECT_REASON_UNKNOWN_KIND
 	cases := []struct {
 		name, field, says string
+		reason            pb.RejectReason
 		ev                ledger.Signed
 	}{
-		{"wet density 5e5 kg/m3", "readings.wet_density", "outside 500 to 3500 kg/m3", d.signRaw(t, project, wetTest(5e5), nil)},
-		{"wet density 1e300 kg/m3", "readings.wet_density", "outside 500 to 3500 kg/m3", d.signRaw(t, project, wetTest(1e300), nil)},
-		{"NaN device dry density", "device_results.dry_density", "finite",
+		{"wet density 5e5 kg/m3", "readings.wet_density", "outside 500 to 3500 kg/m3", impossible, d.signRaw(t, project, wetTest(5e5), nil)},
+		{"wet density 1e300 kg/m3", "readings.wet_density", "outside 500 to 3500 kg/m3", impossible, d.signRaw(t, project, wetTest(1e300), nil)},
+		{"NaN device dry density", "device_results.dry_density", "finite", invalid,
 			d.signRaw(t, project, wetTest(2000), results(func(r *pb.Results) { r.DryDensity = math.NaN() }))},
-		{"infinite device moisture", "device_results.moisture", "finite",
+		{"infinite device moisture", "device_results.moisture", "finite", invalid,
 			d.signRaw(t, project, wetTest(2000), results(func(r *pb.Results) { r.Moisture = math.Inf(1) }))},
-		{"hybrid time centuries ahead", "hlc", "years ahead of this server's clock",
+		{"hybrid time centuries ahead", "hlc", "years ahead of this server's clock", invalid,
 			d.signRaw(t, project, wetTest(2000), func(e *ledger.Event, _ *pb.EventBody) { e.HLC.Wall = time.Now().AddDate(300, 0, 0).UnixMicro() })},
-		{"device time in 1970", "device_time", "before 2000-01-01",
+		{"device time in 1970", "device_time", "before 2000-01-01", invalid,
 			d.signRaw(t, project, wetTest(2000), func(e *ledger.Event, _ *pb.EventBody) { e.DeviceTime = time.Unix(3600, 0) })},
-		{"1 KB unknown field", "#1000", "newer version",
+		{"1 KB unknown field", "#1000", "newer version", unknown,
 			d.signRaw(t, project, wetTest(2000), func(_ *ledger.Event, b *pb.EventBody) {
 				u := protowire.AppendBytes(protowire.AppendTag(nil, 1000, protowire.BytesType), make([]byte, 1024))
 				b.ProtoReflect().SetUnknown(u)
@@ -96,9 +99,12 @@ func TestPushRefusesImpossibleEntries(t *testing.T) {
 	}
 	for i, c := range cases {
 		o := resp.GetOutcomes()[i+1]
-		if o.GetStatus() != pb.PushStatus_PUSH_STATUS_REJECTED || !strings.Contains(o.GetMessage(), c.field+": ") ||
-			!strings.Contains(o.GetMessage(), c.says) {
-			t.Errorf("%s: %v %q, want rejected naming %s and saying %q", c.name, o.GetStatus(), o.GetMessage(), c.field, c.says)
+		if o.GetStatus() != pb.PushStatus_PUSH_STATUS_REJECTED || o.GetReason() != c.reason || o.GetField() != c.field || o.GetRule() != "" {
+			t.Errorf("%s: %v %v field %q rule %q, want rejected, %v, field %q", c.name, o.GetStatus(), o.GetReason(), o.GetField(), o.GetRule(), c.reason, c.field)
+		}
+		// The words are for people: they say what the bound is.
+		if !strings.Contains(o.GetMessage(), c.says) {
+			t.Errorf("%s: the message %q does not say %q", c.name, o.GetMessage(), c.says)
 		}
 	}
 	if h := c.head(); h.Seq == 0 {

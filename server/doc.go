@@ -14,7 +14,8 @@
 // mark. The reply gives every event's outcome: accepted with its sequence,
 // already present (appending is idempotent on the event id), waiting (it
 // refers to a record the server has not received; the device retries it),
-// or rejected with a reason. A rejected event never blocks the others. The
+// or rejected with a reason and the field at fault or, for a permission
+// refusal, the rule broken. A rejected event never blocks the others. The
 // server keeps each project's projection in memory and so recomputes every
 // test's result from its raw readings as it arrives, flagging device
 // results that disagree.

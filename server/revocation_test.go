@@ -3,7 +3,6 @@ package server_test
 import (
 	"context"
 	"errors"
-	"strings"
 	"testing"
 	"time"
 
@@ -53,14 +52,15 @@ func TestRevocationIsALedgerEntry(t *testing.T) {
 		t.Errorf("an entry held before the revocation, relayed: %v", o)
 	}
 	for i, name := range map[int]string{1: "after the revocation", 2: "after the revocation, dated before it"} {
-		if o := resp.GetOutcomes()[i]; o.GetReason() != pb.RejectReason_REJECT_REASON_PERMISSION_DENIED || !strings.Contains(o.GetMessage(), "signed_after_revocation") {
+		if o := resp.GetOutcomes()[i]; o.GetReason() != pb.RejectReason_REJECT_REASON_PERMISSION_DENIED || o.GetRule() != "signed_after_revocation" {
 			t.Errorf("an entry made %s, relayed: %v, want refused as signed_after_revocation", name, o)
 		}
 	}
 
 	// Nobody but the server makes a device entry.
 	forged := relay.sign(t, p, &ledger.DeviceRevoked{DeviceID: relay.id, Effective: time.Now(), RevokedBy: relay.user, Reason: "forged"})
-	if o := relay.first(t, c, p, forged); o.GetStatus() != pb.PushStatus_PUSH_STATUS_REJECTED || !strings.Contains(o.GetMessage(), "server_entries_only") {
+	if o := relay.first(t, c, p, forged); o.GetStatus() != pb.PushStatus_PUSH_STATUS_REJECTED || o.GetReason() != pb.RejectReason_REJECT_REASON_PERMISSION_DENIED ||
+		o.GetRule() != "server_entries_only" {
 		t.Errorf("a member's own device_revoked entry: %v", o)
 	}
 

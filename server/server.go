@@ -553,14 +553,17 @@ func (s *Server) verifyAll(ctx context.Context, events []*pb.Event) []decoded {
 	return out
 }
 
+// rejected is the outcome of an event refused by err: the reason, the field
+// or the rule and the words of its *ledger.Rejection.
 func rejected(id string, err error) *pb.PushOutcome {
+	o := &pb.PushOutcome{EventId: id, Status: pb.PushStatus_PUSH_STATUS_REJECTED,
+		Reason: pb.RejectReason_REJECT_REASON_MALFORMED, Message: "the event could not be read"}
 	var r *ledger.Rejection
-	reason := pb.RejectReason_REJECT_REASON_MALFORMED
-	msg := "the event could not be read"
 	if errors.As(err, &r) {
-		reason, msg = ledger.ReasonToProto(r.Reason), strings.TrimPrefix(r.Error(), "ledger: ")
+		o.Reason, o.Message = ledger.ReasonToProto(r.Reason), strings.TrimPrefix(r.Error(), "ledger: ")
+		o.Field, o.Rule = r.FieldRule()
 	}
-	return &pb.PushOutcome{EventId: id, Status: pb.PushStatus_PUSH_STATUS_REJECTED, Reason: reason, Message: msg}
+	return o
 }
 
 // push appends a batch of events to a project's ledger.

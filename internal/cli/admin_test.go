@@ -134,6 +134,20 @@ func TestAdminFlow(t *testing.T) {
 	if st := must(t, "status", "--store", inspStore); !strings.Contains(st, "project "+project+": 0 pending") {
 		t.Errorf("status: %s", st)
 	}
+	// The inspector sets the project up, which the server refuses by a
+	// rule; status lists the refusal with the rule apart.
+	s, err = client.Open(context.Background(), inspStore, client.Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := s.SetUpProject(context.Background(), project, client.ProjectSetUp{Name: "mine now", Units: client.SI}); err != nil {
+		t.Fatal(err)
+	}
+	s.Close()
+	must(t, "sync", "--store", inspStore, "--project", project)
+	if st := must(t, "status", "--store", inspStore); !strings.Contains(st, "project_set_up") || !strings.Contains(st, "(permission_denied, rule role_may_make_entry)") {
+		t.Errorf("status after a refused entry: %s", st)
+	}
 	must(t, "admin", "--store", adminStore, "revoke-device", "--device", inspDevice, "--reason", "tablet lost")
 	if _, _, err := run(t, "sync", "--store", inspStore, "--project", project); !errors.Is(err, client.ErrRevoked) {
 		t.Errorf("sync after revocation: %v", err)

@@ -214,7 +214,14 @@ func newStatus() *cobra.Command {
 				return err
 			}
 			for _, r := range rs {
-				fmt.Fprintf(out, "rejected %s %s %s: %s (%s)\n", escape(r.EventID), escape(r.Kind), escape(r.RecordID), escape(r.Message), escape(r.Reason))
+				why := r.Reason
+				if r.Rule != "" {
+					why += ", rule " + r.Rule
+				}
+				if r.Field != "" {
+					why += ", field " + r.Field
+				}
+				fmt.Fprintf(out, "rejected %s %s %s: %s (%s)\n", escape(r.EventID), escape(r.Kind), escape(r.RecordID), escape(r.Message), escape(why))
 			}
 			return nil
 		},

@@ -51,6 +51,16 @@ func (r *Rejection) Error() string {
 
 func (r *Rejection) Unwrap() error { return r.Err }
 
+// FieldRule returns what the rejection names, as a push outcome carries it:
+// the rule broken for PermissionDenied (whose Field holds the rule's name,
+// e.g. "no_self_review"), and the field at fault for every other reason.
+func (r *Rejection) FieldRule() (field, rule string) {
+	if r.Reason == PermissionDenied {
+		return "", r.Field
+	}
+	return r.Field, ""
+}
+
 func reject(reason Reason, field, detail string) *Rejection {
 	return &Rejection{Reason: reason, Field: field, Detail: detail}
 }

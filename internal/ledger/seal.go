@@ -37,8 +37,13 @@ func EncodeBody(e Event) ([]byte, error) {
 	return deterministic.Marshal(b)
 }
 
-// Seal checks e as a new entry (Admit), encodes it canonically and signs it
-// with the device key. It returns a *Rejection when e breaks a rule.
+// Seal checks e as a new entry (Validate, Admit), encodes it canonically
+// and signs it with the device key. The Signed it returns holds the event
+// as decoded from the signed body, not e itself: the value every replica
+// decodes from the same bytes (an empty list becomes nil, a time is cut to
+// the microsecond), so the device's view is built from what the others
+// hold. Validate runs on e and again, with Admit, on the decoded event, as
+// a replica runs them. It returns a *Rejection when the event breaks a rule.
 func Seal(e Event, key ed25519.PrivateKey) (Signed, error) {
 	if err := Validate(e); err != nil {
 		return Signed{}, err
@@ -50,10 +55,21 @@ func Seal(e Event, key ed25519.PrivateKey) (Signed, error) {
 	if len(body) > MaxEventBytes {
 		return Signed{}, reject(Malformed, "", fmt.Sprintf("the event encodes to %d bytes, above the limit of %d", len(body), MaxEventBytes))
 	}
-	if err := admit(e, body); err != nil {
+	var m pb.EventBody
+	if err := proto.Unmarshal(body, &m); err != nil {
+		return Signed{}, fmt.Errorf("ledger: seal %s: decode the body: %w", e.ID, err)
+	}
+	d, err := FromProto(&m)
+	if err != nil {
+		return Signed{}, fmt.Errorf("ledger: seal %s: decode the body: %w", e.ID, err)
+	}
+	if err := Validate(d); err != nil {
 		return Signed{}, err
 	}
-	return Signed{Event: e, Body: body, Signature: ed25519.Sign(key, signed(body))}, nil
+	if err := admit(d, body); err != nil {
+		return Signed{}, err
+	}
+	return Signed{Event: d, Body: body, Signature: ed25519.Sign(key, signed(body))}, nil
 }
 
 func signed(body []byte) []byte {

@@ -6,9 +6,11 @@ import (
 	"testing"
 	"time"
 
+	"github.com/google/go-cmp/cmp"
 	"google.golang.org/protobuf/proto"
 
 	pb "tamp/internal/gen/tamp/v1"
+	"tamp/internal/soil"
 )
 
 func TestSealOpen(t *testing.T) {
@@ -206,6 +208,58 @@ func TestBytesIsDeterministicMarshal(t *testing.T) {
 		}
 		if got := s.Bytes(); string(got) != string(want) {
 			t.Errorf("Bytes() of body %d, signature %d bytes = %x, want %x", len(s.Body), len(s.Signature), got, want)
+		}
+	}
+}
+
+// Seal returns the event as every replica decodes it from the signed
+// bytes, not the value it was given: an empty list comes back nil and a
+// time is cut to the microsecond, so the view a device builds from what it
+// sealed is the view a replica builds from the bytes.
+func TestSealReturnsTheDecodedEvent(t *testing.T) {
+	f := newFixture(t, 18)
+	d := f.device("ann")
+	ref := f.reference()
+	ref.Points = []soil.CurvePoint{} // empty, not nil: encoded as no points, decoded as nil
+	ref.MaxDryDensity, ref.OptimumMoisture = pcf(115.8), 13.4
+	test := f.test(ref.ID, "", 110, 12)
+	at := time.Date(2026, 6, 15, 14, 30, 0, 123456789, time.FixedZone("MDT", -6*3600)) // nanoseconds, and a zone
+	var sealed, decoded []Signed
+	for i, k := range []Kind{ref, test} {
+		e := Event{ID: f.id(true), Project: f.project, Author: d.user, Device: d.id, DeviceSeq: uint64(i + 1),
+			HLC: d.clock.Now(), DeviceTime: at, Kind: k}
+		s, err := Seal(e, d.key)
+		if err != nil {
+			t.Fatalf("seal %s: %v", k.KindName(), err)
+		}
+		got, err := Decode(s.Bytes())
+		if err != nil {
+			t.Fatalf("decode %s: %v", k.KindName(), err)
+		}
+		if diff := cmp.Diff(got.Event, s.Event); diff != "" {
+			t.Errorf("the event Seal returns differs from the one decoded from its bytes (-decoded +sealed):\n%s", diff)
+		}
+		sealed, decoded = append(sealed, s), append(decoded, got)
+	}
+	device, replica := NewProjection(f.project), NewProjection(f.project)
+	apply(t, device, sealed...)
+	apply(t, replica, decoded...)
+	if device.Digest() != replica.Digest() {
+		t.Errorf("the view built from the sealed events differs from the one built from their bytes")
+	}
+}
+
+// BenchmarkSeal measures checking, encoding and signing one test entry, as
+// a device does for every entry it records.
+func BenchmarkSeal(b *testing.B) {
+	f := newFixture(b, 17)
+	d := f.device("ann")
+	e := Event{ID: f.id(true), Project: f.project, Author: d.user, Device: d.id, DeviceSeq: 1,
+		HLC: d.clock.Now(), DeviceTime: f.wall, Kind: f.test("", "", 110, 12)}
+	b.ReportAllocs()
+	for b.Loop() {
+		if _, err := Seal(e, d.key); err != nil {
+			b.Fatal(err)
 		}
 	}
 }

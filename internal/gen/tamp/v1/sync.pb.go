@@ -320,10 +320,21 @@ type PushOutcome struct {
 	Sequence uint64 `protobuf:"varint,3,opt,name=sequence,proto3" json:"sequence,omitempty"`
 	// Why it was refused, when rejected.
 	Reason RejectReason `protobuf:"varint,4,opt,name=reason,proto3,enum=tamp.v1.RejectReason" json:"reason,omitempty"`
-	// Plain-language detail for the user.
+	// Plain-language detail for the user. Programs read reason, field and
+	// rule instead.
 	Message string `protobuf:"bytes,5,opt,name=message,proto3" json:"message,omitempty"`
 	// The records it waits for, when waiting.
-	WaitingFor    []string `protobuf:"bytes,6,rep,name=waiting_for,json=waitingFor,proto3" json:"waiting_for,omitempty"`
+	WaitingFor []string `protobuf:"bytes,6,rep,name=waiting_for,json=waitingFor,proto3" json:"waiting_for,omitempty"`
+	// When rejected for any reason but REJECT_REASON_PERMISSION_DENIED, the
+	// field at fault, as a path within the entry (e.g.
+	// "readings.sand_cone.soil_mass", "project_id", "signature"); empty when
+	// no one field is.
+	Field string `protobuf:"bytes,7,opt,name=field,proto3" json:"field,omitempty"`
+	// When rejected with REJECT_REASON_PERMISSION_DENIED, the rule the entry
+	// breaks (e.g. "role_may_make_entry", "own_tests_only", "no_self_review",
+	// "signed_after_revocation", "server_entries_only", "enrolled_device");
+	// empty otherwise.
+	Rule          string `protobuf:"bytes,8,opt,name=rule,proto3" json:"rule,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -398,6 +409,20 @@ func (x *PushOutcome) GetWaitingFor() []string {
 		return x.WaitingFor
 	}
 	return nil
+}
+
+func (x *PushOutcome) GetField() string {
+	if x != nil {
+		return x.Field
+	}
+	return ""
+}
+
+func (x *PushOutcome) GetRule() string {
+	if x != nil {
+		return x.Rule
+	}
+	return ""
 }
 
 // PushResponse reports every pushed event's outcome, in request order.
@@ -790,7 +815,7 @@ const file_tamp_v1_sync_proto_rawDesc = "" +
 	"project_id\x18\x01 \x01(\tR\tprojectId\x12&\n" +
 	"\x06events\x18\x02 \x03(\v2\x0e.tamp.v1.EventR\x06events\x12,\n" +
 	"\x12device_time_micros\x18\x03 \x01(\x03R\x10deviceTimeMicros\x12/\n" +
-	"\bverified\x18\x04 \x01(\v2\x13.tamp.v1.CheckpointR\bverified\"\xdb\x01\n" +
+	"\bverified\x18\x04 \x01(\v2\x13.tamp.v1.CheckpointR\bverified\"\x85\x02\n" +
 	"\vPushOutcome\x12\x19\n" +
 	"\bevent_id\x18\x01 \x01(\tR\aeventId\x12+\n" +
 	"\x06status\x18\x02 \x01(\x0e2\x13.tamp.v1.PushStatusR\x06status\x12\x1a\n" +
@@ -798,7 +823,9 @@ const file_tamp_v1_sync_proto_rawDesc = "" +
 	"\x06reason\x18\x04 \x01(\x0e2\x15.tamp.v1.RejectReasonR\x06reason\x12\x18\n" +
 	"\amessage\x18\x05 \x01(\tR\amessage\x12\x1f\n" +
 	"\vwaiting_for\x18\x06 \x03(\tR\n" +
-	"waitingFor\"\xc8\x01\n" +
+	"waitingFor\x12\x14\n" +
+	"\x05field\x18\a \x01(\tR\x05field\x12\x12\n" +
+	"\x04rule\x18\b \x01(\tR\x04rule\"\xc8\x01\n" +
 	"\fPushResponse\x120\n" +
 	"\boutcomes\x18\x01 \x03(\v2\x14.tamp.v1.PushOutcomeR\boutcomes\x12'\n" +
 	"\x04head\x18\x02 \x01(\v2\x13.tamp.v1.CheckpointR\x04head\x12*\n" +

@@ -1,0 +1,111 @@
+package mobile
+
+import (
+	"context"
+
+	"tamp/client"
+)
+
+// Test returns a test with its whole history, as {"schema", "test": {...}}.
+func (s *Store) Test(project, testID string) (string, error) {
+	t, err := s.s.Test(project, testID)
+	if err != nil {
+		return "", wrap(err)
+	}
+	return out("test", t)
+}
+
+// Today returns the tests taken today, as {"schema", "tests": [...]}.
+func (s *Store) Today(project string) (string, error) {
+	return out("tests", nonNil(s.s.Today(project)))
+}
+
+// TestsOn returns the tests taken on day (YYYY-MM-DD, the project's time
+// zone), as {"schema", "tests": [...]}.
+func (s *Store) TestsOn(project, day string) (string, error) {
+	return out("tests", nonNil(s.s.TestsOn(project, day)))
+}
+
+// OpenFailures returns the failing tests that still need a retest, as
+// {"schema", "tests": [...]}.
+func (s *Store) OpenFailures(project string) (string, error) {
+	return out("tests", nonNil(s.s.OpenFailures(project)))
+}
+
+// Conflicts returns the tests whose revisions conflict, as {"schema",
+// "tests": [...]}.
+func (s *Store) Conflicts(project string) (string, error) {
+	return out("tests", nonNil(s.s.Conflicts(project)))
+}
+
+// Rejected returns the entries the server refused, with why, as
+// {"schema", "rejected": [...]}.
+func (s *Store) Rejected() (string, error) {
+	rs, err := s.s.Rejected(context.Background())
+	if err != nil {
+		return "", wrap(err)
+	}
+	if rs == nil {
+		rs = []client.Rejected{}
+	}
+	return out("rejected", rs)
+}
+
+// Status returns a project's sync status (last success and error, the
+// point verified, the outbox, entries the server lacks, entries waiting
+// too long), as {"schema", "status": {...}}.
+func (s *Store) Status(project string) (string, error) {
+	st, err := s.s.Status(context.Background(), project)
+	if err != nil {
+		return "", wrap(err)
+	}
+	return out("status", st)
+}
+
+// The reports Report computes.
+const (
+	ReportReviewQueue    = "review_queue"   // the day's tests awaiting review (day: YYYY-MM-DD, "" for all)
+	ReportRetestAudit    = "retest_audit"   // every failure with its retests
+	ReportFrequency      = "frequency"      // tests required and taken per placement
+	ReportLots           = "lots"           // percent within limits per lot
+	ReportReconciliation = "reconciliation" // volumes per borrow source
+)
+
+// Report computes a report from the device's own copy of the project's
+// ledger, as the server would, offline: name is one of the Report
+// constants; day is used by the review queue. It returns {"schema",
+// name: [...]}.
+func (s *Store) Report(project, name, day string) (string, error) {
+	var v any
+	switch name {
+	case ReportReviewQueue:
+		v = nonNil(s.s.ReviewQueue(project, day))
+	case ReportRetestAudit:
+		v = s.s.RetestAudit(project)
+	case ReportFrequency:
+		v = s.s.Frequency(project)
+	case ReportLots:
+		lots, err := s.s.Lots(project)
+		if err != nil {
+			return "", wrap(err)
+		}
+		v = lots
+	case ReportReconciliation:
+		r, err := s.s.Reconcile(project)
+		if err != nil {
+			return "", wrap(err)
+		}
+		v = r
+	default:
+		return "", &Error{Reason: ReasonUnknownReport, Field: "name", Message: "mobile: no report " + name +
+			"; the reports are review_queue, retest_audit, frequency, lots and reconciliation"}
+	}
+	return out(name, v)
+}
+
+func nonNil(ts []client.Test) []client.Test {
+	if ts == nil {
+		return []client.Test{}
+	}
+	return ts
+}
