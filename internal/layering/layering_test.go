@@ -1,6 +1,9 @@
-// Package layering holds a test that the pure arithmetic packages import no
-// storage, transport or generated code, so the numbers a device shows are
-// computed the same way everywhere.
+// Package layering holds the tests of the module's shape: the pure
+// arithmetic packages import no storage, transport or generated code, so
+// the numbers a device shows are computed the same way everywhere; no
+// exported identifier of a public package names a type of an internal one;
+// and a module outside this one can do a crew's day through the public
+// packages alone.
 package layering
 
 import (
