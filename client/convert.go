@@ -424,3 +424,58 @@ func balanceOf(b report.Balance) VolumeBalance {
 		SwellPercent: b.Balance.SwellPercent, SwellFactor: b.Balance.SwellFactor, ShrinkDefinition: b.Balance.ShrinkDefinition,
 		SwellDefinition: b.Balance.SwellDefinition}
 }
+
+// The project's records, read back (records.go).
+
+func setUpOf(k ledger.ProjectSetUp) ProjectSetUp {
+	out := ProjectSetUp{Name: k.Name, WaterDensity: k.WaterDensity, ClockSkewLimit: k.ClockSkewLimit, TimeZone: k.TimeZone}
+	for u, sys := range unitsToLedger {
+		if u != "" && sys == k.Units {
+			out.Units = u
+		}
+	}
+	out.Shrinkage = BankBasis
+	if k.Shrinkage == earthwork.CompactedBasis {
+		out.Shrinkage = CompactedBasis
+	}
+	return out
+}
+
+func specOf(k *ledger.SpecDefined) Spec {
+	return Spec{ID: k.ID, Name: k.Name, MinCompaction: k.MinCompaction, MoistureBasis: basisOf(k.MoistureBasis),
+		MoistureLow: k.MoistureLow, MoistureHigh: k.MoistureHigh, SuspectCompaction: k.SuspectCompaction, VolumePerTest: k.VolumePerTest}
+}
+
+func labReferenceOf(r *ledger.Reference) LabReference {
+	pts := each(r.Points, func(p soil.CurvePoint) CurvePoint { return CurvePoint{Moisture: p.Moisture, DryDensity: p.DryDensity} })
+	ref := Reference{ID: r.ID, Material: r.Material, LabSampleID: r.LabSampleID, Standard: Standard(r.Procedure.Standard),
+		Method: r.Procedure.Method, Edition: r.Procedure.Edition, Points: pts, MaxDryDensity: r.MaxDryDensity,
+		OptimumMoisture: r.OptimumMoisture, SpecificGravity: r.Gs}
+	return LabReference{Reference: ref, GradingMaxDryDensity: r.MaxDry, GradingOptimumMoisture: r.Optimum,
+		Fitted: r.MaxDryDensity == 0 && r.Fit != nil, Bracketed: r.Bracketed, Flags: findingsOf(r.Flags), RecordedBy: r.Author}
+}
+
+func equipmentOf(e *ledger.Equipment) EquipmentRecord {
+	out := EquipmentRecord{Equipment: Equipment{ID: e.ID, Model: e.Model, SerialNumber: e.SerialNumber, CalibrationDue: e.CalibrationDue},
+		RecordedBy: e.Author}
+	for k, v := range equipmentToLedger {
+		if v == e.Kind {
+			out.Kind = k
+		}
+	}
+	out.Counts = each(e.Counts, func(c ledger.StandardCountRecorded) StandardCount {
+		return StandardCount{EquipmentID: c.EquipmentID, Date: c.Date, DensityCount: c.DensityCount, MoistureCount: c.MoistureCount,
+			Accepted: c.Accepted}
+	})
+	return out
+}
+
+func borrowOf(k *ledger.BorrowSourceMeasured) BorrowSource {
+	return BorrowSource{ID: k.ID, Name: k.Name, BankTests: each(k.BankTests, readingsOf), LooseDryDensity: k.LooseDryDensity,
+		ReferenceID: k.ReferenceID}
+}
+
+func haulOf(k *ledger.HaulRecorded) Haul {
+	return Haul{ID: k.ID, BorrowSourceID: k.BorrowSourceID, Loads: k.Loads, LooseVolumePerLoad: k.LooseVolumePerLoad,
+		PlacementID: k.PlacementID, HauledOn: k.HauledOn}
+}

@@ -75,7 +75,7 @@ type SyncReport struct {
 	AlreadyPresent int           `json:"already_present"`  // outcomes of pushed events
 	Waiting        int           `json:"waiting"`          // outcomes of pushed events
 	Rejected       int           `json:"rejected"`         // outcomes of pushed events
-	Pulled         int           `json:"pulled"`           // events received and applied
+	Pulled         int           `json:"pulled"`           // other devices' entries received that the device did not hold, each once
 	Head           Checkpoint    `json:"head"`             // the point of the server's ledger verified
 	ClockSkew      time.Duration `json:"clock_skew_nanos"` // device clock minus server clock
 	Repushed       int           `json:"repushed"`         // events pushed back that the server had lost (a fork, a new epoch, a restore)
@@ -95,6 +95,10 @@ type SyncStatus struct {
 	// found missing from the server's ledger.
 	Unconfirmed int `json:"unconfirmed"`
 	ServerLacks int `json:"server_lacks"`
+	// Waiting counts this device's entries the server holds back until it
+	// receives the records they refer to (they are part of Outbox.Pending
+	// and are offered again at every sync).
+	Waiting int `json:"waiting"`
 	// ServerMissing lists entries the server asked for that this device
 	// does not hold.
 	ServerMissing []MissingEntry `json:"server_missing"`
@@ -146,8 +150,8 @@ func (s *Store) Status(ctx context.Context, project string) (SyncStatus, error) 
 		st.LastAttempt = time.UnixMicro(at).UTC()
 	}
 	var oldest sql.NullInt64
-	if err := s.db.Reader().QueryRowContext(ctx, `SELECT COUNT(*), MIN(created_micros) FROM events
-		WHERE origin = 'local' AND status IN ('pending', 'waiting') AND project_id = ?`, project).Scan(&st.Outbox.Pending, &oldest); err != nil {
+	if err := s.db.Reader().QueryRowContext(ctx, `SELECT COUNT(*), COUNT(*) FILTER (WHERE status = 'waiting'), MIN(created_micros) FROM events
+		WHERE origin = 'local' AND status IN ('pending', 'waiting') AND project_id = ?`, project).Scan(&st.Outbox.Pending, &st.Waiting, &oldest); err != nil {
 		return st, fmt.Errorf("client: sync status: %w", err)
 	}
 	if oldest.Valid {
@@ -690,11 +694,12 @@ func (s *Store) pull(ctx context.Context, sc pb.SyncServiceClient, project strin
 		} else {
 			seqs = nil // out of chain order: keep no sequence for them yet
 		}
-		if err := s.applyPulled(ctx, project, signed, seqs, v.At(), !resp.GetReferenceData()); err != nil {
+		fresh, err := s.applyPulled(ctx, project, signed, seqs, v.At(), !resp.GetReferenceData())
+		if err != nil {
 			return err
 		}
 		received += len(signed)
-		rep.Pulled += len(signed)
+		rep.Pulled += fresh
 		if opts.Progress != nil {
 			opts.Progress(Progress{Phase: "pull", Events: received, Bytes: bytes})
 		}
@@ -732,14 +737,22 @@ func (s *Store) resetCheckpointIfNew(ctx context.Context, cp ledger.Checkpoint) 
 }
 
 // applyPulled stores and applies pulled events, with the new checkpoint
-// when they are chain entries, in one transaction.
-func (s *Store) applyPulled(ctx context.Context, project string, evs []ledger.Signed, seqs []uint64, cp ledger.Checkpoint, chained bool) error {
+// when they are chain entries, in one transaction. It returns how many of
+// them are other devices' entries this device did not hold before: what
+// SyncReport.Pulled counts (the device's own entries come back in the
+// chain, and a first sync receives the reference data twice).
+func (s *Store) applyPulled(ctx context.Context, project string, evs []ledger.Signed, seqs []uint64, cp ledger.Checkpoint, chained bool) (int, error) {
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	v := s.view(project)
+	fresh := 0
 	for _, sg := range evs {
-		if held, ok := v.Event(sg.Event.ID); ok && !bytes.Equal(held.Body, sg.Body) {
-			return &forkError{fmt.Errorf("event %s from the server differs from the one this device holds", sg.Event.ID)}
+		held, ok := v.Event(sg.Event.ID)
+		if ok && !bytes.Equal(held.Body, sg.Body) {
+			return 0, &forkError{fmt.Errorf("event %s from the server differs from the one this device holds", sg.Event.ID)}
+		}
+		if !ok && sg.Event.Device != s.deviceID {
+			fresh++
 		}
 	}
 	err := s.db.Tx(ctx, func(tx *sql.Tx) error {
@@ -770,13 +783,13 @@ func (s *Store) applyPulled(ctx context.Context, project string, evs []ledger.Si
 		return nil
 	})
 	if err != nil {
-		return err
+		return 0, err
 	}
 	for _, sg := range evs {
 		if _, err := v.Apply(sg); err != nil { // Open validated it and its bytes are new or the same
-			return fmt.Errorf("client: apply pulled %s: %w", sg.Event.ID, err)
+			return 0, fmt.Errorf("client: apply pulled %s: %w", sg.Event.ID, err)
 		}
 		s.clock.Observe(sg.Event.HLC)
 	}
-	return nil
+	return fresh, nil
 }

@@ -70,14 +70,18 @@ breaks a line or a column.`,
 	var project, user, newUser, role string
 	add := &cobra.Command{
 		Use: "add-member", Short: "Give a user a role on a project", Args: cobra.NoArgs,
-		Example: `  tamp admin add-member --project P --new-user "R. Okafor" --role inspector`,
+		Example: `  tamp admin add-member --project "Cinder Butte interchange" --new-user "R. Okafor" --role inspector`,
 		RunE: func(cmd *cobra.Command, _ []string) error {
 			r, ok := roleNames[role]
 			if !ok {
 				return fmt.Errorf("--role: must be inspector, office, qa or admin, not %q", role)
 			}
 			return adminCall(cmd, &f, func(ctx context.Context, ac pb.AdminServiceClient, out io.Writer) error {
-				resp, err := ac.AddMember(ctx, &pb.AddMemberRequest{ProjectId: project, UserId: user, UserName: newUser, Role: r})
+				id, err := projectOf(ctx, &f, project)
+				if err != nil {
+					return err
+				}
+				resp, err := ac.AddMember(ctx, &pb.AddMemberRequest{ProjectId: id, UserId: user, UserName: newUser, Role: r})
 				if err != nil {
 					return err
 				}
@@ -85,7 +89,7 @@ breaks a line or a column.`,
 			})
 		},
 	}
-	add.Flags().StringVar(&project, "project", "", "the project")
+	add.Flags().StringVar(&project, "project", "", "the project, by name or id (default: the one remembered)")
 	add.Flags().StringVar(&user, "user", "", "an existing user's id")
 	add.Flags().StringVar(&newUser, "new-user", "", "the name of a new user to create")
 	add.Flags().StringVar(&role, "role", "", "inspector, office, qa or admin")
@@ -95,7 +99,11 @@ breaks a line or a column.`,
 		Use: "members", Short: "List a project's members", Args: cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, _ []string) error {
 			return adminCall(cmd, &f, func(ctx context.Context, ac pb.AdminServiceClient, out io.Writer) error {
-				r, err := ac.ListMembers(ctx, &pb.ListMembersRequest{ProjectId: project})
+				id, err := projectOf(ctx, &f, project)
+				if err != nil {
+					return err
+				}
+				r, err := ac.ListMembers(ctx, &pb.ListMembersRequest{ProjectId: id})
 				if err != nil {
 					return err
 				}
@@ -106,7 +114,7 @@ breaks a line or a column.`,
 			})
 		},
 	}
-	members.Flags().StringVar(&project, "project", "", "the project")
+	members.Flags().StringVar(&project, "project", "", "the project, by name or id (default: the one remembered)")
 
 	var validFor time.Duration
 	code := &cobra.Command{
@@ -166,4 +174,15 @@ breaks a line or a column.`,
 	c.AddCommand(create, add, members, code, revoke, devices)
 	c.AddCommand(newInvitationCommands(&f)...)
 	return c
+}
+
+// projectOf resolves a project given by name or id (or the one remembered)
+// on the device's store, for the administration calls, which take ids.
+func projectOf(ctx context.Context, f *deviceFlags, given string) (string, error) {
+	s, err := f.open(ctx)
+	if err != nil {
+		return "", err
+	}
+	defer s.Close()
+	return resolveProject(ctx, s, given)
 }

@@ -125,7 +125,7 @@ func TestAdminFlow(t *testing.T) {
 	s.Close()
 	must(t, "sync", "--store", adminStore, "--project", project)
 	export := filepath.Join(t.TempDir(), "ledger.tamp")
-	if out := must(t, "export", "--store", adminStore, "--project", project, "--out", export); !strings.Contains(out, "events written") {
+	if out := must(t, "export", "--store", adminStore, "--project", project, "--out", export); !strings.Contains(out, "events of project") {
 		t.Errorf("export: %s", out)
 	}
 	if out := must(t, "verify", export); !strings.HasPrefix(out, "ok: project "+project) {

@@ -17,9 +17,9 @@ import (
 func newCalc() *cobra.Command {
 	c := &cobra.Command{
 		Use:   "calc",
-		Short: "Compute a test, a volume balance or a lot's percent within limits, with no project or server",
+		Short: "Compute a test, a compaction curve, a volume balance or a lot's percent within limits, with no project or server",
 	}
-	c.AddCommand(newCalcTest(), newCalcVolume(), newCalcPWL())
+	c.AddCommand(newCalcTest(), newCalcCurve(), newCalcVolume(), newCalcPWL())
 	return c
 }
 
@@ -30,6 +30,10 @@ var flagNames = map[string]string{
 	"optimum_moisture":   "omc",
 	"suspect_compaction": "suspect-rc",
 	"values[0]":          "values",
+	"diameter":           "cylinder-diameter",
+	"length":             "cylinder-length",
+	"initial_reading":    "balloon-initial",
+	"final_reading":      "balloon-final",
 }
 
 // inputError rewrites a *valid.FieldError in the command line's words: the

@@ -222,7 +222,7 @@ func TestCalcBadInput(t *testing.T) {
 		{"bad limit", []string{"calc", "test", "--wet-density", "120", "--moisture", "10", "--mdd", "116", "--omc", "13", "--min-rc", "ninety"}, "--min-rc ninety"},
 		{"bad window", []string{"calc", "test", "--wet-density", "120", "--moisture", "10", "--mdd", "116", "--omc", "13", "--moisture-window", "2"}, "moisture-window"},
 		{"mdd without omc", []string{"calc", "test", "--wet-density", "120", "--moisture", "10", "--mdd", "116"}, "omc"},
-		{"M above wet", []string{"calc", "test", "--wet-density", "120", "--water-per-volume", "130"}, "--water-per-volume 130: must be less than wet_density"},
+		{"M above wet", []string{"calc", "test", "--wet-density", "50", "--water-per-volume", "55"}, "--water-per-volume 55: must be less than wet_density"},
 		{"units", []string{"calc", "test", "--units", "metric", "--wet-density", "120", "--moisture", "10"}, "units"},
 		{"zero volume density", []string{"calc", "volume", "--compacted-volume", "100", "--compacted-dry-density", "112", "--bank-dry-density", "0"}, "--bank-dry-density 0: must be greater than zero"},
 		{"pwl too few", []string{"calc", "pwl", "--values", "96,97", "--lower", "95"}, "at least 3"},

@@ -10,12 +10,15 @@ import (
 
 	"tamp/internal/qc"
 	"tamp/internal/soil"
+	"tamp/internal/valid"
 )
 
 type testFlags struct {
 	units                                 string
 	wet, moisture, m, offset              float64
 	sandUsed, cone, sandDensity, soilMass float64
+	cylDiameter, cylLength                float64
+	balloonInitial, balloonFinal          float64
 	mdd, omc, gs                          float64
 	overPct, overGs, overW                float64
 	minRC, window                         string
@@ -32,11 +35,17 @@ func newCalcTest() *cobra.Command {
 and a specification, with no project or server.
 
 The method follows from the flags given:
-  sand cone      --sand-used --cone-correction --sand-density --soil-mass --moisture
-  nuclear gauge  --wet-density --water-per-volume [--moisture-offset] [--probe-depth]
-  other          --wet-density --moisture (a wet density measured by other means)
+  sand cone       --sand-used --cone-correction --sand-density --soil-mass --moisture
+  drive cylinder  --cylinder-diameter --cylinder-length --soil-mass --moisture
+  rubber balloon  --balloon-initial --balloon-final --soil-mass --moisture
+  nuclear gauge   --wet-density --water-per-volume [--moisture-offset] [--probe-depth]
+  other           --wet-density --moisture (a wet density measured by other means)
 
-Masses are lb (us) or g (si); densities pcf or kg/m3; depths in or mm.
+Masses are lb (us) or g (si); densities pcf or kg/m3; the cylinder's
+dimensions and depths in or mm; the balloon's volume readings ft3 or cm3.
+Readings no soil or apparatus can give (a wet density outside 500 to
+3500 kg/m3, a dry density at or above the solids' Gs x water, a mass above
+200 kg) are refused, not graded: they are most often a unit keyed wrong.
 --min-rc is read as written: "95" and "95.0" are different limits, because
 conformance is decided on the value rounded to the limit's last place
 (AASHTO R 11 / ASTM E29). --moisture-window LO,HI is in points of optimum;
@@ -48,6 +57,9 @@ never replace, review by qualified personnel; the project's specifications and
 local codes govern every acceptance limit.`,
 		Example: `  tamp calc test --sand-used 7.00 --cone-correction 0.53 --sand-density 99.0 \
       --soil-mass 8.11 --moisture 11.1 --mdd 116.0 --omc 13.5 --min-rc 95 --moisture-window -2,2
+  tamp calc test --cylinder-diameter 4.000 --cylinder-length 5.000 --soil-mass 4.40 --moisture 12.0 \
+      --mdd 115.0 --omc 13.0 --min-rc 95
+  tamp calc test --units si --balloon-initial 1020 --balloon-final 2850 --soil-mass 3600 --moisture 9
   tamp calc test --wet-density 130.0 --water-per-volume 14.0 --moisture-offset 1.4 --json`,
 		Args: cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, _ []string) error {
@@ -70,7 +82,11 @@ local codes govern every acceptance limit.`,
 	fl.Float64Var(&f.sandUsed, "sand-used", 0, "sand cone: sand that left the apparatus, lb or g")
 	fl.Float64Var(&f.cone, "cone-correction", 0, "sand cone: sand that fills the cone and base plate, lb or g")
 	fl.Float64Var(&f.sandDensity, "sand-density", 0, "sand cone: calibrated bulk density of the sand, pcf or kg/m3")
-	fl.Float64Var(&f.soilMass, "soil-mass", 0, "sand cone: moist soil dug from the hole, lb or g")
+	fl.Float64Var(&f.soilMass, "soil-mass", 0, "sand cone, rubber balloon: moist soil dug from the hole; drive cylinder: moist soil in the cylinder; lb or g")
+	fl.Float64Var(&f.cylDiameter, "cylinder-diameter", 0, "drive cylinder: inside diameter, in or mm")
+	fl.Float64Var(&f.cylLength, "cylinder-length", 0, "drive cylinder: length of the soil core (the cylinder's length), in or mm")
+	fl.Float64Var(&f.balloonInitial, "balloon-initial", 0, "rubber balloon: volume reading before the hole is dug, ft3 or cm3")
+	fl.Float64Var(&f.balloonFinal, "balloon-final", 0, "rubber balloon: volume reading with the balloon filling the hole, ft3 or cm3")
 	fl.Float64Var(&f.mdd, "mdd", 0, "reference maximum dry density (of the fraction the laboratory tested), pcf or kg/m3")
 	fl.Float64Var(&f.omc, "omc", 0, "reference optimum moisture, percent")
 	fl.Float64Var(&f.gs, "gs", 0, "specific gravity of the soil solids, for the zero-air-voids check")
@@ -104,21 +120,27 @@ func computeTest(cmd *cobra.Command, f testFlags) (*testOut, error) {
 	}
 
 	var test soil.InPlace
-	sand := set("sand-used") || set("cone-correction") || set("sand-density") || set("soil-mass")
+	method, err := holeMethod(set)
+	if err != nil {
+		return nil, err
+	}
+	if err := checkCalcReadings(cmd, sys); err != nil {
+		return nil, err
+	}
 	switch {
-	case sand:
-		for _, name := range []string{"sand-used", "cone-correction", "sand-density", "soil-mass", "moisture"} {
-			if !set(name) {
-				return nil, required(name, "is required for a sand-cone test")
-			}
-		}
-		for _, name := range []string{"wet-density", "water-per-volume", "moisture-offset", "probe-depth"} {
-			if set(name) {
-				return nil, required(name, "does not apply to a sand-cone test")
-			}
-		}
+	case method == soil.SandConeMethod:
 		test, err = soil.SandCone{SandDensity: si(soil.Density, f.sandDensity), SandUsed: si(soil.Mass, f.sandUsed),
 			ConeCorrection: si(soil.Mass, f.cone), SoilMass: si(soil.Mass, f.soilMass), Moisture: f.moisture}.Compute()
+	case method == soil.DriveCylinderMethod:
+		test, err = soil.DriveCylinder{Diameter: si(soil.Depth, f.cylDiameter), Length: si(soil.Depth, f.cylLength),
+			SoilMass: si(soil.Mass, f.soilMass), Moisture: f.moisture}.Compute()
+	case method == soil.RubberBalloonMethod:
+		if f.balloonFinal <= f.balloonInitial {
+			return nil, required("balloon-final", fmt.Sprintf("must exceed --balloon-initial %s: the hole's volume is the final reading less the initial",
+				cmd.Flags().Lookup("balloon-initial").Value))
+		}
+		test, err = soil.RubberBalloon{InitialReading: si(soil.SmallVolume, f.balloonInitial), FinalReading: si(soil.SmallVolume, f.balloonFinal),
+			SoilMass: si(soil.Mass, f.soilMass), Moisture: f.moisture}.Compute()
 	case set("water-per-volume"):
 		if !set("wet-density") {
 			return nil, required("wet-density", "is required with --water-per-volume")
@@ -134,7 +156,8 @@ func computeTest(cmd *cobra.Command, f testFlags) (*testOut, error) {
 		test, err = n.Compute()
 	default:
 		if !set("wet-density") || !set("moisture") {
-			return nil, required("wet-density", "give --wet-density and --moisture, a nuclear reading (--wet-density --water-per-volume) or sand-cone readings")
+			return nil, required("wet-density", "give --wet-density and --moisture, a nuclear reading (--wet-density --water-per-volume), "+
+				"or the readings of a sand cone, drive cylinder or rubber balloon with --soil-mass and --moisture")
 		}
 		for _, name := range []string{"moisture-offset", "probe-depth"} {
 			if set(name) {
@@ -144,6 +167,9 @@ func computeTest(cmd *cobra.Command, f testFlags) (*testOut, error) {
 		test, err = soil.WetDensityTest{WetDensity: si(soil.Density, f.wet), Moisture: f.moisture}.Compute()
 	}
 	if err != nil {
+		return nil, err
+	}
+	if err := checkCalcWetDensity(sys, test, f.soilMass); err != nil {
 		return nil, err
 	}
 
@@ -159,8 +185,16 @@ func computeTest(cmd *cobra.Command, f testFlags) (*testOut, error) {
 	}
 	if set("gs") {
 		in.Gs = f.gs
-		if f.gs == 0 {
-			return nil, required("gs", "must be between 2 and 3.5")
+		if err := valid.Range("gs", f.gs, soil.MinGs, soil.MaxGs, ""); err != nil {
+			return nil, err
+		}
+		if err := checkCalcSolids(sys, "the dry density", test.DryDensity, f.gs, water, "the readings and --moisture"); err != nil {
+			return nil, err
+		}
+		if set("mdd") {
+			if err := checkCalcSolids(sys, "--mdd "+cmd.Flags().Lookup("mdd").Value.String()+": a maximum dry density", in.Reference.MaxDryDensity, f.gs, water, "--mdd"); err != nil {
+				return nil, err
+			}
 		}
 	}
 	if set("oversize-percent") {
@@ -212,6 +246,57 @@ func computeTest(cmd *cobra.Command, f testFlags) (*testOut, error) {
 		return nil, err
 	}
 	return newTestOut(sys, test, res), nil
+}
+
+// holeMethods are the methods that weigh the moist soil of a measured
+// volume, with the flags that measure the volume (beside --soil-mass and
+// --moisture).
+var holeMethods = []struct {
+	method soil.Method
+	name   string
+	flags  []string
+}{
+	{soil.SandConeMethod, "sand-cone", []string{"sand-used", "cone-correction", "sand-density"}},
+	{soil.DriveCylinderMethod, "drive-cylinder", []string{"cylinder-diameter", "cylinder-length"}},
+	{soil.RubberBalloonMethod, "rubber-balloon", []string{"balloon-initial", "balloon-final"}},
+}
+
+// holeMethod returns the method whose volume flags are set, after checking
+// that its readings are all given and that no other method's are; it
+// returns "" when none is set (a nuclear reading or a wet density).
+func holeMethod(set func(string) bool) (soil.Method, error) {
+	var given []int
+	var first []string // the first flag set of each method given
+	for i, m := range holeMethods {
+		for _, name := range m.flags {
+			if set(name) {
+				given, first = append(given, i), append(first, name)
+				break
+			}
+		}
+	}
+	switch {
+	case len(given) == 0 && set("soil-mass"):
+		return "", required("soil-mass", "needs the volume the soil came from: sand-cone readings (--sand-used --cone-correction --sand-density), "+
+			"--cylinder-diameter and --cylinder-length, or --balloon-initial and --balloon-final")
+	case len(given) == 0:
+		return "", nil
+	case len(given) > 1:
+		return "", required(first[1], fmt.Sprintf("give the readings of one method only: %s readings were given with %s readings (--%s)",
+			holeMethods[given[1]].name, holeMethods[given[0]].name, first[0]))
+	}
+	m := holeMethods[given[0]]
+	for _, name := range append(append([]string{}, m.flags...), "soil-mass", "moisture") {
+		if !set(name) {
+			return "", required(name, "is required for a "+m.name+" test")
+		}
+	}
+	for _, name := range []string{"wet-density", "water-per-volume", "moisture-offset", "probe-depth"} {
+		if set(name) {
+			return "", required(name, "does not apply to a "+m.name+" test")
+		}
+	}
+	return m.method, nil
 }
 
 type stepOut struct {

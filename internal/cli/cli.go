@@ -33,6 +33,9 @@ func plain(err error) error {
 		return nil
 	}
 	msg := escape(err.Error())
+	if se, ok := err.(*shownError); ok { // tamp's own words, with the values in them escaped
+		msg = se.msg
+	}
 	if advice := cmp.Or(certificateAdvice(err), refusalAdvice(err)); advice != "" {
 		msg += "\n" + advice
 	}
@@ -101,11 +104,36 @@ func newRoot() *cobra.Command {
 		Long: `tamp records in-place density tests of compacted fill, grades them against their
 laboratory reference and specification, and keeps the project's record.
 
+Every command that keeps records works on this device's store: --store FILE,
+else the file named by the TAMP_STORE environment variable, else
+tamp/device.db in the user's configuration directory. --project chooses the
+project by name (remembered; tamp project use sets it); --units us|si shows
+and takes values in US customary or SI units (default: the project's); read
+commands print JSON with --json.
+
 Results support, and never replace, review by qualified personnel; the project's
 specifications and local codes govern every acceptance limit.`,
 		SilenceUsage:  true,
 		SilenceErrors: true,
 	}
-	root.AddCommand(newCalc(), newEnroll(), newSync(), newAdmin(), newExport(), newVerify(), newStatus())
+	root.AddGroup(&cobra.Group{ID: "setup", Title: "Set-up:"}, &cobra.Group{ID: "field", Title: "In the field:"},
+		&cobra.Group{ID: "office", Title: "In the office:"}, &cobra.Group{ID: "qa", Title: "Quality assurance:"},
+		&cobra.Group{ID: "device", Title: "This device, its server and the record:"})
+	for _, g := range []struct {
+		id   string
+		cmds []*cobra.Command
+	}{
+		{"setup", []*cobra.Command{newProject(), newSpec(), newReference(), newEquipment(), newBorrow(), newAdmin(), newEnroll()}},
+		{"field", []*cobra.Command{newTest(), newCalc()}},
+		{"office", []*cobra.Command{newPlacement(), newHaul(), newReview()}},
+		{"qa", []*cobra.Command{newQA(), newExport(), newVerify()}},
+		{"device", []*cobra.Command{newSync(), newStatus()}},
+	} {
+		for _, c := range g.cmds {
+			c.GroupID = g.id
+			root.AddCommand(c)
+		}
+	}
+	root.AddCommand(newDemo())
 	return root
 }

@@ -5,9 +5,9 @@ import (
 	"fmt"
 	"os"
 	"path/filepath"
-	"time"
 
 	"github.com/spf13/cobra"
+	"github.com/spf13/pflag"
 	"google.golang.org/grpc"
 
 	"tamp/client"
@@ -20,14 +20,19 @@ type deviceFlags struct {
 	server    string
 	ca        string
 	plaintext bool
+	// fresh dials with the flags alone, not the settings stored at
+	// enrolment (tamp enroll, which may be moving to another server).
+	fresh bool
+	flags *pflag.FlagSet
 }
 
 func (f *deviceFlags) register(c *cobra.Command) {
 	fl := c.PersistentFlags()
-	fl.StringVar(&f.store, "store", defaultStore(), "the device's store file")
+	f.flags = fl
+	fl.StringVar(&f.store, "store", defaultStore(), "the device's store file (default: $TAMP_STORE, else tamp/device.db in the user's config directory)")
 	fl.StringVar(&f.server, "server", "", "server address host:port (default: the one given at enrolment)")
-	fl.StringVar(&f.ca, "ca", "", "PEM file of the CA the server's certificate chains to (default: the system roots)")
-	fl.BoolVar(&f.plaintext, "plaintext", false, "connect without TLS (loopback addresses only)")
+	fl.StringVar(&f.ca, "ca", "", "PEM file of the CA the server's certificate chains to (default: the one given at enrolment, else the system roots)")
+	fl.BoolVar(&f.plaintext, "plaintext", false, "connect without TLS, loopback addresses only (default: as at enrolment)")
 }
 
 func defaultStore() string {
@@ -57,12 +62,16 @@ func (f *deviceFlags) dial(ctx context.Context, s *client.Store) (*grpc.ClientCo
 		if addr, err = s.Setting(ctx, "server"); err != nil {
 			return nil, err
 		}
+	}
+	// The CA and the plaintext setting given at enrolment hold for later
+	// commands, --server or not, unless a flag says otherwise.
+	if !f.fresh {
 		if ca == "" {
 			ca, _ = s.Setting(ctx, "ca_file")
 		}
-		if !plain {
+		if f.flags == nil || !f.flags.Changed("plaintext") {
 			p, _ := s.Setting(ctx, "plaintext")
-			plain = p == "true"
+			plain = plain || p == "true"
 		}
 	}
 	if addr == "" {
@@ -86,7 +95,7 @@ func (f *deviceFlags) connect(ctx context.Context) (s *client.Store, cc *grpc.Cl
 }
 
 func newEnroll() *cobra.Command {
-	var f deviceFlags
+	f := deviceFlags{fresh: true}
 	var code, name string
 	c := &cobra.Command{
 		Use:   "enroll",
@@ -122,7 +131,16 @@ graded offline.`,
 				if err != nil {
 					return fmt.Errorf("pull project %s: %w", escape(p), err)
 				}
-				fmt.Fprintf(out, "project %s: %d entries pulled\n", escape(p), rep.Pulled)
+				name, you := "", ""
+				if su, ok := s.SetUp(p); ok {
+					name = " " + quoted(su.Name)
+				}
+				for _, m := range s.Members(p) {
+					if m.UserID == s.User() {
+						you = fmt.Sprintf("; you are %s, %s", quoted(m.Name), orDefault(m.Role, "member"))
+					}
+				}
+				fmt.Fprintf(out, "project %s%s: %s received%s\n", escape(p), name, entries(rep.Pulled), you)
 			}
 			return nil
 		},
@@ -130,102 +148,5 @@ graded offline.`,
 	f.register(c)
 	c.Flags().StringVar(&code, "code", "", "the one-time enrolment code")
 	c.Flags().StringVar(&name, "name", "", "a name for this device, e.g. \"tablet 3\"")
-	return c
-}
-
-func newSync() *cobra.Command {
-	var f deviceFlags
-	var project string
-	c := &cobra.Command{
-		Use:   "sync",
-		Short: "Push this device's entries and pull the project's ledger",
-		Args:  cobra.NoArgs,
-		RunE: func(cmd *cobra.Command, _ []string) error {
-			ctx := cmd.Context()
-			s, cc, done, err := f.connect(ctx)
-			if err != nil {
-				return err
-			}
-			defer done()
-			projects, err := s.KnownProjects(ctx)
-			if err != nil {
-				return err
-			}
-			if project != "" {
-				projects = []string{project}
-			}
-			for _, p := range projects {
-				rep, err := s.Sync(ctx, cc, p, client.SyncOptions{Progress: func(pr client.Progress) {
-					fmt.Fprintf(cmd.ErrOrStderr(), "\r%s: %s %d events, %d bytes   ", escape(p), pr.Phase, pr.Events, pr.Bytes)
-				}})
-				fmt.Fprintln(cmd.ErrOrStderr())
-				if err != nil {
-					return fmt.Errorf("project %s: %w", escape(p), err)
-				}
-				fmt.Fprintf(cmd.OutOrStdout(), "project %s: %d accepted, %d already there, %d waiting, %d rejected, %d pulled; verified to %d\n",
-					escape(p), rep.Accepted, rep.AlreadyPresent, rep.Waiting, rep.Rejected, rep.Pulled, rep.Head.Seq)
-			}
-			return nil
-		},
-	}
-	f.register(c)
-	c.Flags().StringVar(&project, "project", "", "the project (default: every project on this device)")
-	return c
-}
-
-func newStatus() *cobra.Command {
-	var f deviceFlags
-	c := &cobra.Command{
-		Use:   "status",
-		Short: "Show this device's sync status: pending entries, last sync, last error, rejected entries",
-		Args:  cobra.NoArgs,
-		RunE: func(cmd *cobra.Command, _ []string) error {
-			ctx := cmd.Context()
-			s, err := f.open(ctx)
-			if err != nil {
-				return err
-			}
-			defer s.Close()
-			out := cmd.OutOrStdout()
-			fmt.Fprintf(out, "device %s, user %s\n", escape(s.DeviceID()), escape(s.User()))
-			now := time.Now()
-			projects, err := s.KnownProjects(ctx)
-			if err != nil {
-				return err
-			}
-			for _, p := range projects {
-				st, err := s.Status(ctx, p)
-				if err != nil {
-					return err
-				}
-				last := "never"
-				if !st.LastSuccess.IsZero() {
-					last = st.LastSuccess.Local().Format(time.DateTime)
-				}
-				fmt.Fprintf(out, "project %s: %d pending (oldest %s ago), last sync %s, verified to %d\n",
-					escape(p), st.Outbox.Pending, st.Outbox.Age(now).Round(time.Second), last, st.Verified.Seq)
-				if st.LastError != "" {
-					fmt.Fprintf(out, "  last error: %s\n", escape(st.LastError))
-				}
-				printServerCopy(out, st, now)
-			}
-			rs, err := s.Rejected(ctx)
-			if err != nil {
-				return err
-			}
-			for _, r := range rs {
-				why := r.Reason
-				if r.Rule != "" {
-					why += ", rule " + r.Rule
-				}
-				if r.Field != "" {
-					why += ", field " + r.Field
-				}
-				fmt.Fprintf(out, "rejected %s %s %s: %s (%s)\n", escape(r.EventID), escape(r.Kind), escape(r.RecordID), escape(r.Message), escape(why))
-			}
-			return nil
-		},
-	}
-	c.PersistentFlags().StringVar(&f.store, "store", defaultStore(), "the device's store file")
 	return c
 }

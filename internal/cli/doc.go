@@ -8,6 +8,24 @@
 // tab-separated output nor drive the terminal. A server certificate that
 // fails verification is reported with its problem and what to do about it.
 //
+// # The project's commands
+//
+// The commands of each role's day (project, spec, reference, equipment,
+// borrow, test, placement, haul, review, qa, sync, status) are built on
+// the public API of package tamp/client alone: they open the device's store
+// (--store, else $TAMP_STORE, else tamp/device.db in the user's config
+// directory), find the project by name or id (--project, remembered in the
+// store's settings), and show and take values in the project's units
+// (--units us|si overrides them), converted at this edge with the exact
+// factors of package soil and shown at the resolution the test methods
+// report. Records appear by name (specs, references by lab sample id or
+// material, equipment by serial number, placements as "FEATURE lift N",
+// people by the names the ledger's enrolment entries give), tests by the
+// last eight characters of their id. Read commands print aligned tables,
+// or JSON with --json. Errors are tamp's own sentences (shownError): which
+// flag and value were wrong and what to do, with the values escaped.
+// format.go holds the printing helpers the commands share.
+//
 // # tamp calc
 //
 // tamp calc computes with no project or server, so an inspector can check a

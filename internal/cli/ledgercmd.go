@@ -10,38 +10,44 @@ import (
 )
 
 func newExport() *cobra.Command {
-	var f deviceFlags
-	var project, out string
+	var f projectFlags
+	var out string
 	c := &cobra.Command{
-		Use:   "export",
-		Short: "Write a project's signed ledger to a file, for offline verification and archiving",
-		Args:  cobra.NoArgs,
+		Use:     "export",
+		Short:   "Write a project's signed ledger to a file, for offline verification and archiving",
+		Example: `  tamp export --project "Cinder Butte interchange" --out cinder-butte.tamp`,
+		Args:    cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, _ []string) error {
-			if project == "" || out == "" {
-				return fmt.Errorf("--project and --out are required")
+			if out == "" {
+				return failf("--out: name the file to write the ledger to, e.g. --out project.tamp")
 			}
-			s, cc, done, err := f.connect(cmd.Context())
+			ctx := cmd.Context()
+			s, cc, done, err := f.connect(ctx)
 			if err != nil {
 				return err
 			}
 			defer done()
+			ss, err := f.session(ctx, s)
+			if err != nil {
+				return err
+			}
 			file, err := os.Create(out)
 			if err != nil {
 				return fmt.Errorf("--out: %w", err)
 			}
-			n, err := s.Export(cmd.Context(), cc, project, file)
+			n, err := s.Export(ctx, cc, ss.project, file)
 			if cerr := file.Close(); err == nil {
 				err = cerr
 			}
 			if err != nil {
 				return err
 			}
-			_, err = fmt.Fprintf(cmd.OutOrStdout(), "%d events written to %s\n", n, escape(out))
+			_, err = fmt.Fprintf(cmd.OutOrStdout(), "%d events of project %s written to %s; check it with tamp verify %s\n", n, quoted(ss.projectName()),
+				escape(out), escape(out))
 			return err
 		},
 	}
 	f.register(c)
-	c.Flags().StringVar(&project, "project", "", "the project")
 	c.Flags().StringVar(&out, "out", "", "the file to write")
 	return c
 }

@@ -1,0 +1,360 @@
+package cli
+
+import (
+	"fmt"
+	"math"
+	"strconv"
+	"strings"
+
+	"github.com/spf13/cobra"
+
+	"tamp/client"
+	"tamp/internal/qc"
+	"tamp/internal/soil"
+)
+
+// closureWords say how a failure was dealt with.
+var closureWords = map[client.Closure]string{
+	client.ClosureOpen: "OPEN: no passing retest", client.ClosureRetested: "closed by a passing retest",
+	client.ClosureException: "closed: QA accepted it as it stands", client.ClosureVoided: "voided",
+}
+
+func newQA() *cobra.Command {
+	var f projectFlags
+	c := &cobra.Command{
+		Use:   "qa",
+		Short: "The QA manager's reports: retest audit, test frequency, lots, volume reconciliation; accept exceptions",
+		Long: `The QA manager's reports, computed on this device from its copy of the project's
+ledger with the code the server runs: as recent as the last tamp sync, and
+available offline. Values are shown in the project's units (or --units) at
+the resolution the methods report. Results support, and never replace,
+review by qualified personnel; the project's specifications govern.`,
+	}
+	f.register(c)
+
+	var auditJSON bool
+	audit := &cobra.Command{
+		Use: "audit", Short: "Every failing test with its retests and how it was closed", Args: cobra.NoArgs,
+		RunE: func(cmd *cobra.Command, _ []string) error {
+			ss, err := f.open(cmd.Context())
+			if err != nil {
+				return err
+			}
+			defer ss.close()
+			chains := ss.s.RetestAudit(ss.project)
+			if auditJSON {
+				type chainJSON struct {
+					Failed       testJSON   `json:"failed"`
+					Retests      []testJSON `json:"retests"`
+					Closure      string     `json:"closure"`
+					Closed       bool       `json:"closed"`
+					StationShift num        `json:"station_shift"`
+					Units        string     `json:"units"`
+				}
+				out := []chainJSON{}
+				for _, ch := range chains {
+					cj := chainJSON{Failed: ss.testOut(ch.Failed), Retests: []testJSON{}, Closure: string(ch.Closure), Closed: ch.Closure != client.ClosureOpen,
+						StationShift: ss.u.num(soil.Length, ch.StationShift), Units: ss.u.name()}
+					for _, r := range ch.Retests {
+						cj.Retests = append(cj.Retests, ss.testOut(r))
+					}
+					out = append(out, cj)
+				}
+				return writeJSON(cmd.OutOrStdout(), out)
+			}
+			w := cmd.OutOrStdout()
+			if len(chains) == 0 {
+				_, err := fmt.Fprintf(w, "No failing tests in project %s on this device.\n", quoted(ss.projectName()))
+				return err
+			}
+			open := 0
+			t := newTable(w, "FAILED TEST", "TAKEN", "STATION", "FEATURE", "RC", "LIMIT", "RETESTS", "STATION SHIFT", "CLOSURE")
+			for _, ch := range chains {
+				ft := ch.Failed
+				var rs []string
+				for _, r := range ch.Retests {
+					rs = append(rs, shortID(r.ID)+" "+retestWord(r))
+				}
+				if ch.Closure == client.ClosureOpen {
+					open++
+				}
+				t.row(shortID(ft.ID), localTime(ft.Taken, ss.loc), ss.u.station(ft.Content.Location.Station),
+					ft.Content.Feature+" lift "+strconv.Itoa(int(ft.Content.LiftNumber)), ss.u.show(soil.Percent, ft.Result.RelativeCompaction),
+					orDefault(compactionLimit(ft.Result.Limits), "-"), orDefault(strings.Join(rs, ", "), "none"), ss.u.show(soil.Length, ch.StationShift),
+					closureWords[ch.Closure])
+			}
+			if err := t.flush(); err != nil {
+				return err
+			}
+			_, err = fmt.Fprintf(w, "%d failing test(s), %d still open. A retest far along the alignment from its failure may not have tested the reworked area.\n",
+				len(chains), open)
+			return err
+		},
+	}
+	jsonFlag(audit, &auditJSON)
+
+	var freqJSON bool
+	frequency := &cobra.Command{
+		Use: "frequency", Short: "Tests taken against tests required, per placement", Args: cobra.NoArgs,
+		Long: `For each placement whose tests name a spec with a volume per test (tamp spec add
+--volume-per-test), the tests required (the compacted volume over the volume
+per test, rounded up) against the tests taken (retests do not count).`,
+		RunE: func(cmd *cobra.Command, _ []string) error {
+			ss, err := f.open(cmd.Context())
+			if err != nil {
+				return err
+			}
+			defer ss.close()
+			specName := ss.specNames()
+			fs := ss.s.Frequency(ss.project)
+			if freqJSON {
+				type row struct {
+					Placement       string `json:"placement"`
+					PlacementID     string `json:"placement_id"`
+					Spec            string `json:"spec"`
+					CompactedVolume num    `json:"compacted_volume"`
+					Required        int    `json:"required"`
+					Taken           int    `json:"taken"`
+					Shortfall       int    `json:"shortfall"`
+					Met             bool   `json:"met"`
+					Units           string `json:"units"`
+				}
+				rows := []row{}
+				for _, fr := range fs {
+					rows = append(rows, row{Placement: placementName(fr.Placement), PlacementID: fr.Placement.ID, Spec: specName[fr.SpecID],
+						CompactedVolume: ss.u.num(soil.Volume, fr.Placement.CompactedVolume), Required: fr.Required, Taken: fr.Tests,
+						Shortfall: fr.Shortfall, Met: fr.Shortfall == 0, Units: ss.u.name()})
+				}
+				return writeJSON(cmd.OutOrStdout(), rows)
+			}
+			w := cmd.OutOrStdout()
+			if len(fs) == 0 {
+				_, err := fmt.Fprintln(w, "No placement has tests against a spec with a volume per test (tamp spec add --volume-per-test).")
+				return err
+			}
+			t := newTable(w, "PLACEMENT", "SPEC", "COMPACTED VOLUME", "REQUIRED", "TAKEN", "SHORTFALL", "FREQUENCY")
+			for _, fr := range fs {
+				word := "met"
+				if fr.Shortfall > 0 {
+					word = "SHORT"
+				}
+				t.row(placementName(fr.Placement), specName[fr.SpecID], ss.u.show(soil.Volume, fr.Placement.CompactedVolume), strconv.Itoa(fr.Required),
+					strconv.Itoa(fr.Tests), strconv.Itoa(fr.Shortfall), word)
+			}
+			return t.flush()
+		},
+	}
+	jsonFlag(frequency, &freqJSON)
+
+	var lotsJSON bool
+	lots := &cobra.Command{
+		Use: "lots", Short: "Percent within limits of each lot's relative compaction", Args: cobra.NoArgs,
+		Long: `For each placement with at least three graded original tests against one spec's
+minimum relative compaction: the mean, the sample standard deviation, the
+quality index Q = (mean - limit) / s and the estimated percent of the lot
+within the limit (PWL).`,
+		RunE: func(cmd *cobra.Command, _ []string) error {
+			ss, err := f.open(cmd.Context())
+			if err != nil {
+				return err
+			}
+			defer ss.close()
+			specName := ss.specNames()
+			minRC := map[string]string{}
+			for _, sp := range ss.s.Specs(ss.project) {
+				minRC[sp.ID] = sp.MinCompaction
+			}
+			ls, err := ss.s.Lots(ss.project)
+			if err != nil {
+				return err
+			}
+			if lotsJSON {
+				type row struct {
+					Placement    string `json:"placement"`
+					PlacementID  string `json:"placement_id"`
+					Spec         string `json:"spec"`
+					N            int    `json:"n"`
+					Mean         num    `json:"mean"`
+					StdDev       num    `json:"std_dev"`
+					LowerLimit   num    `json:"lower_limit"`
+					QualityIndex num    `json:"quality_index"`
+					PWL          num    `json:"pwl"`
+				}
+				rows := []row{}
+				for _, l := range ls {
+					rows = append(rows, row{Placement: placementName(l.Placement), PlacementID: l.Placement.ID, Spec: specName[l.SpecID], N: l.N,
+						Mean: some(l.Mean, 1), StdDev: some(l.StdDev, 2), LowerLimit: some(l.LowerLimit, 1), QualityIndex: some(l.QualityIndex, 2), PWL: some(l.PWL, 0)})
+				}
+				return writeJSON(cmd.OutOrStdout(), rows)
+			}
+			w := cmd.OutOrStdout()
+			if len(ls) == 0 {
+				_, err := fmt.Fprintln(w, "No lot yet: a lot needs a placement with at least three graded original tests against a spec with a minimum relative compaction.")
+				return err
+			}
+			t := newTable(w, "LOT (PLACEMENT)", "SPEC", "TESTS", "MEAN RC", "STD DEV", "LIMIT", "Q", "PWL")
+			for _, l := range ls {
+				t.row(placementName(l.Placement), specName[l.SpecID], strconv.Itoa(l.N), some(l.Mean, 1).String()+" %", some(l.StdDev, 2).String(),
+					"min "+orDefault(minRC[l.SpecID], some(l.LowerLimit, 1).String())+" %", some(l.QualityIndex, 2).String(), some(l.PWL, 0).String()+" %")
+			}
+			if err := t.flush(); err != nil {
+				return err
+			}
+			_, err = fmt.Fprintln(w, "The project's specification says which PWL a lot must reach.")
+			return err
+		},
+	}
+	jsonFlag(lots, &lotsJSON)
+
+	var recJSON bool
+	reconcile := &cobra.Command{
+		Use: "reconcile", Short: "Compacted volume placed against bank volume taken and loose volume hauled, per borrow source", Args: cobra.NoArgs,
+		Long: `Balance each borrow source through dry mass: the compacted volume placed from it
+times the mean dry density of the graded tests on those placements is the dry
+mass placed; divided by the bank dry density (tamp borrow add) it is the bank
+volume taken; with a loose dry density, the loose volume it implies, set
+beside the loads hauled (tamp haul add). Shrinkage and swell follow the
+project's convention, written out below the table.`,
+		RunE: func(cmd *cobra.Command, _ []string) error {
+			ss, err := f.open(cmd.Context())
+			if err != nil {
+				return err
+			}
+			defer ss.close()
+			bs, err := ss.s.Reconcile(ss.project)
+			if err != nil {
+				return err
+			}
+			vol := func(v float64) num {
+				if v == 0 {
+					return some(math.NaN(), 0)
+				}
+				return ss.u.num(soil.Volume, v)
+			}
+			if recJSON {
+				type row struct {
+					Source              string `json:"source"`
+					SourceID            string `json:"source_id"`
+					CompactedVolume     num    `json:"compacted_volume"`
+					CompactedDryDensity num    `json:"compacted_dry_density"`
+					Tests               int    `json:"tests"`
+					BankDryDensity      num    `json:"bank_dry_density"`
+					BankVolume          num    `json:"bank_volume"`
+					LooseHauled         num    `json:"loose_hauled"`
+					LooseExpected       num    `json:"loose_expected"`
+					ShrinkagePercent    num    `json:"shrinkage_percent"`
+					ShrinkFactor        num    `json:"shrink_factor"`
+					SwellPercent        num    `json:"swell_percent"`
+					ShrinkDefinition    string `json:"shrink_definition"`
+					SwellDefinition     string `json:"swell_definition"`
+					Units               string `json:"units"`
+				}
+				rows := []row{}
+				for _, b := range bs {
+					rows = append(rows, row{Source: b.BorrowSource, SourceID: b.BorrowSourceID, CompactedVolume: ss.u.num(soil.Volume, b.CompactedVolume),
+						CompactedDryDensity: ss.u.num(soil.Density, b.FillDryDensity), Tests: b.Tests, BankDryDensity: ss.u.num(soil.Density, b.BankDryDensity),
+						BankVolume: vol(b.BankVolume), LooseHauled: vol(b.LooseHauled), LooseExpected: vol(b.LooseExpected),
+						ShrinkagePercent: some(b.ShrinkagePercent, 1), ShrinkFactor: some(b.ShrinkFactor, 3), SwellPercent: some(b.SwellPercent, 1),
+						ShrinkDefinition: b.ShrinkDefinition, SwellDefinition: b.SwellDefinition, Units: ss.u.name()})
+				}
+				return writeJSON(cmd.OutOrStdout(), rows)
+			}
+			w := cmd.OutOrStdout()
+			if len(bs) == 0 {
+				_, err := fmt.Fprintln(w, "No borrow source yet (tamp borrow add), or none with placements from it (tamp placement add --borrow).")
+				return err
+			}
+			t := newTable(w, "BORROW SOURCE", "COMPACTED", "FILL DRY DENSITY", "BANK DRY DENSITY", "BANK VOLUME", "LOOSE HAULED", "LOOSE EXPECTED", "SHRINKAGE", "SWELL")
+			defs := map[string]bool{}
+			var notes []string
+			showVol := func(v float64) string {
+				if v == 0 {
+					return "-"
+				}
+				return ss.u.show(soil.Volume, v)
+			}
+			for _, b := range bs {
+				fill := "-"
+				if b.Tests > 0 {
+					fill = fmt.Sprintf("%s (%d tests)", ss.u.show(soil.Density, b.FillDryDensity), b.Tests)
+				}
+				shrink, swell := "-", "-"
+				if b.BankVolume > 0 {
+					shrink = some(b.ShrinkagePercent, 1).String() + " %"
+				}
+				if b.LooseExpected > 0 {
+					swell = some(b.SwellPercent, 1).String() + " %"
+				}
+				t.row(b.BorrowSource, ss.u.show(soil.Volume, b.CompactedVolume), fill, ss.u.show(soil.Density, b.BankDryDensity), showVol(b.BankVolume),
+					showVol(b.LooseHauled), showVol(b.LooseExpected), shrink, swell)
+				for _, d := range []string{b.ShrinkDefinition, b.SwellDefinition} {
+					if d != "" && !defs[d] {
+						defs[d] = true
+						notes = append(notes, d)
+					}
+				}
+			}
+			if err := t.flush(); err != nil {
+				return err
+			}
+			p := &printer{w: w}
+			for _, n := range notes {
+				p.f("  %s\n", n)
+			}
+			p.f("%s\n", qc.Caution)
+			return p.err
+		},
+	}
+	jsonFlag(reconcile, &recJSON)
+
+	var reason string
+	accept := &cobra.Command{
+		Use:     "accept TEST --reason WHY",
+		Short:   "Accept a failing test as it stands, with the reason: it closes the failure without a retest",
+		Example: `  tamp qa accept 9f3c2a1b --reason "toe of slope outside the structural zone; engineer of record accepts 93 %"`,
+		Args:    cobra.ExactArgs(1),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			ss, err := f.open(cmd.Context())
+			if err != nil {
+				return err
+			}
+			defer ss.close()
+			t, err := ss.test(args[0])
+			if err != nil {
+				return err
+			}
+			if strings.TrimSpace(reason) == "" {
+				return failf("--reason: say why the failing test is accepted as it stands; the reason stays in its history")
+			}
+			if t.Result.Verdict != client.Fail {
+				return failf("test %s did not fail (%s): only a failure is accepted as an exception", shortID(t.ID), verdictWord(t.Result.Verdict))
+			}
+			if err := ss.s.AcceptException(cmd.Context(), ss.project, t.ID, reason); err != nil {
+				return ss.testError(cmd, t, err)
+			}
+			_, err = fmt.Fprintf(cmd.OutOrStdout(), "test %s accepted as it stands: %s\n", ss.testLabel(t.ID, t.Content), escape(reason))
+			return err
+		},
+	}
+	accept.Flags().StringVar(&reason, "reason", "", "why the failure is accepted (required)")
+
+	c.AddCommand(audit, frequency, lots, reconcile, accept)
+	return c
+}
+
+// retestWord is a retest's outcome in a word.
+func retestWord(t client.Test) string {
+	if t.Voided {
+		return "voided"
+	}
+	return verdictWord(t.Result.Verdict)
+}
+
+// specNames maps the project's spec ids to their names.
+func (ss *session) specNames() map[string]string {
+	out := map[string]string{}
+	for _, s := range ss.s.Specs(ss.project) {
+		out[s.ID] = s.Name
+	}
+	return out
+}
