@@ -12,20 +12,21 @@ import (
 // The facade's own reason codes, beside the server's (which an error
 // carries as the server sent them).
 const (
-	ReasonInvalidEntry  = "INVALID_ENTRY"   // the entry breaks a rule; field names it
-	ReasonNotFound      = "NOT_FOUND"       // no such test or record on this device
-	ReasonNotAuthor     = "NOT_AUTHOR"      // only a test's author may correct or void it
-	ReasonVoided        = "VOIDED"          // the test was voided
-	ReasonNotFailing    = "NOT_FAILING"     // only a failing test is retested
-	ReasonRequired      = "REASON_REQUIRED" // a correction or a void needs its reason
-	ReasonOwnTest       = "OWN_TEST"        // no one decides on their own test
-	ReasonCancelled     = "CANCELLED"       // the call was cancelled
-	ReasonCertificate   = "CERTIFICATE"     // the server's certificate failed verification
-	ReasonFork          = "FORK"            // the server's ledger forked from what this device verified
-	ReasonInvalidJSON   = "INVALID_JSON"    // the input is not the JSON the call takes
-	ReasonNotEnrolled   = "NOT_ENROLLED"    // the device is not enrolled
-	ReasonUnknownReport = "UNKNOWN_REPORT"  // Report was given a name it does not know
-	ReasonOther         = "ERROR"           // anything else; message says what
+	ReasonInvalidEntry   = "INVALID_ENTRY"   // the entry breaks a rule; field names it
+	ReasonNotFound       = "NOT_FOUND"       // no such test or record on this device
+	ReasonNotAuthor      = "NOT_AUTHOR"      // only a test's author may correct or void it
+	ReasonVoided         = "VOIDED"          // the test was voided
+	ReasonNotFailing     = "NOT_FAILING"     // only a failing test is retested
+	ReasonRequired       = "REASON_REQUIRED" // a correction or a void needs its reason
+	ReasonOwnTest        = "OWN_TEST"        // no one decides on their own test
+	ReasonCancelled      = "CANCELLED"       // the call was cancelled
+	ReasonCertificate    = "CERTIFICATE"     // the server's certificate failed verification
+	ReasonFork           = "FORK"            // the server's ledger forked from what this device verified
+	ReasonInvalidJSON    = "INVALID_JSON"    // the input is not the JSON the call takes
+	ReasonNotEnrolled    = "NOT_ENROLLED"    // the device is not enrolled
+	ReasonUnknownReport  = "UNKNOWN_REPORT"  // Report was given a name it does not know
+	ReasonUnknownRecords = "UNKNOWN_RECORDS" // Records was given a kind it does not know
+	ReasonOther          = "ERROR"           // anything else; message says what
 )
 
 // Error is the error of a failed call. Its text is the JSON of its fields,

@@ -145,6 +145,23 @@ func TestFieldDayThroughTheFacade(t *testing.T) {
 		t.Errorf("relative compaction %.2f (%s), want %.2f and pass", rec.Result.RelativeCompaction, rec.Result.Verdict, rc)
 	}
 
+	// The tablet offers the spec and the reference by name.
+	text, err = insp.Records(project, mobile.RecordsSpecs)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var specs []struct {
+		ID   string `json:"id"`
+		Name string `json:"name"`
+	}
+	payload(t, text, mobile.RecordsSpecs, &specs)
+	if len(specs) != 1 || specs[0].ID != spec || specs[0].Name != "pad fill" {
+		t.Errorf("specs %s, want the pad fill spec", text)
+	}
+	if _, err := insp.Records(project, "gauges"); mobile.ErrorReason(errText(err)) != mobile.ReasonUnknownRecords {
+		t.Errorf("an unknown kind of records: %v, want UNKNOWN_RECORDS", err)
+	}
+
 	p := &progress{phases: map[string]int64{}}
 	text, err = insp.Sync(addr, "", true, project, p, mobile.NewCancel())
 	if err != nil {

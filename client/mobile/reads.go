@@ -109,3 +109,62 @@ func nonNil(ts []client.Test) []client.Test {
 	}
 	return ts
 }
+
+// The record lists Records returns.
+const (
+	RecordsMembers       = "members"        // the project's people and roles, as its ledger introduces them
+	RecordsSpecs         = "specs"          // specifications, limits as written
+	RecordsReferences    = "references"     // laboratory references with the values tests are graded against
+	RecordsEquipment     = "equipment"      // gauges and apparatus with their standard counts
+	RecordsBorrowSources = "borrow_sources" // borrow sources with their bank densities
+	RecordsPlacements    = "placements"     // lifts placed
+	RecordsHauls         = "hauls"          // loads hauled
+	RecordsTests         = "tests"          // every test, with its history
+)
+
+// Records returns a project's records of one kind (one of the Records
+// constants), as the device's copy of the ledger holds them: {"schema",
+// kind: [...]}. It lets an app offer specs, references and gauges by name
+// when an inspector records a test.
+func (s *Store) Records(project, kind string) (string, error) {
+	var v any
+	switch kind {
+	case RecordsMembers:
+		v = orEmpty(s.s.Members(project))
+	case RecordsSpecs:
+		v = orEmpty(s.s.Specs(project))
+	case RecordsReferences:
+		v = orEmpty(s.s.References(project))
+	case RecordsEquipment:
+		v = orEmpty(s.s.Equipment(project))
+	case RecordsBorrowSources:
+		v = orEmpty(s.s.BorrowSources(project))
+	case RecordsPlacements:
+		v = orEmpty(s.s.Placements(project))
+	case RecordsHauls:
+		v = orEmpty(s.s.Hauls(project))
+	case RecordsTests:
+		v = nonNil(s.s.Tests(project))
+	default:
+		return "", &Error{Reason: ReasonUnknownRecords, Field: "kind", Message: "mobile: no records " + kind +
+			"; the kinds are members, specs, references, equipment, borrow_sources, placements, hauls and tests"}
+	}
+	return out(kind, v)
+}
+
+// SetUp returns the project's set-up, as {"schema", "set_up": {...}}, or an
+// error with reason NOT_FOUND before the set-up has reached the device.
+func (s *Store) SetUp(project string) (string, error) {
+	su, ok := s.s.SetUp(project)
+	if !ok {
+		return "", &Error{Reason: ReasonNotFound, Field: "project", Message: "mobile: the project's set-up has not reached this device; sync first"}
+	}
+	return out("set_up", su)
+}
+
+func orEmpty[T any](v []T) []T {
+	if v == nil {
+		return []T{}
+	}
+	return v
+}

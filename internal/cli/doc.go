@@ -50,9 +50,27 @@
 //     (--moisture-offset); an uncorrected reading is flagged. Nuclear gauges
 //     are licensed radioactive sources: their use, transport and storage follow
 //     the licensee's radiation-safety programme.
+//   - Drive cylinder (ASTM D2937). A thin-walled cylinder of known inside
+//     diameter (--cylinder-diameter) is driven into the lift and the soil
+//     core in it (--cylinder-length) weighed (--soil-mass); its volume is
+//     pi d^2 / 4 x L, and wet density is mass over volume.
+//   - Rubber balloon (ASTM D2167). The apparatus measures the hole's volume
+//     as the difference of its volume readings before and after
+//     (--balloon-final minus --balloon-initial); wet density is the soil's
+//     mass over it.
 //   - A wet density measured by any other means, with its moisture
-//     (--wet-density --moisture); the drive cylinder (ASTM D2937) and rubber
-//     balloon (ASTM D2167) give such a wet density from a known volume.
+//     (--wet-density --moisture).
+//
+// Inputs no soil can give (a wet density outside the ledger's physical
+// bounds, a dry density at or above the solids' density for --gs) are
+// refused with the flag, the value and the bound, not graded.
+//
+// tamp calc curve fits a compaction curve to its points (--points
+// W:D,...): a least-squares parabola around the highest point, whose peak
+// is the maximum dry density and optimum moisture. It says whether the
+// points bracket the peak (flag unbracketed_curve, naming the side that
+// needs another point) and flags a point above the zero-air-voids line for
+// --gs (above_zero_air_voids).
 //
 // Dry density is wet density / (1 + w). Against a laboratory reference
 // (--mdd maximum dry density, --omc optimum moisture, from a standard or
