@@ -102,6 +102,45 @@
 // Internal. A status gRPC makes before any interceptor runs (an unknown
 // method, a message over the size limit) carries none.
 //
+// # Enrolment codes
+//
+// An enrolment code is typed by hand on a tablet, so it is 25 symbols of
+// Crockford's base32 (digits and capitals without I, L, O and U) in five
+// groups of five, XXXXX-XXXXX-XXXXX-XXXXX-XXXXX: 125 bits from the
+// server's randomness. It is accepted in either case, with or without the
+// dashes or spaces, with I or L for 1 and O for 0, and is brought back to
+// its printed form before it is hashed; the store keeps only the SHA-256
+// of the code as issued.
+// A code enrols one device, once, and lapses after its lifetime (24 hours
+// unless asked otherwise, 7 days at most). Codes of the earlier form (43
+// characters of base64url) are hashed as given and keep working until
+// they lapse. Bearer tokens are never typed and stay 256 bits.
+//
+// Guessing is limited where a code is checked: a failed EnrollDevice or
+// ResumeDevice call (refused as Unauthenticated) counts against the
+// caller's address, an IPv4 address or an IPv6 /64; each address may fail
+// EnrollAttemptBurst times at once (10) and then EnrollAttemptRate times a
+// second (one every 10 s); a call beyond that is refused with
+// ResourceExhausted, reason RATE_LIMITED, rule enrolment_attempts, before
+// its code is looked up. Calls that succeed count for nothing. At most 4096
+// addresses are tracked and further ones share one bucket, so the bound
+// holds however many addresses a guesser has. Behind a proxy that hides
+// the caller's address, all callers share one bucket.
+//
+// How far that protects a code, with the defaults: a code lives at most
+// 7 days, 604,800 s (2^19.2). One address may fail at most
+// 10 + 0.1 x 604,800 = 60,490 times (2^15.9) in that time, and all
+// addresses together at most 4,097 x 60,490 = 247,827,530 times (2^27.9).
+// A guess hits one of L live codes with a chance of L / 2^125, so even
+// with a million live codes (L = 2^20, far more than a server holds) the
+// chance that any guess in a code's whole lifetime enrols a device is
+// below 2^(27.9 + 20 - 125) = 2^-77 for all addresses together, and below
+// 2^-89 for one. The length alone would hold without the limit: 100,000
+// guesses a second for 7 days (2^35.8) give below 2^-69. A copy of the
+// store holds only hashes: searching 2^125 codes at 2^40 SHA-256 a second
+// takes about 10^18 years, and 7 days of it finds a given code with a
+// chance below 2^-65.
+//
 // # Authority
 //
 // Two tables in authorize.go hold every rule of who may do what: entryRoles

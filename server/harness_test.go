@@ -36,6 +36,7 @@ type cluster struct {
 	storage sqlitestore.Options             // how the store commits
 	wrap    func(server.Store) server.Store // stands between server and store when set
 	now     func() time.Time                // the server's clock; time.Now when nil
+	opts    func(*server.Options)           // adjusts the server's options when set
 }
 
 func hashOf(secret string) []byte {
@@ -67,7 +68,11 @@ func (c *cluster) start(addr string) {
 	if c.wrap != nil {
 		store = c.wrap(st)
 	}
-	c.srv = server.New(server.Options{Store: store, Logger: slog.New(slog.NewTextHandler(io.Discard, nil)), PushRate: c.rate, PushBurst: int(c.rate), Now: c.now})
+	opts := server.Options{Store: store, Logger: slog.New(slog.NewTextHandler(io.Discard, nil)), PushRate: c.rate, PushBurst: int(c.rate), Now: c.now}
+	if c.opts != nil {
+		c.opts(&opts)
+	}
+	c.srv = server.New(opts)
 	c.g = grpc.NewServer(append([]grpc.ServerOption{c.srv.RequestCodec(), grpc.UnaryInterceptor(c.srv.UnaryInterceptor),
 		grpc.StreamInterceptor(c.srv.StreamInterceptor)}, c.extra...)...)
 	c.srv.Register(c.g)

@@ -48,6 +48,12 @@ type Options struct {
 	// on average, PushBurst at once (defaults 20 and 60).
 	PushRate  float64
 	PushBurst int
+	// EnrollAttemptRate and EnrollAttemptBurst limit the failed EnrollDevice
+	// and ResumeDevice calls from one network address: EnrollAttemptBurst
+	// at once, then EnrollAttemptRate a second (defaults 10 and 0.1, one
+	// every ten seconds). See codes.go.
+	EnrollAttemptRate  float64
+	EnrollAttemptBurst int
 	// StorageProbeInterval is how often a server whose store cannot write
 	// tries a write again (default DefaultStorageProbeInterval).
 	StorageProbeInterval time.Duration
@@ -64,6 +70,7 @@ type Server struct {
 	projects map[string]*project
 	keys     sync.Map // device id -> ed25519.PublicKey
 	limits   *limiter
+	attempts *attempts // failed enrolment attempts per address
 	health   *storageHealth
 	self     ownState     // the server's own signing identity
 	requests requestCodec // see RequestCodec
@@ -123,11 +130,18 @@ func New(opts Options) *Server {
 	if opts.PushBurst <= 0 {
 		opts.PushBurst = 60
 	}
+	if opts.EnrollAttemptRate <= 0 {
+		opts.EnrollAttemptRate = 0.1
+	}
+	if opts.EnrollAttemptBurst <= 0 {
+		opts.EnrollAttemptBurst = 10
+	}
 	if opts.StorageProbeInterval <= 0 {
 		opts.StorageProbeInterval = DefaultStorageProbeInterval
 	}
 	s := &Server{opts: opts, log: opts.Logger, projects: map[string]*project{},
-		limits: &limiter{rate: opts.PushRate, burst: float64(opts.PushBurst), buckets: map[string]*bucket{}}}
+		limits:   &limiter{rate: opts.PushRate, burst: float64(opts.PushBurst), buckets: map[string]*bucket{}},
+		attempts: newAttempts(opts.EnrollAttemptRate, opts.EnrollAttemptBurst)}
 	s.health = newStorageHealth(func(ctx context.Context) error { return s.opts.Store.Probe(ctx) }, opts.StorageProbeInterval, opts.Logger)
 	return s
 }
@@ -171,6 +185,8 @@ func (s *Server) newID() string {
 	return id.String()
 }
 
+// secret returns 256 random bits in base64url: a bearer token, which a
+// device keeps and nobody types (enrolment codes are newCode's).
 func (s *Server) secret() string {
 	b := make([]byte, 32)
 	if _, err := io.ReadFull(s.opts.Rand, b); err != nil {
@@ -244,9 +260,9 @@ func (s *Server) IssueEnrollmentCode(ctx context.Context, user string) (string, 
 }
 
 // issueCode returns a one-time code that enrols one device for user, valid
-// for life.
+// for life (see codes.go).
 func (s *Server) issueCode(ctx context.Context, user string, life time.Duration) (string, time.Time, error) {
-	code := s.secret()
+	code := s.newCode()
 	exp := s.opts.Now().Add(life)
 	if err := s.opts.Store.AddEnrollmentCode(ctx, hash(code), user, exp); err != nil {
 		return "", time.Time{}, err
@@ -268,7 +284,7 @@ func (a *adminService) EnrollDevice(ctx context.Context, req *pb.EnrollDeviceReq
 		return nil, statusError(codes.InvalidArgument, reasonInvalidArgument, "device_id", "", "must be a UUID")
 	}
 	token := s.secret()
-	d, err := s.opts.Store.Enroll(ctx, hash(req.GetCode()), Device{ID: req.GetDeviceId(), Name: req.GetDeviceName(), PublicKey: req.GetPublicKey()},
+	d, err := s.opts.Store.Enroll(ctx, hash(canonicalCode(req.GetCode())), Device{ID: req.GetDeviceId(), Name: req.GetDeviceName(), PublicKey: req.GetPublicKey()},
 		hash(token), s.opts.Now())
 	if err != nil {
 		if errors.Is(err, ErrCodeInvalid) {
@@ -360,9 +376,10 @@ func (s *Server) authenticate(ctx context.Context, method string) (context.Conte
 	return context.WithValue(ctx, deviceKey{}, d), nil
 }
 
-// UnaryInterceptor refuses a request RequestCodec could not decode, and
-// authenticates unary calls. Every status a call ends with carries its
-// reason (see status.go).
+// UnaryInterceptor refuses a request RequestCodec could not decode,
+// authenticates unary calls, and limits failed enrolment attempts (see
+// codes.go). Every status a call ends with carries its reason (see
+// status.go).
 func (s *Server) UnaryInterceptor(ctx context.Context, req any, info *grpc.UnaryServerInfo, h grpc.UnaryHandler) (any, error) {
 	if err := s.requests.refuse(req); err != nil {
 		return nil, err
@@ -371,7 +388,7 @@ func (s *Server) UnaryInterceptor(ctx context.Context, req any, info *grpc.Unary
 	if err != nil {
 		return nil, err
 	}
-	resp, err := h(ctx, req)
+	resp, err := s.limitAttempts(ctx, req, info, h)
 	return resp, s.detailed(ctx, err)
 }
 

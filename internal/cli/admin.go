@@ -117,6 +117,7 @@ breaks a line or a column.`,
 	members.Flags().StringVar(&project, "project", "", "the project, by name or id (default: the one remembered)")
 
 	var validFor time.Duration
+	var codeOnly, asURL bool
 	code := &cobra.Command{
 		Use: "issue-code", Short: "Issue a one-time code to enrol a user's device", Args: cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, _ []string) error {
@@ -125,13 +126,23 @@ breaks a line or a column.`,
 				if err != nil {
 					return err
 				}
-				_, err = fmt.Fprintf(out, "%s\texpires %s\n", escape(r.GetCode()), time.UnixMicro(r.GetExpiresMicros()).UTC().Format(time.RFC3339))
+				shown := r.GetCode()
+				if asURL {
+					shown = enrolURL(f.dialed, shown)
+				}
+				if codeOnly { // for scripts: CODE=$(tamp admin issue-code ... --code-only)
+					_, err = fmt.Fprintln(out, escape(shown))
+					return err
+				}
+				_, err = fmt.Fprintf(out, "%s\texpires %s\n", escape(shown), time.UnixMicro(r.GetExpiresMicros()).UTC().Format(time.RFC3339))
 				return err
 			})
 		},
 	}
 	code.Flags().StringVar(&user, "user", "", "the user whose device will be enrolled")
 	code.Flags().DurationVar(&validFor, "valid-for", 0, "how long the code stays valid, up to 168h (0: the server's default, 24h)")
+	code.Flags().BoolVar(&codeOnly, "code-only", false, "print only the code, for scripts")
+	code.Flags().BoolVar(&asURL, "url", false, "print the code as tamp://enrol?server=HOST:PORT&code=CODE, for tamp enroll --url; the server as this device reaches it")
 
 	var device, reason string
 	revoke := &cobra.Command{

@@ -3,8 +3,10 @@ package cli
 import (
 	"context"
 	"fmt"
+	"net/url"
 	"os"
 	"path/filepath"
+	"strings"
 
 	"github.com/spf13/cobra"
 	"github.com/spf13/pflag"
@@ -24,6 +26,8 @@ type deviceFlags struct {
 	// enrolment (tamp enroll, which may be moving to another server).
 	fresh bool
 	flags *pflag.FlagSet
+	// dialed is the address dial last connected to.
+	dialed string
 }
 
 func (f *deviceFlags) register(c *cobra.Command) {
@@ -77,6 +81,7 @@ func (f *deviceFlags) dial(ctx context.Context, s *client.Store) (*grpc.ClientCo
 	if addr == "" {
 		return nil, fmt.Errorf("--server: no server given and none stored; enrol first (tamp enroll --server ADDR --code CODE)")
 	}
+	f.dialed = addr
 	return client.Dial(addr, client.DialOptions{CAFile: ca, Plaintext: plain})
 }
 
@@ -96,7 +101,7 @@ func (f *deviceFlags) connect(ctx context.Context) (s *client.Store, cc *grpc.Cl
 
 func newEnroll() *cobra.Command {
 	f := deviceFlags{fresh: true}
-	var code, name string
+	var code, name, link string
 	c := &cobra.Command{
 		Use:   "enroll",
 		Short: "Enrol this device with a server using a one-time code",
@@ -104,12 +109,26 @@ func newEnroll() *cobra.Command {
 administrator issued, keep the token the server returns, and pull the reference
 data (specs, references, equipment) of the user's projects so tests can be
 graded offline.`,
-		Example: `  tamp enroll --server tamp.example.net:7420 --code K3Q... --ca site-ca.pem`,
-		Args:    cobra.NoArgs,
+		Example: `  tamp enroll --server tamp.example.net:7420 --code 7K3QM-0VX1Z-B4CDE-FGHJN-PRSTW --ca site-ca.pem
+  tamp enroll --url "tamp://enrol?server=tamp.example.net:7420&code=7K3QM-0VX1Z-B4CDE-FGHJN-PRSTW" --ca site-ca.pem`,
+		Args: cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, _ []string) error {
 			ctx := cmd.Context()
+			if link != "" {
+				if code != "" {
+					return fmt.Errorf("--code: give the code either in --url or in --code, not both")
+				}
+				server, linked, err := parseEnrolURL(link)
+				if err != nil {
+					return err
+				}
+				code = linked
+				if f.server == "" { // --server, when given, names the address this device reaches
+					f.server = server
+				}
+			}
 			if f.server == "" || code == "" {
-				return fmt.Errorf("--server and --code are required")
+				return fmt.Errorf("--server and --code are required (or --url with both)")
 			}
 			s, cc, done, err := f.connect(ctx)
 			if err != nil {
@@ -146,7 +165,32 @@ graded offline.`,
 		},
 	}
 	f.register(c)
-	c.Flags().StringVar(&code, "code", "", "the one-time enrolment code")
+	c.Flags().StringVar(&code, "code", "", "the one-time enrolment code (any case; dashes and spaces may be left out)")
+	c.Flags().StringVar(&link, "url", "", "the code and server as one tamp://enrol?server=HOST:PORT&code=CODE (tamp admin issue-code --url)")
 	c.Flags().StringVar(&name, "name", "", "a name for this device, e.g. \"tablet 3\"")
 	return c
+}
+
+// enrolURL returns the link that carries an enrolment code and its server
+// together: tamp://enrol?server=HOST:PORT&code=CODE.
+func enrolURL(server, code string) string {
+	q := func(v string) string { return strings.ReplaceAll(url.QueryEscape(v), "%3A", ":") }
+	return "tamp://enrol?server=" + q(server) + "&code=" + q(code)
+}
+
+// parseEnrolURL returns the server and the code of a link enrolURL made.
+func parseEnrolURL(link string) (server, code string, err error) {
+	u, err := url.Parse(strings.TrimSpace(link))
+	if err != nil || u.Scheme != "tamp" || u.Host != "enrol" {
+		return "", "", fmt.Errorf("--url: want tamp://enrol?server=HOST:PORT&code=CODE, got %q", escape(link))
+	}
+	q := u.Query()
+	server, code = q.Get("server"), q.Get("code")
+	switch {
+	case server == "":
+		return "", "", fmt.Errorf("--url: no server in %q; want tamp://enrol?server=HOST:PORT&code=CODE", escape(link))
+	case code == "":
+		return "", "", fmt.Errorf("--url: no code in %q; want tamp://enrol?server=HOST:PORT&code=CODE", escape(link))
+	}
+	return server, code, nil
 }

@@ -734,7 +734,7 @@ closes the failure.`,
 	ret.register(retest.Flags())
 	retest.Flags().BoolVar(&retJSON, "json", false, "print the result as JSON")
 
-	var showJSON bool
+	var showJSON, idOnly bool
 	show := &cobra.Command{
 		Use: "show TEST", Short: "Show a test with its whole history: revisions, voids, reviews, retests, flags", Args: cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
@@ -747,6 +747,10 @@ closes the failure.`,
 			if err != nil {
 				return err
 			}
+			if idOnly { // for scripts: TEST=$(tamp test show last --id-only)
+				_, err := fmt.Fprintln(cmd.OutOrStdout(), shortID(t.ID))
+				return err
+			}
 			if showJSON {
 				return writeJSON(cmd.OutOrStdout(), ss.testOut(t))
 			}
@@ -754,6 +758,7 @@ closes the failure.`,
 		},
 	}
 	jsonFlag(show, &showJSON)
+	show.Flags().BoolVar(&idOnly, "id-only", false, "print only the test's short id, for scripts")
 
 	var day string
 	var todayJSON bool

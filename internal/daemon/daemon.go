@@ -103,6 +103,7 @@ SIGINT or SIGTERM stops the server after the calls in flight have finished.`,
 
 func newInit(stdout io.Writer) *cobra.Command {
 	var data, admin string
+	var codeOnly bool
 	c := &cobra.Command{
 		Use:   "init",
 		Short: "Create a server's data directory and its first administrator",
@@ -129,12 +130,17 @@ has users.`,
 			if err != nil {
 				return err
 			}
+			if codeOnly { // for scripts: CODE=$(tampd init ... --code-only)
+				_, err = fmt.Fprintln(stdout, code)
+				return err
+			}
 			fmt.Fprintf(stdout, "administrator %s (%s)\nenrolment code: %s\nexpires: %s\n", user, admin, code, exp.UTC().Format(time.RFC3339))
 			return nil
 		},
 	}
 	c.Flags().StringVar(&data, "data", "", "data directory (required)")
 	c.Flags().StringVar(&admin, "admin", "administrator", "the first administrator's name")
+	c.Flags().BoolVar(&codeOnly, "code-only", false, "print only the enrolment code, for scripts")
 	return c
 }
 
