@@ -7,6 +7,7 @@ import (
 	"strings"
 	"time"
 
+	"github.com/google/uuid"
 	"github.com/spf13/cobra"
 
 	pb "tamp/internal/gen/tamp/v1"
@@ -52,6 +53,7 @@ breaks a line or a column.`,
 	f.register(c)
 
 	var name string
+	var asJSON bool
 	create := &cobra.Command{
 		Use: "create-project", Short: "Create a project (server administrators)", Args: cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, _ []string) error {
@@ -107,6 +109,18 @@ breaks a line or a column.`,
 				if err != nil {
 					return err
 				}
+				if asJSON {
+					type member struct {
+						UserID string `json:"user_id"`
+						Name   string `json:"name"`
+						Role   string `json:"role"`
+					}
+					ms := []member{}
+					for _, m := range r.GetMembers() {
+						ms = append(ms, member{m.GetUserId(), m.GetUserName(), roleName(m.GetRole())})
+					}
+					return writeJSON(out, ms)
+				}
 				for _, m := range r.GetMembers() {
 					fmt.Fprintf(out, "%s\t%s\t%s\n", escape(m.GetUserId()), roleName(m.GetRole()), escape(m.GetUserName()))
 				}
@@ -115,6 +129,7 @@ breaks a line or a column.`,
 		},
 	}
 	members.Flags().StringVar(&project, "project", "", "the project, by name or id (default: the one remembered)")
+	members.Flags().BoolVar(&asJSON, "json", false, "print JSON instead of tab-separated lines")
 
 	var validFor time.Duration
 	var codeOnly, asURL bool
@@ -122,7 +137,11 @@ breaks a line or a column.`,
 		Use: "issue-code", Short: "Issue a one-time code to enrol a user's device", Args: cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, _ []string) error {
 			return adminCall(cmd, &f, func(ctx context.Context, ac pb.AdminServiceClient, out io.Writer) error {
-				r, err := ac.IssueEnrollmentCode(ctx, &pb.IssueEnrollmentCodeRequest{UserId: user, ValidSeconds: int64(validFor / time.Second)})
+				id, err := userOf(ctx, ac, &f, project, user)
+				if err != nil {
+					return err
+				}
+				r, err := ac.IssueEnrollmentCode(ctx, &pb.IssueEnrollmentCodeRequest{UserId: id, ValidSeconds: int64(validFor / time.Second)})
 				if err != nil {
 					return err
 				}
@@ -139,7 +158,8 @@ breaks a line or a column.`,
 			})
 		},
 	}
-	code.Flags().StringVar(&user, "user", "", "the user whose device will be enrolled")
+	code.Flags().StringVar(&user, "user", "", "the user whose device will be enrolled: an id, or a member's name on --project")
+	code.Flags().StringVar(&project, "project", "", "the project whose members --user names (default: the one remembered)")
 	code.Flags().DurationVar(&validFor, "valid-for", 0, "how long the code stays valid, up to 168h (0: the server's default, 24h)")
 	code.Flags().BoolVar(&codeOnly, "code-only", false, "print only the code, for scripts")
 	code.Flags().BoolVar(&asURL, "url", false, "print the code as tamp://enrol?server=HOST:PORT&code=CODE, for tamp enroll --url; the server as this device reaches it")
@@ -164,10 +184,29 @@ breaks a line or a column.`,
 	devices := &cobra.Command{
 		Use: "devices", Short: "List enrolled devices", Args: cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, _ []string) error {
-			return adminCall(cmd, &f, func(ctx context.Context, ac pb.AdminServiceClient, out io.Writer) error {
-				r, err := ac.ListDevices(ctx, &pb.ListDevicesRequest{UserId: user})
+			return adminCall(cmd, &f, func(ctx context.Context, ac pb.AdminServiceClient, out io.Writer) (err error) {
+				id := user
+				if user != "" {
+					if id, err = userOf(ctx, ac, &f, project, user); err != nil {
+						return err
+					}
+				}
+				r, err := ac.ListDevices(ctx, &pb.ListDevicesRequest{UserId: id})
 				if err != nil {
 					return err
+				}
+				if asJSON {
+					type device struct {
+						DeviceID string `json:"device_id"`
+						UserID   string `json:"user_id"`
+						Name     string `json:"name"`
+						Revoked  bool   `json:"revoked"`
+					}
+					ds := []device{}
+					for _, d := range r.GetDevices() {
+						ds = append(ds, device{d.GetDeviceId(), d.GetUserId(), strings.TrimSpace(d.GetDeviceName()), d.GetRevoked()})
+					}
+					return writeJSON(out, ds)
 				}
 				for _, d := range r.GetDevices() {
 					state := "active"
@@ -180,7 +219,9 @@ breaks a line or a column.`,
 			})
 		},
 	}
-	devices.Flags().StringVar(&user, "user", "", "only this user's devices")
+	devices.Flags().StringVar(&user, "user", "", "only this user's devices: an id, or a member's name on --project")
+	devices.Flags().StringVar(&project, "project", "", "the project whose members --user names (default: the one remembered)")
+	devices.Flags().BoolVar(&asJSON, "json", false, "print JSON instead of tab-separated lines")
 
 	c.AddCommand(create, add, members, code, revoke, devices)
 	c.AddCommand(newInvitationCommands(&f)...)
@@ -196,4 +237,42 @@ func projectOf(ctx context.Context, f *deviceFlags, given string) (string, error
 	}
 	defer s.Close()
 	return resolveProject(ctx, s, given)
+}
+
+// userOf resolves --user: a user id as it is, or the name of a member of
+// the project (given by name or id, or the one remembered), matched
+// exactly, then ignoring case.
+func userOf(ctx context.Context, ac pb.AdminServiceClient, f *deviceFlags, project, user string) (string, error) {
+	if user == "" {
+		return "", fmt.Errorf("--user is required: a user id, or a member's name")
+	}
+	if uuid.Validate(user) == nil {
+		return user, nil
+	}
+	id, err := projectOf(ctx, f, project)
+	if err != nil {
+		return "", fmt.Errorf("--user %q is a name; name the project whose member it is with --project: %w", escape(user), err)
+	}
+	r, err := ac.ListMembers(ctx, &pb.ListMembersRequest{ProjectId: id})
+	if err != nil {
+		return "", err
+	}
+	var found []string
+	for _, pass := range []func(a, b string) bool{func(a, b string) bool { return a == b }, strings.EqualFold} {
+		for _, m := range r.GetMembers() {
+			if pass(m.GetUserName(), user) {
+				found = append(found, m.GetUserId())
+			}
+		}
+		if len(found) > 0 {
+			break
+		}
+	}
+	switch len(found) {
+	case 0:
+		return "", fmt.Errorf("--user %q: no member of the project has that name; tamp admin members lists them", escape(user))
+	case 1:
+		return found[0], nil
+	}
+	return "", fmt.Errorf("--user %q: %d members have that name; give the user's id (tamp admin members lists them)", escape(user), len(found))
 }

@@ -3,6 +3,7 @@ package cli
 import (
 	"bufio"
 	"context"
+	"encoding/json"
 	"errors"
 	"io"
 	"path/filepath"
@@ -157,5 +158,53 @@ func TestAdminFlow(t *testing.T) {
 	}
 	if d := must(t, "admin", "--store", adminStore, "devices", "--user", user); !strings.Contains(d, "revoked") {
 		t.Errorf("devices after revocation: %s", d)
+	}
+}
+
+// The administrator's read commands print JSON with --json, and --user
+// takes a member's name on the project as well as an id (issue 11: names,
+// not only UUIDs; --json on every read command).
+func TestAdminReadsJSONAndNames(t *testing.T) {
+	addr, code := startServer(t)
+	adminStore := filepath.Join(t.TempDir(), "admin.db")
+	must(t, "enroll", "--store", adminStore, "--server", addr, "--plaintext", "--code", code, "--name", "office laptop")
+	project := must(t, "admin", "--store", adminStore, "create-project", "--name", "Sumac Flat detention pond")
+	user := must(t, "admin", "--store", adminStore, "add-member", "--project", project, "--new-user", "Wren Halloway", "--role", "inspector")
+
+	var members []struct {
+		UserID string `json:"user_id"`
+		Name   string `json:"name"`
+		Role   string `json:"role"`
+	}
+	if err := json.Unmarshal([]byte(must(t, "admin", "--store", adminStore, "members", "--project", project, "--json")), &members); err != nil {
+		t.Fatal(err)
+	}
+	found := false
+	for _, m := range members {
+		found = found || (m.UserID == user && m.Name == "Wren Halloway" && m.Role == "inspector")
+	}
+	if !found {
+		t.Errorf("members --json: %+v", members)
+	}
+
+	inspCode := must(t, "admin", "--store", adminStore, "issue-code", "--project", project, "--user", "wren halloway", "--code-only")
+	must(t, "enroll", "--store", filepath.Join(t.TempDir(), "insp.db"), "--server", addr, "--plaintext", "--code", inspCode, "--name", "tablet 7")
+	var devices []struct {
+		UserID  string `json:"user_id"`
+		Name    string `json:"name"`
+		Revoked bool   `json:"revoked"`
+	}
+	if err := json.Unmarshal([]byte(must(t, "admin", "--store", adminStore, "devices", "--project", project, "--user", "Wren Halloway", "--json")), &devices); err != nil {
+		t.Fatal(err)
+	}
+	if len(devices) != 1 || devices[0].UserID != user || devices[0].Name != "tablet 7" || devices[0].Revoked {
+		t.Errorf("devices --json --user NAME: %+v", devices)
+	}
+	if _, _, err := run(t, "admin", "--store", adminStore, "issue-code", "--project", project, "--user", "Nobody Here"); err == nil {
+		t.Error("a code for a name no member has")
+	}
+	var invitations []json.RawMessage
+	if err := json.Unmarshal([]byte(must(t, "admin", "--store", adminStore, "invitations", "--json")), &invitations); err != nil || len(invitations) != 0 {
+		t.Errorf("invitations --json: %v %v", invitations, err)
 	}
 }

@@ -25,6 +25,7 @@ func printAdded(out io.Writer, resp *pb.AddMemberResponse) error {
 // newInvitationCommands returns the admin subcommands with which a user
 // sees, accepts and declines their invitations to projects.
 func newInvitationCommands(f *deviceFlags) []*cobra.Command {
+	var asJSON bool
 	list := &cobra.Command{
 		Use: "invitations", Short: "List your pending invitations to projects", Args: cobra.NoArgs,
 		Long: `List the invitations to projects awaiting your answer, one a line: the invitation,
@@ -35,6 +36,20 @@ the project, the role offered, the project's name and who invited you.`,
 				if err != nil {
 					return err
 				}
+				if asJSON {
+					type invitation struct {
+						ID          string `json:"invitation_id"`
+						ProjectID   string `json:"project_id"`
+						ProjectName string `json:"project_name"`
+						Role        string `json:"role"`
+						InvitedBy   string `json:"invited_by"`
+					}
+					is := []invitation{}
+					for _, inv := range r.GetInvitations() {
+						is = append(is, invitation{inv.GetInvitationId(), inv.GetProjectId(), inv.GetProjectName(), roleName(inv.GetRole()), inv.GetInvitedByName()})
+					}
+					return writeJSON(out, is)
+				}
 				for _, inv := range r.GetInvitations() {
 					fmt.Fprintf(out, "%s\t%s\t%s\t%s\t%s\n", escape(inv.GetInvitationId()), escape(inv.GetProjectId()), roleName(inv.GetRole()),
 						escape(inv.GetProjectName()), escape(inv.GetInvitedByName()))
@@ -43,6 +58,8 @@ the project, the role offered, the project's name and who invited you.`,
 			})
 		},
 	}
+
+	list.Flags().BoolVar(&asJSON, "json", false, "print JSON instead of tab-separated lines")
 
 	var accepted string
 	accept := &cobra.Command{
