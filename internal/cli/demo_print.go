@@ -62,7 +62,7 @@ func (d *demoDay) testRow(t *demoTable, dev *demoDevice, id, note string) error 
 	r := tt.Result
 	t.row(tt.Taken.In(d.cfg.loc).Format("15:04"), d.labels[id], demoFirst(d.who(tt.Author)), methodShort[r.Method],
 		demoU.station(tt.Content.Location.Station), demoU.offset(tt.Content.Location.Offset), demoU.show(soil.Density, r.DryDensity),
-		demoMoistureText(r), demoRCText(r), demoVerdict(r), note)
+		demoMoistureText(r), demoRCText(r), verdictWhy(r), note)
 	return nil
 }
 
@@ -111,29 +111,8 @@ func demoRCText(r client.Result) string {
 	return fmt.Sprintf("%s (%s)", demoU.show(soil.Percent, r.RelativeCompaction), demoOr(compactionLimit(r.Limits), "no limit"))
 }
 
-// demoVerdict is the verdict in words, with the reasons of a failure.
-func demoVerdict(r client.Result) string {
-	if r.Verdict != client.Fail {
-		return verdictWord(r.Verdict)
-	}
-	var why []string
-	for _, f := range r.Reasons {
-		switch f.Code {
-		case client.ReasonCompactionBelowMinimum:
-			why = append(why, "under-compacted")
-		case client.ReasonMoistureBelowWindow:
-			why = append(why, "too dry")
-		case client.ReasonMoistureAboveWindow:
-			why = append(why, "too wet")
-		default:
-			why = append(why, f.Code)
-		}
-	}
-	return verdictWord(r.Verdict) + ": " + strings.Join(why, ", ")
-}
-
 func demoVerdictText(r client.Result) string {
-	return fmt.Sprintf("RC %s, %s", demoU.show(soil.Percent, r.RelativeCompaction), demoVerdict(r))
+	return fmt.Sprintf("RC %s, %s", demoU.show(soil.Percent, r.RelativeCompaction), verdictWhy(r))
 }
 
 // demoMoisture is the moisture a revision's readings give, percent, or NaN
@@ -281,7 +260,7 @@ func (d *demoDay) qaReports(context.Context) error {
 			shift = demoU.show(soil.Length, c.StationShift)
 		}
 		for _, r := range c.Retests {
-			re = append(re, fmt.Sprintf("%s %s", d.labels[r.ID], demoVerdict(r.Result)))
+			re = append(re, fmt.Sprintf("%s %s", d.labels[r.ID], verdictWhy(r.Result)))
 		}
 		t.row(d.labels[c.Failed.ID], demoFirst(d.who(c.Failed.Author)), demoWhere(c.Failed.Content),
 			demoVerdictText(c.Failed.Result), demoOr(strings.Join(re, "; "), "none"), string(c.Closure), shift)

@@ -1026,7 +1026,7 @@ func (ss *session) printTests(cmd *cobra.Command, asJSON bool, ts []client.Test,
 	tab := newTable(w, "TIME", "TEST", "STATION", "OFFSET", "FEATURE", "LIFT", "METHOD", "DRY DENSITY", "MOISTURE", "RC", "LIMIT", "VERDICT", "REVIEW", "BY")
 	for _, t := range ts {
 		res := t.Result
-		rc, verdict := "-", verdictWord(res.Verdict)
+		rc, verdict := "-", verdictWhy(res)
 		if graded(res) {
 			rc = ss.u.show(soil.Percent, res.RelativeCompaction)
 		}
@@ -1043,6 +1043,9 @@ func (ss *session) printTests(cmd *cobra.Command, asJSON bool, ts []client.Test,
 	}
 	if p.err == nil {
 		p.err = tab.flush()
+	}
+	if anyNuclear(ts) {
+		p.f("%s\n", qc.NuclearCaution)
 	}
 	p.f("%s\n", qc.Caution)
 	return p.err

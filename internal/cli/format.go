@@ -230,6 +230,42 @@ func verdictWord(v client.Verdict) string {
 	return "not graded"
 }
 
+// verdictWhy is a verdict in words, with the reasons of a failure in the
+// trade's words: FAIL: under-compacted, too dry, too wet.
+func verdictWhy(r client.Result) string {
+	if r.Verdict != client.Fail {
+		return verdictWord(r.Verdict)
+	}
+	var why []string
+	for _, f := range r.Reasons {
+		switch f.Code {
+		case client.ReasonCompactionBelowMinimum:
+			why = append(why, "under-compacted")
+		case client.ReasonMoistureBelowWindow:
+			why = append(why, "too dry")
+		case client.ReasonMoistureAboveWindow:
+			why = append(why, "too wet")
+		default:
+			why = append(why, f.Code)
+		}
+	}
+	if len(why) == 0 {
+		return verdictWord(r.Verdict)
+	}
+	return verdictWord(r.Verdict) + ": " + strings.Join(why, ", ")
+}
+
+// anyNuclear reports whether any of the tests was taken with a nuclear
+// gauge, whose caution then goes with the list.
+func anyNuclear(ts []client.Test) bool {
+	for _, t := range ts {
+		if t.Result.Method == client.NuclearDirect || t.Result.Method == client.NuclearBackscatter {
+			return true
+		}
+	}
+	return false
+}
+
 // methodNames are the methods in words, with their standards.
 var methodNames = map[client.Method]string{
 	client.NuclearDirect:       "nuclear gauge, direct transmission (ASTM D6938)",

@@ -68,7 +68,7 @@ review by qualified personnel; the project's specifications govern.`,
 				return err
 			}
 			open := 0
-			t := newTable(w, "FAILED TEST", "TAKEN", "STATION", "FEATURE", "RC", "LIMIT", "RETESTS", "STATION SHIFT", "CLOSURE")
+			t := newTable(w, "FAILED TEST", "TAKEN", "STATION", "FEATURE", "RC", "LIMIT", "VERDICT", "RETESTS", "STATION SHIFT", "CLOSURE")
 			for _, ch := range chains {
 				ft := ch.Failed
 				var rs []string
@@ -78,9 +78,13 @@ review by qualified personnel; the project's specifications govern.`,
 				if ch.Closure == client.ClosureOpen {
 					open++
 				}
+				shift := "-" // no retest, no shift
+				if len(ch.Retests) > 0 {
+					shift = ss.u.show(soil.Length, ch.StationShift)
+				}
 				t.row(shortID(ft.ID), localTime(ft.Taken, ss.loc), ss.u.station(ft.Content.Location.Station),
 					ft.Content.Feature+" lift "+strconv.Itoa(int(ft.Content.LiftNumber)), ss.u.show(soil.Percent, ft.Result.RelativeCompaction),
-					orDefault(compactionLimit(ft.Result.Limits), "-"), orDefault(strings.Join(rs, ", "), "none"), ss.u.show(soil.Length, ch.StationShift),
+					orDefault(compactionLimit(ft.Result.Limits), "-"), verdictWhy(ft.Result), orDefault(strings.Join(rs, ", "), "none"), shift,
 					closureWords[ch.Closure])
 			}
 			if err := t.flush(); err != nil {

@@ -71,3 +71,23 @@ func TestRefusalAdvice(t *testing.T) {
 		t.Errorf("a refusal with no advice printed %q", other.Error())
 	}
 }
+
+// A failing test's verdict says why, in the trade's words, so a moisture
+// failure beside a compaction limit it meets does not read as a compaction
+// failure.
+func TestVerdictWhy(t *testing.T) {
+	for _, c := range []struct {
+		r    client.Result
+		want string
+	}{
+		{client.Result{Verdict: client.Pass}, "PASS"},
+		{client.Result{Verdict: client.Pending}, "not graded"},
+		{client.Result{Verdict: client.Fail, Reasons: []client.Finding{{Code: client.ReasonMoistureBelowWindow}}}, "FAIL: too dry"},
+		{client.Result{Verdict: client.Fail, Reasons: []client.Finding{{Code: client.ReasonCompactionBelowMinimum}, {Code: client.ReasonMoistureAboveWindow}}},
+			"FAIL: under-compacted, too wet"},
+	} {
+		if got := verdictWhy(c.r); got != c.want {
+			t.Errorf("verdictWhy(%+v) = %q, want %q", c.r, got, c.want)
+		}
+	}
+}
