@@ -289,3 +289,17 @@ func FuzzCalcTest(f *testing.F) {
 		}
 	})
 }
+
+// The human output prints each limit beside the value judged against it.
+func TestCalcTextShowsLimitsBesideValues(t *testing.T) {
+	out, _, err := run(t, "calc", "test", "--sand-used", "7.00", "--cone-correction", "0.53", "--sand-density", "99.0", "--soil-mass", "8.11",
+		"--moisture", "11.1", "--mdd", "116.0", "--omc", "13.5", "--min-rc", "95.0", "--moisture-window", "-2,2")
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, want := range []string{"96.3 %   (min 95.0 %)", "-2.4 points   (window -2 to 2 points)"} {
+		if !strings.Contains(out, want) {
+			t.Errorf("calc test output lacks %q:\n%s", want, out)
+		}
+	}
+}

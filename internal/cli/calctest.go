@@ -245,7 +245,9 @@ func computeTest(cmd *cobra.Command, f testFlags) (*testOut, error) {
 	if err != nil {
 		return nil, err
 	}
-	return newTestOut(sys, test, res), nil
+	o := newTestOut(sys, test, res)
+	o.minRC, o.window = strings.TrimSpace(f.minRC), strings.TrimSpace(f.window)
+	return o, nil
 }
 
 // holeMethods are the methods that weigh the moist soil of a measured
@@ -326,6 +328,9 @@ type testOut struct {
 	Cautions            []string           `json:"cautions"`
 
 	sys soil.System
+
+	// the limits as the user wrote them, printed beside the values judged
+	minRC, window string
 }
 
 func newTestOut(sys soil.System, t soil.InPlace, r qc.Result) *testOut {
@@ -401,8 +406,10 @@ func (o *testOut) text(w io.Writer) error {
 		p.f("Reference\n")
 		p.f("  %-44s %12s %s\n", "maximum dry density", o.MaxDryDensity, du)
 		p.f("  %-44s %12s %%\n", "optimum moisture", o.OptimumMoisture)
-		p.f("  %-44s %12s %%\n", "relative compaction", o.RelativeCompaction)
-		p.f("  %-44s %12s points\n", "moisture deviation from optimum", o.MoistureDeviation)
+		p.f("  %-44s %12s %%%s\n", "relative compaction", o.RelativeCompaction, limitNote("min "+o.minRC+" %", o.minRC != ""))
+		lo, hi, _ := strings.Cut(o.window, ",")
+		p.f("  %-44s %12s points%s\n", "moisture deviation from optimum", o.MoistureDeviation,
+			limitNote("window "+strings.TrimSpace(lo)+" to "+strings.TrimSpace(hi)+" points", o.window != ""))
 	}
 	if o.ZeroAirVoidsDensity != nil {
 		p.f("  %-44s %12s %s\n", "zero-air-voids dry density", *o.ZeroAirVoidsDensity, du)
@@ -428,6 +435,15 @@ func (o *testOut) text(w io.Writer) error {
 		p.f("%s\n", c)
 	}
 	return p.err
+}
+
+// limitNote is the limit a value was judged against, printed beside it,
+// or "" when no limit was given.
+func limitNote(limit string, given bool) string {
+	if !given {
+		return ""
+	}
+	return "   (" + limit + ")"
 }
 
 // printer writes formatted text and keeps the first error.
