@@ -187,7 +187,7 @@ within the limit (PWL).`,
 				rows := []row{}
 				for _, l := range ls {
 					rows = append(rows, row{Placement: placementName(l.Placement), PlacementID: l.Placement.ID, Spec: specName[l.SpecID], N: l.N,
-						Mean: some(l.Mean, 1), StdDev: some(l.StdDev, 2), LowerLimit: some(l.LowerLimit, 1), QualityIndex: some(l.QualityIndex, 2), PWL: some(l.PWL, 0)})
+						Mean: some(l.Mean, 1), StdDev: some(l.StdDev, 2), LowerLimit: some(l.LowerLimit, 1), QualityIndex: some(l.QualityIndex, 2), PWL: some(l.PWL, 1)})
 				}
 				return writeJSON(cmd.OutOrStdout(), rows)
 			}
@@ -198,8 +198,8 @@ within the limit (PWL).`,
 			}
 			t := newTable(w, "LOT (PLACEMENT)", "SPEC", "TESTS", "MEAN RC", "STD DEV", "LIMIT", "Q", "PWL")
 			for _, l := range ls {
-				t.row(placementName(l.Placement), specName[l.SpecID], strconv.Itoa(l.N), some(l.Mean, 1).String()+" %", some(l.StdDev, 2).String(),
-					"min "+orDefault(minRC[l.SpecID], some(l.LowerLimit, 1).String())+" %", some(l.QualityIndex, 2).String(), some(l.PWL, 0).String()+" %")
+				t.row(placementName(l.Placement), specName[l.SpecID], strconv.Itoa(l.N), some(l.Mean, 1).String()+" %", some(l.StdDev, 2).String()+" %",
+					"min "+orDefault(minRC[l.SpecID], some(l.LowerLimit, 1).String())+" %", some(l.QualityIndex, 2).String(), some(l.PWL, 1).String()+" %")
 			}
 			if err := t.flush(); err != nil {
 				return err

@@ -335,8 +335,14 @@ func newStatus() *cobra.Command {
 			for _, ps := range all.Projects {
 				st := ps.Status
 				last := "never"
-				if !st.LastSuccess.IsZero() {
-					last = st.LastSuccess.Local().Format(time.DateTime)
+				if !st.LastSuccess.IsZero() { // in the project's time zone, named
+					loc := time.UTC
+					if su, ok := s.SetUp(ps.Project); ok && su.TimeZone != "" {
+						if l, err := time.LoadLocation(su.TimeZone); err == nil {
+							loc = l
+						}
+					}
+					last = st.LastSuccess.In(loc).Format("2006-01-02 15:04:05 MST")
 				}
 				label := escape(ps.Project)
 				if ps.Name != "" {
