@@ -7,8 +7,12 @@ import (
 	"io"
 	"os"
 	"path/filepath"
+	"slices"
+	"time"
 
 	"tamp/client"
+	"tamp/internal/chart"
+	"tamp/internal/exports"
 	"tamp/internal/soil"
 )
 
@@ -77,6 +81,11 @@ type demoBalanceOut struct {
 type demoKeptOut struct {
 	OfficeStore string `json:"office_store"`
 	Ledger      string `json:"ledger"`
+	// Files are the exports, report JSON and charts written beside them,
+	// from the office's store; GeoJSONSkipped the tests without a position,
+	// left out of tests.geojson rather than placed anywhere.
+	Files          []string `json:"files"`
+	GeoJSONSkipped int      `json:"geojson_skipped"`
 }
 
 func (d *demoDay) summarize(ctx context.Context) (*demoSummary, error) {
@@ -187,6 +196,10 @@ func (d *demoDay) keep(ctx context.Context, sum *demoSummary) (*demoKeptOut, err
 		return nil, err
 	}
 
+	if err := d.writeOutputs(dir, kept); err != nil {
+		return nil, err
+	}
+
 	// The kept store remembers the project, so read commands need no
 	// --project.
 	if err := d.office.store.SetSetting(ctx, projectSetting, d.project); err != nil {
@@ -236,4 +249,142 @@ func demoCopyFile(from, to string) error {
 	}
 	_, err = io.Copy(dst, src)
 	return errors.Join(err, dst.Sync(), dst.Close())
+}
+
+// writeOutputs writes, from the office's store, the tests and their
+// history as CSV, their positions as GeoJSON, each QA report as JSON, and
+// a moisture-density chart per laboratory reference and a run chart per
+// specification, as SVG and PNG. Each file is written whole under a
+// temporary name and renamed into place.
+func (d *demoDay) writeOutputs(dir string, kept *demoKeptOut) error {
+	st := d.office.store
+	tests := st.Tests(d.project)
+	sys := demoUnits
+	write := func(name string, fn func(io.Writer) error) error {
+		path := filepath.Join(dir, name)
+		partial := path + ".partial"
+		defer os.Remove(partial)
+		f, err := os.Create(partial)
+		if err != nil {
+			return err
+		}
+		if err := errors.Join(fn(f), f.Sync(), f.Close()); err != nil {
+			return fmt.Errorf("write %s: %w", name, err)
+		}
+		if err := os.Rename(partial, path); err != nil {
+			return err
+		}
+		kept.Files = append(kept.Files, path)
+		return nil
+	}
+	if err := write("tests.csv", func(w io.Writer) error { return exports.TestsCSV(w, tests, sys) }); err != nil {
+		return err
+	}
+	if err := write("history.csv", func(w io.Writer) error { return exports.HistoryCSV(w, tests, sys) }); err != nil {
+		return err
+	}
+	if err := write("tests.geojson", func(w io.Writer) error {
+		skipped, err := exports.TestsGeoJSON(w, tests, sys)
+		kept.GeoJSONSkipped = len(skipped)
+		return err
+	}); err != nil {
+		return err
+	}
+	lots, err := st.Lots(d.project)
+	if err != nil {
+		return err
+	}
+	balances, err := st.Reconcile(d.project)
+	if err != nil {
+		return err
+	}
+	for _, r := range []struct {
+		name string
+		v    any
+	}{
+		{"review_queue", st.ReviewQueue(d.project, "")}, {"retest_audit", st.RetestAudit(d.project)},
+		{"frequency", st.Frequency(d.project)}, {"lots", lots}, {"reconciliation", balances},
+	} {
+		if err := write(r.name+".json", func(w io.Writer) error { return exports.ReportJSON(w, r.name, r.v) }); err != nil {
+			return err
+		}
+	}
+
+	su, _ := st.SetUp(d.project)
+	loc, err := time.LoadLocation(su.TimeZone)
+	if err != nil {
+		loc = time.UTC
+	}
+	opts := chart.Options{Units: sys, Water: su.WaterDensity, Location: loc}
+	specs := map[string]client.Spec{}
+	for _, sp := range st.Specs(d.project) {
+		specs[sp.ID] = sp
+	}
+	// A reference's chart uses the spec its tests name most.
+	specOf := func(refID string) (client.Spec, bool) {
+		count := map[string]int{}
+		for _, t := range tests {
+			if t.Content.ReferenceID == refID {
+				count[t.Content.SpecID]++
+			}
+		}
+		best, n := "", 0
+		for id, c := range count {
+			if c > n || (c == n && id < best) {
+				best, n = id, c
+			}
+		}
+		sp, ok := specs[best]
+		return sp, ok
+	}
+	for i, ref := range st.References(d.project) {
+		sp, ok := specOf(ref.ID)
+		if !ok {
+			continue
+		}
+		c, err := chart.MoistureDensity(ref, sp, tests, opts)
+		if errors.Is(err, chart.ErrNoData) {
+			continue
+		}
+		if err != nil {
+			return fmt.Errorf("moisture-density chart of %s: %w", ref.LabSampleID, err)
+		}
+		for _, ext := range []string{".svg", ".png"} {
+			name := fmt.Sprintf("moisture_density_%d%s", i+1, ext)
+			if err := write(name, func(w io.Writer) error {
+				if ext == ".svg" {
+					return c.WriteSVG(w)
+				}
+				return c.WritePNG(w)
+			}); err != nil {
+				return err
+			}
+		}
+	}
+	ids := make([]string, 0, len(specs))
+	for id := range specs {
+		ids = append(ids, id)
+	}
+	slices.Sort(ids)
+	for i, id := range ids {
+		c, err := chart.RunChart(tests, specs[id], opts)
+		if errors.Is(err, chart.ErrNoData) {
+			continue
+		}
+		if err != nil {
+			return fmt.Errorf("run chart of %s: %w", specs[id].Name, err)
+		}
+		for _, ext := range []string{".svg", ".png"} {
+			name := fmt.Sprintf("run_chart_%d%s", i+1, ext)
+			if err := write(name, func(w io.Writer) error {
+				if ext == ".svg" {
+					return c.WriteSVG(w)
+				}
+				return c.WritePNG(w)
+			}); err != nil {
+				return err
+			}
+		}
+	}
+	return nil
 }

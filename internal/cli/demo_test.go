@@ -2,6 +2,7 @@ package cli
 
 import (
 	"context"
+	"encoding/csv"
 	"encoding/json"
 	"errors"
 	"io"
@@ -63,8 +64,10 @@ type demoOut struct {
 		BankVolume          float64 `json:"bank_volume"`
 	} `json:"reconciliation"`
 	Kept *struct {
-		OfficeStore string `json:"office_store"`
-		Ledger      string `json:"ledger"`
+		OfficeStore    string   `json:"office_store"`
+		Ledger         string   `json:"ledger"`
+		Files          []string `json:"files"`
+		GeoJSONSkipped int      `json:"geojson_skipped"`
 	} `json:"kept"`
 }
 
@@ -140,6 +143,37 @@ func TestDemoSummaryMatchesLedger(t *testing.T) {
 
 	// The tests, as the office's copy of the ledger holds them.
 	tests := office.TestsOn(project, sum.Day)
+
+	// The exports, reports and charts beside it: the CSV has a row per test
+	// and parses strictly, the GeoJSON places no test without a position,
+	// and each file the summary names is there and not empty.
+	names := map[string]bool{}
+	for _, f := range sum.Kept.Files {
+		names[filepath.Base(f)] = true
+		if fi, err := os.Stat(f); err != nil || fi.Size() == 0 {
+			t.Errorf("kept file %s: %v", f, err)
+		}
+	}
+	for _, want := range []string{"tests.csv", "history.csv", "tests.geojson", "review_queue.json", "retest_audit.json", "frequency.json",
+		"lots.json", "reconciliation.json", "moisture_density_1.svg", "moisture_density_1.png", "run_chart_1.svg", "run_chart_1.png"} {
+		if !names[want] {
+			t.Errorf("the demo kept no %s: %v", want, sum.Kept.Files)
+		}
+	}
+	if f, err := os.Open(filepath.Join(dir, "tests.csv")); err == nil {
+		rows, err := csv.NewReader(f).ReadAll()
+		f.Close()
+		if err != nil || len(rows) != len(office.Tests(project))+1 {
+			t.Errorf("tests.csv: %d rows (%v), want a header and one per test (%d)", len(rows), err, len(office.Tests(project)))
+		}
+	}
+	var fc struct {
+		Features []json.RawMessage `json:"features"`
+	}
+	if b, err := os.ReadFile(filepath.Join(dir, "tests.geojson")); err != nil || json.Unmarshal(b, &fc) != nil ||
+		len(fc.Features)+sum.Kept.GeoJSONSkipped != len(office.Tests(project)) {
+		t.Errorf("tests.geojson: %d placed and %d skipped of %d tests (%v)", len(fc.Features), sum.Kept.GeoJSONSkipped, len(office.Tests(project)), err)
+	}
 	var retests, failures, corrections, approved, returned, unreviewed int
 	byDevice := map[string]int{}
 	for _, tt := range tests {

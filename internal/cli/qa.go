@@ -342,7 +342,7 @@ project's convention, written out below the table.`,
 	}
 	accept.Flags().StringVar(&reason, "reason", "", "why the failure is accepted (required)")
 
-	c.AddCommand(audit, frequency, lots, reconcile, accept)
+	c.AddCommand(audit, frequency, lots, reconcile, accept, newQAExport(&f), newQAChart(&f))
 	return c
 }
 
