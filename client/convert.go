@@ -409,7 +409,10 @@ func frequencyOf(f report.Frequency) Frequency {
 
 func lotOf(p *ledger.Projection, l report.Lot) Lot {
 	out := Lot{Placement: placementOf(l.Placement), SpecID: l.SpecID, Values: slices.Clone(l.Values), N: l.PWL.N, Mean: l.PWL.Mean,
-		StdDev: l.PWL.StdDev, QualityIndex: l.PWL.QualityLower, PWL: l.PWL.PWL}
+		StdDev: l.PWL.StdDev, QualityIndex: l.PWL.QualityLower, PWL: l.PWL.PWL, LeftOut: []LeftOutTest{}}
+	for _, o := range l.LeftOut {
+		out.LeftOut = append(out.LeftOut, LeftOutTest{TestID: o.TestID, Reason: string(o.Reason), ReplacedBy: o.ReplacedBy})
+	}
 	if sp, ok := p.Spec(l.SpecID); ok && sp.QC().MinCompaction != nil {
 		out.LowerLimit = sp.QC().MinCompaction.Value
 	}

@@ -12,8 +12,9 @@ import (
 // same entries. They are as recent as the device's last sync.
 
 // ReviewQueue returns the tests whose current revision awaits the office:
-// not voided and not approved (unreviewed, or returned and since
-// corrected). With day set (YYYY-MM-DD, the project's time zone), only the
+// not voided, and unreviewed (never reviewed, or returned and since
+// corrected); a test returned and not yet corrected awaits its inspector.
+// With day set (YYYY-MM-DD, the project's time zone), only the
 // tests taken that day. Oldest first.
 func (s *Store) ReviewQueue(project, day string) []Test {
 	s.mu.Lock()
@@ -48,9 +49,11 @@ func (s *Store) Frequency(project string) []Frequency {
 	return out
 }
 
-// Lots estimates, for every placement with at least three graded original
+// Lots estimates, for every placement with at least three final graded
 // tests against one spec with a minimum relative compaction, the percent of
-// the lot within the minimum.
+// the lot within the minimum. A failure replaced by a retest, a test the
+// office returned and a voided test are not final: each lot lists them in
+// LeftOut with the reason.
 func (s *Store) Lots(project string) ([]Lot, error) {
 	s.mu.Lock()
 	defer s.mu.Unlock()

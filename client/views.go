@@ -271,6 +271,27 @@ type Lot struct {
 	LowerLimit   float64 `json:"lower_limit"`
 	QualityIndex float64 `json:"quality_index"`
 	PWL          float64 `json:"pwl"`
+	// LeftOut are the placement's tests against the spec that are not
+	// final, oldest first: a lot holds final tests only.
+	LeftOut []LeftOutTest `json:"left_out"`
+}
+
+// Why a test is left out of its lot.
+const (
+	// LeftOutReworked: the test failed and a retest that counts (graded,
+	// neither voided nor returned) replaced it.
+	LeftOutReworked = "reworked_and_retested"
+	// LeftOutReturned: the office returned the test's current revision.
+	LeftOutReturned = "returned_by_office"
+	// LeftOutVoided: the test was voided.
+	LeftOutVoided = "voided"
+)
+
+// LeftOutTest is a test left out of its lot, and why.
+type LeftOutTest struct {
+	TestID     string `json:"test_id"`
+	Reason     string `json:"reason"`                // LeftOutReworked, LeftOutReturned or LeftOutVoided
+	ReplacedBy string `json:"replaced_by,omitempty"` // for LeftOutReworked, the retest that counts in its place
 }
 
 // VolumeBalance reconciles one borrow source: the compacted volume placed

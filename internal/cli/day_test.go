@@ -182,12 +182,30 @@ func TestSmallDay(t *testing.T) {
 		Placement string
 		N         int
 		PWL       *float64
+		LeftOut   []struct {
+			Test, Reason string
+			ReplacedBy   string `json:"replaced_by"`
+		} `json:"left_out"`
+		LeftOutCount int `json:"left_out_count"`
 	}
 	decode(t, c.as("qa", "qa", "lots", "--json"), &lots)
 	if len(lots) != 1 || lots[0].N < 3 || lots[0].PWL == nil {
-		t.Errorf("qa lots: %+v", lots)
+		t.Fatalf("qa lots: %+v", lots)
 	}
-	holds(t, "qa lots", c.as("qa", "qa", "lots"), "embankment lift 4", "min 95 %", "PWL")
+	// Final tests only: the failure the retest closed, the test the office
+	// returned and the voided test are left out, each with its reason.
+	wantOut := map[string]string{back: "reworked_and_retested", ids["wet-density"]: "returned_by_office", balloon: "voided"}
+	if lots[0].LeftOutCount != len(wantOut) || len(lots[0].LeftOut) != len(wantOut) {
+		t.Errorf("qa lots left out %d: %+v, want %v", lots[0].LeftOutCount, lots[0].LeftOut, wantOut)
+	}
+	for _, o := range lots[0].LeftOut {
+		if wantOut[o.Test] != o.Reason || (o.Reason == "reworked_and_retested") != (o.ReplacedBy == last.ShortID) {
+			t.Errorf("qa lots left out %+v, want reason %q (a reworked test names its retest %s)", o, wantOut[o.Test], last.ShortID)
+		}
+	}
+	holds(t, "qa lots", c.as("qa", "qa", "lots"), "embankment lift 4", "min 95 %", "PWL",
+		"test "+back+": reworked and retested; retest "+last.ShortID+" counts in its place",
+		"test "+ids["wet-density"]+": returned by the office", "test "+balloon+": voided")
 	var rec []struct {
 		Source              string
 		CompactedVolume     float64 `json:"compacted_volume"`

@@ -297,7 +297,7 @@ func (d *demoDay) qaReports(context.Context) error {
 	if err != nil {
 		return err
 	}
-	p.f("Lots: percent within limits of relative compaction (original graded tests; Q = (mean - limit) / s)\n")
+	p.f("Lots: percent within limits of relative compaction (final graded tests; Q = (mean - limit) / s)\n")
 	t = newDemoTable(p, "LIFT", "SPECIFICATION", "N", "MEAN RC", "STD DEV", "MIN RC", "Q", "PWL")
 	for _, l := range lots {
 		t.row(demoLift(l.Placement), d.specs[l.SpecID], fmt.Sprint(l.N), demoValue(l.Mean, 1, "%"),

@@ -153,10 +153,14 @@ per test, rounded up) against the tests taken (retests do not count).`,
 	var lotsJSON bool
 	lots := &cobra.Command{
 		Use: "lots", Short: "Percent within limits of each lot's relative compaction", Args: cobra.NoArgs,
-		Long: `For each placement with at least three graded original tests against one spec's
+		Long: `For each placement with at least three final graded tests against one spec's
 minimum relative compaction: the mean, the sample standard deviation, the
 quality index Q = (mean - limit) / s and the estimated percent of the lot
-within the limit (PWL).`,
+within the limit (PWL; AASHTO R 9, beta-distribution estimator).
+
+A lot holds final tests only. Left out, and listed under the table with
+the reason: a failure that a retest replaced (the retest counts), a test the
+office returned, and a voided test.`,
 		RunE: func(cmd *cobra.Command, _ []string) error {
 			ss, err := f.open(cmd.Context())
 			if err != nil {
@@ -183,17 +187,24 @@ within the limit (PWL).`,
 					LowerLimit   num    `json:"lower_limit"`
 					QualityIndex num    `json:"quality_index"`
 					PWL          num    `json:"pwl"`
+					LeftOutCount int    `json:"left_out_count"`
+					LeftOut      []left `json:"left_out"`
 				}
 				rows := []row{}
 				for _, l := range ls {
-					rows = append(rows, row{Placement: placementName(l.Placement), PlacementID: l.Placement.ID, Spec: specName[l.SpecID], N: l.N,
-						Mean: some(l.Mean, 1), StdDev: some(l.StdDev, 2), LowerLimit: some(l.LowerLimit, 1), QualityIndex: some(l.QualityIndex, 2), PWL: some(l.PWL, 1)})
+					r := row{Placement: placementName(l.Placement), PlacementID: l.Placement.ID, Spec: specName[l.SpecID], N: l.N,
+						Mean: some(l.Mean, 1), StdDev: some(l.StdDev, 2), LowerLimit: some(l.LowerLimit, 1), QualityIndex: some(l.QualityIndex, 2), PWL: some(l.PWL, 1),
+						LeftOutCount: len(l.LeftOut), LeftOut: []left{}}
+					for _, o := range l.LeftOut {
+						r.LeftOut = append(r.LeftOut, leftOf(o))
+					}
+					rows = append(rows, r)
 				}
 				return writeJSON(cmd.OutOrStdout(), rows)
 			}
 			w := cmd.OutOrStdout()
 			if len(ls) == 0 {
-				_, err := fmt.Fprintln(w, "No lot yet: a lot needs a placement with at least three graded original tests against a spec with a minimum relative compaction.")
+				_, err := fmt.Fprintln(w, "No lot yet: a lot needs a placement with at least three final graded tests against a spec with a minimum relative compaction.")
 				return err
 			}
 			t := newTable(w, "LOT (PLACEMENT)", "SPEC", "TESTS", "MEAN RC", "STD DEV", "LIMIT", "Q", "PWL")
@@ -203,6 +214,13 @@ within the limit (PWL).`,
 			}
 			if err := t.flush(); err != nil {
 				return err
+			}
+			for _, l := range ls {
+				for _, o := range l.LeftOut {
+					if _, err := fmt.Fprintf(w, "Left out of %s: %s\n", placementName(l.Placement), leftOutLine(o)); err != nil {
+						return err
+					}
+				}
 			}
 			_, err = fmt.Fprintln(w, "The project's specification says which PWL a lot must reach.")
 			return err
@@ -361,4 +379,32 @@ func (ss *session) specNames() map[string]string {
 		out[s.ID] = s.Name
 	}
 	return out
+}
+
+// left is a test left out of its lot, as `tamp qa lots --json` writes it.
+type left struct {
+	Test       string `json:"test"`                  // short id
+	Reason     string `json:"reason"`                // reworked_and_retested, returned_by_office or voided
+	ReplacedBy string `json:"replaced_by,omitempty"` // short id of the retest that counts in its place
+}
+
+func leftOf(o client.LeftOutTest) left {
+	l := left{Test: shortID(o.TestID), Reason: o.Reason}
+	if o.ReplacedBy != "" {
+		l.ReplacedBy = shortID(o.ReplacedBy)
+	}
+	return l
+}
+
+// leftOutLine says in words why a test is not in its lot.
+func leftOutLine(o client.LeftOutTest) string {
+	switch o.Reason {
+	case client.LeftOutReworked:
+		return fmt.Sprintf("test %s: reworked and retested; retest %s counts in its place", shortID(o.TestID), shortID(o.ReplacedBy))
+	case client.LeftOutReturned:
+		return fmt.Sprintf("test %s: returned by the office", shortID(o.TestID))
+	case client.LeftOutVoided:
+		return fmt.Sprintf("test %s: voided", shortID(o.TestID))
+	}
+	return fmt.Sprintf("test %s: %s", shortID(o.TestID), o.Reason)
 }

@@ -305,6 +305,12 @@ func (p *Projection) SetUp() *SetUp { return p.setup }
 // Spec returns a spec by id.
 func (p *Projection) Spec(id string) (*Spec, bool) { s, ok := p.specs[id]; return s, ok }
 
+// Placement returns a placement by id.
+func (p *Projection) Placement(id string) (*Placement, bool) {
+	pl, ok := p.placements[id]
+	return pl, ok
+}
+
 // Reference returns a reference by id.
 func (p *Projection) Reference(id string) (*Reference, bool) { r, ok := p.refs[id]; return r, ok }
 

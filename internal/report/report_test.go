@@ -171,3 +171,87 @@ func TestReconcile(t *testing.T) {
 		t.Errorf("hauled %.1f, shrinkage %.2f", yd(b.LooseHauled), b.Balance.ShrinkagePercent)
 	}
 }
+
+// Lots hold final tests only. Seven tests on one placement against a 95 %
+// minimum: four count (RC 96.0, 97.5, 95.0 and 95.5, the last a retest
+// that closed a failure at 89.0); the failure it closed, a test the office
+// returned (98.0) and a voided one (85.0) are left out, each with its reason.
+//
+// By hand, percent within limits (AASHTO R 9; the beta-distribution
+// estimator of FHWA Technical Advisory T 5080.12 that internal/qc uses):
+// n = 4, mean = (96.0 + 97.5 + 95.0 + 95.5) / 4 = 96.0, deviations 0, 1.5,
+// -1.0, -0.5, s = sqrt((0 + 2.25 + 1.0 + 0.25) / 3) = sqrt(7/6) = 1.0801,
+// Q = (96.0 - 95) / s = 0.9258. With n = 4 the beta distribution is
+// uniform (b = (n - 2) / 2 = 1), so PWL = 100 x = 100 (1/2 + Q sqrt(4) /
+// (2 (4 - 1))) = 100 (0.5 + 0.9258 / 3) = 80.86.
+func TestLotsFinalTestsOnly(t *testing.T) {
+	s := newSite(t)
+	rc := func(pct float64) float64 { return 118 * pct / 100 } // dry density in pcf for a relative compaction
+	s.test(rc(96.0), 100, "")
+	s.test(rc(97.5), 150, "")
+	s.test(rc(95.0), 175, "")
+	failed, _ := s.test(rc(89.0), 200, "")
+	retest, _ := s.test(rc(95.5), 201, failed.TestID)
+	returned, re := s.test(rc(98.0), 300, "")
+	s.add("office", &ledger.TestReviewed{TestID: returned.TestID, Revision: re.Event.ID, Decision: ledger.Return, Comment: "wet density has no method"})
+	voided, _ := s.test(rc(85.0), 400, "")
+	s.add("ann", &ledger.TestVoided{TestID: voided.TestID, Reason: "tested the wrong lift"})
+
+	lots, err := Lots(s.p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(lots) != 1 {
+		t.Fatalf("%d lots, want 1", len(lots))
+	}
+	l := lots[0]
+	if l.PWL.N != 4 || math.Abs(l.PWL.Mean-96.0) > 1e-9 || math.Abs(l.PWL.StdDev-math.Sqrt(7.0/6)) > 1e-9 {
+		t.Errorf("n %d, mean %v, s %v; want 4, 96.0, %v", l.PWL.N, l.PWL.Mean, l.PWL.StdDev, math.Sqrt(7.0/6))
+	}
+	q := 1 / math.Sqrt(7.0/6)
+	if math.Abs(l.PWL.QualityLower-q) > 1e-9 || math.Abs(l.PWL.PWL-100*(0.5+q/3)) > 1e-9 || math.Abs(l.PWL.PWL-80.86) > 0.005 {
+		t.Errorf("Q %v, PWL %v; want %v and %v", l.PWL.QualityLower, l.PWL.PWL, q, 100*(0.5+q/3))
+	}
+	counted := false
+	for _, v := range l.Values {
+		counted = counted || math.Abs(v-95.5) < 1e-9
+	}
+	if !counted {
+		t.Errorf("values %v: the retest (95.5) should count", l.Values)
+	}
+	want := []LeftOut{
+		{TestID: failed.TestID, Reason: ReworkedAndRetested, ReplacedBy: retest.TestID},
+		{TestID: returned.TestID, Reason: ReturnedByOffice},
+		{TestID: voided.TestID, Reason: VoidedTest},
+	}
+	if len(l.LeftOut) != len(want) {
+		t.Fatalf("left out %+v, want %+v", l.LeftOut, want)
+	}
+	for i, w := range want {
+		if got := l.LeftOut[i]; got.TestID != w.TestID || got.Reason != w.Reason || got.ReplacedBy != w.ReplacedBy {
+			t.Errorf("left out[%d] = %+v, want %+v", i, got, w)
+		}
+	}
+}
+
+// A retest the office returned closes nothing: the failure it retested
+// stays in the lot, the retest is left out.
+func TestLotsReturnedRetestClosesNothing(t *testing.T) {
+	s := newSite(t)
+	rc := func(pct float64) float64 { return 118 * pct / 100 }
+	s.test(rc(96.0), 100, "")
+	s.test(rc(97.0), 150, "")
+	failed, _ := s.test(rc(93.0), 200, "")
+	retest, re := s.test(rc(99.0), 201, failed.TestID)
+	s.add("office", &ledger.TestReviewed{TestID: retest.TestID, Revision: re.Event.ID, Decision: ledger.Return, Comment: "no count"})
+	lots, err := Lots(s.p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(lots) != 1 || lots[0].PWL.N != 3 || math.Abs(lots[0].PWL.Mean-286.0/3) > 1e-9 {
+		t.Fatalf("lots %+v, want the three originals (mean 95.33)", lots)
+	}
+	if lo := lots[0].LeftOut; len(lo) != 1 || lo[0].TestID != retest.TestID || lo[0].Reason != ReturnedByOffice {
+		t.Errorf("left out %+v, want only the returned retest", lo)
+	}
+}
