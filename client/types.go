@@ -19,23 +19,7 @@ type Readings struct {
 }
 
 // Method returns the method the readings are of, or "" when none is set.
-func (r Readings) Method() Method {
-	switch {
-	case r.Nuclear != nil && r.Nuclear.Backscatter:
-		return NuclearBackscatter
-	case r.Nuclear != nil:
-		return NuclearDirect
-	case r.SandCone != nil:
-		return SandConeMethod
-	case r.DriveCylinder != nil:
-		return DriveCylinderMethod
-	case r.RubberBalloon != nil:
-		return RubberBalloonMethod
-	case r.WetDensity != nil:
-		return MeasuredWetDensity
-	}
-	return ""
-}
+func (r Readings) Method() Method { return methodOf(r.ledger()) }
 
 // Method is an in-place density test method.
 type Method string

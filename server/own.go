@@ -247,27 +247,24 @@ func (s *Server) revokeIn(ctx context.Context, project string, d Device, by, rea
 }
 
 // introducedKeys returns the keys that device_enrolled entries of a pushed
-// batch, signed by the server's own key, introduce: a device relaying a
-// restored server's lost entries may send a device's introduction and its
-// entries in one batch.
-func (s *Server) introducedKeys(ctx context.Context, events []*pb.Event) map[string]ed25519.PublicKey {
+// batch (decoded, not yet verified), signed by the server's own key,
+// introduce: a device relaying a restored server's lost entries may send a
+// device's introduction and its entries in one batch.
+func (s *Server) introducedKeys(ctx context.Context, items []decoded) map[string]ed25519.PublicKey {
 	var out map[string]ed25519.PublicKey
 	var id Identity
-	for _, m := range events {
-		sg, err := ledger.FromEnvelope(m)
-		if err != nil {
-			continue
-		}
-		k, ok := sg.Event.Kind.(*ledger.DeviceEnrolled)
-		if !ok {
+	for _, it := range items {
+		k, ok := it.signed.Event.Kind.(*ledger.DeviceEnrolled)
+		if it.err != nil || !ok {
 			continue
 		}
 		if id.Key == nil {
+			var err error
 			if id, err = s.identity(ctx); err != nil {
 				return nil
 			}
 		}
-		if sg.Event.Device != id.DeviceID || sg.Verify(id.Key.Public().(ed25519.PublicKey)) != nil || len(k.PublicKey) != ed25519.PublicKeySize {
+		if it.signed.Event.Device != id.DeviceID || it.signed.Verify(id.Key.Public().(ed25519.PublicKey)) != nil || len(k.PublicKey) != ed25519.PublicKeySize {
 			continue
 		}
 		if out == nil {

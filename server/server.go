@@ -529,44 +529,52 @@ type decoded struct {
 // more it holds, and concurrent pushes keep the cores busy anyway.
 func (s *Server) verifyAll(ctx context.Context, events []*pb.Event) []decoded {
 	out := make([]decoded, len(events))
-	introduced := s.introducedKeys(ctx, events)
+	workers := min(runtime.GOMAXPROCS(0), max(1, len(events)/minVerifyPart))
+	per := (len(events) + workers - 1) / workers
+	inParts := func(fn func(lo, hi int)) {
+		var wg sync.WaitGroup
+		for lo := 0; lo < len(events); lo += per {
+			wg.Add(1)
+			go func() {
+				defer wg.Done()
+				fn(lo, min(len(events), lo+per))
+			}()
+		}
+		wg.Wait()
+	}
+	inParts(func(lo, hi int) {
+		for i := lo; i < hi; i++ {
+			sg, err := ledger.FromEnvelope(events[i])
+			out[i] = decoded{signed: sg, err: err}
+		}
+	})
+	introduced := s.introducedKeys(ctx, out)
 	keys := func(dev string) (ed25519.PublicKey, bool) {
 		if k, ok := introduced[dev]; ok {
 			return k, true
 		}
 		return s.key(ctx, dev)
 	}
-	workers := min(runtime.GOMAXPROCS(0), max(1, len(events)/minVerifyPart))
-	per := (len(events) + workers - 1) / workers
-	var wg sync.WaitGroup
-	for lo := 0; lo < len(events); lo += per {
-		hi := min(len(events), lo+per)
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			good := make([]int, 0, hi-lo)
-			signed := make([]ledger.Signed, 0, hi-lo)
-			for i := lo; i < hi; i++ {
-				sg, err := ledger.FromEnvelope(events[i])
-				out[i] = decoded{signed: sg, err: err}
-				if err == nil {
-					good = append(good, i)
-					signed = append(signed, sg)
-				}
+	inParts(func(lo, hi int) {
+		good := make([]int, 0, hi-lo)
+		signed := make([]ledger.Signed, 0, hi-lo)
+		for i := lo; i < hi; i++ {
+			if out[i].err == nil {
+				good = append(good, i)
+				signed = append(signed, out[i].signed)
 			}
-			for j, err := range ledger.VerifyBatch(signed, keys) {
-				i := good[j]
-				if err == nil {
-					err = ledger.Validate(out[i].signed.Event)
-				}
-				out[i].err = err
-				if err == nil {
-					out[i].refused = ledger.Admit(out[i].signed)
-				}
+		}
+		for j, err := range ledger.VerifyBatch(signed, keys) {
+			i := good[j]
+			if err == nil {
+				err = ledger.Validate(out[i].signed.Event)
 			}
-		}()
-	}
-	wg.Wait()
+			out[i].err = err
+			if err == nil {
+				out[i].refused = ledger.Admit(out[i].signed)
+			}
+		}
+	})
 	return out
 }
 
