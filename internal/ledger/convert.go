@@ -24,11 +24,17 @@ func ToProto(e Event) (*pb.EventBody, error) {
 		b.Kind = &pb.EventBody_ProjectSetUp{ProjectSetUp: &pb.ProjectSetUp{
 			Name: k.Name, Units: unitsToProto(k.Units), WaterDensity: k.WaterDensity,
 			ShrinkageConvention: shrinkToProto(k.Shrinkage), ClockSkewLimitSeconds: int64(k.ClockSkewLimit / time.Second), TimeZone: k.TimeZone,
+			RetestWithinSeconds: int64(k.RetestWithin / time.Second), RetestDistance: k.RetestDistance,
 		}}
+		for _, f := range k.Features {
+			b.GetProjectSetUp().Features = append(b.GetProjectSetUp().Features, &pb.FeatureDesign{Feature: f.Feature, DesignVolume: f.DesignVolume,
+				BorrowSourceId: f.BorrowSourceID, DesignShrinkagePercent: f.DesignShrinkagePercent})
+		}
 	case *SpecDefined:
 		b.Kind = &pb.EventBody_SpecDefined{SpecDefined: &pb.SpecDefined{
 			SpecId: k.ID, Name: k.Name, MinCompaction: k.MinCompaction, MoistureBasis: basisToProto(k.MoistureBasis),
 			MoistureLow: k.MoistureLow, MoistureHigh: k.MoistureHigh, SuspectCompaction: k.SuspectCompaction, VolumePerTest: k.VolumePerTest,
+			AreaPerTest: k.AreaPerTest, LengthPerTest: k.LengthPerTest, MinTestsPerLift: k.MinTestsPerLift, LotAcceptancePwl: k.LotAcceptancePWL,
 		}}
 	case *ReferenceAdded:
 		b.Kind = &pb.EventBody_ReferenceAdded{ReferenceAdded: &pb.ReferenceAdded{
@@ -59,7 +65,7 @@ func ToProto(e Event) (*pb.EventBody, error) {
 		b.Kind = &pb.EventBody_BorrowSourceMeasured{BorrowSourceMeasured: m}
 	case *LiftPlacementRecorded:
 		m := &pb.LiftPlacementRecorded{PlacementId: k.ID, Feature: k.Feature, LiftNumber: k.LiftNumber, Area: k.Area,
-			Thickness: k.Thickness, CompactedVolume: k.CompactedVolume, BorrowSourceId: k.BorrowSourceID, PlacedOn: k.PlacedOn}
+			Thickness: k.Thickness, CompactedVolume: k.CompactedVolume, BorrowSourceId: k.BorrowSourceID, PlacedOn: k.PlacedOn, SpecId: k.SpecID}
 		if s := k.Stations; s != nil {
 			m.Stations = &pb.StationRange{From: s.From, To: s.To, OffsetLeft: s.OffsetLeft, OffsetRight: s.OffsetRight}
 		}
@@ -108,11 +114,16 @@ func FromProto(b *pb.EventBody) (Event, error) {
 		m := k.ProjectSetUp
 		e.Kind = &ProjectSetUp{Name: m.GetName(), Units: unitsFromProto(m.GetUnits()), WaterDensity: m.GetWaterDensity(),
 			Shrinkage: shrinkFromProto(m.GetShrinkageConvention()), ClockSkewLimit: time.Duration(m.GetClockSkewLimitSeconds()) * time.Second,
-			TimeZone: m.GetTimeZone()}
+			TimeZone: m.GetTimeZone(), RetestWithin: time.Duration(m.GetRetestWithinSeconds()) * time.Second, RetestDistance: m.GetRetestDistance()}
+		for _, f := range m.GetFeatures() {
+			e.Kind.(*ProjectSetUp).Features = append(e.Kind.(*ProjectSetUp).Features, FeatureDesign{Feature: f.GetFeature(), DesignVolume: f.GetDesignVolume(),
+				BorrowSourceID: f.GetBorrowSourceId(), DesignShrinkagePercent: f.GetDesignShrinkagePercent()})
+		}
 	case *pb.EventBody_SpecDefined:
 		m := k.SpecDefined
 		e.Kind = &SpecDefined{ID: m.GetSpecId(), Name: m.GetName(), MinCompaction: m.GetMinCompaction(), MoistureBasis: basisFromProto(m.GetMoistureBasis()),
-			MoistureLow: m.GetMoistureLow(), MoistureHigh: m.GetMoistureHigh(), SuspectCompaction: m.GetSuspectCompaction(), VolumePerTest: m.GetVolumePerTest()}
+			MoistureLow: m.GetMoistureLow(), MoistureHigh: m.GetMoistureHigh(), SuspectCompaction: m.GetSuspectCompaction(), VolumePerTest: m.GetVolumePerTest(),
+			AreaPerTest: m.GetAreaPerTest(), LengthPerTest: m.GetLengthPerTest(), MinTestsPerLift: m.GetMinTestsPerLift(), LotAcceptancePWL: m.GetLotAcceptancePwl()}
 	case *pb.EventBody_ReferenceAdded:
 		m := k.ReferenceAdded
 		e.Kind = &ReferenceAdded{ID: m.GetReferenceId(), Material: m.GetMaterial(), LabSampleID: m.GetLabSampleId(),
@@ -144,7 +155,7 @@ func FromProto(b *pb.EventBody) (Event, error) {
 	case *pb.EventBody_LiftPlacementRecorded:
 		m := k.LiftPlacementRecorded
 		p := &LiftPlacementRecorded{ID: m.GetPlacementId(), Feature: m.GetFeature(), LiftNumber: m.GetLiftNumber(), Area: m.GetArea(),
-			Thickness: m.GetThickness(), CompactedVolume: m.GetCompactedVolume(), BorrowSourceID: m.GetBorrowSourceId(), PlacedOn: m.GetPlacedOn()}
+			Thickness: m.GetThickness(), CompactedVolume: m.GetCompactedVolume(), BorrowSourceID: m.GetBorrowSourceId(), PlacedOn: m.GetPlacedOn(), SpecID: m.GetSpecId()}
 		if s := m.GetStations(); s != nil {
 			p.Stations = &StationRange{From: s.GetFrom(), To: s.GetTo(), OffsetLeft: s.GetOffsetLeft(), OffsetRight: s.GetOffsetRight()}
 		}

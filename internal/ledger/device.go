@@ -16,6 +16,9 @@ type Device struct {
 	// the device gives it, at RoleHLC.
 	Role    string `json:",omitempty"`
 	RoleHLC HLC    `json:"-"`
+	// Roles are every role an introduction of the device recorded, in
+	// event order: the user's role at a time is the latest at or before it.
+	Roles []RoleChange `json:"-"`
 	// Revoked is the revocation that cuts the device off earliest (the
 	// lowest LastDeviceSeq); nil while it stands.
 	Revoked *DeviceRevoked `json:",omitempty"`
@@ -45,6 +48,7 @@ func buildDevice(evs []*Event) *Device {
 			}
 			if k.Role != "" {
 				d.Role, d.RoleHLC = k.Role, e.HLC
+				d.Roles = append(d.Roles, RoleChange{Role: k.Role, HLC: e.HLC, EventID: e.ID})
 			}
 		case *DeviceRevoked:
 			if d == nil {
@@ -102,6 +106,31 @@ func (p *Projection) LatestRole(user string) string {
 		}
 	}
 	return role
+}
+
+// RoleChange is a role an introduction recorded, from its time on.
+type RoleChange struct {
+	Role    string
+	HLC     HLC
+	EventID string
+}
+
+// RoleAt returns the user's role on the project at time at, as the latest
+// introduction of any of the user's devices at or before it records it,
+// with that introduction's event id; "" when none does.
+func (p *Projection) RoleAt(user string, at HLC) (role, eventID string) {
+	var best HLC
+	for _, d := range p.devices {
+		if d.UserID != user {
+			continue
+		}
+		for _, r := range d.Roles {
+			if r.HLC.Compare(at) <= 0 && (role == "" || r.HLC.Compare(best) > 0) {
+				role, eventID, best = r.Role, r.EventID, r.HLC
+			}
+		}
+	}
+	return role, eventID
 }
 
 // Devices returns what the ledger says of every device, by id.

@@ -45,6 +45,17 @@ type ProjectSetUp struct {
 	Shrinkage      earthwork.Convention
 	ClockSkewLimit time.Duration // zero means DefaultClockSkewLimit
 	TimeZone       string        // IANA name; empty means UTC
+	Features       []FeatureDesign
+	RetestWithin   time.Duration // zero means DefaultRetestWithin
+	RetestDistance float64       // m; zero means DefaultRetestDistance
+}
+
+// FeatureDesign is one earthwork feature as designed.
+type FeatureDesign struct {
+	Feature                string
+	DesignVolume           float64 // m3 compacted
+	BorrowSourceID         string  // planned source of the rest of it
+	DesignShrinkagePercent float64 // under the project's convention; zero for none
 }
 
 // SpecDefined defines an acceptance specification; limits are kept as
@@ -58,6 +69,10 @@ type SpecDefined struct {
 	MoistureHigh      string // empty for none
 	SuspectCompaction float64
 	VolumePerTest     float64 // m3 of compacted fill per test; zero for none
+	AreaPerTest       float64 // m2 of lift per test; zero for none
+	LengthPerTest     float64 // m of alignment per test; zero for none
+	MinTestsPerLift   uint32  // zero for none
+	LotAcceptancePWL  float64 // percent within limits a lot must reach; zero for none
 }
 
 // ReferenceAdded records a laboratory compaction reference.
@@ -138,6 +153,7 @@ type LiftPlacementRecorded struct {
 	CompactedVolume float64 // m3
 	BorrowSourceID  string
 	PlacedOn        string // YYYY-MM-DD
+	SpecID          string // the spec it is tested against, for its frequency; empty for none
 }
 
 // HaulRecorded records loads hauled from a borrow source.

@@ -50,6 +50,35 @@ func provenance[K Kind](evs []*Event) (K, Record, bool) {
 // none.
 const DefaultClockSkewLimit = 5 * time.Minute
 
+// DefaultRetestWithin is the time within which the retest audit expects a
+// failing test to be retested, voided or accepted when a project sets none:
+// a working day and a half of rework and retest, our choice (common practice
+// is "before the next lift is placed", which the ledger cannot see).
+const DefaultRetestWithin = 48 * time.Hour
+
+// DefaultRetestDistance is the distance between a failing test and its
+// retest beyond which the audit reports the retest as away from the
+// failure, when a project sets none: metres, our choice (a retest belongs
+// in the reworked area, within a few metres of the failure: common
+// practice).
+const DefaultRetestDistance = 10.0
+
+// RetestWithinOrDefault returns the project's retest window.
+func (s *ProjectSetUp) RetestWithinOrDefault() time.Duration {
+	if s == nil || s.RetestWithin <= 0 {
+		return DefaultRetestWithin
+	}
+	return s.RetestWithin
+}
+
+// RetestDistanceOrDefault returns the project's retest distance, metres.
+func (s *ProjectSetUp) RetestDistanceOrDefault() float64 {
+	if s == nil || s.RetestDistance <= 0 {
+		return DefaultRetestDistance
+	}
+	return s.RetestDistance
+}
+
 // SetUp is the project's current set-up: the latest set-up event wins.
 type SetUp struct {
 	ProjectSetUp
@@ -204,6 +233,9 @@ type BorrowSource struct {
 	BorrowSourceMeasured
 	Record
 	BankDryDensity float64 // kg/m3, mean of the bank tests
+	// BankDryDensities are the dry densities of the bank tests that
+	// computed, kg/m3, in the order recorded.
+	BankDryDensities []float64 `json:",omitempty"`
 }
 
 func (p *Projection) buildBorrow(evs []*Event) *BorrowSource {
@@ -218,6 +250,7 @@ func (p *Projection) buildBorrow(evs []*Event) *BorrowSource {
 		if res, err := r.Compute(nil); err == nil {
 			sum += res.DryDensity
 			n++
+			b.BankDryDensities = append(b.BankDryDensities, res.DryDensity)
 		}
 	}
 	if n > 0 {

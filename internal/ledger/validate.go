@@ -189,6 +189,27 @@ func (k *ProjectSetUp) validate() error {
 			return reject(InvalidField, "time_zone", fmt.Sprintf("must be an IANA time zone name, not %q", k.TimeZone))
 		}
 	}
+	if k.RetestWithin < 0 {
+		return reject(InvalidField, "retest_within_seconds", "must not be negative")
+	}
+	if err := valid.NonNegative("retest_distance", k.RetestDistance); err != nil {
+		return fieldErr(InvalidField, "", err)
+	}
+	seen := map[string]bool{}
+	for i, f := range k.Features {
+		prefix := fmt.Sprintf("features[%d].", i)
+		if err := firstErr(required(prefix+"feature", f.Feature), optionalID(prefix+"borrow_source_id", f.BorrowSourceID)); err != nil {
+			return err
+		}
+		if seen[f.Feature] {
+			return reject(InvalidField, prefix+"feature", fmt.Sprintf("%q is designed twice; give each feature once", f.Feature))
+		}
+		seen[f.Feature] = true
+		if err := valid.First(valid.Positive("design_volume", f.DesignVolume),
+			valid.Range("design_shrinkage_percent", f.DesignShrinkagePercent, 0, 99, " %")); err != nil {
+			return fieldErr(InvalidField, prefix, err)
+		}
+	}
 	return nil
 }
 
@@ -201,7 +222,8 @@ func (k *SpecDefined) validate() error {
 		return fieldErr(InvalidField, "", err)
 	}
 	return fieldErr(InvalidField, "", valid.First(valid.NonNegative("suspect_compaction", k.SuspectCompaction),
-		valid.NonNegative("volume_per_test", k.VolumePerTest)))
+		valid.NonNegative("volume_per_test", k.VolumePerTest), valid.NonNegative("area_per_test", k.AreaPerTest),
+		valid.NonNegative("length_per_test", k.LengthPerTest), valid.Range("lot_acceptance_pwl", k.LotAcceptancePWL, 0, 100, " %")))
 }
 
 // Spec returns the qc.Spec the definition describes.
@@ -313,7 +335,7 @@ func prefixed(err error, prefix string) error {
 
 func (k *LiftPlacementRecorded) validate() error {
 	if err := firstErr(checkID("placement_id", k.ID, false), required("feature", k.Feature),
-		optionalID("borrow_source_id", k.BorrowSourceID), checkDate("placed_on", k.PlacedOn, false)); err != nil {
+		optionalID("borrow_source_id", k.BorrowSourceID), checkDate("placed_on", k.PlacedOn, false), optionalID("spec_id", k.SpecID)); err != nil {
 		return err
 	}
 	if k.Stations != nil {

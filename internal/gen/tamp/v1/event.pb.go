@@ -1018,9 +1018,19 @@ type ProjectSetUp struct {
 	ClockSkewLimitSeconds int64 `protobuf:"varint,5,opt,name=clock_skew_limit_seconds,json=clockSkewLimitSeconds,proto3" json:"clock_skew_limit_seconds,omitempty"`
 	// IANA time zone of the site (e.g. "America/Denver"); a test's day, and
 	// the day of a gauge's standard count, are taken in it. Empty means UTC.
-	TimeZone      string `protobuf:"bytes,6,opt,name=time_zone,json=timeZone,proto3" json:"time_zone,omitempty"`
-	unknownFields protoimpl.UnknownFields
-	sizeCache     protoimpl.SizeCache
+	TimeZone string `protobuf:"bytes,6,opt,name=time_zone,json=timeZone,proto3" json:"time_zone,omitempty"`
+	// The earthwork features as designed, for the reconciliation's bank volume
+	// still needed.
+	Features []*FeatureDesign `protobuf:"bytes,7,rep,name=features,proto3" json:"features,omitempty"`
+	// Time within which a failing test must be retested (or voided or
+	// accepted) before the retest audit reports it, seconds; zero means 48
+	// hours.
+	RetestWithinSeconds int64 `protobuf:"varint,8,opt,name=retest_within_seconds,json=retestWithinSeconds,proto3" json:"retest_within_seconds,omitempty"`
+	// Largest distance between a failing test and its retest before the audit
+	// reports the retest as away from the failure, metres; zero means 10.
+	RetestDistance float64 `protobuf:"fixed64,9,opt,name=retest_distance,json=retestDistance,proto3" json:"retest_distance,omitempty"`
+	unknownFields  protoimpl.UnknownFields
+	sizeCache      protoimpl.SizeCache
 }
 
 func (x *ProjectSetUp) Reset() {
@@ -1095,6 +1105,101 @@ func (x *ProjectSetUp) GetTimeZone() string {
 	return ""
 }
 
+func (x *ProjectSetUp) GetFeatures() []*FeatureDesign {
+	if x != nil {
+		return x.Features
+	}
+	return nil
+}
+
+func (x *ProjectSetUp) GetRetestWithinSeconds() int64 {
+	if x != nil {
+		return x.RetestWithinSeconds
+	}
+	return 0
+}
+
+func (x *ProjectSetUp) GetRetestDistance() float64 {
+	if x != nil {
+		return x.RetestDistance
+	}
+	return 0
+}
+
+// FeatureDesign is one earthwork feature as designed.
+type FeatureDesign struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The feature's name as tests and placements give it, e.g. "embankment".
+	Feature string `protobuf:"bytes,1,opt,name=feature,proto3" json:"feature,omitempty"`
+	// Compacted volume the design calls for, m3.
+	DesignVolume float64 `protobuf:"fixed64,2,opt,name=design_volume,json=designVolume,proto3" json:"design_volume,omitempty"`
+	// The borrow source planned to supply the rest of it.
+	BorrowSourceId string `protobuf:"bytes,3,opt,name=borrow_source_id,json=borrowSourceId,proto3" json:"borrow_source_id,omitempty"`
+	// Shrinkage the design assumed, percent, under the project's convention;
+	// zero for none.
+	DesignShrinkagePercent float64 `protobuf:"fixed64,4,opt,name=design_shrinkage_percent,json=designShrinkagePercent,proto3" json:"design_shrinkage_percent,omitempty"`
+	unknownFields          protoimpl.UnknownFields
+	sizeCache              protoimpl.SizeCache
+}
+
+func (x *FeatureDesign) Reset() {
+	*x = FeatureDesign{}
+	mi := &file_tamp_v1_event_proto_msgTypes[4]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *FeatureDesign) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*FeatureDesign) ProtoMessage() {}
+
+func (x *FeatureDesign) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_event_proto_msgTypes[4]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use FeatureDesign.ProtoReflect.Descriptor instead.
+func (*FeatureDesign) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{4}
+}
+
+func (x *FeatureDesign) GetFeature() string {
+	if x != nil {
+		return x.Feature
+	}
+	return ""
+}
+
+func (x *FeatureDesign) GetDesignVolume() float64 {
+	if x != nil {
+		return x.DesignVolume
+	}
+	return 0
+}
+
+func (x *FeatureDesign) GetBorrowSourceId() string {
+	if x != nil {
+		return x.BorrowSourceId
+	}
+	return ""
+}
+
+func (x *FeatureDesign) GetDesignShrinkagePercent() float64 {
+	if x != nil {
+		return x.DesignShrinkagePercent
+	}
+	return 0
+}
+
 // SpecDefined defines an acceptance specification. A spec never changes: a
 // revised spec is a new one, so history is never silently re-graded.
 type SpecDefined struct {
@@ -1117,13 +1222,23 @@ type SpecDefined struct {
 	SuspectCompaction float64 `protobuf:"fixed64,7,opt,name=suspect_compaction,json=suspectCompaction,proto3" json:"suspect_compaction,omitempty"`
 	// Required test frequency: compacted volume per test, m3; zero for none.
 	VolumePerTest float64 `protobuf:"fixed64,8,opt,name=volume_per_test,json=volumePerTest,proto3" json:"volume_per_test,omitempty"`
-	unknownFields protoimpl.UnknownFields
-	sizeCache     protoimpl.SizeCache
+	// Required test frequency: plan area of a lift per test, m2; zero for none.
+	AreaPerTest float64 `protobuf:"fixed64,9,opt,name=area_per_test,json=areaPerTest,proto3" json:"area_per_test,omitempty"`
+	// Required test frequency: length of a lift along the alignment per test,
+	// m; zero for none.
+	LengthPerTest float64 `protobuf:"fixed64,10,opt,name=length_per_test,json=lengthPerTest,proto3" json:"length_per_test,omitempty"`
+	// Fewest tests on any lift; zero for none.
+	MinTestsPerLift uint32 `protobuf:"varint,11,opt,name=min_tests_per_lift,json=minTestsPerLift,proto3" json:"min_tests_per_lift,omitempty"`
+	// Lot acceptance limit: the least percent within limits a lot must reach,
+	// e.g. 90; zero for none.
+	LotAcceptancePwl float64 `protobuf:"fixed64,12,opt,name=lot_acceptance_pwl,json=lotAcceptancePwl,proto3" json:"lot_acceptance_pwl,omitempty"`
+	unknownFields    protoimpl.UnknownFields
+	sizeCache        protoimpl.SizeCache
 }
 
 func (x *SpecDefined) Reset() {
 	*x = SpecDefined{}
-	mi := &file_tamp_v1_event_proto_msgTypes[4]
+	mi := &file_tamp_v1_event_proto_msgTypes[5]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1135,7 +1250,7 @@ func (x *SpecDefined) String() string {
 func (*SpecDefined) ProtoMessage() {}
 
 func (x *SpecDefined) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[4]
+	mi := &file_tamp_v1_event_proto_msgTypes[5]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1148,7 +1263,7 @@ func (x *SpecDefined) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use SpecDefined.ProtoReflect.Descriptor instead.
 func (*SpecDefined) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{4}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{5}
 }
 
 func (x *SpecDefined) GetSpecId() string {
@@ -1207,6 +1322,34 @@ func (x *SpecDefined) GetVolumePerTest() float64 {
 	return 0
 }
 
+func (x *SpecDefined) GetAreaPerTest() float64 {
+	if x != nil {
+		return x.AreaPerTest
+	}
+	return 0
+}
+
+func (x *SpecDefined) GetLengthPerTest() float64 {
+	if x != nil {
+		return x.LengthPerTest
+	}
+	return 0
+}
+
+func (x *SpecDefined) GetMinTestsPerLift() uint32 {
+	if x != nil {
+		return x.MinTestsPerLift
+	}
+	return 0
+}
+
+func (x *SpecDefined) GetLotAcceptancePwl() float64 {
+	if x != nil {
+		return x.LotAcceptancePwl
+	}
+	return 0
+}
+
 // CurvePoint is one compacted specimen of a laboratory curve.
 type CurvePoint struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
@@ -1220,7 +1363,7 @@ type CurvePoint struct {
 
 func (x *CurvePoint) Reset() {
 	*x = CurvePoint{}
-	mi := &file_tamp_v1_event_proto_msgTypes[5]
+	mi := &file_tamp_v1_event_proto_msgTypes[6]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1232,7 +1375,7 @@ func (x *CurvePoint) String() string {
 func (*CurvePoint) ProtoMessage() {}
 
 func (x *CurvePoint) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[5]
+	mi := &file_tamp_v1_event_proto_msgTypes[6]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1245,7 +1388,7 @@ func (x *CurvePoint) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use CurvePoint.ProtoReflect.Descriptor instead.
 func (*CurvePoint) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{5}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{6}
 }
 
 func (x *CurvePoint) GetMoisture() float64 {
@@ -1294,7 +1437,7 @@ type ReferenceAdded struct {
 
 func (x *ReferenceAdded) Reset() {
 	*x = ReferenceAdded{}
-	mi := &file_tamp_v1_event_proto_msgTypes[6]
+	mi := &file_tamp_v1_event_proto_msgTypes[7]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1306,7 +1449,7 @@ func (x *ReferenceAdded) String() string {
 func (*ReferenceAdded) ProtoMessage() {}
 
 func (x *ReferenceAdded) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[6]
+	mi := &file_tamp_v1_event_proto_msgTypes[7]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1319,7 +1462,7 @@ func (x *ReferenceAdded) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use ReferenceAdded.ProtoReflect.Descriptor instead.
 func (*ReferenceAdded) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{6}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{7}
 }
 
 func (x *ReferenceAdded) GetReferenceId() string {
@@ -1412,7 +1555,7 @@ type EquipmentRegistered struct {
 
 func (x *EquipmentRegistered) Reset() {
 	*x = EquipmentRegistered{}
-	mi := &file_tamp_v1_event_proto_msgTypes[7]
+	mi := &file_tamp_v1_event_proto_msgTypes[8]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1424,7 +1567,7 @@ func (x *EquipmentRegistered) String() string {
 func (*EquipmentRegistered) ProtoMessage() {}
 
 func (x *EquipmentRegistered) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[7]
+	mi := &file_tamp_v1_event_proto_msgTypes[8]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1437,7 +1580,7 @@ func (x *EquipmentRegistered) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use EquipmentRegistered.ProtoReflect.Descriptor instead.
 func (*EquipmentRegistered) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{7}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{8}
 }
 
 func (x *EquipmentRegistered) GetEquipmentId() string {
@@ -1495,7 +1638,7 @@ type StandardCountRecorded struct {
 
 func (x *StandardCountRecorded) Reset() {
 	*x = StandardCountRecorded{}
-	mi := &file_tamp_v1_event_proto_msgTypes[8]
+	mi := &file_tamp_v1_event_proto_msgTypes[9]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1507,7 +1650,7 @@ func (x *StandardCountRecorded) String() string {
 func (*StandardCountRecorded) ProtoMessage() {}
 
 func (x *StandardCountRecorded) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[8]
+	mi := &file_tamp_v1_event_proto_msgTypes[9]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1520,7 +1663,7 @@ func (x *StandardCountRecorded) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use StandardCountRecorded.ProtoReflect.Descriptor instead.
 func (*StandardCountRecorded) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{8}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{9}
 }
 
 func (x *StandardCountRecorded) GetEquipmentId() string {
@@ -1572,7 +1715,7 @@ type MoisturePair struct {
 
 func (x *MoisturePair) Reset() {
 	*x = MoisturePair{}
-	mi := &file_tamp_v1_event_proto_msgTypes[9]
+	mi := &file_tamp_v1_event_proto_msgTypes[10]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1584,7 +1727,7 @@ func (x *MoisturePair) String() string {
 func (*MoisturePair) ProtoMessage() {}
 
 func (x *MoisturePair) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[9]
+	mi := &file_tamp_v1_event_proto_msgTypes[10]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1597,7 +1740,7 @@ func (x *MoisturePair) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use MoisturePair.ProtoReflect.Descriptor instead.
 func (*MoisturePair) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{9}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{10}
 }
 
 func (x *MoisturePair) GetGauge() float64 {
@@ -1636,7 +1779,7 @@ type MoistureCorrectionSet struct {
 
 func (x *MoistureCorrectionSet) Reset() {
 	*x = MoistureCorrectionSet{}
-	mi := &file_tamp_v1_event_proto_msgTypes[10]
+	mi := &file_tamp_v1_event_proto_msgTypes[11]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1648,7 +1791,7 @@ func (x *MoistureCorrectionSet) String() string {
 func (*MoistureCorrectionSet) ProtoMessage() {}
 
 func (x *MoistureCorrectionSet) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[10]
+	mi := &file_tamp_v1_event_proto_msgTypes[11]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1661,7 +1804,7 @@ func (x *MoistureCorrectionSet) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use MoistureCorrectionSet.ProtoReflect.Descriptor instead.
 func (*MoistureCorrectionSet) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{10}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{11}
 }
 
 func (x *MoistureCorrectionSet) GetCorrectionId() string {
@@ -1727,7 +1870,7 @@ type BorrowSourceMeasured struct {
 
 func (x *BorrowSourceMeasured) Reset() {
 	*x = BorrowSourceMeasured{}
-	mi := &file_tamp_v1_event_proto_msgTypes[11]
+	mi := &file_tamp_v1_event_proto_msgTypes[12]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1739,7 +1882,7 @@ func (x *BorrowSourceMeasured) String() string {
 func (*BorrowSourceMeasured) ProtoMessage() {}
 
 func (x *BorrowSourceMeasured) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[11]
+	mi := &file_tamp_v1_event_proto_msgTypes[12]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1752,7 +1895,7 @@ func (x *BorrowSourceMeasured) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use BorrowSourceMeasured.ProtoReflect.Descriptor instead.
 func (*BorrowSourceMeasured) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{11}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{12}
 }
 
 func (x *BorrowSourceMeasured) GetBorrowSourceId() string {
@@ -1807,7 +1950,7 @@ type StationRange struct {
 
 func (x *StationRange) Reset() {
 	*x = StationRange{}
-	mi := &file_tamp_v1_event_proto_msgTypes[12]
+	mi := &file_tamp_v1_event_proto_msgTypes[13]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1819,7 +1962,7 @@ func (x *StationRange) String() string {
 func (*StationRange) ProtoMessage() {}
 
 func (x *StationRange) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[12]
+	mi := &file_tamp_v1_event_proto_msgTypes[13]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1832,7 +1975,7 @@ func (x *StationRange) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use StationRange.ProtoReflect.Descriptor instead.
 func (*StationRange) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{12}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{13}
 }
 
 func (x *StationRange) GetFrom() float64 {
@@ -1883,14 +2026,17 @@ type LiftPlacementRecorded struct {
 	// The borrow source the fill came from.
 	BorrowSourceId string `protobuf:"bytes,8,opt,name=borrow_source_id,json=borrowSourceId,proto3" json:"borrow_source_id,omitempty"`
 	// Day placed, YYYY-MM-DD.
-	PlacedOn      string `protobuf:"bytes,9,opt,name=placed_on,json=placedOn,proto3" json:"placed_on,omitempty"`
+	PlacedOn string `protobuf:"bytes,9,opt,name=placed_on,json=placedOn,proto3" json:"placed_on,omitempty"`
+	// The specification the lift is tested against, for its required test
+	// frequency before any test names it; empty for none.
+	SpecId        string `protobuf:"bytes,10,opt,name=spec_id,json=specId,proto3" json:"spec_id,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
 
 func (x *LiftPlacementRecorded) Reset() {
 	*x = LiftPlacementRecorded{}
-	mi := &file_tamp_v1_event_proto_msgTypes[13]
+	mi := &file_tamp_v1_event_proto_msgTypes[14]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1902,7 +2048,7 @@ func (x *LiftPlacementRecorded) String() string {
 func (*LiftPlacementRecorded) ProtoMessage() {}
 
 func (x *LiftPlacementRecorded) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[13]
+	mi := &file_tamp_v1_event_proto_msgTypes[14]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1915,7 +2061,7 @@ func (x *LiftPlacementRecorded) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use LiftPlacementRecorded.ProtoReflect.Descriptor instead.
 func (*LiftPlacementRecorded) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{13}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{14}
 }
 
 func (x *LiftPlacementRecorded) GetPlacementId() string {
@@ -1981,6 +2127,13 @@ func (x *LiftPlacementRecorded) GetPlacedOn() string {
 	return ""
 }
 
+func (x *LiftPlacementRecorded) GetSpecId() string {
+	if x != nil {
+		return x.SpecId
+	}
+	return ""
+}
+
 // HaulRecorded records loads hauled from a borrow source.
 type HaulRecorded struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
@@ -2002,7 +2155,7 @@ type HaulRecorded struct {
 
 func (x *HaulRecorded) Reset() {
 	*x = HaulRecorded{}
-	mi := &file_tamp_v1_event_proto_msgTypes[14]
+	mi := &file_tamp_v1_event_proto_msgTypes[15]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2014,7 +2167,7 @@ func (x *HaulRecorded) String() string {
 func (*HaulRecorded) ProtoMessage() {}
 
 func (x *HaulRecorded) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[14]
+	mi := &file_tamp_v1_event_proto_msgTypes[15]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2027,7 +2180,7 @@ func (x *HaulRecorded) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use HaulRecorded.ProtoReflect.Descriptor instead.
 func (*HaulRecorded) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{14}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{15}
 }
 
 func (x *HaulRecorded) GetHaulId() string {
@@ -2085,7 +2238,7 @@ type NuclearCount struct {
 
 func (x *NuclearCount) Reset() {
 	*x = NuclearCount{}
-	mi := &file_tamp_v1_event_proto_msgTypes[15]
+	mi := &file_tamp_v1_event_proto_msgTypes[16]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2097,7 +2250,7 @@ func (x *NuclearCount) String() string {
 func (*NuclearCount) ProtoMessage() {}
 
 func (x *NuclearCount) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[15]
+	mi := &file_tamp_v1_event_proto_msgTypes[16]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2110,7 +2263,7 @@ func (x *NuclearCount) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use NuclearCount.ProtoReflect.Descriptor instead.
 func (*NuclearCount) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{15}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{16}
 }
 
 func (x *NuclearCount) GetWetDensity() float64 {
@@ -2150,7 +2303,7 @@ type NuclearReadings struct {
 
 func (x *NuclearReadings) Reset() {
 	*x = NuclearReadings{}
-	mi := &file_tamp_v1_event_proto_msgTypes[16]
+	mi := &file_tamp_v1_event_proto_msgTypes[17]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2162,7 +2315,7 @@ func (x *NuclearReadings) String() string {
 func (*NuclearReadings) ProtoMessage() {}
 
 func (x *NuclearReadings) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[16]
+	mi := &file_tamp_v1_event_proto_msgTypes[17]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2175,7 +2328,7 @@ func (x *NuclearReadings) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use NuclearReadings.ProtoReflect.Descriptor instead.
 func (*NuclearReadings) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{16}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{17}
 }
 
 func (x *NuclearReadings) GetBackscatter() bool {
@@ -2244,7 +2397,7 @@ type SandConeReadings struct {
 
 func (x *SandConeReadings) Reset() {
 	*x = SandConeReadings{}
-	mi := &file_tamp_v1_event_proto_msgTypes[17]
+	mi := &file_tamp_v1_event_proto_msgTypes[18]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2256,7 +2409,7 @@ func (x *SandConeReadings) String() string {
 func (*SandConeReadings) ProtoMessage() {}
 
 func (x *SandConeReadings) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[17]
+	mi := &file_tamp_v1_event_proto_msgTypes[18]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2269,7 +2422,7 @@ func (x *SandConeReadings) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use SandConeReadings.ProtoReflect.Descriptor instead.
 func (*SandConeReadings) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{17}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{18}
 }
 
 func (x *SandConeReadings) GetSandDensity() float64 {
@@ -2339,7 +2492,7 @@ type DriveCylinderReadings struct {
 
 func (x *DriveCylinderReadings) Reset() {
 	*x = DriveCylinderReadings{}
-	mi := &file_tamp_v1_event_proto_msgTypes[18]
+	mi := &file_tamp_v1_event_proto_msgTypes[19]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2351,7 +2504,7 @@ func (x *DriveCylinderReadings) String() string {
 func (*DriveCylinderReadings) ProtoMessage() {}
 
 func (x *DriveCylinderReadings) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[18]
+	mi := &file_tamp_v1_event_proto_msgTypes[19]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2364,7 +2517,7 @@ func (x *DriveCylinderReadings) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use DriveCylinderReadings.ProtoReflect.Descriptor instead.
 func (*DriveCylinderReadings) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{18}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{19}
 }
 
 func (x *DriveCylinderReadings) GetDiameter() float64 {
@@ -2413,7 +2566,7 @@ type RubberBalloonReadings struct {
 
 func (x *RubberBalloonReadings) Reset() {
 	*x = RubberBalloonReadings{}
-	mi := &file_tamp_v1_event_proto_msgTypes[19]
+	mi := &file_tamp_v1_event_proto_msgTypes[20]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2425,7 +2578,7 @@ func (x *RubberBalloonReadings) String() string {
 func (*RubberBalloonReadings) ProtoMessage() {}
 
 func (x *RubberBalloonReadings) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[19]
+	mi := &file_tamp_v1_event_proto_msgTypes[20]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2438,7 +2591,7 @@ func (x *RubberBalloonReadings) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use RubberBalloonReadings.ProtoReflect.Descriptor instead.
 func (*RubberBalloonReadings) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{19}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{20}
 }
 
 func (x *RubberBalloonReadings) GetInitialReading() float64 {
@@ -2482,7 +2635,7 @@ type WetDensityReadings struct {
 
 func (x *WetDensityReadings) Reset() {
 	*x = WetDensityReadings{}
-	mi := &file_tamp_v1_event_proto_msgTypes[20]
+	mi := &file_tamp_v1_event_proto_msgTypes[21]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2494,7 +2647,7 @@ func (x *WetDensityReadings) String() string {
 func (*WetDensityReadings) ProtoMessage() {}
 
 func (x *WetDensityReadings) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[20]
+	mi := &file_tamp_v1_event_proto_msgTypes[21]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2507,7 +2660,7 @@ func (x *WetDensityReadings) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use WetDensityReadings.ProtoReflect.Descriptor instead.
 func (*WetDensityReadings) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{20}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{21}
 }
 
 func (x *WetDensityReadings) GetWetDensity() float64 {
@@ -2543,7 +2696,7 @@ type Readings struct {
 
 func (x *Readings) Reset() {
 	*x = Readings{}
-	mi := &file_tamp_v1_event_proto_msgTypes[21]
+	mi := &file_tamp_v1_event_proto_msgTypes[22]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2555,7 +2708,7 @@ func (x *Readings) String() string {
 func (*Readings) ProtoMessage() {}
 
 func (x *Readings) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[21]
+	mi := &file_tamp_v1_event_proto_msgTypes[22]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2568,7 +2721,7 @@ func (x *Readings) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use Readings.ProtoReflect.Descriptor instead.
 func (*Readings) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{21}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{22}
 }
 
 func (x *Readings) GetMethod() isReadings_Method {
@@ -2677,7 +2830,7 @@ type GeoPosition struct {
 
 func (x *GeoPosition) Reset() {
 	*x = GeoPosition{}
-	mi := &file_tamp_v1_event_proto_msgTypes[22]
+	mi := &file_tamp_v1_event_proto_msgTypes[23]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2689,7 +2842,7 @@ func (x *GeoPosition) String() string {
 func (*GeoPosition) ProtoMessage() {}
 
 func (x *GeoPosition) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[22]
+	mi := &file_tamp_v1_event_proto_msgTypes[23]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2702,7 +2855,7 @@ func (x *GeoPosition) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use GeoPosition.ProtoReflect.Descriptor instead.
 func (*GeoPosition) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{22}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{23}
 }
 
 func (x *GeoPosition) GetLatitude() float64 {
@@ -2745,7 +2898,7 @@ type Location struct {
 
 func (x *Location) Reset() {
 	*x = Location{}
-	mi := &file_tamp_v1_event_proto_msgTypes[23]
+	mi := &file_tamp_v1_event_proto_msgTypes[24]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2757,7 +2910,7 @@ func (x *Location) String() string {
 func (*Location) ProtoMessage() {}
 
 func (x *Location) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[23]
+	mi := &file_tamp_v1_event_proto_msgTypes[24]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2770,7 +2923,7 @@ func (x *Location) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use Location.ProtoReflect.Descriptor instead.
 func (*Location) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{23}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{24}
 }
 
 func (x *Location) GetStation() float64 {
@@ -2824,7 +2977,7 @@ type Oversize struct {
 
 func (x *Oversize) Reset() {
 	*x = Oversize{}
-	mi := &file_tamp_v1_event_proto_msgTypes[24]
+	mi := &file_tamp_v1_event_proto_msgTypes[25]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2836,7 +2989,7 @@ func (x *Oversize) String() string {
 func (*Oversize) ProtoMessage() {}
 
 func (x *Oversize) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[24]
+	mi := &file_tamp_v1_event_proto_msgTypes[25]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2849,7 +3002,7 @@ func (x *Oversize) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use Oversize.ProtoReflect.Descriptor instead.
 func (*Oversize) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{24}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{25}
 }
 
 func (x *Oversize) GetPercent() float64 {
@@ -2886,7 +3039,7 @@ type Finding struct {
 
 func (x *Finding) Reset() {
 	*x = Finding{}
-	mi := &file_tamp_v1_event_proto_msgTypes[25]
+	mi := &file_tamp_v1_event_proto_msgTypes[26]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2898,7 +3051,7 @@ func (x *Finding) String() string {
 func (*Finding) ProtoMessage() {}
 
 func (x *Finding) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[25]
+	mi := &file_tamp_v1_event_proto_msgTypes[26]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2911,7 +3064,7 @@ func (x *Finding) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use Finding.ProtoReflect.Descriptor instead.
 func (*Finding) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{25}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{26}
 }
 
 func (x *Finding) GetCode() string {
@@ -2958,7 +3111,7 @@ type Results struct {
 
 func (x *Results) Reset() {
 	*x = Results{}
-	mi := &file_tamp_v1_event_proto_msgTypes[26]
+	mi := &file_tamp_v1_event_proto_msgTypes[27]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2970,7 +3123,7 @@ func (x *Results) String() string {
 func (*Results) ProtoMessage() {}
 
 func (x *Results) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[26]
+	mi := &file_tamp_v1_event_proto_msgTypes[27]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2983,7 +3136,7 @@ func (x *Results) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use Results.ProtoReflect.Descriptor instead.
 func (*Results) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{26}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{27}
 }
 
 func (x *Results) GetWetDensity() float64 {
@@ -3089,7 +3242,7 @@ type TestContent struct {
 
 func (x *TestContent) Reset() {
 	*x = TestContent{}
-	mi := &file_tamp_v1_event_proto_msgTypes[27]
+	mi := &file_tamp_v1_event_proto_msgTypes[28]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -3101,7 +3254,7 @@ func (x *TestContent) String() string {
 func (*TestContent) ProtoMessage() {}
 
 func (x *TestContent) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[27]
+	mi := &file_tamp_v1_event_proto_msgTypes[28]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -3114,7 +3267,7 @@ func (x *TestContent) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use TestContent.ProtoReflect.Descriptor instead.
 func (*TestContent) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{27}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{28}
 }
 
 func (x *TestContent) GetReadings() *Readings {
@@ -3216,7 +3369,7 @@ type TestRecorded struct {
 
 func (x *TestRecorded) Reset() {
 	*x = TestRecorded{}
-	mi := &file_tamp_v1_event_proto_msgTypes[28]
+	mi := &file_tamp_v1_event_proto_msgTypes[29]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -3228,7 +3381,7 @@ func (x *TestRecorded) String() string {
 func (*TestRecorded) ProtoMessage() {}
 
 func (x *TestRecorded) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[28]
+	mi := &file_tamp_v1_event_proto_msgTypes[29]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -3241,7 +3394,7 @@ func (x *TestRecorded) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use TestRecorded.ProtoReflect.Descriptor instead.
 func (*TestRecorded) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{28}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{29}
 }
 
 func (x *TestRecorded) GetTestId() string {
@@ -3284,7 +3437,7 @@ type TestCorrected struct {
 
 func (x *TestCorrected) Reset() {
 	*x = TestCorrected{}
-	mi := &file_tamp_v1_event_proto_msgTypes[29]
+	mi := &file_tamp_v1_event_proto_msgTypes[30]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -3296,7 +3449,7 @@ func (x *TestCorrected) String() string {
 func (*TestCorrected) ProtoMessage() {}
 
 func (x *TestCorrected) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[29]
+	mi := &file_tamp_v1_event_proto_msgTypes[30]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -3309,7 +3462,7 @@ func (x *TestCorrected) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use TestCorrected.ProtoReflect.Descriptor instead.
 func (*TestCorrected) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{29}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{30}
 }
 
 func (x *TestCorrected) GetTestId() string {
@@ -3353,7 +3506,7 @@ type TestVoided struct {
 
 func (x *TestVoided) Reset() {
 	*x = TestVoided{}
-	mi := &file_tamp_v1_event_proto_msgTypes[30]
+	mi := &file_tamp_v1_event_proto_msgTypes[31]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -3365,7 +3518,7 @@ func (x *TestVoided) String() string {
 func (*TestVoided) ProtoMessage() {}
 
 func (x *TestVoided) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[30]
+	mi := &file_tamp_v1_event_proto_msgTypes[31]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -3378,7 +3531,7 @@ func (x *TestVoided) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use TestVoided.ProtoReflect.Descriptor instead.
 func (*TestVoided) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{30}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{31}
 }
 
 func (x *TestVoided) GetTestId() string {
@@ -3412,7 +3565,7 @@ type TestReviewed struct {
 
 func (x *TestReviewed) Reset() {
 	*x = TestReviewed{}
-	mi := &file_tamp_v1_event_proto_msgTypes[31]
+	mi := &file_tamp_v1_event_proto_msgTypes[32]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -3424,7 +3577,7 @@ func (x *TestReviewed) String() string {
 func (*TestReviewed) ProtoMessage() {}
 
 func (x *TestReviewed) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[31]
+	mi := &file_tamp_v1_event_proto_msgTypes[32]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -3437,7 +3590,7 @@ func (x *TestReviewed) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use TestReviewed.ProtoReflect.Descriptor instead.
 func (*TestReviewed) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{31}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{32}
 }
 
 func (x *TestReviewed) GetTestId() string {
@@ -3485,7 +3638,7 @@ type ExceptionAccepted struct {
 
 func (x *ExceptionAccepted) Reset() {
 	*x = ExceptionAccepted{}
-	mi := &file_tamp_v1_event_proto_msgTypes[32]
+	mi := &file_tamp_v1_event_proto_msgTypes[33]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -3497,7 +3650,7 @@ func (x *ExceptionAccepted) String() string {
 func (*ExceptionAccepted) ProtoMessage() {}
 
 func (x *ExceptionAccepted) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[32]
+	mi := &file_tamp_v1_event_proto_msgTypes[33]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -3510,7 +3663,7 @@ func (x *ExceptionAccepted) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use ExceptionAccepted.ProtoReflect.Descriptor instead.
 func (*ExceptionAccepted) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{32}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{33}
 }
 
 func (x *ExceptionAccepted) GetTestId() string {
@@ -3563,7 +3716,7 @@ type DeviceEnrolled struct {
 
 func (x *DeviceEnrolled) Reset() {
 	*x = DeviceEnrolled{}
-	mi := &file_tamp_v1_event_proto_msgTypes[33]
+	mi := &file_tamp_v1_event_proto_msgTypes[34]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -3575,7 +3728,7 @@ func (x *DeviceEnrolled) String() string {
 func (*DeviceEnrolled) ProtoMessage() {}
 
 func (x *DeviceEnrolled) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[33]
+	mi := &file_tamp_v1_event_proto_msgTypes[34]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -3588,7 +3741,7 @@ func (x *DeviceEnrolled) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use DeviceEnrolled.ProtoReflect.Descriptor instead.
 func (*DeviceEnrolled) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{33}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{34}
 }
 
 func (x *DeviceEnrolled) GetDeviceId() string {
@@ -3665,7 +3818,7 @@ type DeviceRevoked struct {
 
 func (x *DeviceRevoked) Reset() {
 	*x = DeviceRevoked{}
-	mi := &file_tamp_v1_event_proto_msgTypes[34]
+	mi := &file_tamp_v1_event_proto_msgTypes[35]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -3677,7 +3830,7 @@ func (x *DeviceRevoked) String() string {
 func (*DeviceRevoked) ProtoMessage() {}
 
 func (x *DeviceRevoked) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_event_proto_msgTypes[34]
+	mi := &file_tamp_v1_event_proto_msgTypes[35]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -3690,7 +3843,7 @@ func (x *DeviceRevoked) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use DeviceRevoked.ProtoReflect.Descriptor instead.
 func (*DeviceRevoked) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_event_proto_rawDescGZIP(), []int{34}
+	return file_tamp_v1_event_proto_rawDescGZIP(), []int{35}
 }
 
 func (x *DeviceRevoked) GetDeviceId() string {
@@ -3770,14 +3923,22 @@ const file_tamp_v1_event_proto_rawDesc = "" +
 	"\x12exception_accepted\x18\x1d \x01(\v2\x1a.tamp.v1.ExceptionAcceptedH\x00R\x11exceptionAccepted\x12B\n" +
 	"\x0fdevice_enrolled\x18\x1e \x01(\v2\x17.tamp.v1.DeviceEnrolledH\x00R\x0edeviceEnrolled\x12?\n" +
 	"\x0edevice_revoked\x18\x1f \x01(\v2\x16.tamp.v1.DeviceRevokedH\x00R\rdeviceRevokedB\x06\n" +
-	"\x04kind\"\x99\x02\n" +
+	"\x04kind\"\xaa\x03\n" +
 	"\fProjectSetUp\x12\x12\n" +
 	"\x04name\x18\x01 \x01(\tR\x04name\x12)\n" +
 	"\x05units\x18\x02 \x01(\x0e2\x13.tamp.v1.UnitSystemR\x05units\x12#\n" +
 	"\rwater_density\x18\x03 \x01(\x01R\fwaterDensity\x12O\n" +
 	"\x14shrinkage_convention\x18\x04 \x01(\x0e2\x1c.tamp.v1.ShrinkageConventionR\x13shrinkageConvention\x127\n" +
 	"\x18clock_skew_limit_seconds\x18\x05 \x01(\x03R\x15clockSkewLimitSeconds\x12\x1b\n" +
-	"\ttime_zone\x18\x06 \x01(\tR\btimeZone\"\xbf\x02\n" +
+	"\ttime_zone\x18\x06 \x01(\tR\btimeZone\x122\n" +
+	"\bfeatures\x18\a \x03(\v2\x16.tamp.v1.FeatureDesignR\bfeatures\x122\n" +
+	"\x15retest_within_seconds\x18\b \x01(\x03R\x13retestWithinSeconds\x12'\n" +
+	"\x0fretest_distance\x18\t \x01(\x01R\x0eretestDistance\"\xb2\x01\n" +
+	"\rFeatureDesign\x12\x18\n" +
+	"\afeature\x18\x01 \x01(\tR\afeature\x12#\n" +
+	"\rdesign_volume\x18\x02 \x01(\x01R\fdesignVolume\x12(\n" +
+	"\x10borrow_source_id\x18\x03 \x01(\tR\x0eborrowSourceId\x128\n" +
+	"\x18design_shrinkage_percent\x18\x04 \x01(\x01R\x16designShrinkagePercent\"\xe6\x03\n" +
 	"\vSpecDefined\x12\x17\n" +
 	"\aspec_id\x18\x01 \x01(\tR\x06specId\x12\x12\n" +
 	"\x04name\x18\x02 \x01(\tR\x04name\x12%\n" +
@@ -3786,7 +3947,12 @@ const file_tamp_v1_event_proto_rawDesc = "" +
 	"\fmoisture_low\x18\x05 \x01(\tR\vmoistureLow\x12#\n" +
 	"\rmoisture_high\x18\x06 \x01(\tR\fmoistureHigh\x12-\n" +
 	"\x12suspect_compaction\x18\a \x01(\x01R\x11suspectCompaction\x12&\n" +
-	"\x0fvolume_per_test\x18\b \x01(\x01R\rvolumePerTest\"I\n" +
+	"\x0fvolume_per_test\x18\b \x01(\x01R\rvolumePerTest\x12\"\n" +
+	"\rarea_per_test\x18\t \x01(\x01R\vareaPerTest\x12&\n" +
+	"\x0flength_per_test\x18\n" +
+	" \x01(\x01R\rlengthPerTest\x12+\n" +
+	"\x12min_tests_per_lift\x18\v \x01(\rR\x0fminTestsPerLift\x12,\n" +
+	"\x12lot_acceptance_pwl\x18\f \x01(\x01R\x10lotAcceptancePwl\"I\n" +
 	"\n" +
 	"CurvePoint\x12\x1a\n" +
 	"\bmoisture\x18\x01 \x01(\x01R\bmoisture\x12\x1f\n" +
@@ -3838,7 +4004,7 @@ const file_tamp_v1_event_proto_rawDesc = "" +
 	"\x02to\x18\x02 \x01(\x01R\x02to\x12\x1f\n" +
 	"\voffset_left\x18\x03 \x01(\x01R\n" +
 	"offsetLeft\x12!\n" +
-	"\foffset_right\x18\x04 \x01(\x01R\voffsetRight\"\xcc\x02\n" +
+	"\foffset_right\x18\x04 \x01(\x01R\voffsetRight\"\xe5\x02\n" +
 	"\x15LiftPlacementRecorded\x12!\n" +
 	"\fplacement_id\x18\x01 \x01(\tR\vplacementId\x12\x18\n" +
 	"\afeature\x18\x02 \x01(\tR\afeature\x12\x1f\n" +
@@ -3849,7 +4015,9 @@ const file_tamp_v1_event_proto_rawDesc = "" +
 	"\tthickness\x18\x06 \x01(\x01R\tthickness\x12)\n" +
 	"\x10compacted_volume\x18\a \x01(\x01R\x0fcompactedVolume\x12(\n" +
 	"\x10borrow_source_id\x18\b \x01(\tR\x0eborrowSourceId\x12\x1b\n" +
-	"\tplaced_on\x18\t \x01(\tR\bplacedOn\"\xda\x01\n" +
+	"\tplaced_on\x18\t \x01(\tR\bplacedOn\x12\x17\n" +
+	"\aspec_id\x18\n" +
+	" \x01(\tR\x06specId\"\xda\x01\n" +
 	"\fHaulRecorded\x12\x17\n" +
 	"\ahaul_id\x18\x01 \x01(\tR\x06haulId\x12(\n" +
 	"\x10borrow_source_id\x18\x02 \x01(\tR\x0eborrowSourceId\x12\x14\n" +
@@ -4041,7 +4209,7 @@ func file_tamp_v1_event_proto_rawDescGZIP() []byte {
 }
 
 var file_tamp_v1_event_proto_enumTypes = make([]protoimpl.EnumInfo, 8)
-var file_tamp_v1_event_proto_msgTypes = make([]protoimpl.MessageInfo, 35)
+var file_tamp_v1_event_proto_msgTypes = make([]protoimpl.MessageInfo, 36)
 var file_tamp_v1_event_proto_goTypes = []any{
 	(UnitSystem)(0),               // 0: tamp.v1.UnitSystem
 	(ShrinkageConvention)(0),      // 1: tamp.v1.ShrinkageConvention
@@ -4055,88 +4223,90 @@ var file_tamp_v1_event_proto_goTypes = []any{
 	(*HybridTime)(nil),            // 9: tamp.v1.HybridTime
 	(*EventBody)(nil),             // 10: tamp.v1.EventBody
 	(*ProjectSetUp)(nil),          // 11: tamp.v1.ProjectSetUp
-	(*SpecDefined)(nil),           // 12: tamp.v1.SpecDefined
-	(*CurvePoint)(nil),            // 13: tamp.v1.CurvePoint
-	(*ReferenceAdded)(nil),        // 14: tamp.v1.ReferenceAdded
-	(*EquipmentRegistered)(nil),   // 15: tamp.v1.EquipmentRegistered
-	(*StandardCountRecorded)(nil), // 16: tamp.v1.StandardCountRecorded
-	(*MoisturePair)(nil),          // 17: tamp.v1.MoisturePair
-	(*MoistureCorrectionSet)(nil), // 18: tamp.v1.MoistureCorrectionSet
-	(*BorrowSourceMeasured)(nil),  // 19: tamp.v1.BorrowSourceMeasured
-	(*StationRange)(nil),          // 20: tamp.v1.StationRange
-	(*LiftPlacementRecorded)(nil), // 21: tamp.v1.LiftPlacementRecorded
-	(*HaulRecorded)(nil),          // 22: tamp.v1.HaulRecorded
-	(*NuclearCount)(nil),          // 23: tamp.v1.NuclearCount
-	(*NuclearReadings)(nil),       // 24: tamp.v1.NuclearReadings
-	(*SandConeReadings)(nil),      // 25: tamp.v1.SandConeReadings
-	(*DriveCylinderReadings)(nil), // 26: tamp.v1.DriveCylinderReadings
-	(*RubberBalloonReadings)(nil), // 27: tamp.v1.RubberBalloonReadings
-	(*WetDensityReadings)(nil),    // 28: tamp.v1.WetDensityReadings
-	(*Readings)(nil),              // 29: tamp.v1.Readings
-	(*GeoPosition)(nil),           // 30: tamp.v1.GeoPosition
-	(*Location)(nil),              // 31: tamp.v1.Location
-	(*Oversize)(nil),              // 32: tamp.v1.Oversize
-	(*Finding)(nil),               // 33: tamp.v1.Finding
-	(*Results)(nil),               // 34: tamp.v1.Results
-	(*TestContent)(nil),           // 35: tamp.v1.TestContent
-	(*TestRecorded)(nil),          // 36: tamp.v1.TestRecorded
-	(*TestCorrected)(nil),         // 37: tamp.v1.TestCorrected
-	(*TestVoided)(nil),            // 38: tamp.v1.TestVoided
-	(*TestReviewed)(nil),          // 39: tamp.v1.TestReviewed
-	(*ExceptionAccepted)(nil),     // 40: tamp.v1.ExceptionAccepted
-	(*DeviceEnrolled)(nil),        // 41: tamp.v1.DeviceEnrolled
-	(*DeviceRevoked)(nil),         // 42: tamp.v1.DeviceRevoked
+	(*FeatureDesign)(nil),         // 12: tamp.v1.FeatureDesign
+	(*SpecDefined)(nil),           // 13: tamp.v1.SpecDefined
+	(*CurvePoint)(nil),            // 14: tamp.v1.CurvePoint
+	(*ReferenceAdded)(nil),        // 15: tamp.v1.ReferenceAdded
+	(*EquipmentRegistered)(nil),   // 16: tamp.v1.EquipmentRegistered
+	(*StandardCountRecorded)(nil), // 17: tamp.v1.StandardCountRecorded
+	(*MoisturePair)(nil),          // 18: tamp.v1.MoisturePair
+	(*MoistureCorrectionSet)(nil), // 19: tamp.v1.MoistureCorrectionSet
+	(*BorrowSourceMeasured)(nil),  // 20: tamp.v1.BorrowSourceMeasured
+	(*StationRange)(nil),          // 21: tamp.v1.StationRange
+	(*LiftPlacementRecorded)(nil), // 22: tamp.v1.LiftPlacementRecorded
+	(*HaulRecorded)(nil),          // 23: tamp.v1.HaulRecorded
+	(*NuclearCount)(nil),          // 24: tamp.v1.NuclearCount
+	(*NuclearReadings)(nil),       // 25: tamp.v1.NuclearReadings
+	(*SandConeReadings)(nil),      // 26: tamp.v1.SandConeReadings
+	(*DriveCylinderReadings)(nil), // 27: tamp.v1.DriveCylinderReadings
+	(*RubberBalloonReadings)(nil), // 28: tamp.v1.RubberBalloonReadings
+	(*WetDensityReadings)(nil),    // 29: tamp.v1.WetDensityReadings
+	(*Readings)(nil),              // 30: tamp.v1.Readings
+	(*GeoPosition)(nil),           // 31: tamp.v1.GeoPosition
+	(*Location)(nil),              // 32: tamp.v1.Location
+	(*Oversize)(nil),              // 33: tamp.v1.Oversize
+	(*Finding)(nil),               // 34: tamp.v1.Finding
+	(*Results)(nil),               // 35: tamp.v1.Results
+	(*TestContent)(nil),           // 36: tamp.v1.TestContent
+	(*TestRecorded)(nil),          // 37: tamp.v1.TestRecorded
+	(*TestCorrected)(nil),         // 38: tamp.v1.TestCorrected
+	(*TestVoided)(nil),            // 39: tamp.v1.TestVoided
+	(*TestReviewed)(nil),          // 40: tamp.v1.TestReviewed
+	(*ExceptionAccepted)(nil),     // 41: tamp.v1.ExceptionAccepted
+	(*DeviceEnrolled)(nil),        // 42: tamp.v1.DeviceEnrolled
+	(*DeviceRevoked)(nil),         // 43: tamp.v1.DeviceRevoked
 }
 var file_tamp_v1_event_proto_depIdxs = []int32{
 	9,  // 0: tamp.v1.EventBody.hlc:type_name -> tamp.v1.HybridTime
 	11, // 1: tamp.v1.EventBody.project_set_up:type_name -> tamp.v1.ProjectSetUp
-	12, // 2: tamp.v1.EventBody.spec_defined:type_name -> tamp.v1.SpecDefined
-	14, // 3: tamp.v1.EventBody.reference_added:type_name -> tamp.v1.ReferenceAdded
-	15, // 4: tamp.v1.EventBody.equipment_registered:type_name -> tamp.v1.EquipmentRegistered
-	16, // 5: tamp.v1.EventBody.standard_count_recorded:type_name -> tamp.v1.StandardCountRecorded
-	18, // 6: tamp.v1.EventBody.moisture_correction_set:type_name -> tamp.v1.MoistureCorrectionSet
-	19, // 7: tamp.v1.EventBody.borrow_source_measured:type_name -> tamp.v1.BorrowSourceMeasured
-	21, // 8: tamp.v1.EventBody.lift_placement_recorded:type_name -> tamp.v1.LiftPlacementRecorded
-	22, // 9: tamp.v1.EventBody.haul_recorded:type_name -> tamp.v1.HaulRecorded
-	36, // 10: tamp.v1.EventBody.test_recorded:type_name -> tamp.v1.TestRecorded
-	37, // 11: tamp.v1.EventBody.test_corrected:type_name -> tamp.v1.TestCorrected
-	38, // 12: tamp.v1.EventBody.test_voided:type_name -> tamp.v1.TestVoided
-	39, // 13: tamp.v1.EventBody.test_reviewed:type_name -> tamp.v1.TestReviewed
-	40, // 14: tamp.v1.EventBody.exception_accepted:type_name -> tamp.v1.ExceptionAccepted
-	41, // 15: tamp.v1.EventBody.device_enrolled:type_name -> tamp.v1.DeviceEnrolled
-	42, // 16: tamp.v1.EventBody.device_revoked:type_name -> tamp.v1.DeviceRevoked
+	13, // 2: tamp.v1.EventBody.spec_defined:type_name -> tamp.v1.SpecDefined
+	15, // 3: tamp.v1.EventBody.reference_added:type_name -> tamp.v1.ReferenceAdded
+	16, // 4: tamp.v1.EventBody.equipment_registered:type_name -> tamp.v1.EquipmentRegistered
+	17, // 5: tamp.v1.EventBody.standard_count_recorded:type_name -> tamp.v1.StandardCountRecorded
+	19, // 6: tamp.v1.EventBody.moisture_correction_set:type_name -> tamp.v1.MoistureCorrectionSet
+	20, // 7: tamp.v1.EventBody.borrow_source_measured:type_name -> tamp.v1.BorrowSourceMeasured
+	22, // 8: tamp.v1.EventBody.lift_placement_recorded:type_name -> tamp.v1.LiftPlacementRecorded
+	23, // 9: tamp.v1.EventBody.haul_recorded:type_name -> tamp.v1.HaulRecorded
+	37, // 10: tamp.v1.EventBody.test_recorded:type_name -> tamp.v1.TestRecorded
+	38, // 11: tamp.v1.EventBody.test_corrected:type_name -> tamp.v1.TestCorrected
+	39, // 12: tamp.v1.EventBody.test_voided:type_name -> tamp.v1.TestVoided
+	40, // 13: tamp.v1.EventBody.test_reviewed:type_name -> tamp.v1.TestReviewed
+	41, // 14: tamp.v1.EventBody.exception_accepted:type_name -> tamp.v1.ExceptionAccepted
+	42, // 15: tamp.v1.EventBody.device_enrolled:type_name -> tamp.v1.DeviceEnrolled
+	43, // 16: tamp.v1.EventBody.device_revoked:type_name -> tamp.v1.DeviceRevoked
 	0,  // 17: tamp.v1.ProjectSetUp.units:type_name -> tamp.v1.UnitSystem
 	1,  // 18: tamp.v1.ProjectSetUp.shrinkage_convention:type_name -> tamp.v1.ShrinkageConvention
-	2,  // 19: tamp.v1.SpecDefined.moisture_basis:type_name -> tamp.v1.MoistureBasis
-	3,  // 20: tamp.v1.ReferenceAdded.standard:type_name -> tamp.v1.CompactionStandard
-	13, // 21: tamp.v1.ReferenceAdded.points:type_name -> tamp.v1.CurvePoint
-	4,  // 22: tamp.v1.EquipmentRegistered.kind:type_name -> tamp.v1.EquipmentKind
-	5,  // 23: tamp.v1.MoistureCorrectionSet.kind:type_name -> tamp.v1.CorrectionKind
-	17, // 24: tamp.v1.MoistureCorrectionSet.pairs:type_name -> tamp.v1.MoisturePair
-	29, // 25: tamp.v1.BorrowSourceMeasured.bank_tests:type_name -> tamp.v1.Readings
-	20, // 26: tamp.v1.LiftPlacementRecorded.stations:type_name -> tamp.v1.StationRange
-	23, // 27: tamp.v1.NuclearReadings.counts:type_name -> tamp.v1.NuclearCount
-	24, // 28: tamp.v1.Readings.nuclear:type_name -> tamp.v1.NuclearReadings
-	25, // 29: tamp.v1.Readings.sand_cone:type_name -> tamp.v1.SandConeReadings
-	26, // 30: tamp.v1.Readings.drive_cylinder:type_name -> tamp.v1.DriveCylinderReadings
-	27, // 31: tamp.v1.Readings.rubber_balloon:type_name -> tamp.v1.RubberBalloonReadings
-	28, // 32: tamp.v1.Readings.wet_density:type_name -> tamp.v1.WetDensityReadings
-	30, // 33: tamp.v1.Location.position:type_name -> tamp.v1.GeoPosition
-	6,  // 34: tamp.v1.Results.verdict:type_name -> tamp.v1.Verdict
-	33, // 35: tamp.v1.Results.reasons:type_name -> tamp.v1.Finding
-	33, // 36: tamp.v1.Results.flags:type_name -> tamp.v1.Finding
-	29, // 37: tamp.v1.TestContent.readings:type_name -> tamp.v1.Readings
-	31, // 38: tamp.v1.TestContent.location:type_name -> tamp.v1.Location
-	32, // 39: tamp.v1.TestContent.oversize:type_name -> tamp.v1.Oversize
-	34, // 40: tamp.v1.TestContent.device_results:type_name -> tamp.v1.Results
-	35, // 41: tamp.v1.TestRecorded.content:type_name -> tamp.v1.TestContent
-	35, // 42: tamp.v1.TestCorrected.content:type_name -> tamp.v1.TestContent
-	7,  // 43: tamp.v1.TestReviewed.decision:type_name -> tamp.v1.ReviewDecision
-	44, // [44:44] is the sub-list for method output_type
-	44, // [44:44] is the sub-list for method input_type
-	44, // [44:44] is the sub-list for extension type_name
-	44, // [44:44] is the sub-list for extension extendee
-	0,  // [0:44] is the sub-list for field type_name
+	12, // 19: tamp.v1.ProjectSetUp.features:type_name -> tamp.v1.FeatureDesign
+	2,  // 20: tamp.v1.SpecDefined.moisture_basis:type_name -> tamp.v1.MoistureBasis
+	3,  // 21: tamp.v1.ReferenceAdded.standard:type_name -> tamp.v1.CompactionStandard
+	14, // 22: tamp.v1.ReferenceAdded.points:type_name -> tamp.v1.CurvePoint
+	4,  // 23: tamp.v1.EquipmentRegistered.kind:type_name -> tamp.v1.EquipmentKind
+	5,  // 24: tamp.v1.MoistureCorrectionSet.kind:type_name -> tamp.v1.CorrectionKind
+	18, // 25: tamp.v1.MoistureCorrectionSet.pairs:type_name -> tamp.v1.MoisturePair
+	30, // 26: tamp.v1.BorrowSourceMeasured.bank_tests:type_name -> tamp.v1.Readings
+	21, // 27: tamp.v1.LiftPlacementRecorded.stations:type_name -> tamp.v1.StationRange
+	24, // 28: tamp.v1.NuclearReadings.counts:type_name -> tamp.v1.NuclearCount
+	25, // 29: tamp.v1.Readings.nuclear:type_name -> tamp.v1.NuclearReadings
+	26, // 30: tamp.v1.Readings.sand_cone:type_name -> tamp.v1.SandConeReadings
+	27, // 31: tamp.v1.Readings.drive_cylinder:type_name -> tamp.v1.DriveCylinderReadings
+	28, // 32: tamp.v1.Readings.rubber_balloon:type_name -> tamp.v1.RubberBalloonReadings
+	29, // 33: tamp.v1.Readings.wet_density:type_name -> tamp.v1.WetDensityReadings
+	31, // 34: tamp.v1.Location.position:type_name -> tamp.v1.GeoPosition
+	6,  // 35: tamp.v1.Results.verdict:type_name -> tamp.v1.Verdict
+	34, // 36: tamp.v1.Results.reasons:type_name -> tamp.v1.Finding
+	34, // 37: tamp.v1.Results.flags:type_name -> tamp.v1.Finding
+	30, // 38: tamp.v1.TestContent.readings:type_name -> tamp.v1.Readings
+	32, // 39: tamp.v1.TestContent.location:type_name -> tamp.v1.Location
+	33, // 40: tamp.v1.TestContent.oversize:type_name -> tamp.v1.Oversize
+	35, // 41: tamp.v1.TestContent.device_results:type_name -> tamp.v1.Results
+	36, // 42: tamp.v1.TestRecorded.content:type_name -> tamp.v1.TestContent
+	36, // 43: tamp.v1.TestCorrected.content:type_name -> tamp.v1.TestContent
+	7,  // 44: tamp.v1.TestReviewed.decision:type_name -> tamp.v1.ReviewDecision
+	45, // [45:45] is the sub-list for method output_type
+	45, // [45:45] is the sub-list for method input_type
+	45, // [45:45] is the sub-list for extension type_name
+	45, // [45:45] is the sub-list for extension extendee
+	0,  // [0:45] is the sub-list for field type_name
 }
 
 func init() { file_tamp_v1_event_proto_init() }
@@ -4162,8 +4332,8 @@ func file_tamp_v1_event_proto_init() {
 		(*EventBody_DeviceEnrolled)(nil),
 		(*EventBody_DeviceRevoked)(nil),
 	}
-	file_tamp_v1_event_proto_msgTypes[16].OneofWrappers = []any{}
-	file_tamp_v1_event_proto_msgTypes[21].OneofWrappers = []any{
+	file_tamp_v1_event_proto_msgTypes[17].OneofWrappers = []any{}
+	file_tamp_v1_event_proto_msgTypes[22].OneofWrappers = []any{
 		(*Readings_Nuclear)(nil),
 		(*Readings_SandCone)(nil),
 		(*Readings_DriveCylinder)(nil),
@@ -4176,7 +4346,7 @@ func file_tamp_v1_event_proto_init() {
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_tamp_v1_event_proto_rawDesc), len(file_tamp_v1_event_proto_rawDesc)),
 			NumEnums:      8,
-			NumMessages:   35,
+			NumMessages:   36,
 			NumExtensions: 0,
 			NumServices:   0,
 		},

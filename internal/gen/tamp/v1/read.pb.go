@@ -21,6 +21,1659 @@ const (
 	_ = protoimpl.EnforceVersion(protoimpl.MaxVersion - 20)
 )
 
+// Measure is a value in the project's units at the resolution tamp reports
+// its quantity at (dry density to 0.1 pcf or 1 kg/m3, percentages to 0.1).
+type Measure struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The rounded value, in unit.
+	Value float64 `protobuf:"fixed64,1,opt,name=value,proto3" json:"value,omitempty"`
+	// The unit: "pcf", "kg/m3", "%", "yd3", "m3", "ft", "m"; empty for a count.
+	Unit string `protobuf:"bytes,2,opt,name=unit,proto3" json:"unit,omitempty"`
+	// The value as written: "101.3 pcf".
+	Text          string `protobuf:"bytes,3,opt,name=text,proto3" json:"text,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *Measure) Reset() {
+	*x = Measure{}
+	mi := &file_tamp_v1_read_proto_msgTypes[0]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *Measure) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*Measure) ProtoMessage() {}
+
+func (x *Measure) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_read_proto_msgTypes[0]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use Measure.ProtoReflect.Descriptor instead.
+func (*Measure) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{0}
+}
+
+func (x *Measure) GetValue() float64 {
+	if x != nil {
+		return x.Value
+	}
+	return 0
+}
+
+func (x *Measure) GetUnit() string {
+	if x != nil {
+		return x.Unit
+	}
+	return ""
+}
+
+func (x *Measure) GetText() string {
+	if x != nil {
+		return x.Text
+	}
+	return ""
+}
+
+// TestLine is a test as a report lists it.
+type TestLine struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The test.
+	TestId string `protobuf:"bytes,1,opt,name=test_id,json=testId,proto3" json:"test_id,omitempty"`
+	// Its inspector's user id.
+	AuthorId string `protobuf:"bytes,2,opt,name=author_id,json=authorId,proto3" json:"author_id,omitempty"`
+	// When it was taken, by the device's clock, RFC 3339.
+	Taken string `protobuf:"bytes,3,opt,name=taken,proto3" json:"taken,omitempty"`
+	// Its day in the project's time zone, YYYY-MM-DD.
+	Day string `protobuf:"bytes,4,opt,name=day,proto3" json:"day,omitempty"`
+	// Station in the trade's notation (12+34.50).
+	Station string `protobuf:"bytes,5,opt,name=station,proto3" json:"station,omitempty"`
+	// Offset from the centreline.
+	Offset *Measure `protobuf:"bytes,6,opt,name=offset,proto3" json:"offset,omitempty"`
+	// The feature tested.
+	Feature string `protobuf:"bytes,7,opt,name=feature,proto3" json:"feature,omitempty"`
+	// The lift number.
+	LiftNumber uint32 `protobuf:"varint,8,opt,name=lift_number,json=liftNumber,proto3" json:"lift_number,omitempty"`
+	// Dry density.
+	DryDensity *Measure `protobuf:"bytes,9,opt,name=dry_density,json=dryDensity,proto3" json:"dry_density,omitempty"`
+	// Moisture.
+	Moisture *Measure `protobuf:"bytes,10,opt,name=moisture,proto3" json:"moisture,omitempty"`
+	// Relative compaction.
+	RelativeCompaction *Measure `protobuf:"bytes,11,opt,name=relative_compaction,json=relativeCompaction,proto3" json:"relative_compaction,omitempty"`
+	// Moisture minus optimum, points.
+	MoistureDeviation *Measure `protobuf:"bytes,12,opt,name=moisture_deviation,json=moistureDeviation,proto3" json:"moisture_deviation,omitempty"`
+	// The verdict: "pass", "fail" or "pending".
+	Verdict string `protobuf:"bytes,13,opt,name=verdict,proto3" json:"verdict,omitempty"`
+	// Why it failed.
+	Reasons []*Finding `protobuf:"bytes,14,rep,name=reasons,proto3" json:"reasons,omitempty"`
+	// Whether it was voided.
+	Voided bool `protobuf:"varint,15,opt,name=voided,proto3" json:"voided,omitempty"`
+	// The office's review: "unreviewed", "approved" or "returned".
+	Review        string `protobuf:"bytes,16,opt,name=review,proto3" json:"review,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *TestLine) Reset() {
+	*x = TestLine{}
+	mi := &file_tamp_v1_read_proto_msgTypes[1]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *TestLine) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*TestLine) ProtoMessage() {}
+
+func (x *TestLine) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_read_proto_msgTypes[1]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use TestLine.ProtoReflect.Descriptor instead.
+func (*TestLine) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{1}
+}
+
+func (x *TestLine) GetTestId() string {
+	if x != nil {
+		return x.TestId
+	}
+	return ""
+}
+
+func (x *TestLine) GetAuthorId() string {
+	if x != nil {
+		return x.AuthorId
+	}
+	return ""
+}
+
+func (x *TestLine) GetTaken() string {
+	if x != nil {
+		return x.Taken
+	}
+	return ""
+}
+
+func (x *TestLine) GetDay() string {
+	if x != nil {
+		return x.Day
+	}
+	return ""
+}
+
+func (x *TestLine) GetStation() string {
+	if x != nil {
+		return x.Station
+	}
+	return ""
+}
+
+func (x *TestLine) GetOffset() *Measure {
+	if x != nil {
+		return x.Offset
+	}
+	return nil
+}
+
+func (x *TestLine) GetFeature() string {
+	if x != nil {
+		return x.Feature
+	}
+	return ""
+}
+
+func (x *TestLine) GetLiftNumber() uint32 {
+	if x != nil {
+		return x.LiftNumber
+	}
+	return 0
+}
+
+func (x *TestLine) GetDryDensity() *Measure {
+	if x != nil {
+		return x.DryDensity
+	}
+	return nil
+}
+
+func (x *TestLine) GetMoisture() *Measure {
+	if x != nil {
+		return x.Moisture
+	}
+	return nil
+}
+
+func (x *TestLine) GetRelativeCompaction() *Measure {
+	if x != nil {
+		return x.RelativeCompaction
+	}
+	return nil
+}
+
+func (x *TestLine) GetMoistureDeviation() *Measure {
+	if x != nil {
+		return x.MoistureDeviation
+	}
+	return nil
+}
+
+func (x *TestLine) GetVerdict() string {
+	if x != nil {
+		return x.Verdict
+	}
+	return ""
+}
+
+func (x *TestLine) GetReasons() []*Finding {
+	if x != nil {
+		return x.Reasons
+	}
+	return nil
+}
+
+func (x *TestLine) GetVoided() bool {
+	if x != nil {
+		return x.Voided
+	}
+	return false
+}
+
+func (x *TestLine) GetReview() string {
+	if x != nil {
+		return x.Review
+	}
+	return ""
+}
+
+// GetRetestAuditRequest asks for the retest audit.
+type GetRetestAuditRequest struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The project.
+	ProjectId     string `protobuf:"bytes,1,opt,name=project_id,json=projectId,proto3" json:"project_id,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *GetRetestAuditRequest) Reset() {
+	*x = GetRetestAuditRequest{}
+	mi := &file_tamp_v1_read_proto_msgTypes[2]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *GetRetestAuditRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*GetRetestAuditRequest) ProtoMessage() {}
+
+func (x *GetRetestAuditRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_read_proto_msgTypes[2]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use GetRetestAuditRequest.ProtoReflect.Descriptor instead.
+func (*GetRetestAuditRequest) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{2}
+}
+
+func (x *GetRetestAuditRequest) GetProjectId() string {
+	if x != nil {
+		return x.ProjectId
+	}
+	return ""
+}
+
+// AuditChain is a failing test, its retests and how it was closed.
+type AuditChain struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The failing test.
+	Failed *TestLine `protobuf:"bytes,1,opt,name=failed,proto3" json:"failed,omitempty"`
+	// Its retests in the order they were taken.
+	Retests []*TestLine `protobuf:"bytes,2,rep,name=retests,proto3" json:"retests,omitempty"`
+	// How it was closed: "open", "retested", "exception" or "voided".
+	Closure string `protobuf:"bytes,3,opt,name=closure,proto3" json:"closure,omitempty"`
+	// The closure in words.
+	ClosureText string `protobuf:"bytes,4,opt,name=closure_text,json=closureText,proto3" json:"closure_text,omitempty"`
+	// The largest distance between the failure and a retest.
+	RetestDistance *Measure `protobuf:"bytes,5,opt,name=retest_distance,json=retestDistance,proto3" json:"retest_distance,omitempty"`
+	unknownFields  protoimpl.UnknownFields
+	sizeCache      protoimpl.SizeCache
+}
+
+func (x *AuditChain) Reset() {
+	*x = AuditChain{}
+	mi := &file_tamp_v1_read_proto_msgTypes[3]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *AuditChain) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*AuditChain) ProtoMessage() {}
+
+func (x *AuditChain) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_read_proto_msgTypes[3]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use AuditChain.ProtoReflect.Descriptor instead.
+func (*AuditChain) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{3}
+}
+
+func (x *AuditChain) GetFailed() *TestLine {
+	if x != nil {
+		return x.Failed
+	}
+	return nil
+}
+
+func (x *AuditChain) GetRetests() []*TestLine {
+	if x != nil {
+		return x.Retests
+	}
+	return nil
+}
+
+func (x *AuditChain) GetClosure() string {
+	if x != nil {
+		return x.Closure
+	}
+	return ""
+}
+
+func (x *AuditChain) GetClosureText() string {
+	if x != nil {
+		return x.ClosureText
+	}
+	return ""
+}
+
+func (x *AuditChain) GetRetestDistance() *Measure {
+	if x != nil {
+		return x.RetestDistance
+	}
+	return nil
+}
+
+// AuditFinding is one thing the QA manager must look at.
+type AuditFinding struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// Machine-readable code, e.g. "failure_not_retested".
+	Code string `protobuf:"bytes,1,opt,name=code,proto3" json:"code,omitempty"`
+	// The code in the trade's words.
+	Title string `protobuf:"bytes,2,opt,name=title,proto3" json:"title,omitempty"`
+	// What was found, naming the tests and people.
+	Message string `protobuf:"bytes,3,opt,name=message,proto3" json:"message,omitempty"`
+	// The test it concerns.
+	TestId string `protobuf:"bytes,4,opt,name=test_id,json=testId,proto3" json:"test_id,omitempty"`
+	// Event ids of the entries it rests on.
+	Entries       []string `protobuf:"bytes,5,rep,name=entries,proto3" json:"entries,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *AuditFinding) Reset() {
+	*x = AuditFinding{}
+	mi := &file_tamp_v1_read_proto_msgTypes[4]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *AuditFinding) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*AuditFinding) ProtoMessage() {}
+
+func (x *AuditFinding) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_read_proto_msgTypes[4]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use AuditFinding.ProtoReflect.Descriptor instead.
+func (*AuditFinding) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{4}
+}
+
+func (x *AuditFinding) GetCode() string {
+	if x != nil {
+		return x.Code
+	}
+	return ""
+}
+
+func (x *AuditFinding) GetTitle() string {
+	if x != nil {
+		return x.Title
+	}
+	return ""
+}
+
+func (x *AuditFinding) GetMessage() string {
+	if x != nil {
+		return x.Message
+	}
+	return ""
+}
+
+func (x *AuditFinding) GetTestId() string {
+	if x != nil {
+		return x.TestId
+	}
+	return ""
+}
+
+func (x *AuditFinding) GetEntries() []string {
+	if x != nil {
+		return x.Entries
+	}
+	return nil
+}
+
+// GetRetestAuditResponse is the retest audit.
+type GetRetestAuditResponse struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// One chain per failing original test, oldest first.
+	Chains []*AuditChain `protobuf:"bytes,1,rep,name=chains,proto3" json:"chains,omitempty"`
+	// Findings, oldest test first.
+	Findings []*AuditFinding `protobuf:"bytes,2,rep,name=findings,proto3" json:"findings,omitempty"`
+	// The unit system of the values: "us" or "si".
+	Units string `protobuf:"bytes,3,opt,name=units,proto3" json:"units,omitempty"`
+	// When the audit was computed (the server's clock), RFC 3339: a failure's
+	// age for the retest window is taken at this time.
+	AsOf          string `protobuf:"bytes,4,opt,name=as_of,json=asOf,proto3" json:"as_of,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *GetRetestAuditResponse) Reset() {
+	*x = GetRetestAuditResponse{}
+	mi := &file_tamp_v1_read_proto_msgTypes[5]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *GetRetestAuditResponse) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*GetRetestAuditResponse) ProtoMessage() {}
+
+func (x *GetRetestAuditResponse) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_read_proto_msgTypes[5]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use GetRetestAuditResponse.ProtoReflect.Descriptor instead.
+func (*GetRetestAuditResponse) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{5}
+}
+
+func (x *GetRetestAuditResponse) GetChains() []*AuditChain {
+	if x != nil {
+		return x.Chains
+	}
+	return nil
+}
+
+func (x *GetRetestAuditResponse) GetFindings() []*AuditFinding {
+	if x != nil {
+		return x.Findings
+	}
+	return nil
+}
+
+func (x *GetRetestAuditResponse) GetUnits() string {
+	if x != nil {
+		return x.Units
+	}
+	return ""
+}
+
+func (x *GetRetestAuditResponse) GetAsOf() string {
+	if x != nil {
+		return x.AsOf
+	}
+	return ""
+}
+
+// GetTestFrequencyRequest asks for the test frequency report.
+type GetTestFrequencyRequest struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The project.
+	ProjectId     string `protobuf:"bytes,1,opt,name=project_id,json=projectId,proto3" json:"project_id,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *GetTestFrequencyRequest) Reset() {
+	*x = GetTestFrequencyRequest{}
+	mi := &file_tamp_v1_read_proto_msgTypes[6]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *GetTestFrequencyRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*GetTestFrequencyRequest) ProtoMessage() {}
+
+func (x *GetTestFrequencyRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_read_proto_msgTypes[6]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use GetTestFrequencyRequest.ProtoReflect.Descriptor instead.
+func (*GetTestFrequencyRequest) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{6}
+}
+
+func (x *GetTestFrequencyRequest) GetProjectId() string {
+	if x != nil {
+		return x.ProjectId
+	}
+	return ""
+}
+
+// FrequencyRule is one rule of a spec's test frequency applied to a lift.
+type FrequencyRule struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The rule in words: "one test per 500 yd3".
+	Rule string `protobuf:"bytes,1,opt,name=rule,proto3" json:"rule,omitempty"`
+	// The lift's quantity the rule applies to (volume, area or length).
+	Quantity *Measure `protobuf:"bytes,2,opt,name=quantity,proto3" json:"quantity,omitempty"`
+	// Tests the rule requires.
+	Required      uint32 `protobuf:"varint,3,opt,name=required,proto3" json:"required,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *FrequencyRule) Reset() {
+	*x = FrequencyRule{}
+	mi := &file_tamp_v1_read_proto_msgTypes[7]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *FrequencyRule) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*FrequencyRule) ProtoMessage() {}
+
+func (x *FrequencyRule) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_read_proto_msgTypes[7]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use FrequencyRule.ProtoReflect.Descriptor instead.
+func (*FrequencyRule) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{7}
+}
+
+func (x *FrequencyRule) GetRule() string {
+	if x != nil {
+		return x.Rule
+	}
+	return ""
+}
+
+func (x *FrequencyRule) GetQuantity() *Measure {
+	if x != nil {
+		return x.Quantity
+	}
+	return nil
+}
+
+func (x *FrequencyRule) GetRequired() uint32 {
+	if x != nil {
+		return x.Required
+	}
+	return 0
+}
+
+// FrequencyRow is one placement against one spec.
+type FrequencyRow struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The placement.
+	PlacementId string `protobuf:"bytes,1,opt,name=placement_id,json=placementId,proto3" json:"placement_id,omitempty"`
+	// The placement as written: feature, lift, stations.
+	Placement string `protobuf:"bytes,2,opt,name=placement,proto3" json:"placement,omitempty"`
+	// The spec.
+	SpecId string `protobuf:"bytes,3,opt,name=spec_id,json=specId,proto3" json:"spec_id,omitempty"`
+	// The spec's name.
+	Spec string `protobuf:"bytes,4,opt,name=spec,proto3" json:"spec,omitempty"`
+	// Each rule of the spec that applies, with what it requires.
+	Rules []*FrequencyRule `protobuf:"bytes,5,rep,name=rules,proto3" json:"rules,omitempty"`
+	// Tests required: the most any rule requires.
+	Required uint32 `protobuf:"varint,6,opt,name=required,proto3" json:"required,omitempty"`
+	// Final tests taken.
+	Taken uint32 `protobuf:"varint,7,opt,name=taken,proto3" json:"taken,omitempty"`
+	// Required minus taken, when positive.
+	Shortfall uint32 `protobuf:"varint,8,opt,name=shortfall,proto3" json:"shortfall,omitempty"`
+	// "met" or "short".
+	Status        string `protobuf:"bytes,9,opt,name=status,proto3" json:"status,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *FrequencyRow) Reset() {
+	*x = FrequencyRow{}
+	mi := &file_tamp_v1_read_proto_msgTypes[8]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *FrequencyRow) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*FrequencyRow) ProtoMessage() {}
+
+func (x *FrequencyRow) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_read_proto_msgTypes[8]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use FrequencyRow.ProtoReflect.Descriptor instead.
+func (*FrequencyRow) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{8}
+}
+
+func (x *FrequencyRow) GetPlacementId() string {
+	if x != nil {
+		return x.PlacementId
+	}
+	return ""
+}
+
+func (x *FrequencyRow) GetPlacement() string {
+	if x != nil {
+		return x.Placement
+	}
+	return ""
+}
+
+func (x *FrequencyRow) GetSpecId() string {
+	if x != nil {
+		return x.SpecId
+	}
+	return ""
+}
+
+func (x *FrequencyRow) GetSpec() string {
+	if x != nil {
+		return x.Spec
+	}
+	return ""
+}
+
+func (x *FrequencyRow) GetRules() []*FrequencyRule {
+	if x != nil {
+		return x.Rules
+	}
+	return nil
+}
+
+func (x *FrequencyRow) GetRequired() uint32 {
+	if x != nil {
+		return x.Required
+	}
+	return 0
+}
+
+func (x *FrequencyRow) GetTaken() uint32 {
+	if x != nil {
+		return x.Taken
+	}
+	return 0
+}
+
+func (x *FrequencyRow) GetShortfall() uint32 {
+	if x != nil {
+		return x.Shortfall
+	}
+	return 0
+}
+
+func (x *FrequencyRow) GetStatus() string {
+	if x != nil {
+		return x.Status
+	}
+	return ""
+}
+
+// GetTestFrequencyResponse is the test frequency report.
+type GetTestFrequencyResponse struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// One row per placement and spec.
+	Rows []*FrequencyRow `protobuf:"bytes,1,rep,name=rows,proto3" json:"rows,omitempty"`
+	// The unit system of the values.
+	Units         string `protobuf:"bytes,2,opt,name=units,proto3" json:"units,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *GetTestFrequencyResponse) Reset() {
+	*x = GetTestFrequencyResponse{}
+	mi := &file_tamp_v1_read_proto_msgTypes[9]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *GetTestFrequencyResponse) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*GetTestFrequencyResponse) ProtoMessage() {}
+
+func (x *GetTestFrequencyResponse) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_read_proto_msgTypes[9]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use GetTestFrequencyResponse.ProtoReflect.Descriptor instead.
+func (*GetTestFrequencyResponse) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{9}
+}
+
+func (x *GetTestFrequencyResponse) GetRows() []*FrequencyRow {
+	if x != nil {
+		return x.Rows
+	}
+	return nil
+}
+
+func (x *GetTestFrequencyResponse) GetUnits() string {
+	if x != nil {
+		return x.Units
+	}
+	return ""
+}
+
+// GetLotsRequest asks for lots; with no feature, one lot per lift and spec.
+type GetLotsRequest struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The project.
+	ProjectId string `protobuf:"bytes,1,opt,name=project_id,json=projectId,proto3" json:"project_id,omitempty"`
+	// The feature whose lifts or days make one lot; empty for a lot per lift.
+	Feature string `protobuf:"bytes,2,opt,name=feature,proto3" json:"feature,omitempty"`
+	// First and last lift numbers of the lot; zero for no bound.
+	LiftFrom uint32 `protobuf:"varint,3,opt,name=lift_from,json=liftFrom,proto3" json:"lift_from,omitempty"`
+	// Last lift number, inclusive.
+	LiftTo uint32 `protobuf:"varint,4,opt,name=lift_to,json=liftTo,proto3" json:"lift_to,omitempty"`
+	// First day of the lot, YYYY-MM-DD (the test's day); empty for no bound.
+	DayFrom string `protobuf:"bytes,5,opt,name=day_from,json=dayFrom,proto3" json:"day_from,omitempty"`
+	// Last day, inclusive.
+	DayTo         string `protobuf:"bytes,6,opt,name=day_to,json=dayTo,proto3" json:"day_to,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *GetLotsRequest) Reset() {
+	*x = GetLotsRequest{}
+	mi := &file_tamp_v1_read_proto_msgTypes[10]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *GetLotsRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*GetLotsRequest) ProtoMessage() {}
+
+func (x *GetLotsRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_read_proto_msgTypes[10]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use GetLotsRequest.ProtoReflect.Descriptor instead.
+func (*GetLotsRequest) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{10}
+}
+
+func (x *GetLotsRequest) GetProjectId() string {
+	if x != nil {
+		return x.ProjectId
+	}
+	return ""
+}
+
+func (x *GetLotsRequest) GetFeature() string {
+	if x != nil {
+		return x.Feature
+	}
+	return ""
+}
+
+func (x *GetLotsRequest) GetLiftFrom() uint32 {
+	if x != nil {
+		return x.LiftFrom
+	}
+	return 0
+}
+
+func (x *GetLotsRequest) GetLiftTo() uint32 {
+	if x != nil {
+		return x.LiftTo
+	}
+	return 0
+}
+
+func (x *GetLotsRequest) GetDayFrom() string {
+	if x != nil {
+		return x.DayFrom
+	}
+	return ""
+}
+
+func (x *GetLotsRequest) GetDayTo() string {
+	if x != nil {
+		return x.DayTo
+	}
+	return ""
+}
+
+// LeftOutTest is a test a lot does not count, with why.
+type LeftOutTest struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The test.
+	TestId string `protobuf:"bytes,1,opt,name=test_id,json=testId,proto3" json:"test_id,omitempty"`
+	// Why: "reworked_and_retested", "returned_by_office" or "voided".
+	Reason string `protobuf:"bytes,2,opt,name=reason,proto3" json:"reason,omitempty"`
+	// Why, in words.
+	ReasonText string `protobuf:"bytes,3,opt,name=reason_text,json=reasonText,proto3" json:"reason_text,omitempty"`
+	// The retest that replaced it, for a reworked test.
+	ReplacedBy    string `protobuf:"bytes,4,opt,name=replaced_by,json=replacedBy,proto3" json:"replaced_by,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *LeftOutTest) Reset() {
+	*x = LeftOutTest{}
+	mi := &file_tamp_v1_read_proto_msgTypes[11]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *LeftOutTest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*LeftOutTest) ProtoMessage() {}
+
+func (x *LeftOutTest) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_read_proto_msgTypes[11]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use LeftOutTest.ProtoReflect.Descriptor instead.
+func (*LeftOutTest) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{11}
+}
+
+func (x *LeftOutTest) GetTestId() string {
+	if x != nil {
+		return x.TestId
+	}
+	return ""
+}
+
+func (x *LeftOutTest) GetReason() string {
+	if x != nil {
+		return x.Reason
+	}
+	return ""
+}
+
+func (x *LeftOutTest) GetReasonText() string {
+	if x != nil {
+		return x.ReasonText
+	}
+	return ""
+}
+
+func (x *LeftOutTest) GetReplacedBy() string {
+	if x != nil {
+		return x.ReplacedBy
+	}
+	return ""
+}
+
+// LotQuality is percent within limits on one quality characteristic.
+type LotQuality struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// "relative compaction" or "moisture".
+	Characteristic string `protobuf:"bytes,1,opt,name=characteristic,proto3" json:"characteristic,omitempty"`
+	// The limits as the spec writes them.
+	Limits string `protobuf:"bytes,2,opt,name=limits,proto3" json:"limits,omitempty"`
+	// Results counted.
+	N uint32 `protobuf:"varint,3,opt,name=n,proto3" json:"n,omitempty"`
+	// Their mean.
+	Mean *Measure `protobuf:"bytes,4,opt,name=mean,proto3" json:"mean,omitempty"`
+	// Their sample standard deviation.
+	StdDev *Measure `protobuf:"bytes,5,opt,name=std_dev,json=stdDev,proto3" json:"std_dev,omitempty"`
+	// Percent within limits.
+	Pwl           *Measure `protobuf:"bytes,6,opt,name=pwl,proto3" json:"pwl,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *LotQuality) Reset() {
+	*x = LotQuality{}
+	mi := &file_tamp_v1_read_proto_msgTypes[12]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *LotQuality) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*LotQuality) ProtoMessage() {}
+
+func (x *LotQuality) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_read_proto_msgTypes[12]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use LotQuality.ProtoReflect.Descriptor instead.
+func (*LotQuality) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{12}
+}
+
+func (x *LotQuality) GetCharacteristic() string {
+	if x != nil {
+		return x.Characteristic
+	}
+	return ""
+}
+
+func (x *LotQuality) GetLimits() string {
+	if x != nil {
+		return x.Limits
+	}
+	return ""
+}
+
+func (x *LotQuality) GetN() uint32 {
+	if x != nil {
+		return x.N
+	}
+	return 0
+}
+
+func (x *LotQuality) GetMean() *Measure {
+	if x != nil {
+		return x.Mean
+	}
+	return nil
+}
+
+func (x *LotQuality) GetStdDev() *Measure {
+	if x != nil {
+		return x.StdDev
+	}
+	return nil
+}
+
+func (x *LotQuality) GetPwl() *Measure {
+	if x != nil {
+		return x.Pwl
+	}
+	return nil
+}
+
+// LotRow is one lot.
+type LotRow struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The lot as written: "embankment lift 3" or "embankment lifts 2 to 5".
+	Lot string `protobuf:"bytes,1,opt,name=lot,proto3" json:"lot,omitempty"`
+	// The spec.
+	SpecId string `protobuf:"bytes,2,opt,name=spec_id,json=specId,proto3" json:"spec_id,omitempty"`
+	// The spec's name.
+	Spec string `protobuf:"bytes,3,opt,name=spec,proto3" json:"spec,omitempty"`
+	// Percent within limits on relative compaction, and on moisture when the
+	// spec has a moisture window.
+	Qualities []*LotQuality `protobuf:"bytes,4,rep,name=qualities,proto3" json:"qualities,omitempty"`
+	// "accepted", "rejected" or "no acceptance limit".
+	Acceptance string `protobuf:"bytes,5,opt,name=acceptance,proto3" json:"acceptance,omitempty"`
+	// The acceptance limit applied.
+	AcceptancePwl *Measure `protobuf:"bytes,6,opt,name=acceptance_pwl,json=acceptancePwl,proto3" json:"acceptance_pwl,omitempty"`
+	// Tests left out, with why.
+	LeftOut       []*LeftOutTest `protobuf:"bytes,7,rep,name=left_out,json=leftOut,proto3" json:"left_out,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *LotRow) Reset() {
+	*x = LotRow{}
+	mi := &file_tamp_v1_read_proto_msgTypes[13]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *LotRow) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*LotRow) ProtoMessage() {}
+
+func (x *LotRow) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_read_proto_msgTypes[13]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use LotRow.ProtoReflect.Descriptor instead.
+func (*LotRow) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{13}
+}
+
+func (x *LotRow) GetLot() string {
+	if x != nil {
+		return x.Lot
+	}
+	return ""
+}
+
+func (x *LotRow) GetSpecId() string {
+	if x != nil {
+		return x.SpecId
+	}
+	return ""
+}
+
+func (x *LotRow) GetSpec() string {
+	if x != nil {
+		return x.Spec
+	}
+	return ""
+}
+
+func (x *LotRow) GetQualities() []*LotQuality {
+	if x != nil {
+		return x.Qualities
+	}
+	return nil
+}
+
+func (x *LotRow) GetAcceptance() string {
+	if x != nil {
+		return x.Acceptance
+	}
+	return ""
+}
+
+func (x *LotRow) GetAcceptancePwl() *Measure {
+	if x != nil {
+		return x.AcceptancePwl
+	}
+	return nil
+}
+
+func (x *LotRow) GetLeftOut() []*LeftOutTest {
+	if x != nil {
+		return x.LeftOut
+	}
+	return nil
+}
+
+// GetLotsResponse is the lot report.
+type GetLotsResponse struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// One row per lot and spec.
+	Lots []*LotRow `protobuf:"bytes,1,rep,name=lots,proto3" json:"lots,omitempty"`
+	// The unit system of the values.
+	Units         string `protobuf:"bytes,2,opt,name=units,proto3" json:"units,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *GetLotsResponse) Reset() {
+	*x = GetLotsResponse{}
+	mi := &file_tamp_v1_read_proto_msgTypes[14]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *GetLotsResponse) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*GetLotsResponse) ProtoMessage() {}
+
+func (x *GetLotsResponse) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_read_proto_msgTypes[14]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use GetLotsResponse.ProtoReflect.Descriptor instead.
+func (*GetLotsResponse) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{14}
+}
+
+func (x *GetLotsResponse) GetLots() []*LotRow {
+	if x != nil {
+		return x.Lots
+	}
+	return nil
+}
+
+func (x *GetLotsResponse) GetUnits() string {
+	if x != nil {
+		return x.Units
+	}
+	return ""
+}
+
+// GetReconciliationRequest asks for the volume reconciliation.
+type GetReconciliationRequest struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The project.
+	ProjectId     string `protobuf:"bytes,1,opt,name=project_id,json=projectId,proto3" json:"project_id,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *GetReconciliationRequest) Reset() {
+	*x = GetReconciliationRequest{}
+	mi := &file_tamp_v1_read_proto_msgTypes[15]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *GetReconciliationRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*GetReconciliationRequest) ProtoMessage() {}
+
+func (x *GetReconciliationRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_read_proto_msgTypes[15]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use GetReconciliationRequest.ProtoReflect.Descriptor instead.
+func (*GetReconciliationRequest) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{15}
+}
+
+func (x *GetReconciliationRequest) GetProjectId() string {
+	if x != nil {
+		return x.ProjectId
+	}
+	return ""
+}
+
+// Factor is a shrink or swell figure beside its definition.
+type Factor struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// "shrinkage" or "swell".
+	Name string `protobuf:"bytes,1,opt,name=name,proto3" json:"name,omitempty"`
+	// Percent.
+	Percent *Measure `protobuf:"bytes,2,opt,name=percent,proto3" json:"percent,omitempty"`
+	// The factor (compacted / bank, or loose / bank).
+	Factor *Measure `protobuf:"bytes,3,opt,name=factor,proto3" json:"factor,omitempty"`
+	// Its definition in the project's convention.
+	Definition string `protobuf:"bytes,4,opt,name=definition,proto3" json:"definition,omitempty"`
+	// The design's percent, when one is set.
+	DesignPercent *Measure `protobuf:"bytes,5,opt,name=design_percent,json=designPercent,proto3" json:"design_percent,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *Factor) Reset() {
+	*x = Factor{}
+	mi := &file_tamp_v1_read_proto_msgTypes[16]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *Factor) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*Factor) ProtoMessage() {}
+
+func (x *Factor) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_read_proto_msgTypes[16]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use Factor.ProtoReflect.Descriptor instead.
+func (*Factor) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{16}
+}
+
+func (x *Factor) GetName() string {
+	if x != nil {
+		return x.Name
+	}
+	return ""
+}
+
+func (x *Factor) GetPercent() *Measure {
+	if x != nil {
+		return x.Percent
+	}
+	return nil
+}
+
+func (x *Factor) GetFactor() *Measure {
+	if x != nil {
+		return x.Factor
+	}
+	return nil
+}
+
+func (x *Factor) GetDefinition() string {
+	if x != nil {
+		return x.Definition
+	}
+	return ""
+}
+
+func (x *Factor) GetDesignPercent() *Measure {
+	if x != nil {
+		return x.DesignPercent
+	}
+	return nil
+}
+
+// VolumeRange is a bank volume still needed with its range.
+type VolumeRange struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// The estimate.
+	Estimate *Measure `protobuf:"bytes,1,opt,name=estimate,proto3" json:"estimate,omitempty"`
+	// Low end of the range.
+	Low *Measure `protobuf:"bytes,2,opt,name=low,proto3" json:"low,omitempty"`
+	// High end of the range.
+	High *Measure `protobuf:"bytes,3,opt,name=high,proto3" json:"high,omitempty"`
+	// How the range is computed.
+	Method        string `protobuf:"bytes,4,opt,name=method,proto3" json:"method,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *VolumeRange) Reset() {
+	*x = VolumeRange{}
+	mi := &file_tamp_v1_read_proto_msgTypes[17]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *VolumeRange) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*VolumeRange) ProtoMessage() {}
+
+func (x *VolumeRange) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_read_proto_msgTypes[17]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use VolumeRange.ProtoReflect.Descriptor instead.
+func (*VolumeRange) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{17}
+}
+
+func (x *VolumeRange) GetEstimate() *Measure {
+	if x != nil {
+		return x.Estimate
+	}
+	return nil
+}
+
+func (x *VolumeRange) GetLow() *Measure {
+	if x != nil {
+		return x.Low
+	}
+	return nil
+}
+
+func (x *VolumeRange) GetHigh() *Measure {
+	if x != nil {
+		return x.High
+	}
+	return nil
+}
+
+func (x *VolumeRange) GetMethod() string {
+	if x != nil {
+		return x.Method
+	}
+	return ""
+}
+
+// ReconciliationRow is the balance of one borrow source or one feature.
+type ReconciliationRow struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// "borrow_source" or "feature".
+	Scope string `protobuf:"bytes,1,opt,name=scope,proto3" json:"scope,omitempty"`
+	// The borrow source's id, or the feature's name.
+	Id string `protobuf:"bytes,2,opt,name=id,proto3" json:"id,omitempty"`
+	// The borrow source's or the feature's name.
+	Name string `protobuf:"bytes,3,opt,name=name,proto3" json:"name,omitempty"`
+	// Compacted volume placed.
+	CompactedVolume *Measure `protobuf:"bytes,4,opt,name=compacted_volume,json=compactedVolume,proto3" json:"compacted_volume,omitempty"`
+	// Volume-weighted mean dry density of the final tests on it.
+	FillDryDensity *Measure `protobuf:"bytes,5,opt,name=fill_dry_density,json=fillDryDensity,proto3" json:"fill_dry_density,omitempty"`
+	// Final tests the fill density rests on.
+	FillTests uint32 `protobuf:"varint,6,opt,name=fill_tests,json=fillTests,proto3" json:"fill_tests,omitempty"`
+	// The borrow's in-place dry density, from its bank tests.
+	BankDryDensity *Measure `protobuf:"bytes,7,opt,name=bank_dry_density,json=bankDryDensity,proto3" json:"bank_dry_density,omitempty"`
+	// Bank tests it rests on.
+	BankTests uint32 `protobuf:"varint,8,opt,name=bank_tests,json=bankTests,proto3" json:"bank_tests,omitempty"`
+	// Bank volume consumed.
+	BankVolume *Measure `protobuf:"bytes,9,opt,name=bank_volume,json=bankVolume,proto3" json:"bank_volume,omitempty"`
+	// Loose volume hauled.
+	LooseVolumeHauled *Measure `protobuf:"bytes,10,opt,name=loose_volume_hauled,json=looseVolumeHauled,proto3" json:"loose_volume_hauled,omitempty"`
+	// Shrinkage and swell, each beside its definition.
+	Factors []*Factor `protobuf:"bytes,11,rep,name=factors,proto3" json:"factors,omitempty"`
+	// Design volume of the feature (or of the features planned from the
+	// source).
+	DesignVolume *Measure `protobuf:"bytes,12,opt,name=design_volume,json=designVolume,proto3" json:"design_volume,omitempty"`
+	// Compacted volume still to place.
+	RemainingVolume *Measure `protobuf:"bytes,13,opt,name=remaining_volume,json=remainingVolume,proto3" json:"remaining_volume,omitempty"`
+	// Bank volume still needed for it.
+	BankStillNeeded *VolumeRange `protobuf:"bytes,14,opt,name=bank_still_needed,json=bankStillNeeded,proto3" json:"bank_still_needed,omitempty"`
+	// What could not be computed, and why.
+	Notes         []string `protobuf:"bytes,15,rep,name=notes,proto3" json:"notes,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *ReconciliationRow) Reset() {
+	*x = ReconciliationRow{}
+	mi := &file_tamp_v1_read_proto_msgTypes[18]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *ReconciliationRow) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*ReconciliationRow) ProtoMessage() {}
+
+func (x *ReconciliationRow) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_read_proto_msgTypes[18]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use ReconciliationRow.ProtoReflect.Descriptor instead.
+func (*ReconciliationRow) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{18}
+}
+
+func (x *ReconciliationRow) GetScope() string {
+	if x != nil {
+		return x.Scope
+	}
+	return ""
+}
+
+func (x *ReconciliationRow) GetId() string {
+	if x != nil {
+		return x.Id
+	}
+	return ""
+}
+
+func (x *ReconciliationRow) GetName() string {
+	if x != nil {
+		return x.Name
+	}
+	return ""
+}
+
+func (x *ReconciliationRow) GetCompactedVolume() *Measure {
+	if x != nil {
+		return x.CompactedVolume
+	}
+	return nil
+}
+
+func (x *ReconciliationRow) GetFillDryDensity() *Measure {
+	if x != nil {
+		return x.FillDryDensity
+	}
+	return nil
+}
+
+func (x *ReconciliationRow) GetFillTests() uint32 {
+	if x != nil {
+		return x.FillTests
+	}
+	return 0
+}
+
+func (x *ReconciliationRow) GetBankDryDensity() *Measure {
+	if x != nil {
+		return x.BankDryDensity
+	}
+	return nil
+}
+
+func (x *ReconciliationRow) GetBankTests() uint32 {
+	if x != nil {
+		return x.BankTests
+	}
+	return 0
+}
+
+func (x *ReconciliationRow) GetBankVolume() *Measure {
+	if x != nil {
+		return x.BankVolume
+	}
+	return nil
+}
+
+func (x *ReconciliationRow) GetLooseVolumeHauled() *Measure {
+	if x != nil {
+		return x.LooseVolumeHauled
+	}
+	return nil
+}
+
+func (x *ReconciliationRow) GetFactors() []*Factor {
+	if x != nil {
+		return x.Factors
+	}
+	return nil
+}
+
+func (x *ReconciliationRow) GetDesignVolume() *Measure {
+	if x != nil {
+		return x.DesignVolume
+	}
+	return nil
+}
+
+func (x *ReconciliationRow) GetRemainingVolume() *Measure {
+	if x != nil {
+		return x.RemainingVolume
+	}
+	return nil
+}
+
+func (x *ReconciliationRow) GetBankStillNeeded() *VolumeRange {
+	if x != nil {
+		return x.BankStillNeeded
+	}
+	return nil
+}
+
+func (x *ReconciliationRow) GetNotes() []string {
+	if x != nil {
+		return x.Notes
+	}
+	return nil
+}
+
+// GetReconciliationResponse is the volume reconciliation.
+type GetReconciliationResponse struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// One row per borrow source, then one per feature.
+	Rows []*ReconciliationRow `protobuf:"bytes,1,rep,name=rows,proto3" json:"rows,omitempty"`
+	// The unit system of the values.
+	Units         string `protobuf:"bytes,2,opt,name=units,proto3" json:"units,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *GetReconciliationResponse) Reset() {
+	*x = GetReconciliationResponse{}
+	mi := &file_tamp_v1_read_proto_msgTypes[19]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *GetReconciliationResponse) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*GetReconciliationResponse) ProtoMessage() {}
+
+func (x *GetReconciliationResponse) ProtoReflect() protoreflect.Message {
+	mi := &file_tamp_v1_read_proto_msgTypes[19]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use GetReconciliationResponse.ProtoReflect.Descriptor instead.
+func (*GetReconciliationResponse) Descriptor() ([]byte, []int) {
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{19}
+}
+
+func (x *GetReconciliationResponse) GetRows() []*ReconciliationRow {
+	if x != nil {
+		return x.Rows
+	}
+	return nil
+}
+
+func (x *GetReconciliationResponse) GetUnits() string {
+	if x != nil {
+		return x.Units
+	}
+	return ""
+}
+
 // TestSummary is a test as the read side shows it.
 type TestSummary struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
@@ -46,7 +1699,7 @@ type TestSummary struct {
 
 func (x *TestSummary) Reset() {
 	*x = TestSummary{}
-	mi := &file_tamp_v1_read_proto_msgTypes[0]
+	mi := &file_tamp_v1_read_proto_msgTypes[20]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -58,7 +1711,7 @@ func (x *TestSummary) String() string {
 func (*TestSummary) ProtoMessage() {}
 
 func (x *TestSummary) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_read_proto_msgTypes[0]
+	mi := &file_tamp_v1_read_proto_msgTypes[20]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -71,7 +1724,7 @@ func (x *TestSummary) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use TestSummary.ProtoReflect.Descriptor instead.
 func (*TestSummary) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_read_proto_rawDescGZIP(), []int{0}
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{20}
 }
 
 func (x *TestSummary) GetTestId() string {
@@ -143,7 +1796,7 @@ type ListReviewQueueRequest struct {
 
 func (x *ListReviewQueueRequest) Reset() {
 	*x = ListReviewQueueRequest{}
-	mi := &file_tamp_v1_read_proto_msgTypes[1]
+	mi := &file_tamp_v1_read_proto_msgTypes[21]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -155,7 +1808,7 @@ func (x *ListReviewQueueRequest) String() string {
 func (*ListReviewQueueRequest) ProtoMessage() {}
 
 func (x *ListReviewQueueRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_read_proto_msgTypes[1]
+	mi := &file_tamp_v1_read_proto_msgTypes[21]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -168,7 +1821,7 @@ func (x *ListReviewQueueRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use ListReviewQueueRequest.ProtoReflect.Descriptor instead.
 func (*ListReviewQueueRequest) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_read_proto_rawDescGZIP(), []int{1}
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{21}
 }
 
 func (x *ListReviewQueueRequest) GetProjectId() string {
@@ -196,7 +1849,7 @@ type ListReviewQueueResponse struct {
 
 func (x *ListReviewQueueResponse) Reset() {
 	*x = ListReviewQueueResponse{}
-	mi := &file_tamp_v1_read_proto_msgTypes[2]
+	mi := &file_tamp_v1_read_proto_msgTypes[22]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -208,7 +1861,7 @@ func (x *ListReviewQueueResponse) String() string {
 func (*ListReviewQueueResponse) ProtoMessage() {}
 
 func (x *ListReviewQueueResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_read_proto_msgTypes[2]
+	mi := &file_tamp_v1_read_proto_msgTypes[22]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -221,7 +1874,7 @@ func (x *ListReviewQueueResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use ListReviewQueueResponse.ProtoReflect.Descriptor instead.
 func (*ListReviewQueueResponse) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_read_proto_rawDescGZIP(), []int{2}
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{22}
 }
 
 func (x *ListReviewQueueResponse) GetTests() []*TestSummary {
@@ -242,7 +1895,7 @@ type AuditRetestsRequest struct {
 
 func (x *AuditRetestsRequest) Reset() {
 	*x = AuditRetestsRequest{}
-	mi := &file_tamp_v1_read_proto_msgTypes[3]
+	mi := &file_tamp_v1_read_proto_msgTypes[23]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -254,7 +1907,7 @@ func (x *AuditRetestsRequest) String() string {
 func (*AuditRetestsRequest) ProtoMessage() {}
 
 func (x *AuditRetestsRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_read_proto_msgTypes[3]
+	mi := &file_tamp_v1_read_proto_msgTypes[23]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -267,7 +1920,7 @@ func (x *AuditRetestsRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use AuditRetestsRequest.ProtoReflect.Descriptor instead.
 func (*AuditRetestsRequest) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_read_proto_rawDescGZIP(), []int{3}
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{23}
 }
 
 func (x *AuditRetestsRequest) GetProjectId() string {
@@ -292,7 +1945,7 @@ type RetestChain struct {
 
 func (x *RetestChain) Reset() {
 	*x = RetestChain{}
-	mi := &file_tamp_v1_read_proto_msgTypes[4]
+	mi := &file_tamp_v1_read_proto_msgTypes[24]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -304,7 +1957,7 @@ func (x *RetestChain) String() string {
 func (*RetestChain) ProtoMessage() {}
 
 func (x *RetestChain) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_read_proto_msgTypes[4]
+	mi := &file_tamp_v1_read_proto_msgTypes[24]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -317,7 +1970,7 @@ func (x *RetestChain) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use RetestChain.ProtoReflect.Descriptor instead.
 func (*RetestChain) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_read_proto_rawDescGZIP(), []int{4}
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{24}
 }
 
 func (x *RetestChain) GetFailed() *TestSummary {
@@ -352,7 +2005,7 @@ type AuditRetestsResponse struct {
 
 func (x *AuditRetestsResponse) Reset() {
 	*x = AuditRetestsResponse{}
-	mi := &file_tamp_v1_read_proto_msgTypes[5]
+	mi := &file_tamp_v1_read_proto_msgTypes[25]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -364,7 +2017,7 @@ func (x *AuditRetestsResponse) String() string {
 func (*AuditRetestsResponse) ProtoMessage() {}
 
 func (x *AuditRetestsResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_read_proto_msgTypes[5]
+	mi := &file_tamp_v1_read_proto_msgTypes[25]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -377,7 +2030,7 @@ func (x *AuditRetestsResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use AuditRetestsResponse.ProtoReflect.Descriptor instead.
 func (*AuditRetestsResponse) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_read_proto_rawDescGZIP(), []int{5}
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{25}
 }
 
 func (x *AuditRetestsResponse) GetChains() []*RetestChain {
@@ -398,7 +2051,7 @@ type ReconcileVolumesRequest struct {
 
 func (x *ReconcileVolumesRequest) Reset() {
 	*x = ReconcileVolumesRequest{}
-	mi := &file_tamp_v1_read_proto_msgTypes[6]
+	mi := &file_tamp_v1_read_proto_msgTypes[26]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -410,7 +2063,7 @@ func (x *ReconcileVolumesRequest) String() string {
 func (*ReconcileVolumesRequest) ProtoMessage() {}
 
 func (x *ReconcileVolumesRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_read_proto_msgTypes[6]
+	mi := &file_tamp_v1_read_proto_msgTypes[26]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -423,7 +2076,7 @@ func (x *ReconcileVolumesRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use ReconcileVolumesRequest.ProtoReflect.Descriptor instead.
 func (*ReconcileVolumesRequest) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_read_proto_rawDescGZIP(), []int{6}
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{26}
 }
 
 func (x *ReconcileVolumesRequest) GetProjectId() string {
@@ -454,7 +2107,7 @@ type VolumeBalance struct {
 
 func (x *VolumeBalance) Reset() {
 	*x = VolumeBalance{}
-	mi := &file_tamp_v1_read_proto_msgTypes[7]
+	mi := &file_tamp_v1_read_proto_msgTypes[27]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -466,7 +2119,7 @@ func (x *VolumeBalance) String() string {
 func (*VolumeBalance) ProtoMessage() {}
 
 func (x *VolumeBalance) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_read_proto_msgTypes[7]
+	mi := &file_tamp_v1_read_proto_msgTypes[27]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -479,7 +2132,7 @@ func (x *VolumeBalance) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use VolumeBalance.ProtoReflect.Descriptor instead.
 func (*VolumeBalance) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_read_proto_rawDescGZIP(), []int{7}
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{27}
 }
 
 func (x *VolumeBalance) GetBorrowSourceId() string {
@@ -535,7 +2188,7 @@ type ReconcileVolumesResponse struct {
 
 func (x *ReconcileVolumesResponse) Reset() {
 	*x = ReconcileVolumesResponse{}
-	mi := &file_tamp_v1_read_proto_msgTypes[8]
+	mi := &file_tamp_v1_read_proto_msgTypes[28]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -547,7 +2200,7 @@ func (x *ReconcileVolumesResponse) String() string {
 func (*ReconcileVolumesResponse) ProtoMessage() {}
 
 func (x *ReconcileVolumesResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_read_proto_msgTypes[8]
+	mi := &file_tamp_v1_read_proto_msgTypes[28]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -560,7 +2213,7 @@ func (x *ReconcileVolumesResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use ReconcileVolumesResponse.ProtoReflect.Descriptor instead.
 func (*ReconcileVolumesResponse) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_read_proto_rawDescGZIP(), []int{8}
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{28}
 }
 
 func (x *ReconcileVolumesResponse) GetBalances() []*VolumeBalance {
@@ -581,7 +2234,7 @@ type ExportLedgerRequest struct {
 
 func (x *ExportLedgerRequest) Reset() {
 	*x = ExportLedgerRequest{}
-	mi := &file_tamp_v1_read_proto_msgTypes[9]
+	mi := &file_tamp_v1_read_proto_msgTypes[29]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -593,7 +2246,7 @@ func (x *ExportLedgerRequest) String() string {
 func (*ExportLedgerRequest) ProtoMessage() {}
 
 func (x *ExportLedgerRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_read_proto_msgTypes[9]
+	mi := &file_tamp_v1_read_proto_msgTypes[29]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -606,7 +2259,7 @@ func (x *ExportLedgerRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use ExportLedgerRequest.ProtoReflect.Descriptor instead.
 func (*ExportLedgerRequest) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_read_proto_rawDescGZIP(), []int{9}
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{29}
 }
 
 func (x *ExportLedgerRequest) GetProjectId() string {
@@ -629,7 +2282,7 @@ type ExportLedgerResponse struct {
 
 func (x *ExportLedgerResponse) Reset() {
 	*x = ExportLedgerResponse{}
-	mi := &file_tamp_v1_read_proto_msgTypes[10]
+	mi := &file_tamp_v1_read_proto_msgTypes[30]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -641,7 +2294,7 @@ func (x *ExportLedgerResponse) String() string {
 func (*ExportLedgerResponse) ProtoMessage() {}
 
 func (x *ExportLedgerResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_tamp_v1_read_proto_msgTypes[10]
+	mi := &file_tamp_v1_read_proto_msgTypes[30]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -654,7 +2307,7 @@ func (x *ExportLedgerResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use ExportLedgerResponse.ProtoReflect.Descriptor instead.
 func (*ExportLedgerResponse) Descriptor() ([]byte, []int) {
-	return file_tamp_v1_read_proto_rawDescGZIP(), []int{10}
+	return file_tamp_v1_read_proto_rawDescGZIP(), []int{30}
 }
 
 func (x *ExportLedgerResponse) GetEntries() []*LedgerEntry {
@@ -675,7 +2328,147 @@ var File_tamp_v1_read_proto protoreflect.FileDescriptor
 
 const file_tamp_v1_read_proto_rawDesc = "" +
 	"\n" +
-	"\x12tamp/v1/read.proto\x12\atamp.v1\x1a\x13tamp/v1/event.proto\x1a\x12tamp/v1/sync.proto\"\xa4\x02\n" +
+	"\x12tamp/v1/read.proto\x12\atamp.v1\x1a\x13tamp/v1/event.proto\x1a\x12tamp/v1/sync.proto\"G\n" +
+	"\aMeasure\x12\x14\n" +
+	"\x05value\x18\x01 \x01(\x01R\x05value\x12\x12\n" +
+	"\x04unit\x18\x02 \x01(\tR\x04unit\x12\x12\n" +
+	"\x04text\x18\x03 \x01(\tR\x04text\"\xc2\x04\n" +
+	"\bTestLine\x12\x17\n" +
+	"\atest_id\x18\x01 \x01(\tR\x06testId\x12\x1b\n" +
+	"\tauthor_id\x18\x02 \x01(\tR\bauthorId\x12\x14\n" +
+	"\x05taken\x18\x03 \x01(\tR\x05taken\x12\x10\n" +
+	"\x03day\x18\x04 \x01(\tR\x03day\x12\x18\n" +
+	"\astation\x18\x05 \x01(\tR\astation\x12(\n" +
+	"\x06offset\x18\x06 \x01(\v2\x10.tamp.v1.MeasureR\x06offset\x12\x18\n" +
+	"\afeature\x18\a \x01(\tR\afeature\x12\x1f\n" +
+	"\vlift_number\x18\b \x01(\rR\n" +
+	"liftNumber\x121\n" +
+	"\vdry_density\x18\t \x01(\v2\x10.tamp.v1.MeasureR\n" +
+	"dryDensity\x12,\n" +
+	"\bmoisture\x18\n" +
+	" \x01(\v2\x10.tamp.v1.MeasureR\bmoisture\x12A\n" +
+	"\x13relative_compaction\x18\v \x01(\v2\x10.tamp.v1.MeasureR\x12relativeCompaction\x12?\n" +
+	"\x12moisture_deviation\x18\f \x01(\v2\x10.tamp.v1.MeasureR\x11moistureDeviation\x12\x18\n" +
+	"\averdict\x18\r \x01(\tR\averdict\x12*\n" +
+	"\areasons\x18\x0e \x03(\v2\x10.tamp.v1.FindingR\areasons\x12\x16\n" +
+	"\x06voided\x18\x0f \x01(\bR\x06voided\x12\x16\n" +
+	"\x06review\x18\x10 \x01(\tR\x06review\"6\n" +
+	"\x15GetRetestAuditRequest\x12\x1d\n" +
+	"\n" +
+	"project_id\x18\x01 \x01(\tR\tprojectId\"\xdc\x01\n" +
+	"\n" +
+	"AuditChain\x12)\n" +
+	"\x06failed\x18\x01 \x01(\v2\x11.tamp.v1.TestLineR\x06failed\x12+\n" +
+	"\aretests\x18\x02 \x03(\v2\x11.tamp.v1.TestLineR\aretests\x12\x18\n" +
+	"\aclosure\x18\x03 \x01(\tR\aclosure\x12!\n" +
+	"\fclosure_text\x18\x04 \x01(\tR\vclosureText\x129\n" +
+	"\x0fretest_distance\x18\x05 \x01(\v2\x10.tamp.v1.MeasureR\x0eretestDistance\"\x85\x01\n" +
+	"\fAuditFinding\x12\x12\n" +
+	"\x04code\x18\x01 \x01(\tR\x04code\x12\x14\n" +
+	"\x05title\x18\x02 \x01(\tR\x05title\x12\x18\n" +
+	"\amessage\x18\x03 \x01(\tR\amessage\x12\x17\n" +
+	"\atest_id\x18\x04 \x01(\tR\x06testId\x12\x18\n" +
+	"\aentries\x18\x05 \x03(\tR\aentries\"\xa3\x01\n" +
+	"\x16GetRetestAuditResponse\x12+\n" +
+	"\x06chains\x18\x01 \x03(\v2\x13.tamp.v1.AuditChainR\x06chains\x121\n" +
+	"\bfindings\x18\x02 \x03(\v2\x15.tamp.v1.AuditFindingR\bfindings\x12\x14\n" +
+	"\x05units\x18\x03 \x01(\tR\x05units\x12\x13\n" +
+	"\x05as_of\x18\x04 \x01(\tR\x04asOf\"8\n" +
+	"\x17GetTestFrequencyRequest\x12\x1d\n" +
+	"\n" +
+	"project_id\x18\x01 \x01(\tR\tprojectId\"m\n" +
+	"\rFrequencyRule\x12\x12\n" +
+	"\x04rule\x18\x01 \x01(\tR\x04rule\x12,\n" +
+	"\bquantity\x18\x02 \x01(\v2\x10.tamp.v1.MeasureR\bquantity\x12\x1a\n" +
+	"\brequired\x18\x03 \x01(\rR\brequired\"\x92\x02\n" +
+	"\fFrequencyRow\x12!\n" +
+	"\fplacement_id\x18\x01 \x01(\tR\vplacementId\x12\x1c\n" +
+	"\tplacement\x18\x02 \x01(\tR\tplacement\x12\x17\n" +
+	"\aspec_id\x18\x03 \x01(\tR\x06specId\x12\x12\n" +
+	"\x04spec\x18\x04 \x01(\tR\x04spec\x12,\n" +
+	"\x05rules\x18\x05 \x03(\v2\x16.tamp.v1.FrequencyRuleR\x05rules\x12\x1a\n" +
+	"\brequired\x18\x06 \x01(\rR\brequired\x12\x14\n" +
+	"\x05taken\x18\a \x01(\rR\x05taken\x12\x1c\n" +
+	"\tshortfall\x18\b \x01(\rR\tshortfall\x12\x16\n" +
+	"\x06status\x18\t \x01(\tR\x06status\"[\n" +
+	"\x18GetTestFrequencyResponse\x12)\n" +
+	"\x04rows\x18\x01 \x03(\v2\x15.tamp.v1.FrequencyRowR\x04rows\x12\x14\n" +
+	"\x05units\x18\x02 \x01(\tR\x05units\"\xb1\x01\n" +
+	"\x0eGetLotsRequest\x12\x1d\n" +
+	"\n" +
+	"project_id\x18\x01 \x01(\tR\tprojectId\x12\x18\n" +
+	"\afeature\x18\x02 \x01(\tR\afeature\x12\x1b\n" +
+	"\tlift_from\x18\x03 \x01(\rR\bliftFrom\x12\x17\n" +
+	"\alift_to\x18\x04 \x01(\rR\x06liftTo\x12\x19\n" +
+	"\bday_from\x18\x05 \x01(\tR\adayFrom\x12\x15\n" +
+	"\x06day_to\x18\x06 \x01(\tR\x05dayTo\"\x80\x01\n" +
+	"\vLeftOutTest\x12\x17\n" +
+	"\atest_id\x18\x01 \x01(\tR\x06testId\x12\x16\n" +
+	"\x06reason\x18\x02 \x01(\tR\x06reason\x12\x1f\n" +
+	"\vreason_text\x18\x03 \x01(\tR\n" +
+	"reasonText\x12\x1f\n" +
+	"\vreplaced_by\x18\x04 \x01(\tR\n" +
+	"replacedBy\"\xcf\x01\n" +
+	"\n" +
+	"LotQuality\x12&\n" +
+	"\x0echaracteristic\x18\x01 \x01(\tR\x0echaracteristic\x12\x16\n" +
+	"\x06limits\x18\x02 \x01(\tR\x06limits\x12\f\n" +
+	"\x01n\x18\x03 \x01(\rR\x01n\x12$\n" +
+	"\x04mean\x18\x04 \x01(\v2\x10.tamp.v1.MeasureR\x04mean\x12)\n" +
+	"\astd_dev\x18\x05 \x01(\v2\x10.tamp.v1.MeasureR\x06stdDev\x12\"\n" +
+	"\x03pwl\x18\x06 \x01(\v2\x10.tamp.v1.MeasureR\x03pwl\"\x84\x02\n" +
+	"\x06LotRow\x12\x10\n" +
+	"\x03lot\x18\x01 \x01(\tR\x03lot\x12\x17\n" +
+	"\aspec_id\x18\x02 \x01(\tR\x06specId\x12\x12\n" +
+	"\x04spec\x18\x03 \x01(\tR\x04spec\x121\n" +
+	"\tqualities\x18\x04 \x03(\v2\x13.tamp.v1.LotQualityR\tqualities\x12\x1e\n" +
+	"\n" +
+	"acceptance\x18\x05 \x01(\tR\n" +
+	"acceptance\x127\n" +
+	"\x0eacceptance_pwl\x18\x06 \x01(\v2\x10.tamp.v1.MeasureR\racceptancePwl\x12/\n" +
+	"\bleft_out\x18\a \x03(\v2\x14.tamp.v1.LeftOutTestR\aleftOut\"L\n" +
+	"\x0fGetLotsResponse\x12#\n" +
+	"\x04lots\x18\x01 \x03(\v2\x0f.tamp.v1.LotRowR\x04lots\x12\x14\n" +
+	"\x05units\x18\x02 \x01(\tR\x05units\"9\n" +
+	"\x18GetReconciliationRequest\x12\x1d\n" +
+	"\n" +
+	"project_id\x18\x01 \x01(\tR\tprojectId\"\xcb\x01\n" +
+	"\x06Factor\x12\x12\n" +
+	"\x04name\x18\x01 \x01(\tR\x04name\x12*\n" +
+	"\apercent\x18\x02 \x01(\v2\x10.tamp.v1.MeasureR\apercent\x12(\n" +
+	"\x06factor\x18\x03 \x01(\v2\x10.tamp.v1.MeasureR\x06factor\x12\x1e\n" +
+	"\n" +
+	"definition\x18\x04 \x01(\tR\n" +
+	"definition\x127\n" +
+	"\x0edesign_percent\x18\x05 \x01(\v2\x10.tamp.v1.MeasureR\rdesignPercent\"\x9d\x01\n" +
+	"\vVolumeRange\x12,\n" +
+	"\bestimate\x18\x01 \x01(\v2\x10.tamp.v1.MeasureR\bestimate\x12\"\n" +
+	"\x03low\x18\x02 \x01(\v2\x10.tamp.v1.MeasureR\x03low\x12$\n" +
+	"\x04high\x18\x03 \x01(\v2\x10.tamp.v1.MeasureR\x04high\x12\x16\n" +
+	"\x06method\x18\x04 \x01(\tR\x06method\"\xac\x05\n" +
+	"\x11ReconciliationRow\x12\x14\n" +
+	"\x05scope\x18\x01 \x01(\tR\x05scope\x12\x0e\n" +
+	"\x02id\x18\x02 \x01(\tR\x02id\x12\x12\n" +
+	"\x04name\x18\x03 \x01(\tR\x04name\x12;\n" +
+	"\x10compacted_volume\x18\x04 \x01(\v2\x10.tamp.v1.MeasureR\x0fcompactedVolume\x12:\n" +
+	"\x10fill_dry_density\x18\x05 \x01(\v2\x10.tamp.v1.MeasureR\x0efillDryDensity\x12\x1d\n" +
+	"\n" +
+	"fill_tests\x18\x06 \x01(\rR\tfillTests\x12:\n" +
+	"\x10bank_dry_density\x18\a \x01(\v2\x10.tamp.v1.MeasureR\x0ebankDryDensity\x12\x1d\n" +
+	"\n" +
+	"bank_tests\x18\b \x01(\rR\tbankTests\x121\n" +
+	"\vbank_volume\x18\t \x01(\v2\x10.tamp.v1.MeasureR\n" +
+	"bankVolume\x12@\n" +
+	"\x13loose_volume_hauled\x18\n" +
+	" \x01(\v2\x10.tamp.v1.MeasureR\x11looseVolumeHauled\x12)\n" +
+	"\afactors\x18\v \x03(\v2\x0f.tamp.v1.FactorR\afactors\x125\n" +
+	"\rdesign_volume\x18\f \x01(\v2\x10.tamp.v1.MeasureR\fdesignVolume\x12;\n" +
+	"\x10remaining_volume\x18\r \x01(\v2\x10.tamp.v1.MeasureR\x0fremainingVolume\x12@\n" +
+	"\x11bank_still_needed\x18\x0e \x01(\v2\x14.tamp.v1.VolumeRangeR\x0fbankStillNeeded\x12\x14\n" +
+	"\x05notes\x18\x0f \x03(\tR\x05notes\"a\n" +
+	"\x19GetReconciliationResponse\x12.\n" +
+	"\x04rows\x18\x01 \x03(\v2\x1a.tamp.v1.ReconciliationRowR\x04rows\x12\x14\n" +
+	"\x05units\x18\x02 \x01(\tR\x05units\"\xa4\x02\n" +
 	"\vTestSummary\x12\x17\n" +
 	"\atest_id\x18\x01 \x01(\tR\x06testId\x12\x1a\n" +
 	"\brevision\x18\x02 \x01(\tR\brevision\x12\x1b\n" +
@@ -722,12 +2515,16 @@ const file_tamp_v1_read_proto_rawDesc = "" +
 	"deviceKeys\x1a=\n" +
 	"\x0fDeviceKeysEntry\x12\x10\n" +
 	"\x03key\x18\x01 \x01(\tR\x03key\x12\x14\n" +
-	"\x05value\x18\x02 \x01(\fR\x05value:\x028\x012\xde\x02\n" +
+	"\x05value\x18\x02 \x01(\fR\x05value:\x028\x012\xa4\x05\n" +
 	"\x11LedgerReadService\x12T\n" +
 	"\x0fListReviewQueue\x12\x1f.tamp.v1.ListReviewQueueRequest\x1a .tamp.v1.ListReviewQueueResponse\x12K\n" +
 	"\fAuditRetests\x12\x1c.tamp.v1.AuditRetestsRequest\x1a\x1d.tamp.v1.AuditRetestsResponse\x12W\n" +
 	"\x10ReconcileVolumes\x12 .tamp.v1.ReconcileVolumesRequest\x1a!.tamp.v1.ReconcileVolumesResponse\x12M\n" +
-	"\fExportLedger\x12\x1c.tamp.v1.ExportLedgerRequest\x1a\x1d.tamp.v1.ExportLedgerResponse0\x01B\"Z tamp/internal/gen/tamp/v1;tampv1b\x06proto3"
+	"\fExportLedger\x12\x1c.tamp.v1.ExportLedgerRequest\x1a\x1d.tamp.v1.ExportLedgerResponse0\x01\x12Q\n" +
+	"\x0eGetRetestAudit\x12\x1e.tamp.v1.GetRetestAuditRequest\x1a\x1f.tamp.v1.GetRetestAuditResponse\x12W\n" +
+	"\x10GetTestFrequency\x12 .tamp.v1.GetTestFrequencyRequest\x1a!.tamp.v1.GetTestFrequencyResponse\x12<\n" +
+	"\aGetLots\x12\x17.tamp.v1.GetLotsRequest\x1a\x18.tamp.v1.GetLotsResponse\x12Z\n" +
+	"\x11GetReconciliation\x12!.tamp.v1.GetReconciliationRequest\x1a\".tamp.v1.GetReconciliationResponseB\"Z tamp/internal/gen/tamp/v1;tampv1b\x06proto3"
 
 var (
 	file_tamp_v1_read_proto_rawDescOnce sync.Once
@@ -741,49 +2538,114 @@ func file_tamp_v1_read_proto_rawDescGZIP() []byte {
 	return file_tamp_v1_read_proto_rawDescData
 }
 
-var file_tamp_v1_read_proto_msgTypes = make([]protoimpl.MessageInfo, 12)
+var file_tamp_v1_read_proto_msgTypes = make([]protoimpl.MessageInfo, 32)
 var file_tamp_v1_read_proto_goTypes = []any{
-	(*TestSummary)(nil),              // 0: tamp.v1.TestSummary
-	(*ListReviewQueueRequest)(nil),   // 1: tamp.v1.ListReviewQueueRequest
-	(*ListReviewQueueResponse)(nil),  // 2: tamp.v1.ListReviewQueueResponse
-	(*AuditRetestsRequest)(nil),      // 3: tamp.v1.AuditRetestsRequest
-	(*RetestChain)(nil),              // 4: tamp.v1.RetestChain
-	(*AuditRetestsResponse)(nil),     // 5: tamp.v1.AuditRetestsResponse
-	(*ReconcileVolumesRequest)(nil),  // 6: tamp.v1.ReconcileVolumesRequest
-	(*VolumeBalance)(nil),            // 7: tamp.v1.VolumeBalance
-	(*ReconcileVolumesResponse)(nil), // 8: tamp.v1.ReconcileVolumesResponse
-	(*ExportLedgerRequest)(nil),      // 9: tamp.v1.ExportLedgerRequest
-	(*ExportLedgerResponse)(nil),     // 10: tamp.v1.ExportLedgerResponse
-	nil,                              // 11: tamp.v1.ExportLedgerResponse.DeviceKeysEntry
-	(*Location)(nil),                 // 12: tamp.v1.Location
-	(*Results)(nil),                  // 13: tamp.v1.Results
-	(*Finding)(nil),                  // 14: tamp.v1.Finding
-	(*LedgerEntry)(nil),              // 15: tamp.v1.LedgerEntry
+	(*Measure)(nil),                   // 0: tamp.v1.Measure
+	(*TestLine)(nil),                  // 1: tamp.v1.TestLine
+	(*GetRetestAuditRequest)(nil),     // 2: tamp.v1.GetRetestAuditRequest
+	(*AuditChain)(nil),                // 3: tamp.v1.AuditChain
+	(*AuditFinding)(nil),              // 4: tamp.v1.AuditFinding
+	(*GetRetestAuditResponse)(nil),    // 5: tamp.v1.GetRetestAuditResponse
+	(*GetTestFrequencyRequest)(nil),   // 6: tamp.v1.GetTestFrequencyRequest
+	(*FrequencyRule)(nil),             // 7: tamp.v1.FrequencyRule
+	(*FrequencyRow)(nil),              // 8: tamp.v1.FrequencyRow
+	(*GetTestFrequencyResponse)(nil),  // 9: tamp.v1.GetTestFrequencyResponse
+	(*GetLotsRequest)(nil),            // 10: tamp.v1.GetLotsRequest
+	(*LeftOutTest)(nil),               // 11: tamp.v1.LeftOutTest
+	(*LotQuality)(nil),                // 12: tamp.v1.LotQuality
+	(*LotRow)(nil),                    // 13: tamp.v1.LotRow
+	(*GetLotsResponse)(nil),           // 14: tamp.v1.GetLotsResponse
+	(*GetReconciliationRequest)(nil),  // 15: tamp.v1.GetReconciliationRequest
+	(*Factor)(nil),                    // 16: tamp.v1.Factor
+	(*VolumeRange)(nil),               // 17: tamp.v1.VolumeRange
+	(*ReconciliationRow)(nil),         // 18: tamp.v1.ReconciliationRow
+	(*GetReconciliationResponse)(nil), // 19: tamp.v1.GetReconciliationResponse
+	(*TestSummary)(nil),               // 20: tamp.v1.TestSummary
+	(*ListReviewQueueRequest)(nil),    // 21: tamp.v1.ListReviewQueueRequest
+	(*ListReviewQueueResponse)(nil),   // 22: tamp.v1.ListReviewQueueResponse
+	(*AuditRetestsRequest)(nil),       // 23: tamp.v1.AuditRetestsRequest
+	(*RetestChain)(nil),               // 24: tamp.v1.RetestChain
+	(*AuditRetestsResponse)(nil),      // 25: tamp.v1.AuditRetestsResponse
+	(*ReconcileVolumesRequest)(nil),   // 26: tamp.v1.ReconcileVolumesRequest
+	(*VolumeBalance)(nil),             // 27: tamp.v1.VolumeBalance
+	(*ReconcileVolumesResponse)(nil),  // 28: tamp.v1.ReconcileVolumesResponse
+	(*ExportLedgerRequest)(nil),       // 29: tamp.v1.ExportLedgerRequest
+	(*ExportLedgerResponse)(nil),      // 30: tamp.v1.ExportLedgerResponse
+	nil,                               // 31: tamp.v1.ExportLedgerResponse.DeviceKeysEntry
+	(*Finding)(nil),                   // 32: tamp.v1.Finding
+	(*Location)(nil),                  // 33: tamp.v1.Location
+	(*Results)(nil),                   // 34: tamp.v1.Results
+	(*LedgerEntry)(nil),               // 35: tamp.v1.LedgerEntry
 }
 var file_tamp_v1_read_proto_depIdxs = []int32{
-	12, // 0: tamp.v1.TestSummary.location:type_name -> tamp.v1.Location
-	13, // 1: tamp.v1.TestSummary.results:type_name -> tamp.v1.Results
-	14, // 2: tamp.v1.TestSummary.review_flags:type_name -> tamp.v1.Finding
-	0,  // 3: tamp.v1.ListReviewQueueResponse.tests:type_name -> tamp.v1.TestSummary
-	0,  // 4: tamp.v1.RetestChain.failed:type_name -> tamp.v1.TestSummary
-	0,  // 5: tamp.v1.RetestChain.retests:type_name -> tamp.v1.TestSummary
-	4,  // 6: tamp.v1.AuditRetestsResponse.chains:type_name -> tamp.v1.RetestChain
-	7,  // 7: tamp.v1.ReconcileVolumesResponse.balances:type_name -> tamp.v1.VolumeBalance
-	15, // 8: tamp.v1.ExportLedgerResponse.entries:type_name -> tamp.v1.LedgerEntry
-	11, // 9: tamp.v1.ExportLedgerResponse.device_keys:type_name -> tamp.v1.ExportLedgerResponse.DeviceKeysEntry
-	1,  // 10: tamp.v1.LedgerReadService.ListReviewQueue:input_type -> tamp.v1.ListReviewQueueRequest
-	3,  // 11: tamp.v1.LedgerReadService.AuditRetests:input_type -> tamp.v1.AuditRetestsRequest
-	6,  // 12: tamp.v1.LedgerReadService.ReconcileVolumes:input_type -> tamp.v1.ReconcileVolumesRequest
-	9,  // 13: tamp.v1.LedgerReadService.ExportLedger:input_type -> tamp.v1.ExportLedgerRequest
-	2,  // 14: tamp.v1.LedgerReadService.ListReviewQueue:output_type -> tamp.v1.ListReviewQueueResponse
-	5,  // 15: tamp.v1.LedgerReadService.AuditRetests:output_type -> tamp.v1.AuditRetestsResponse
-	8,  // 16: tamp.v1.LedgerReadService.ReconcileVolumes:output_type -> tamp.v1.ReconcileVolumesResponse
-	10, // 17: tamp.v1.LedgerReadService.ExportLedger:output_type -> tamp.v1.ExportLedgerResponse
-	14, // [14:18] is the sub-list for method output_type
-	10, // [10:14] is the sub-list for method input_type
-	10, // [10:10] is the sub-list for extension type_name
-	10, // [10:10] is the sub-list for extension extendee
-	0,  // [0:10] is the sub-list for field type_name
+	0,  // 0: tamp.v1.TestLine.offset:type_name -> tamp.v1.Measure
+	0,  // 1: tamp.v1.TestLine.dry_density:type_name -> tamp.v1.Measure
+	0,  // 2: tamp.v1.TestLine.moisture:type_name -> tamp.v1.Measure
+	0,  // 3: tamp.v1.TestLine.relative_compaction:type_name -> tamp.v1.Measure
+	0,  // 4: tamp.v1.TestLine.moisture_deviation:type_name -> tamp.v1.Measure
+	32, // 5: tamp.v1.TestLine.reasons:type_name -> tamp.v1.Finding
+	1,  // 6: tamp.v1.AuditChain.failed:type_name -> tamp.v1.TestLine
+	1,  // 7: tamp.v1.AuditChain.retests:type_name -> tamp.v1.TestLine
+	0,  // 8: tamp.v1.AuditChain.retest_distance:type_name -> tamp.v1.Measure
+	3,  // 9: tamp.v1.GetRetestAuditResponse.chains:type_name -> tamp.v1.AuditChain
+	4,  // 10: tamp.v1.GetRetestAuditResponse.findings:type_name -> tamp.v1.AuditFinding
+	0,  // 11: tamp.v1.FrequencyRule.quantity:type_name -> tamp.v1.Measure
+	7,  // 12: tamp.v1.FrequencyRow.rules:type_name -> tamp.v1.FrequencyRule
+	8,  // 13: tamp.v1.GetTestFrequencyResponse.rows:type_name -> tamp.v1.FrequencyRow
+	0,  // 14: tamp.v1.LotQuality.mean:type_name -> tamp.v1.Measure
+	0,  // 15: tamp.v1.LotQuality.std_dev:type_name -> tamp.v1.Measure
+	0,  // 16: tamp.v1.LotQuality.pwl:type_name -> tamp.v1.Measure
+	12, // 17: tamp.v1.LotRow.qualities:type_name -> tamp.v1.LotQuality
+	0,  // 18: tamp.v1.LotRow.acceptance_pwl:type_name -> tamp.v1.Measure
+	11, // 19: tamp.v1.LotRow.left_out:type_name -> tamp.v1.LeftOutTest
+	13, // 20: tamp.v1.GetLotsResponse.lots:type_name -> tamp.v1.LotRow
+	0,  // 21: tamp.v1.Factor.percent:type_name -> tamp.v1.Measure
+	0,  // 22: tamp.v1.Factor.factor:type_name -> tamp.v1.Measure
+	0,  // 23: tamp.v1.Factor.design_percent:type_name -> tamp.v1.Measure
+	0,  // 24: tamp.v1.VolumeRange.estimate:type_name -> tamp.v1.Measure
+	0,  // 25: tamp.v1.VolumeRange.low:type_name -> tamp.v1.Measure
+	0,  // 26: tamp.v1.VolumeRange.high:type_name -> tamp.v1.Measure
+	0,  // 27: tamp.v1.ReconciliationRow.compacted_volume:type_name -> tamp.v1.Measure
+	0,  // 28: tamp.v1.ReconciliationRow.fill_dry_density:type_name -> tamp.v1.Measure
+	0,  // 29: tamp.v1.ReconciliationRow.bank_dry_density:type_name -> tamp.v1.Measure
+	0,  // 30: tamp.v1.ReconciliationRow.bank_volume:type_name -> tamp.v1.Measure
+	0,  // 31: tamp.v1.ReconciliationRow.loose_volume_hauled:type_name -> tamp.v1.Measure
+	16, // 32: tamp.v1.ReconciliationRow.factors:type_name -> tamp.v1.Factor
+	0,  // 33: tamp.v1.ReconciliationRow.design_volume:type_name -> tamp.v1.Measure
+	0,  // 34: tamp.v1.ReconciliationRow.remaining_volume:type_name -> tamp.v1.Measure
+	17, // 35: tamp.v1.ReconciliationRow.bank_still_needed:type_name -> tamp.v1.VolumeRange
+	18, // 36: tamp.v1.GetReconciliationResponse.rows:type_name -> tamp.v1.ReconciliationRow
+	33, // 37: tamp.v1.TestSummary.location:type_name -> tamp.v1.Location
+	34, // 38: tamp.v1.TestSummary.results:type_name -> tamp.v1.Results
+	32, // 39: tamp.v1.TestSummary.review_flags:type_name -> tamp.v1.Finding
+	20, // 40: tamp.v1.ListReviewQueueResponse.tests:type_name -> tamp.v1.TestSummary
+	20, // 41: tamp.v1.RetestChain.failed:type_name -> tamp.v1.TestSummary
+	20, // 42: tamp.v1.RetestChain.retests:type_name -> tamp.v1.TestSummary
+	24, // 43: tamp.v1.AuditRetestsResponse.chains:type_name -> tamp.v1.RetestChain
+	27, // 44: tamp.v1.ReconcileVolumesResponse.balances:type_name -> tamp.v1.VolumeBalance
+	35, // 45: tamp.v1.ExportLedgerResponse.entries:type_name -> tamp.v1.LedgerEntry
+	31, // 46: tamp.v1.ExportLedgerResponse.device_keys:type_name -> tamp.v1.ExportLedgerResponse.DeviceKeysEntry
+	21, // 47: tamp.v1.LedgerReadService.ListReviewQueue:input_type -> tamp.v1.ListReviewQueueRequest
+	23, // 48: tamp.v1.LedgerReadService.AuditRetests:input_type -> tamp.v1.AuditRetestsRequest
+	26, // 49: tamp.v1.LedgerReadService.ReconcileVolumes:input_type -> tamp.v1.ReconcileVolumesRequest
+	29, // 50: tamp.v1.LedgerReadService.ExportLedger:input_type -> tamp.v1.ExportLedgerRequest
+	2,  // 51: tamp.v1.LedgerReadService.GetRetestAudit:input_type -> tamp.v1.GetRetestAuditRequest
+	6,  // 52: tamp.v1.LedgerReadService.GetTestFrequency:input_type -> tamp.v1.GetTestFrequencyRequest
+	10, // 53: tamp.v1.LedgerReadService.GetLots:input_type -> tamp.v1.GetLotsRequest
+	15, // 54: tamp.v1.LedgerReadService.GetReconciliation:input_type -> tamp.v1.GetReconciliationRequest
+	22, // 55: tamp.v1.LedgerReadService.ListReviewQueue:output_type -> tamp.v1.ListReviewQueueResponse
+	25, // 56: tamp.v1.LedgerReadService.AuditRetests:output_type -> tamp.v1.AuditRetestsResponse
+	28, // 57: tamp.v1.LedgerReadService.ReconcileVolumes:output_type -> tamp.v1.ReconcileVolumesResponse
+	30, // 58: tamp.v1.LedgerReadService.ExportLedger:output_type -> tamp.v1.ExportLedgerResponse
+	5,  // 59: tamp.v1.LedgerReadService.GetRetestAudit:output_type -> tamp.v1.GetRetestAuditResponse
+	9,  // 60: tamp.v1.LedgerReadService.GetTestFrequency:output_type -> tamp.v1.GetTestFrequencyResponse
+	14, // 61: tamp.v1.LedgerReadService.GetLots:output_type -> tamp.v1.GetLotsResponse
+	19, // 62: tamp.v1.LedgerReadService.GetReconciliation:output_type -> tamp.v1.GetReconciliationResponse
+	55, // [55:63] is the sub-list for method output_type
+	47, // [47:55] is the sub-list for method input_type
+	47, // [47:47] is the sub-list for extension type_name
+	47, // [47:47] is the sub-list for extension extendee
+	0,  // [0:47] is the sub-list for field type_name
 }
 
 func init() { file_tamp_v1_read_proto_init() }
@@ -799,7 +2661,7 @@ func file_tamp_v1_read_proto_init() {
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_tamp_v1_read_proto_rawDesc), len(file_tamp_v1_read_proto_rawDesc)),
 			NumEnums:      0,
-			NumMessages:   12,
+			NumMessages:   32,
 			NumExtensions: 0,
 			NumServices:   1,
 		},

@@ -19,10 +19,14 @@ import (
 const _ = grpc.SupportPackageIsVersion9
 
 const (
-	LedgerReadService_ListReviewQueue_FullMethodName  = "/tamp.v1.LedgerReadService/ListReviewQueue"
-	LedgerReadService_AuditRetests_FullMethodName     = "/tamp.v1.LedgerReadService/AuditRetests"
-	LedgerReadService_ReconcileVolumes_FullMethodName = "/tamp.v1.LedgerReadService/ReconcileVolumes"
-	LedgerReadService_ExportLedger_FullMethodName     = "/tamp.v1.LedgerReadService/ExportLedger"
+	LedgerReadService_ListReviewQueue_FullMethodName   = "/tamp.v1.LedgerReadService/ListReviewQueue"
+	LedgerReadService_AuditRetests_FullMethodName      = "/tamp.v1.LedgerReadService/AuditRetests"
+	LedgerReadService_ReconcileVolumes_FullMethodName  = "/tamp.v1.LedgerReadService/ReconcileVolumes"
+	LedgerReadService_ExportLedger_FullMethodName      = "/tamp.v1.LedgerReadService/ExportLedger"
+	LedgerReadService_GetRetestAudit_FullMethodName    = "/tamp.v1.LedgerReadService/GetRetestAudit"
+	LedgerReadService_GetTestFrequency_FullMethodName  = "/tamp.v1.LedgerReadService/GetTestFrequency"
+	LedgerReadService_GetLots_FullMethodName           = "/tamp.v1.LedgerReadService/GetLots"
+	LedgerReadService_GetReconciliation_FullMethodName = "/tamp.v1.LedgerReadService/GetReconciliation"
 )
 
 // LedgerReadServiceClient is the client API for LedgerReadService service.
@@ -35,12 +39,25 @@ const (
 type LedgerReadServiceClient interface {
 	// ListReviewQueue lists the tests waiting for office review.
 	ListReviewQueue(ctx context.Context, in *ListReviewQueueRequest, opts ...grpc.CallOption) (*ListReviewQueueResponse, error)
-	// AuditRetests lists failing tests and whether each was retested and passed.
+	// AuditRetests lists failing tests and whether each was retested and
+	// passed, in SI. Superseded by GetRetestAudit.
 	AuditRetests(ctx context.Context, in *AuditRetestsRequest, opts ...grpc.CallOption) (*AuditRetestsResponse, error)
-	// ReconcileVolumes balances compacted, bank and loose volumes.
+	// ReconcileVolumes balances compacted, bank and loose volumes, in SI.
+	// Superseded by GetReconciliation.
 	ReconcileVolumes(ctx context.Context, in *ReconcileVolumesRequest, opts ...grpc.CallOption) (*ReconcileVolumesResponse, error)
 	// ExportLedger streams the whole signed ledger for offline verification.
 	ExportLedger(ctx context.Context, in *ExportLedgerRequest, opts ...grpc.CallOption) (grpc.ServerStreamingClient[ExportLedgerResponse], error)
+	// GetRetestAudit returns the retest audit as the QA manager reads it:
+	// every failure's chain and every finding, rounded in the project's units.
+	GetRetestAudit(ctx context.Context, in *GetRetestAuditRequest, opts ...grpc.CallOption) (*GetRetestAuditResponse, error)
+	// GetTestFrequency returns, per placement, the tests its spec requires
+	// against the final tests taken.
+	GetTestFrequency(ctx context.Context, in *GetTestFrequencyRequest, opts ...grpc.CallOption) (*GetTestFrequencyResponse, error)
+	// GetLots returns the percent within limits of each lot.
+	GetLots(ctx context.Context, in *GetLotsRequest, opts ...grpc.CallOption) (*GetLotsResponse, error)
+	// GetReconciliation balances volumes per borrow source and per feature,
+	// with the bank volume still needed and its range.
+	GetReconciliation(ctx context.Context, in *GetReconciliationRequest, opts ...grpc.CallOption) (*GetReconciliationResponse, error)
 }
 
 type ledgerReadServiceClient struct {
@@ -100,6 +117,46 @@ func (c *ledgerReadServiceClient) ExportLedger(ctx context.Context, in *ExportLe
 // This type alias is provided for backwards compatibility with existing code that references the prior non-generic stream type by name.
 type LedgerReadService_ExportLedgerClient = grpc.ServerStreamingClient[ExportLedgerResponse]
 
+func (c *ledgerReadServiceClient) GetRetestAudit(ctx context.Context, in *GetRetestAuditRequest, opts ...grpc.CallOption) (*GetRetestAuditResponse, error) {
+	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
+	out := new(GetRetestAuditResponse)
+	err := c.cc.Invoke(ctx, LedgerReadService_GetRetestAudit_FullMethodName, in, out, cOpts...)
+	if err != nil {
+		return nil, err
+	}
+	return out, nil
+}
+
+func (c *ledgerReadServiceClient) GetTestFrequency(ctx context.Context, in *GetTestFrequencyRequest, opts ...grpc.CallOption) (*GetTestFrequencyResponse, error) {
+	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
+	out := new(GetTestFrequencyResponse)
+	err := c.cc.Invoke(ctx, LedgerReadService_GetTestFrequency_FullMethodName, in, out, cOpts...)
+	if err != nil {
+		return nil, err
+	}
+	return out, nil
+}
+
+func (c *ledgerReadServiceClient) GetLots(ctx context.Context, in *GetLotsRequest, opts ...grpc.CallOption) (*GetLotsResponse, error) {
+	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
+	out := new(GetLotsResponse)
+	err := c.cc.Invoke(ctx, LedgerReadService_GetLots_FullMethodName, in, out, cOpts...)
+	if err != nil {
+		return nil, err
+	}
+	return out, nil
+}
+
+func (c *ledgerReadServiceClient) GetReconciliation(ctx context.Context, in *GetReconciliationRequest, opts ...grpc.CallOption) (*GetReconciliationResponse, error) {
+	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
+	out := new(GetReconciliationResponse)
+	err := c.cc.Invoke(ctx, LedgerReadService_GetReconciliation_FullMethodName, in, out, cOpts...)
+	if err != nil {
+		return nil, err
+	}
+	return out, nil
+}
+
 // LedgerReadServiceServer is the server API for LedgerReadService service.
 // All implementations must embed UnimplementedLedgerReadServiceServer
 // for forward compatibility.
@@ -110,12 +167,25 @@ type LedgerReadService_ExportLedgerClient = grpc.ServerStreamingClient[ExportLed
 type LedgerReadServiceServer interface {
 	// ListReviewQueue lists the tests waiting for office review.
 	ListReviewQueue(context.Context, *ListReviewQueueRequest) (*ListReviewQueueResponse, error)
-	// AuditRetests lists failing tests and whether each was retested and passed.
+	// AuditRetests lists failing tests and whether each was retested and
+	// passed, in SI. Superseded by GetRetestAudit.
 	AuditRetests(context.Context, *AuditRetestsRequest) (*AuditRetestsResponse, error)
-	// ReconcileVolumes balances compacted, bank and loose volumes.
+	// ReconcileVolumes balances compacted, bank and loose volumes, in SI.
+	// Superseded by GetReconciliation.
 	ReconcileVolumes(context.Context, *ReconcileVolumesRequest) (*ReconcileVolumesResponse, error)
 	// ExportLedger streams the whole signed ledger for offline verification.
 	ExportLedger(*ExportLedgerRequest, grpc.ServerStreamingServer[ExportLedgerResponse]) error
+	// GetRetestAudit returns the retest audit as the QA manager reads it:
+	// every failure's chain and every finding, rounded in the project's units.
+	GetRetestAudit(context.Context, *GetRetestAuditRequest) (*GetRetestAuditResponse, error)
+	// GetTestFrequency returns, per placement, the tests its spec requires
+	// against the final tests taken.
+	GetTestFrequency(context.Context, *GetTestFrequencyRequest) (*GetTestFrequencyResponse, error)
+	// GetLots returns the percent within limits of each lot.
+	GetLots(context.Context, *GetLotsRequest) (*GetLotsResponse, error)
+	// GetReconciliation balances volumes per borrow source and per feature,
+	// with the bank volume still needed and its range.
+	GetReconciliation(context.Context, *GetReconciliationRequest) (*GetReconciliationResponse, error)
 	mustEmbedUnimplementedLedgerReadServiceServer()
 }
 
@@ -137,6 +207,18 @@ func (UnimplementedLedgerReadServiceServer) ReconcileVolumes(context.Context, *R
 }
 func (UnimplementedLedgerReadServiceServer) ExportLedger(*ExportLedgerRequest, grpc.ServerStreamingServer[ExportLedgerResponse]) error {
 	return status.Error(codes.Unimplemented, "method ExportLedger not implemented")
+}
+func (UnimplementedLedgerReadServiceServer) GetRetestAudit(context.Context, *GetRetestAuditRequest) (*GetRetestAuditResponse, error) {
+	return nil, status.Error(codes.Unimplemented, "method GetRetestAudit not implemented")
+}
+func (UnimplementedLedgerReadServiceServer) GetTestFrequency(context.Context, *GetTestFrequencyRequest) (*GetTestFrequencyResponse, error) {
+	return nil, status.Error(codes.Unimplemented, "method GetTestFrequency not implemented")
+}
+func (UnimplementedLedgerReadServiceServer) GetLots(context.Context, *GetLotsRequest) (*GetLotsResponse, error) {
+	return nil, status.Error(codes.Unimplemented, "method GetLots not implemented")
+}
+func (UnimplementedLedgerReadServiceServer) GetReconciliation(context.Context, *GetReconciliationRequest) (*GetReconciliationResponse, error) {
+	return nil, status.Error(codes.Unimplemented, "method GetReconciliation not implemented")
 }
 func (UnimplementedLedgerReadServiceServer) mustEmbedUnimplementedLedgerReadServiceServer() {}
 func (UnimplementedLedgerReadServiceServer) testEmbeddedByValue()                           {}
@@ -224,6 +306,78 @@ func _LedgerReadService_ExportLedger_Handler(srv interface{}, stream grpc.Server
 // This type alias is provided for backwards compatibility with existing code that references the prior non-generic stream type by name.
 type LedgerReadService_ExportLedgerServer = grpc.ServerStreamingServer[ExportLedgerResponse]
 
+func _LedgerReadService_GetRetestAudit_Handler(srv interface{}, ctx context.Context, dec func(interface{}) error, interceptor grpc.UnaryServerInterceptor) (interface{}, error) {
+	in := new(GetRetestAuditRequest)
+	if err := dec(in); err != nil {
+		return nil, err
+	}
+	if interceptor == nil {
+		return srv.(LedgerReadServiceServer).GetRetestAudit(ctx, in)
+	}
+	info := &grpc.UnaryServerInfo{
+		Server:     srv,
+		FullMethod: LedgerReadService_GetRetestAudit_FullMethodName,
+	}
+	handler := func(ctx context.Context, req interface{}) (interface{}, error) {
+		return srv.(LedgerReadServiceServer).GetRetestAudit(ctx, req.(*GetRetestAuditRequest))
+	}
+	return interceptor(ctx, in, info, handler)
+}
+
+func _LedgerReadService_GetTestFrequency_Handler(srv interface{}, ctx context.Context, dec func(interface{}) error, interceptor grpc.UnaryServerInterceptor) (interface{}, error) {
+	in := new(GetTestFrequencyRequest)
+	if err := dec(in); err != nil {
+		return nil, err
+	}
+	if interceptor == nil {
+		return srv.(LedgerReadServiceServer).GetTestFrequency(ctx, in)
+	}
+	info := &grpc.UnaryServerInfo{
+		Server:     srv,
+		FullMethod: LedgerReadService_GetTestFrequency_FullMethodName,
+	}
+	handler := func(ctx context.Context, req interface{}) (interface{}, error) {
+		return srv.(LedgerReadServiceServer).GetTestFrequency(ctx, req.(*GetTestFrequencyRequest))
+	}
+	return interceptor(ctx, in, info, handler)
+}
+
+func _LedgerReadService_GetLots_Handler(srv interface{}, ctx context.Context, dec func(interface{}) error, interceptor grpc.UnaryServerInterceptor) (interface{}, error) {
+	in := new(GetLotsRequest)
+	if err := dec(in); err != nil {
+		return nil, err
+	}
+	if interceptor == nil {
+		return srv.(LedgerReadServiceServer).GetLots(ctx, in)
+	}
+	info := &grpc.UnaryServerInfo{
+		Server:     srv,
+		FullMethod: LedgerReadService_GetLots_FullMethodName,
+	}
+	handler := func(ctx context.Context, req interface{}) (interface{}, error) {
+		return srv.(LedgerReadServiceServer).GetLots(ctx, req.(*GetLotsRequest))
+	}
+	return interceptor(ctx, in, info, handler)
+}
+
+func _LedgerReadService_GetReconciliation_Handler(srv interface{}, ctx context.Context, dec func(interface{}) error, interceptor grpc.UnaryServerInterceptor) (interface{}, error) {
+	in := new(GetReconciliationRequest)
+	if err := dec(in); err != nil {
+		return nil, err
+	}
+	if interceptor == nil {
+		return srv.(LedgerReadServiceServer).GetReconciliation(ctx, in)
+	}
+	info := &grpc.UnaryServerInfo{
+		Server:     srv,
+		FullMethod: LedgerReadService_GetReconciliation_FullMethodName,
+	}
+	handler := func(ctx context.Context, req interface{}) (interface{}, error) {
+		return srv.(LedgerReadServiceServer).GetReconciliation(ctx, req.(*GetReconciliationRequest))
+	}
+	return interceptor(ctx, in, info, handler)
+}
+
 // LedgerReadService_ServiceDesc is the grpc.ServiceDesc for LedgerReadService service.
 // It's only intended for direct use with grpc.RegisterService,
 // and not to be introspected or modified (even as a copy)
@@ -242,6 +396,22 @@ var LedgerReadService_ServiceDesc = grpc.ServiceDesc{
 		{
 			MethodName: "ReconcileVolumes",
 			Handler:    _LedgerReadService_ReconcileVolumes_Handler,
+		},
+		{
+			MethodName: "GetRetestAudit",
+			Handler:    _LedgerReadService_GetRetestAudit_Handler,
+		},
+		{
+			MethodName: "GetTestFrequency",
+			Handler:    _LedgerReadService_GetTestFrequency_Handler,
+		},
+		{
+			MethodName: "GetLots",
+			Handler:    _LedgerReadService_GetLots_Handler,
+		},
+		{
+			MethodName: "GetReconciliation",
+			Handler:    _LedgerReadService_GetReconciliation_Handler,
 		},
 	},
 	Streams: []grpc.StreamDesc{

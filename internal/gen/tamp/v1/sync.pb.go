@@ -656,9 +656,13 @@ type LedgerEntry struct {
 	// The signed event.
 	Event *Event `protobuf:"bytes,2,opt,name=event,proto3" json:"event,omitempty"`
 	// Chain hash after this event.
-	Hash          []byte `protobuf:"bytes,3,opt,name=hash,proto3" json:"hash,omitempty"`
-	unknownFields protoimpl.UnknownFields
-	sizeCache     protoimpl.SizeCache
+	Hash []byte `protobuf:"bytes,3,opt,name=hash,proto3" json:"hash,omitempty"`
+	// The pushing device's clock skew against the server's when the server
+	// appended the event, microseconds (device minus server), when it was
+	// beyond the project's limit; zero otherwise. Not covered by the hash.
+	ClockSkewMicros int64 `protobuf:"varint,4,opt,name=clock_skew_micros,json=clockSkewMicros,proto3" json:"clock_skew_micros,omitempty"`
+	unknownFields   protoimpl.UnknownFields
+	sizeCache       protoimpl.SizeCache
 }
 
 func (x *LedgerEntry) Reset() {
@@ -710,6 +714,13 @@ func (x *LedgerEntry) GetHash() []byte {
 		return x.Hash
 	}
 	return nil
+}
+
+func (x *LedgerEntry) GetClockSkewMicros() int64 {
+	if x != nil {
+		return x.ClockSkewMicros
+	}
+	return 0
 }
 
 // PullResponse is one chunk of a pulled ledger.
@@ -841,11 +852,12 @@ const file_tamp_v1_sync_proto_rawDesc = "" +
 	"\x05after\x18\x02 \x01(\v2\x13.tamp.v1.CheckpointR\x05after\x12\x1d\n" +
 	"\n" +
 	"max_events\x18\x03 \x01(\rR\tmaxEvents\x120\n" +
-	"\x14reference_data_first\x18\x04 \x01(\bR\x12referenceDataFirst\"c\n" +
+	"\x14reference_data_first\x18\x04 \x01(\bR\x12referenceDataFirst\"\x8f\x01\n" +
 	"\vLedgerEntry\x12\x1a\n" +
 	"\bsequence\x18\x01 \x01(\x04R\bsequence\x12$\n" +
 	"\x05event\x18\x02 \x01(\v2\x0e.tamp.v1.EventR\x05event\x12\x12\n" +
-	"\x04hash\x18\x03 \x01(\fR\x04hash\"\xc2\x02\n" +
+	"\x04hash\x18\x03 \x01(\fR\x04hash\x12*\n" +
+	"\x11clock_skew_micros\x18\x04 \x01(\x03R\x0fclockSkewMicros\"\xc2\x02\n" +
 	"\fPullResponse\x12.\n" +
 	"\aentries\x18\x01 \x03(\v2\x14.tamp.v1.LedgerEntryR\aentries\x12'\n" +
 	"\x04head\x18\x02 \x01(\v2\x13.tamp.v1.CheckpointR\x04head\x12F\n" +
