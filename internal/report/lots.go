@@ -20,20 +20,6 @@ type Lot struct {
 	LeftOut []LeftOut
 }
 
-// Reason says why a test is not in its lot.
-type Reason string
-
-// The reasons a test is left out of its lot.
-const (
-	// ReworkedAndRetested: the test failed and a retest that counts
-	// (graded, neither voided nor returned) replaced it.
-	ReworkedAndRetested Reason = "reworked_and_retested"
-	// ReturnedByOffice: the office returned the test's current revision.
-	ReturnedByOffice Reason = "returned_by_office"
-	// VoidedTest: the test was voided.
-	VoidedTest Reason = "voided"
-)
-
 // LeftOut is a test left out of its lot.
 type LeftOut struct {
 	TestID     string
