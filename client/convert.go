@@ -404,12 +404,13 @@ func chainOf(p *ledger.Projection, c report.Chain) RetestChain {
 }
 
 func frequencyOf(f report.Frequency) Frequency {
-	return Frequency{Placement: placementOf(f.Placement), SpecID: f.SpecID, Tests: f.Tests, Required: f.Required, Shortfall: f.Shortfall}
+	return Frequency{Placement: placementOf(f.Placement), SpecID: f.SpecID, Tests: f.Taken, Required: f.Required, Shortfall: f.Shortfall}
 }
 
 func lotOf(p *ledger.Projection, l report.Lot) Lot {
-	out := Lot{Placement: placementOf(l.Placement), SpecID: l.SpecID, Values: slices.Clone(l.Values), N: l.PWL.N, Mean: l.PWL.Mean,
-		StdDev: l.PWL.StdDev, QualityIndex: l.PWL.QualityLower, PWL: l.PWL.PWL, LeftOut: []LeftOutTest{}}
+	c := l.Compaction
+	out := Lot{Placement: placementOf(l.Placement), SpecID: l.SpecID, Values: slices.Clone(c.Values), N: c.PWL.N, Mean: c.PWL.Mean,
+		StdDev: c.PWL.StdDev, QualityIndex: c.PWL.QualityLower, PWL: c.PWL.PWL, LeftOut: []LeftOutTest{}}
 	for _, o := range l.LeftOut {
 		out.LeftOut = append(out.LeftOut, LeftOutTest{TestID: o.TestID, Reason: string(o.Reason), ReplacedBy: o.ReplacedBy})
 	}
@@ -420,12 +421,19 @@ func lotOf(p *ledger.Projection, l report.Lot) Lot {
 }
 
 func balanceOf(b report.Balance) VolumeBalance {
-	return VolumeBalance{BorrowSourceID: b.Source.ID, BorrowSource: b.Source.Name, BankDryDensity: b.Source.BankDryDensity,
-		LooseDryDensity: b.Source.LooseDryDensity, CompactedVolume: b.CompactedVolume, FillDryDensity: b.FillDryDensity,
-		Tests: b.Tests, DryMass: b.Balance.DryMass, BankVolume: b.BankVolume, LooseHauled: b.LooseHauled,
+	v := VolumeBalance{Scope: string(b.Scope), Name: b.Name, CompactedVolume: b.CompactedVolume,
+		FillDryDensity: b.FillDensity.Value, FillStdDev: b.FillDensity.StdDev, FillHalfWidth: b.FillDensity.HalfWidth, Tests: b.FillDensity.N,
+		BankDryDensity: b.BankDensity.Value, BankStdDev: b.BankDensity.StdDev, BankHalfWidth: b.BankDensity.HalfWidth, BankTests: b.BankDensity.N,
+		DryMass: b.Balance.DryMass, BankVolume: b.BankVolume, LooseHauled: b.LooseHauled,
 		LooseExpected: b.LooseExpected, ShrinkagePercent: b.Balance.ShrinkagePercent, ShrinkFactor: b.Balance.ShrinkFactor,
-		SwellPercent: b.Balance.SwellPercent, SwellFactor: b.Balance.SwellFactor, ShrinkDefinition: b.Balance.ShrinkDefinition,
-		SwellDefinition: b.Balance.SwellDefinition}
+		SwellPercent: b.Balance.SwellPercent, SwellFactor: b.Balance.SwellFactor, ShrinkDefinition: b.Convention.Definition(),
+		SwellDefinition: earthwork.SwellDefinition, HauledSwellPercent: b.HauledSwellPercent, DesignShrinkagePercent: b.DesignShrinkagePercent,
+		DesignVolume: b.DesignVolume, RemainingVolume: b.Remaining, StillNeeded: b.StillNeeded.Estimate, StillNeededLow: b.StillNeeded.Low,
+		StillNeededHigh: b.StillNeeded.High, RangeMethod: report.RangeMethod, Notes: append([]string{}, b.Notes...)}
+	if s := b.Source; s != nil {
+		v.BorrowSourceID, v.BorrowSource, v.LooseDryDensity = s.ID, s.Name, s.LooseDryDensity
+	}
+	return v
 }
 
 // The project's records, read back (records.go).

@@ -294,21 +294,58 @@ type LeftOutTest struct {
 	ReplacedBy string `json:"replaced_by,omitempty"` // for LeftOutReworked, the retest that counts in its place
 }
 
-// VolumeBalance reconciles one borrow source: the compacted volume placed
-// from it, the bank volume that took from borrow (through dry mass) and
-// the loose volume hauled.
+// The scopes of a VolumeBalance.
+const (
+	BorrowSourceScope = "borrow_source"
+	FeatureScope      = "feature"
+)
+
+// VolumeBalance reconciles one borrow source or one feature: the compacted
+// volume placed, the bank volume that took from borrow (through dry mass,
+// from final tests only) and the loose volume hauled; for a feature the
+// set-up designs (and a source it is planned from), the bank volume still
+// needed for the rest, with its range.
 type VolumeBalance struct {
+	Scope string `json:"scope"` // BorrowSourceScope or FeatureScope
+	// Name is the borrow source's name or the feature's.
+	Name string `json:"name"`
+	// BorrowSourceID and BorrowSource name the source: for a feature, the
+	// one its remaining volume is planned from (or its only source); empty
+	// when there is none.
 	BorrowSourceID  string  `json:"borrow_source_id"`
-	BorrowSource    string  `json:"borrow_source"`     // its name
-	BankDryDensity  float64 `json:"bank_dry_density"`  // kg/m3, mean of its bank tests
+	BorrowSource    string  `json:"borrow_source"`
+	BankDryDensity  float64 `json:"bank_dry_density"`  // kg/m3, mean of the source's bank tests
+	BankStdDev      float64 `json:"bank_std_dev"`      // kg/m3, of the bank tests
+	BankHalfWidth   float64 `json:"bank_half_width"`   // kg/m3, of the 95 % confidence interval on the mean
+	BankTests       int     `json:"bank_tests"`        // bank tests the bank density comes from
 	LooseDryDensity float64 `json:"loose_dry_density"` // kg/m3; zero if not measured
-	CompactedVolume float64 `json:"compacted_volume"`  // m3 placed from the source
-	FillDryDensity  float64 `json:"fill_dry_density"`  // kg/m3, mean of the graded original tests on those placements
-	Tests           int     `json:"tests"`             // tests the fill density comes from
-	DryMass         float64 `json:"dry_mass"`          // kg
-	BankVolume      float64 `json:"bank_volume"`       // m3 of borrow consumed
-	LooseHauled     float64 `json:"loose_hauled"`      // m3 loose, from the haul records
-	LooseExpected   float64 `json:"loose_expected"`    // m3 loose the dry mass implies; zero without a loose density
+	CompactedVolume float64 `json:"compacted_volume"`  // m3 placed
+	// FillDryDensity is the volume-weighted mean dry density of the final
+	// tests on the placements (each placement's mean weighted by its
+	// compacted volume).
+	FillDryDensity float64 `json:"fill_dry_density"` // kg/m3
+	FillStdDev     float64 `json:"fill_std_dev"`     // kg/m3, of the final tests
+	FillHalfWidth  float64 `json:"fill_half_width"`  // kg/m3, of the 95 % confidence interval on the mean
+	Tests          int     `json:"tests"`            // final tests the fill density comes from
+	DryMass        float64 `json:"dry_mass"`         // kg
+	BankVolume     float64 `json:"bank_volume"`      // m3 of borrow consumed
+	LooseHauled    float64 `json:"loose_hauled"`     // m3 loose, from the haul records (for a feature, those naming its placements)
+	LooseExpected  float64 `json:"loose_expected"`   // m3 loose the dry mass implies; zero without a loose density
+	// HauledSwellPercent is (loose hauled - bank volume) / bank volume;
+	// zero without hauls.
+	HauledSwellPercent float64 `json:"hauled_swell_percent"`
+	// DesignShrinkagePercent is the shrinkage the design assumed, under
+	// the project's basis; zero when none is set.
+	DesignShrinkagePercent float64 `json:"design_shrinkage_percent"`
+	DesignVolume           float64 `json:"design_volume"` // m3 compacted; zero without a design
+	RemainingVolume        float64 `json:"remaining_volume"`
+	// StillNeeded is the bank volume still needed for the remaining
+	// volume, m3, with the ends of its range (RangeMethod says how).
+	StillNeeded     float64  `json:"still_needed"`
+	StillNeededLow  float64  `json:"still_needed_low"`
+	StillNeededHigh float64  `json:"still_needed_high"` // +Inf when the bank interval reaches zero
+	RangeMethod     string   `json:"range_method"`
+	Notes           []string `json:"notes"` // what could not be computed, and why
 	// ShrinkagePercent and ShrinkFactor (compacted / bank) follow the
 	// project's ShrinkageBasis, written out in ShrinkDefinition; swell is
 	// zero without a loose density.

@@ -80,6 +80,9 @@ func (r *readService) ReconcileVolumes(ctx context.Context, req *pb.ReconcileVol
 			return err
 		}
 		for _, b := range bs {
+			if b.Scope != report.SourceScope {
+				continue
+			}
 			resp.Balances = append(resp.Balances, &pb.VolumeBalance{BorrowSourceId: b.Source.ID, CompactedVolume: b.CompactedVolume,
 				BankVolume: b.BankVolume, LooseVolumeHauled: b.LooseHauled, ShrinkagePercent: b.Balance.ShrinkagePercent,
 				SwellPercent: b.Balance.SwellPercent})

@@ -149,28 +149,6 @@ func TestFrequencyAndLots(t *testing.T) {
 	}
 }
 
-// F2 [formula] through the ledger: compacted fill at 112.1 pcf, bank at
-// 101.5, loose at 84.0.
-func TestReconcile(t *testing.T) {
-	s := newSite(t)
-	s.test(112.1, 100, "")
-	s.add("office", &ledger.HaulRecorded{ID: id(), BorrowSourceID: s.borrow, Loads: 200, LooseVolumePerLoad: 12 * soil.CubicYard})
-	bs, err := Reconcile(s.p)
-	if err != nil {
-		t.Fatal(err)
-	}
-	if len(bs) != 1 {
-		t.Fatalf("%d balances", len(bs))
-	}
-	b := bs[0]
-	yd := func(v float64) float64 { return v / soil.CubicYard }
-	if math.Abs(yd(b.BankVolume)-1800*112.1/101.5) > 0.5 || math.Abs(yd(b.LooseExpected)-1800*112.1/84.0) > 0.5 {
-		t.Errorf("bank %.1f yd3, loose %.1f yd3; want %.1f and %.1f", yd(b.BankVolume), yd(b.LooseExpected), 1800*112.1/101.5, 1800*112.1/84.0)
-	}
-	if math.Abs(yd(b.LooseHauled)-2400) > 1e-6 || math.Abs(b.Balance.ShrinkagePercent-9.46) > 0.05 {
-		t.Errorf("hauled %.1f, shrinkage %.2f", yd(b.LooseHauled), b.Balance.ShrinkagePercent)
-	}
-}
 
 // Lots hold final tests only. Seven tests on one placement against a 95 %
 // minimum: four count (RC 96.0, 97.5, 95.0 and 95.5, the last a retest
