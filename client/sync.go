@@ -675,6 +675,7 @@ func (s *Store) pull(ctx context.Context, sc pb.SyncServiceClient, project strin
 		var chain []ledger.Entry
 		var signed []ledger.Signed
 		var seqs []uint64
+		var skews []int64
 		for _, e := range entries {
 			sg, err := ledger.Open(e.GetEvent(), keys)
 			if err != nil {
@@ -685,6 +686,7 @@ func (s *Store) pull(ctx context.Context, sc pb.SyncServiceClient, project strin
 			chain = append(chain, ledger.Entry{Seq: e.GetSequence(), Event: sg.Bytes(), Hash: h})
 			signed = append(signed, sg)
 			seqs = append(seqs, e.GetSequence())
+			skews = append(skews, e.GetClockSkewMicros())
 			bytes += int64(len(sg.Body) + len(sg.Signature))
 		}
 		if !resp.GetReferenceData() {
@@ -694,7 +696,7 @@ func (s *Store) pull(ctx context.Context, sc pb.SyncServiceClient, project strin
 		} else {
 			seqs = nil // out of chain order: keep no sequence for them yet
 		}
-		fresh, err := s.applyPulled(ctx, project, signed, seqs, v.At(), !resp.GetReferenceData())
+		fresh, err := s.applyPulled(ctx, project, signed, seqs, skews, v.At(), !resp.GetReferenceData())
 		if err != nil {
 			return err
 		}
@@ -741,7 +743,8 @@ func (s *Store) resetCheckpointIfNew(ctx context.Context, cp ledger.Checkpoint) 
 // them are other devices' entries this device did not hold before: what
 // SyncReport.Pulled counts (the device's own entries come back in the
 // chain, and a first sync receives the reference data twice).
-func (s *Store) applyPulled(ctx context.Context, project string, evs []ledger.Signed, seqs []uint64, cp ledger.Checkpoint, chained bool) (int, error) {
+// skews[i] is the clock skew the server recorded for evs[i].
+func (s *Store) applyPulled(ctx context.Context, project string, evs []ledger.Signed, seqs []uint64, skews []int64, cp ledger.Checkpoint, chained bool) (int, error) {
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	v := s.view(project)
@@ -765,15 +768,16 @@ func (s *Store) applyPulled(ctx context.Context, project string, evs []ledger.Si
 			// A chain entry is confirmed: the device holds it at its place
 			// in the chain it verified.
 			if _, err := tx.ExecContext(ctx, `INSERT INTO events (event_id, project_id, device_id, device_seq, kind, record_id,
-				hlc_wall, hlc_logical, body, signature, origin, status, server_seq, created_micros, confirmed)
-				VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 'remote', 'accepted', ?, ?, ?)
+				hlc_wall, hlc_logical, body, signature, origin, status, server_seq, created_micros, confirmed, clock_skew_micros)
+				VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 'remote', 'accepted', ?, ?, ?, ?)
 				ON CONFLICT (event_id) DO UPDATE SET server_seq = COALESCE(excluded.server_seq, server_seq),
+				clock_skew_micros = CASE WHEN excluded.clock_skew_micros != 0 THEN excluded.clock_skew_micros ELSE clock_skew_micros END,
 				status = CASE WHEN status IN ('pending', 'waiting') THEN 'accepted' ELSE status END,
 				confirmed = MAX(confirmed, excluded.confirmed),
 				server_lacks = CASE WHEN excluded.confirmed = 1 THEN 0 ELSE server_lacks END,
 				waiting_for = '', waiting_since_micros = 0`,
 				e.ID, project, e.Device, e.DeviceSeq, e.Kind.KindName(), ledger.RecordID(e.Kind), e.HLC.Wall, e.HLC.Logical,
-				sg.Body, sg.Signature, seq, s.now().UnixMicro(), seqs != nil); err != nil {
+				sg.Body, sg.Signature, seq, s.now().UnixMicro(), seqs != nil, skews[i]); err != nil {
 				return fmt.Errorf("client: store pulled %s: %w", e.ID, err)
 			}
 		}

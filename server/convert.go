@@ -30,7 +30,7 @@ func ledgerEntries(es []Entry) []ledger.Entry {
 	}
 	out := make([]ledger.Entry, len(es))
 	for i, e := range es {
-		out[i] = ledger.Entry{Seq: e.Seq, Event: e.Event, Hash: ledgerHash(e.Hash)}
+		out[i] = ledger.Entry{Seq: e.Seq, Event: e.Event, Hash: ledgerHash(e.Hash), SkewMicros: e.SkewMicros}
 	}
 	return out
 }

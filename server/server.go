@@ -927,7 +927,7 @@ func (s *Server) wire(ctx context.Context, es []ledger.Entry) ([]*pb.LedgerEntry
 		if err != nil {
 			return nil, nil, fmt.Errorf("server: stored event %d: %w", e.Seq, err)
 		}
-		out = append(out, &pb.LedgerEntry{Sequence: e.Seq, Event: sg.Proto(), Hash: e.Hash[:]})
+		out = append(out, &pb.LedgerEntry{Sequence: e.Seq, Event: sg.Proto(), Hash: e.Hash[:], ClockSkewMicros: e.SkewMicros})
 		if _, ok := keys[sg.Event.Device]; !ok {
 			if k, ok := s.key(ctx, sg.Event.Device); ok {
 				keys[sg.Event.Device] = k

@@ -129,6 +129,10 @@ type Entry struct {
 	Seq   uint64
 	Event []byte // the envelope's bytes, exactly as signed and pushed
 	Hash  Hash   // h(Seq)
+	// SkewMicros is the pushing device's clock skew when the entry was
+	// appended, when beyond the project's limit (Row.SkewMicros); zero
+	// otherwise. It is not part of the chain.
+	SkewMicros int64
 }
 
 // Row is one event appended to a ledger, with its place in the chain.

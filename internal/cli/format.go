@@ -126,22 +126,7 @@ func (u units) name() string { return u.sys.String() }
 // station writes a station (SI metres along the alignment) in the trade's
 // notation: hundreds of feet (12+34.50) in US units, kilometres (1+234.50)
 // in SI.
-func (u units) station(m float64) string {
-	v := u.sys.FromSI(soil.Length, m)
-	step := 100.0
-	width := 5 // "34.50"
-	if u.sys == soil.SI {
-		step, width = 1000, 6 // "234.50"
-	}
-	sign := ""
-	if v < 0 {
-		sign, v = "-", -v
-	}
-	v = math.Round(v*100) / 100
-	whole := math.Floor(v / step)
-	rest := v - whole*step
-	return fmt.Sprintf("%s%.0f+%0*.2f", sign, whole, width, rest)
-}
+func (u units) station(m float64) string { return u.sys.Station(m) }
 
 // parseStation reads a station as typed, in the project's length unit: in
 // the trade's notation (12+34.5 is 1234.5 ft in US units, 1+234.5 is

@@ -53,6 +53,9 @@ type Entry struct {
 	Seq   uint64
 	Event []byte // envelope bytes
 	Hash  Hash   // h(Seq)
+	// SkewMicros is the pushing device's clock skew the server recorded
+	// for the entry, when beyond the project's limit; not part of the chain.
+	SkewMicros int64
 }
 
 // Log is a chain built in memory by appending: what a server does, and what

@@ -2,6 +2,8 @@ package soil
 
 import (
 	"fmt"
+	"math"
+	"strconv"
 
 	"tamp/internal/valid"
 )
@@ -151,4 +153,44 @@ func WaterAt(t float64) (float64, error) {
 		a5 = 999.974950
 	)
 	return a5 * (1 - (t+a1)*(t+a1)*(t+a2)/(a3*(t+a4))), nil
+}
+
+// Round returns the SI value v in s's unit for q, rounded half away from
+// zero to q's places.
+func (s System) Round(q Quantity, v float64) float64 {
+	f := math.Pow(10, float64(s.Places(q)))
+	return math.Round(s.FromSI(q, v)*f) / f
+}
+
+// Show writes the SI value v in s's unit for q at q's resolution, with the
+// unit: "101.3 pcf", "95.2 %"; "-" for NaN or an infinity.
+func (s System) Show(q Quantity, v float64) string {
+	if math.IsNaN(v) || math.IsInf(v, 0) {
+		return "-"
+	}
+	t := strconv.FormatFloat(s.Round(q, v), 'f', s.Places(q), 64)
+	if u := s.Unit(q); u != "" {
+		return t + " " + u
+	}
+	return t
+}
+
+// Station writes a station (SI metres along the alignment) in the trade's
+// notation: hundreds of feet (12+34.50) in US units, kilometres (1+234.50)
+// in SI.
+func (s System) Station(m float64) string {
+	v := s.FromSI(Length, m)
+	step := 100.0
+	width := 5 // "34.50"
+	if s == SI {
+		step, width = 1000, 6 // "234.50"
+	}
+	sign := ""
+	if v < 0 {
+		sign, v = "-", -v
+	}
+	v = math.Round(v*100) / 100
+	whole := math.Floor(v / step)
+	rest := v - whole*step
+	return fmt.Sprintf("%s%.0f+%0*.2f", sign, whole, width, rest)
 }

@@ -144,7 +144,7 @@ func head(ctx context.Context, q queryer, project string) (server.Checkpoint, er
 }
 
 func (s *Store) After(ctx context.Context, project string, seq uint64, limit int) ([]server.Entry, error) {
-	rows, err := s.db.Reader().QueryContext(ctx, `SELECT seq, envelope, hash FROM ledger WHERE project_id = ? AND seq > ? ORDER BY seq LIMIT ?`,
+	rows, err := s.db.Reader().QueryContext(ctx, `SELECT seq, envelope, hash, clock_skew_micros FROM ledger WHERE project_id = ? AND seq > ? ORDER BY seq LIMIT ?`,
 		project, seq, limit)
 	if err != nil {
 		return nil, fmt.Errorf("sqlitestore: read %s after %d: %w", project, seq, err)
@@ -158,7 +158,7 @@ func scanEntries(rows *sql.Rows) ([]server.Entry, error) {
 	for rows.Next() {
 		var e server.Entry
 		var h []byte
-		if err := rows.Scan(&e.Seq, &e.Event, &h); err != nil {
+		if err := rows.Scan(&e.Seq, &e.Event, &h, &e.SkewMicros); err != nil {
 			return nil, fmt.Errorf("sqlitestore: scan entry: %w", err)
 		}
 		copy(e.Hash[:], h)
@@ -244,7 +244,7 @@ func (s *Store) SetEpoch(ctx context.Context, project string, epoch uint64) erro
 }
 
 func (s *Store) ReferenceData(ctx context.Context, project string) ([]server.Entry, error) {
-	rows, err := s.db.Reader().QueryContext(ctx, `SELECT seq, envelope, hash FROM ledger WHERE project_id = ?
+	rows, err := s.db.Reader().QueryContext(ctx, `SELECT seq, envelope, hash, clock_skew_micros FROM ledger WHERE project_id = ?
 		AND kind IN ('project_set_up', 'spec_defined', 'reference_added', 'equipment_registered', 'standard_count_recorded', 'moisture_correction_set')
 		ORDER BY seq`, project)
 	if err != nil {

@@ -1,0 +1,131 @@
+package server
+
+import (
+	"context"
+	"math"
+	"strconv"
+	"time"
+
+	pb "tamp/internal/gen/tamp/v1"
+	"tamp/internal/ledger"
+	"tamp/internal/qc"
+	"tamp/internal/report"
+	"tamp/internal/soil"
+)
+
+// presenter writes a project's figures as its people read them: in the
+// project's units, at the resolution tamp reports each quantity at, with
+// verdicts and codes in words.
+type presenter struct {
+	sys soil.System
+	loc *time.Location
+}
+
+func presenterOf(p *ledger.Projection) presenter {
+	pr := presenter{sys: soil.SI, loc: time.UTC}
+	if su := p.SetUp(); su != nil {
+		if su.Units == soil.US {
+			pr.sys = soil.US
+		}
+		if l, err := time.LoadLocation(su.TimeZone); err == nil && su.TimeZone != "" {
+			pr.loc = l
+		}
+	}
+	return pr
+}
+
+// measure is v (SI) in q's unit at q's resolution; nil for NaN, an
+// infinity or a value not known.
+func (pr presenter) measure(q soil.Quantity, v float64) *pb.Measure {
+	if math.IsNaN(v) || math.IsInf(v, 0) {
+		return nil
+	}
+	return &pb.Measure{Value: pr.sys.Round(q, v), Unit: pr.sys.Unit(q), Text: pr.sys.Show(q, v)}
+}
+
+// percent is a percentage at 0.1.
+func (pr presenter) percent(v float64) *pb.Measure { return pr.measure(soil.Percent, v) }
+
+// factor is a ratio to three places.
+func (pr presenter) factor(v float64) *pb.Measure {
+	if math.IsNaN(v) || math.IsInf(v, 0) || v == 0 {
+		return nil
+	}
+	r := math.Round(v*1000) / 1000
+	return &pb.Measure{Value: r, Text: formatFixed(r, 3)}
+}
+
+// verdictWords are the verdicts as the trade says them.
+var verdictWords = map[qc.Verdict]string{qc.Pass: "pass", qc.Fail: "fail", qc.Pending: "pending"}
+
+func (pr presenter) line(t *ledger.Test) *pb.TestLine {
+	c, r := t.Content, t.Result
+	l := &pb.TestLine{TestId: t.ID, AuthorId: t.Author, Taken: t.DeviceTime.In(pr.loc).Format(time.RFC3339), Day: t.Day,
+		Station: pr.sys.Station(c.Location.Station), Offset: pr.measure(soil.Length, c.Location.Offset), Feature: c.Feature,
+		LiftNumber: c.LiftNumber, DryDensity: pr.measure(soil.Density, r.DryDensity), Moisture: pr.percent(r.Moisture),
+		Verdict: verdictWords[r.Verdict], Reasons: findings(r.Reasons), Voided: t.Voided(), Review: string(t.ReviewStatus)}
+	if r.Verdict != qc.Pending {
+		l.RelativeCompaction = pr.percent(r.RelativeCompaction)
+		l.MoistureDeviation = &pb.Measure{Value: math.Round(r.MoistureDeviation*10) / 10, Unit: "points", Text: formatFixed(math.Round(r.MoistureDeviation*10)/10, 1) + " points"}
+	}
+	return l
+}
+
+func formatFixed(v float64, places int) string { return strconv.FormatFloat(v, 'f', places, 64) }
+
+func (r *readService) GetReconciliation(ctx context.Context, req *pb.GetReconciliationRequest) (*pb.GetReconciliationResponse, error) {
+	resp := &pb.GetReconciliationResponse{}
+	err := r.view(ctx, req.GetProjectId(), func(p *ledger.Projection) error {
+		pr := presenterOf(p)
+		resp.Units = pr.sys.String()
+		bs, err := report.Reconcile(p)
+		if err != nil {
+			return err
+		}
+		for _, b := range bs {
+			resp.Rows = append(resp.Rows, pr.balance(b))
+		}
+		return nil
+	})
+	return resp, err
+}
+
+func (pr presenter) balance(b report.Balance) *pb.ReconciliationRow {
+	row := &pb.ReconciliationRow{Scope: string(b.Scope), Id: b.ID, Name: b.Name, CompactedVolume: pr.measure(soil.Volume, b.CompactedVolume),
+		FillTests: uint32(b.FillDensity.N), BankTests: uint32(b.BankDensity.N), LooseVolumeHauled: pr.measure(soil.Volume, b.LooseHauled),
+		Notes: b.Notes}
+	if b.FillDensity.N > 0 {
+		row.FillDryDensity = pr.measure(soil.Density, b.FillDensity.Value)
+	}
+	if b.BankDensity.N > 0 {
+		row.BankDryDensity = pr.measure(soil.Density, b.BankDensity.Value)
+	}
+	if b.BankVolume > 0 {
+		row.BankVolume = pr.measure(soil.Volume, b.BankVolume)
+		// Balance.ShrinkFactor is compacted over bank volume (bank over
+		// compacted dry density) under either convention.
+		sh := &pb.Factor{Name: "shrinkage", Percent: pr.percent(b.Balance.ShrinkagePercent), Factor: pr.factor(b.Balance.ShrinkFactor),
+			Definition: b.Convention.Definition()}
+		if b.DesignShrinkagePercent > 0 {
+			sh.DesignPercent = pr.percent(b.DesignShrinkagePercent)
+		}
+		row.Factors = append(row.Factors, sh)
+		if b.Balance.SwellFactor > 0 {
+			row.Factors = append(row.Factors, &pb.Factor{Name: "swell", Percent: pr.percent(b.Balance.SwellPercent),
+				Factor: pr.factor(b.Balance.SwellFactor), Definition: b.Balance.SwellDefinition + " (from the loose dry density)"})
+		}
+		if b.HauledSwellPercent != 0 {
+			row.Factors = append(row.Factors, &pb.Factor{Name: "swell", Percent: pr.percent(b.HauledSwellPercent),
+				Factor: pr.factor(1 + b.HauledSwellPercent/100), Definition: "swell = (loose volume hauled - bank volume consumed) / bank volume consumed (from the haul records)"})
+		}
+	}
+	if b.DesignVolume > 0 {
+		row.DesignVolume = pr.measure(soil.Volume, b.DesignVolume)
+		row.RemainingVolume = pr.measure(soil.Volume, b.Remaining)
+		if b.StillNeeded.Estimate > 0 {
+			row.BankStillNeeded = &pb.VolumeRange{Estimate: pr.measure(soil.Volume, b.StillNeeded.Estimate),
+				Low: pr.measure(soil.Volume, b.StillNeeded.Low), High: pr.measure(soil.Volume, b.StillNeeded.High), Method: report.RangeMethod}
+		}
+	}
+	return row
+}
