@@ -203,7 +203,8 @@ func (p ProjectSetUp) kind() (*ledger.ProjectSetUp, error) {
 		return nil, invalid("shrinkage", fmt.Sprintf("must be %q or %q, not %q", BankBasis, CompactedBasis, p.Shrinkage))
 	}
 	return &ledger.ProjectSetUp{Name: p.Name, Units: units, WaterDensity: p.WaterDensity, Shrinkage: shrink,
-		ClockSkewLimit: p.ClockSkewLimit, TimeZone: p.TimeZone}, nil
+		ClockSkewLimit: p.ClockSkewLimit, TimeZone: p.TimeZone, RetestWithin: p.RetestWithin, RetestDistance: p.RetestDistance,
+		Features: each(p.Features, func(f FeatureDesign) ledger.FeatureDesign { return ledger.FeatureDesign(f) })}, nil
 }
 
 var basisToLedger = map[MoistureBasis]qc.MoistureBasis{"": qc.PointsOfOptimum, PointsOfOptimum: qc.PointsOfOptimum,
@@ -216,7 +217,8 @@ func (s Spec) kind() (*ledger.SpecDefined, error) {
 	}
 	return &ledger.SpecDefined{ID: s.ID, Name: s.Name, MinCompaction: s.MinCompaction, MoistureBasis: basis,
 		MoistureLow: s.MoistureLow, MoistureHigh: s.MoistureHigh, SuspectCompaction: s.SuspectCompaction,
-		VolumePerTest: s.VolumePerTest}, nil
+		VolumePerTest: s.VolumePerTest, AreaPerTest: s.AreaPerTest, LengthPerTest: s.LengthPerTest, MinTestsPerLift: s.MinTestsPerLift,
+		LotAcceptancePWL: s.LotAcceptancePWL}, nil
 }
 
 func basisOf(b qc.MoistureBasis) MoistureBasis {
@@ -273,7 +275,7 @@ func (b BorrowSource) kind() *ledger.BorrowSourceMeasured {
 
 func (p Placement) kind() *ledger.LiftPlacementRecorded {
 	out := &ledger.LiftPlacementRecorded{ID: p.ID, Feature: p.Feature, LiftNumber: p.LiftNumber, Area: p.Area,
-		Thickness: p.Thickness, CompactedVolume: p.CompactedVolume, BorrowSourceID: p.BorrowSourceID, PlacedOn: p.PlacedOn}
+		Thickness: p.Thickness, CompactedVolume: p.CompactedVolume, BorrowSourceID: p.BorrowSourceID, PlacedOn: p.PlacedOn, SpecID: p.SpecID}
 	if r := p.Stations; r != nil {
 		out.Stations = &ledger.StationRange{From: r.From, To: r.To, OffsetLeft: r.OffsetLeft, OffsetRight: r.OffsetRight}
 	}
@@ -282,7 +284,7 @@ func (p Placement) kind() *ledger.LiftPlacementRecorded {
 
 func placementOf(p *ledger.Placement) Placement {
 	out := Placement{ID: p.ID, Feature: p.Feature, LiftNumber: p.LiftNumber, Area: p.Area, Thickness: p.Thickness,
-		CompactedVolume: p.CompactedVolume, BorrowSourceID: p.BorrowSourceID, PlacedOn: p.PlacedOn}
+		CompactedVolume: p.CompactedVolume, BorrowSourceID: p.BorrowSourceID, PlacedOn: p.PlacedOn, SpecID: p.SpecID}
 	if r := p.Stations; r != nil {
 		out.Stations = &StationRange{From: r.From, To: r.To, OffsetLeft: r.OffsetLeft, OffsetRight: r.OffsetRight}
 	}
@@ -439,7 +441,9 @@ func balanceOf(b report.Balance) VolumeBalance {
 // The project's records, read back (records.go).
 
 func setUpOf(k ledger.ProjectSetUp) ProjectSetUp {
-	out := ProjectSetUp{Name: k.Name, WaterDensity: k.WaterDensity, ClockSkewLimit: k.ClockSkewLimit, TimeZone: k.TimeZone}
+	out := ProjectSetUp{Name: k.Name, WaterDensity: k.WaterDensity, ClockSkewLimit: k.ClockSkewLimit, TimeZone: k.TimeZone,
+		RetestWithin: k.RetestWithin, RetestDistance: k.RetestDistance,
+		Features: each(k.Features, func(f ledger.FeatureDesign) FeatureDesign { return FeatureDesign(f) })}
 	for u, sys := range unitsToLedger {
 		if u != "" && sys == k.Units {
 			out.Units = u
@@ -454,7 +458,8 @@ func setUpOf(k ledger.ProjectSetUp) ProjectSetUp {
 
 func specOf(k *ledger.SpecDefined) Spec {
 	return Spec{ID: k.ID, Name: k.Name, MinCompaction: k.MinCompaction, MoistureBasis: basisOf(k.MoistureBasis),
-		MoistureLow: k.MoistureLow, MoistureHigh: k.MoistureHigh, SuspectCompaction: k.SuspectCompaction, VolumePerTest: k.VolumePerTest}
+		MoistureLow: k.MoistureLow, MoistureHigh: k.MoistureHigh, SuspectCompaction: k.SuspectCompaction, VolumePerTest: k.VolumePerTest,
+		AreaPerTest: k.AreaPerTest, LengthPerTest: k.LengthPerTest, MinTestsPerLift: k.MinTestsPerLift, LotAcceptancePWL: k.LotAcceptancePWL}
 }
 
 func labReferenceOf(r *ledger.Reference) LabReference {

@@ -184,6 +184,24 @@ type ProjectSetUp struct {
 	Shrinkage      ShrinkageBasis `json:"shrinkage"`
 	ClockSkewLimit time.Duration  `json:"clock_skew_limit_nanos"` // a device clock further off is flagged; zero means 5 minutes
 	TimeZone       string         `json:"time_zone"`              // IANA name, e.g. "America/Denver"; empty means UTC
+	// Features are the earthwork features as designed, for the bank
+	// volume still needed.
+	Features []FeatureDesign `json:"features,omitempty"`
+	// RetestWithin is the time within which a failing test must be
+	// retested, voided or accepted before the audit reports it; zero means
+	// 48 hours.
+	RetestWithin time.Duration `json:"retest_within_nanos"`
+	// RetestDistance is the distance between a failure and its retest, m,
+	// beyond which the audit reports the retest; zero means 10 m.
+	RetestDistance float64 `json:"retest_distance"`
+}
+
+// FeatureDesign is one earthwork feature as designed.
+type FeatureDesign struct {
+	Feature                string  `json:"feature"`
+	DesignVolume           float64 `json:"design_volume"`            // m3 compacted
+	BorrowSourceID         string  `json:"borrow_source_id"`         // planned source of the rest; empty for none
+	DesignShrinkagePercent float64 `json:"design_shrinkage_percent"` // under the project's basis; zero for none
 }
 
 // MoistureBasis says how a spec's moisture window is written.
@@ -210,6 +228,12 @@ type Spec struct {
 	MoistureHigh      string        `json:"moisture_high"`      // e.g. "2"; empty for none
 	SuspectCompaction float64       `json:"suspect_compaction"` // percent; results above it are flagged (zero means 105)
 	VolumePerTest     float64       `json:"volume_per_test"`    // m3 of compacted fill per test required; zero for none
+	AreaPerTest       float64       `json:"area_per_test"`      // m2 of lift per test required; zero for none
+	LengthPerTest     float64       `json:"length_per_test"`    // m of alignment per test required; zero for none
+	MinTestsPerLift   uint32        `json:"min_tests_per_lift"` // fewest tests on any lift; zero for none
+	// LotAcceptancePWL is the percent within limits a lot must reach;
+	// zero for none.
+	LotAcceptancePWL float64 `json:"lot_acceptance_pwl"`
 }
 
 // Standard is a laboratory compaction test standard.
@@ -336,6 +360,7 @@ type Placement struct {
 	CompactedVolume float64       `json:"compacted_volume"` // m3
 	BorrowSourceID  string        `json:"borrow_source_id"`
 	PlacedOn        string        `json:"placed_on"` // YYYY-MM-DD
+	SpecID          string        `json:"spec_id"`   // the spec the lift is tested against, for its test frequency; empty for none
 }
 
 // Haul is a count of loads hauled from a borrow source.

@@ -301,7 +301,7 @@ func (d *demoDay) officeMorning(ctx context.Context) error {
 		p  client.Placement
 	}{
 		{&d.liftCore, client.Placement{Feature: "Zone 1 core", LiftNumber: 14, Stations: &client.StationRange{From: demoFt(1000), To: demoFt(1400),
-			OffsetLeft: demoFt(30), OffsetRight: demoFt(30)}, Area: demoFt(400) * demoFt(60), Thickness: demoIn(8), BorrowSourceID: d.borrowA}},
+			OffsetLeft: -demoFt(30), OffsetRight: demoFt(30)}, Area: demoFt(400) * demoFt(60), Thickness: demoIn(8), BorrowSourceID: d.borrowA}},
 		{&d.liftUpstream, client.Placement{Feature: "Zone 2 shell, upstream", LiftNumber: 9, Stations: &client.StationRange{From: demoFt(1000), To: demoFt(1600)},
 			Area: demoFt(600) * demoFt(45), Thickness: demoIn(12), BorrowSourceID: d.borrowC}},
 		{&d.liftDownstrm, client.Placement{Feature: "Zone 2 shell, downstream", LiftNumber: 9, Stations: &client.StationRange{From: demoFt(1000), To: demoFt(1500)},

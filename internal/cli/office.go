@@ -63,9 +63,9 @@ volume reconciliation (tamp qa reconcile).`,
 				if err != nil {
 					return err
 				}
-				p.Stations = &client.StationRange{From: a, To: b, OffsetLeft: ss.u.toSI(soil.Length, left), OffsetRight: ss.u.toSI(soil.Length, right)}
+				p.Stations = &client.StationRange{From: a, To: b, OffsetLeft: -ss.u.toSI(soil.Length, left), OffsetRight: ss.u.toSI(soil.Length, right)}
 				if p.Area == 0 && (left+right) > 0 {
-					p.Area = (b - a) * (p.Stations.OffsetLeft + p.Stations.OffsetRight)
+					p.Area = (b - a) * (p.Stations.OffsetRight - p.Stations.OffsetLeft)
 				}
 			}
 			switch {

@@ -230,13 +230,17 @@ office returned, and a voided test.`,
 
 	var recJSON bool
 	reconcile := &cobra.Command{
-		Use: "reconcile", Short: "Compacted volume placed against bank volume taken and loose volume hauled, per borrow source", Args: cobra.NoArgs,
-		Long: `Balance each borrow source through dry mass: the compacted volume placed from it
-times the mean dry density of the graded tests on those placements is the dry
-mass placed; divided by the bank dry density (tamp borrow add) it is the bank
-volume taken; with a loose dry density, the loose volume it implies, set
-beside the loads hauled (tamp haul add). Shrinkage and swell follow the
-project's convention, written out below the table.`,
+		Use: "reconcile", Short: "Volumes per borrow source and per feature: placed, bank taken, loose hauled, bank still needed", Args: cobra.NoArgs,
+		Long: `Balance earthwork through dry mass, per borrow source and per feature. The
+compacted volume placed times the volume-weighted mean dry density of the final
+tests on it (each lift's mean weighted by its volume; a reworked failure, a
+returned and a voided test do not count) is the dry mass placed; divided by the
+borrow's mean bank dry density (tamp borrow add) it is the bank volume taken;
+with a loose dry density, the loose volume it implies, beside the loads hauled
+(tamp haul add). For each feature the project designs (tamp project set-up
+--design), the bank volume still needed for the remaining design volume, with
+a range from 95 % confidence intervals on both mean densities. Shrinkage and
+swell follow the project's convention, written out below the tables.`,
 		RunE: func(cmd *cobra.Command, _ []string) error {
 			ss, err := f.open(cmd.Context())
 			if err != nil {
@@ -253,75 +257,169 @@ project's convention, written out below the table.`,
 				}
 				return ss.u.num(soil.Volume, v)
 			}
+			dens := func(v float64, n int) num {
+				if n == 0 {
+					return some(math.NaN(), 0)
+				}
+				return ss.u.num(soil.Density, v)
+			}
 			if recJSON {
 				type row struct {
-					Source              string `json:"source"`
-					SourceID            string `json:"source_id"`
-					CompactedVolume     num    `json:"compacted_volume"`
-					CompactedDryDensity num    `json:"compacted_dry_density"`
-					Tests               int    `json:"tests"`
-					BankDryDensity      num    `json:"bank_dry_density"`
-					BankVolume          num    `json:"bank_volume"`
-					LooseHauled         num    `json:"loose_hauled"`
-					LooseExpected       num    `json:"loose_expected"`
-					ShrinkagePercent    num    `json:"shrinkage_percent"`
-					ShrinkFactor        num    `json:"shrink_factor"`
-					SwellPercent        num    `json:"swell_percent"`
-					ShrinkDefinition    string `json:"shrink_definition"`
-					SwellDefinition     string `json:"swell_definition"`
-					Units               string `json:"units"`
+					Scope              string   `json:"scope"`
+					Name               string   `json:"name"`
+					Source             string   `json:"borrow_source"`
+					SourceID           string   `json:"borrow_source_id"`
+					CompactedVolume    num      `json:"compacted_volume"`
+					FillDryDensity     num      `json:"fill_dry_density"`
+					FillHalfWidth      num      `json:"fill_dry_density_half_width"`
+					Tests              int      `json:"fill_tests"`
+					BankDryDensity     num      `json:"bank_dry_density"`
+					BankHalfWidth      num      `json:"bank_dry_density_half_width"`
+					BankTests          int      `json:"bank_tests"`
+					BankVolume         num      `json:"bank_volume"`
+					LooseHauled        num      `json:"loose_hauled"`
+					LooseExpected      num      `json:"loose_expected"`
+					ShrinkagePercent   num      `json:"shrinkage_percent"`
+					ShrinkFactor       num      `json:"shrink_factor"`
+					DesignShrinkage    num      `json:"design_shrinkage_percent"`
+					SwellPercent       num      `json:"swell_percent"`
+					HauledSwellPercent num      `json:"hauled_swell_percent"`
+					DesignVolume       num      `json:"design_volume"`
+					RemainingVolume    num      `json:"remaining_volume"`
+					StillNeeded        num      `json:"bank_still_needed"`
+					StillNeededLow     num      `json:"bank_still_needed_low"`
+					StillNeededHigh    num      `json:"bank_still_needed_high"`
+					ShrinkDefinition   string   `json:"shrink_definition"`
+					SwellDefinition    string   `json:"swell_definition"`
+					RangeMethod        string   `json:"range_method"`
+					Notes              []string `json:"notes"`
+					Units              string   `json:"units"`
 				}
 				rows := []row{}
 				for _, b := range bs {
-					rows = append(rows, row{Source: b.BorrowSource, SourceID: b.BorrowSourceID, CompactedVolume: ss.u.num(soil.Volume, b.CompactedVolume),
-						CompactedDryDensity: ss.u.num(soil.Density, b.FillDryDensity), Tests: b.Tests, BankDryDensity: ss.u.num(soil.Density, b.BankDryDensity),
+					r := row{Scope: b.Scope, Name: b.Name, Source: b.BorrowSource, SourceID: b.BorrowSourceID, CompactedVolume: ss.u.num(soil.Volume, b.CompactedVolume),
+						FillDryDensity: dens(b.FillDryDensity, b.Tests), FillHalfWidth: dens(b.FillHalfWidth, b.Tests), Tests: b.Tests,
+						BankDryDensity: dens(b.BankDryDensity, b.BankTests), BankHalfWidth: dens(b.BankHalfWidth, b.BankTests), BankTests: b.BankTests,
 						BankVolume: vol(b.BankVolume), LooseHauled: vol(b.LooseHauled), LooseExpected: vol(b.LooseExpected),
-						ShrinkagePercent: some(b.ShrinkagePercent, 1), ShrinkFactor: some(b.ShrinkFactor, 3), SwellPercent: some(b.SwellPercent, 1),
-						ShrinkDefinition: b.ShrinkDefinition, SwellDefinition: b.SwellDefinition, Units: ss.u.name()})
+						ShrinkagePercent: some(math.NaN(), 1), ShrinkFactor: some(math.NaN(), 3), SwellPercent: some(math.NaN(), 1),
+						HauledSwellPercent: some(math.NaN(), 1), DesignShrinkage: some(math.NaN(), 1),
+						DesignVolume: vol(b.DesignVolume), RemainingVolume: some(math.NaN(), 0), StillNeeded: vol(b.StillNeeded),
+						StillNeededLow: vol(b.StillNeededLow), StillNeededHigh: vol(b.StillNeededHigh),
+						ShrinkDefinition: b.ShrinkDefinition, SwellDefinition: b.SwellDefinition, RangeMethod: b.RangeMethod, Notes: nonNil(b.Notes), Units: ss.u.name()}
+					if b.BankVolume > 0 {
+						r.ShrinkagePercent, r.ShrinkFactor = some(b.ShrinkagePercent, 1), some(b.ShrinkFactor, 3)
+					}
+					if b.LooseExpected > 0 {
+						r.SwellPercent = some(b.SwellPercent, 1)
+					}
+					if b.LooseHauled > 0 && b.BankVolume > 0 {
+						r.HauledSwellPercent = some(b.HauledSwellPercent, 1)
+					}
+					if b.DesignShrinkagePercent > 0 {
+						r.DesignShrinkage = some(b.DesignShrinkagePercent, 1)
+					}
+					if b.DesignVolume > 0 {
+						r.RemainingVolume = ss.u.num(soil.Volume, b.RemainingVolume)
+					}
+					rows = append(rows, r)
 				}
 				return writeJSON(cmd.OutOrStdout(), rows)
 			}
 			w := cmd.OutOrStdout()
 			if len(bs) == 0 {
-				_, err := fmt.Fprintln(w, "No borrow source yet (tamp borrow add), or none with placements from it (tamp placement add --borrow).")
+				_, err := fmt.Fprintln(w, "No borrow source (tamp borrow add) and no placement (tamp placement add) yet.")
 				return err
 			}
-			t := newTable(w, "BORROW SOURCE", "COMPACTED", "FILL DRY DENSITY", "BANK DRY DENSITY", "BANK VOLUME", "LOOSE HAULED", "LOOSE EXPECTED", "SHRINKAGE", "SWELL")
-			defs := map[string]bool{}
-			var notes []string
 			showVol := func(v float64) string {
 				if v == 0 {
 					return "-"
 				}
 				return ss.u.show(soil.Volume, v)
 			}
-			for _, b := range bs {
-				fill := "-"
-				if b.Tests > 0 {
-					fill = fmt.Sprintf("%s (%d tests)", ss.u.show(soil.Density, b.FillDryDensity), b.Tests)
+			pm := func(v, h float64, n int) string {
+				if n == 0 {
+					return "-"
 				}
-				shrink, swell := "-", "-"
-				if b.BankVolume > 0 {
-					shrink = some(b.ShrinkagePercent, 1).String() + " %"
+				s := ss.u.show(soil.Density, v)
+				if h > 0 {
+					s += " ± " + ss.u.num(soil.Density, h).String()
 				}
-				if b.LooseExpected > 0 {
-					swell = some(b.SwellPercent, 1).String() + " %"
+				return fmt.Sprintf("%s (%d)", s, n)
+			}
+			pct := func(v float64, ok bool) string {
+				if !ok {
+					return "-"
 				}
-				t.row(b.BorrowSource, ss.u.show(soil.Volume, b.CompactedVolume), fill, ss.u.show(soil.Density, b.BankDryDensity), showVol(b.BankVolume),
-					showVol(b.LooseHauled), showVol(b.LooseExpected), shrink, swell)
-				for _, d := range []string{b.ShrinkDefinition, b.SwellDefinition} {
-					if d != "" && !defs[d] {
-						defs[d] = true
-						notes = append(notes, d)
+				return some(v, 1).String() + " %"
+			}
+			defs := map[string]bool{}
+			var defList, notes []string
+			for _, scope := range []string{client.BorrowSourceScope, client.FeatureScope} {
+				head := "BORROW SOURCE"
+				if scope == client.FeatureScope {
+					head = "FEATURE"
+				}
+				t := newTable(w, head, "COMPACTED", "FILL DRY DENSITY (TESTS)", "BANK DRY DENSITY (TESTS)", "BANK VOLUME", "LOOSE HAULED", "LOOSE EXPECTED",
+					"SHRINKAGE", "DESIGN", "SWELL", "HAULED SWELL")
+				rows := 0
+				for _, b := range bs {
+					if b.Scope != scope {
+						continue
+					}
+					rows++
+					t.row(b.Name, ss.u.show(soil.Volume, b.CompactedVolume), pm(b.FillDryDensity, b.FillHalfWidth, b.Tests),
+						pm(b.BankDryDensity, b.BankHalfWidth, b.BankTests), showVol(b.BankVolume), showVol(b.LooseHauled), showVol(b.LooseExpected),
+						pct(b.ShrinkagePercent, b.BankVolume > 0), pct(b.DesignShrinkagePercent, b.DesignShrinkagePercent > 0),
+						pct(b.SwellPercent, b.LooseExpected > 0), pct(b.HauledSwellPercent, b.LooseHauled > 0 && b.BankVolume > 0))
+					for _, d := range []string{b.ShrinkDefinition, b.SwellDefinition} {
+						if d != "" && !defs[d] {
+							defs[d] = true
+							defList = append(defList, d)
+						}
+					}
+					for _, n := range b.Notes {
+						notes = append(notes, b.Name+": "+n)
+					}
+				}
+				if rows > 0 {
+					if err := t.flush(); err != nil {
+						return err
+					}
+					if _, err := fmt.Fprintln(w); err != nil {
+						return err
 					}
 				}
 			}
-			if err := t.flush(); err != nil {
-				return err
+			t := newTable(w, "DESIGNED FEATURE", "DESIGN VOLUME", "PLACED", "REMAINING", "BANK STILL NEEDED", "RANGE", "FROM")
+			designed, method := false, ""
+			for _, b := range bs {
+				if b.Scope != client.FeatureScope || b.DesignVolume == 0 {
+					continue
+				}
+				designed, method = true, b.RangeMethod
+				need, rng := "-", "-"
+				if b.StillNeeded > 0 {
+					need = ss.u.show(soil.Volume, b.StillNeeded)
+					rng = ss.u.num(soil.Volume, b.StillNeededLow).String() + " to " + ss.u.num(soil.Volume, b.StillNeededHigh).String()
+				}
+				t.row(b.Name, ss.u.show(soil.Volume, b.DesignVolume), ss.u.show(soil.Volume, b.CompactedVolume), ss.u.show(soil.Volume, b.RemainingVolume),
+					need, rng, orDefault(b.BorrowSource, "-"))
 			}
 			p := &printer{w: w}
+			if designed {
+				if err := t.flush(); err != nil {
+					return err
+				}
+				p.f("  Range: %s.\n", method)
+			} else {
+				p.f("No feature is designed yet (tamp project set-up --design FEATURE=VOLUME): no bank volume still needed.\n")
+			}
+			for _, d := range defList {
+				p.f("  %s\n", d)
+			}
+			p.f("  swell from the haul records = (loose volume hauled - bank volume) / bank volume\n")
 			for _, n := range notes {
-				p.f("  %s\n", n)
+				p.f("Note: %s\n", n)
 			}
 			p.f("%s\n", qc.Caution)
 			return p.err

@@ -1,0 +1,487 @@
+package report
+
+import (
+	"cmp"
+	"fmt"
+	"math"
+	"slices"
+	"strings"
+	"time"
+
+	"tamp/internal/ledger"
+	"tamp/internal/qc"
+)
+
+// AuditOptions says when and with what the audit runs.
+type AuditOptions struct {
+	// AsOf is the time a failure's age for the retest window is taken at:
+	// the time of the audit. A zero AsOf finds no failure overdue.
+	AsOf time.Time
+	// Skews maps an event id to the pushing device's clock skew,
+	// microseconds (device minus server), for the entries the server flagged
+	// beyond the project's limit.
+	Skews map[string]int64
+}
+
+// FindingCode names what an audit finding is about.
+type FindingCode string
+
+// The audit findings. Each is something for the QA manager to look into:
+// the ledger shows it happened, not why, and none of them is by itself a
+// judgement of the work.
+const (
+	// FailureNotRetested: a failing test (not itself a retest) is still
+	// open longer than the project's retest window after it was taken: no
+	// retest in its chain passed and counts (graded, neither voided nor
+	// returned by the office), it was not voided, and QA accepted no
+	// exception on its current revision. The fill it stands for may have
+	// been covered by the next lift without proof it was reworked.
+	FailureNotRetested FindingCode = "failure_not_retested"
+	// RetestAwayFromFailure: a retest (not voided) was taken farther from
+	// the test it retests than the project's retest distance, so it may not
+	// have tested the reworked area. Measured between satellite positions
+	// when both tests carry one, else in plan from station and offset.
+	RetestAwayFromFailure FindingCode = "retest_away_from_failure"
+	// RetestOnOtherLift: a retest names another placement, feature or lift
+	// number than the test it retests: it tested other fill.
+	RetestOnOtherLift FindingCode = "retest_on_other_lift"
+	// RetestBeforeOriginal: a retest is dated, by hybrid time or by its
+	// device's clock, before the test it retests: a retest cannot precede
+	// its failure, so a clock, a link or the record is wrong.
+	RetestBeforeOriginal FindingCode = "retest_before_original"
+	// PassingTestRetested: a test that passes was retested. A pass needs no
+	// retest; retesting one can be a search for a better number.
+	PassingTestRetested FindingCode = "passing_test_retested"
+	// FailureVoidedWithoutAcceptance: a test that graded fail (now, or in
+	// any revision) was voided, and nobody who was a QA manager on the
+	// project when they did so accepted an exception for it. Voiding is
+	// how a wrong record is withdrawn; it is not how a failure is closed.
+	FailureVoidedWithoutAcceptance FindingCode = "failure_voided_without_acceptance"
+	// CorrectionTurnedFailIntoPass: a correction of a test grades pass
+	// where the revision it superseded graded fail. Corrections are
+	// allowed and kept in history; this one changed the outcome, so its
+	// reason deserves a look.
+	CorrectionTurnedFailIntoPass FindingCode = "correction_turned_fail_into_pass"
+	// DeviceResultMismatch: the results the field device showed disagree
+	// with those recomputed from the recorded readings: the inspector may
+	// have acted on a different number than the record holds.
+	DeviceResultMismatch FindingCode = "device_result_mismatch"
+	// ClockSkew: the server found the device that pushed an entry with its
+	// clock off the server's by more than the project's limit. The entry
+	// keeps the time its device showed; its hybrid time orders it.
+	ClockSkew FindingCode = "clock_skew"
+	// ReviewerNotOfficeOrQA: a review was made by someone whose role on the
+	// project at the time was neither office nor QA, or who had no recorded
+	// role.
+	ReviewerNotOfficeOrQA FindingCode = "reviewer_not_office_or_qa"
+)
+
+// FindingTitle says each finding code in the trade's words.
+var FindingTitle = map[FindingCode]string{
+	FailureNotRetested:             "failure not retested in time",
+	RetestAwayFromFailure:          "retest away from the failure",
+	RetestOnOtherLift:              "retest on another lift",
+	RetestBeforeOriginal:           "retest dated before the test it retests",
+	PassingTestRetested:            "passing test retested",
+	FailureVoidedWithoutAcceptance: "failure voided without QA acceptance",
+	CorrectionTurnedFailIntoPass:   "correction turned a fail into a pass",
+	DeviceResultMismatch:           "device results disagree with the readings",
+	ClockSkew:                      "device clock off the server's",
+	ReviewerNotOfficeOrQA:          "reviewed by someone neither office nor QA",
+}
+
+// Finding is one thing the audit found, with the ledger entries it rests
+// on, so that a reader can look each one up.
+type Finding struct {
+	Code    FindingCode
+	TestID  string // the test it concerns; "" for an entry not about a test
+	Message string // in plain words: the tests (short ids), people (user ids), times, distances, reasons
+	Entries []string
+}
+
+// earthRadius is the mean radius of the Earth, metres (IUGG), that the
+// retest distance between two satellite positions is measured on.
+const earthRadius = 6371008.8
+
+// The roles that review tests.
+const (
+	roleOffice = "office"
+	roleQA     = "qa"
+)
+
+// Findings audits a project's ledger: every failure followed up in time, in
+// the right place and on the right lift; nothing altered after the fact to
+// turn a fail into a pass; no failure withdrawn without QA's acceptance;
+// device results, clocks and reviewers as they should be. It returns one
+// finding per occurrence, sorted by the time of the test each concerns (an
+// entry not about a test by its own time), then code, then message.
+//
+// The findings support, and never replace, review by qualified personnel;
+// the project's specifications and local codes govern what must be done
+// about each one.
+func Findings(p *ledger.Projection, o AuditOptions) []Finding {
+	a := audit{p: p, o: o}
+	var su *ledger.ProjectSetUp
+	if s := p.SetUp(); s != nil {
+		su = &s.ProjectSetUp
+	}
+	a.within, a.distance = su.RetestWithinOrDefault(), su.RetestDistanceOrDefault()
+	for _, t := range p.Tests() {
+		a.test(t)
+	}
+	a.clockSkews()
+	slices.SortFunc(a.out, func(x, y located) int {
+		return cmp.Or(byTime(x.at, y.at), cmp.Compare(x.Code, y.Code), cmp.Compare(x.Message, y.Message),
+			slices.Compare(x.Entries, y.Entries))
+	})
+	out := make([]Finding, len(a.out))
+	for i, f := range a.out {
+		out[i] = f.Finding
+	}
+	return out
+}
+
+// located is a finding with the test that places it in time (for an entry
+// not about a held test, a stand-in with the entry's id and hybrid time).
+type located struct {
+	Finding
+	at *ledger.Test
+}
+
+type audit struct {
+	p        *ledger.Projection
+	o        AuditOptions
+	within   time.Duration
+	distance float64
+	out      []located
+}
+
+func (a *audit) add(at *ledger.Test, code FindingCode, testID, msg string, entries ...string) {
+	a.out = append(a.out, located{Finding: Finding{Code: code, TestID: testID, Message: msg, Entries: entries}, at: at})
+}
+
+// test runs every rule about one test.
+func (a *audit) test(t *ledger.Test) {
+	grades := a.grades(t)
+	a.notRetested(t)
+	if orig, ok := a.p.Test(t.RetestOf); ok {
+		a.retest(t, orig)
+	}
+	a.voidedFailure(t, grades)
+	a.corrections(t, grades)
+	for _, f := range t.Flags {
+		if f.Code == ledger.DeviceResultMismatch {
+			a.add(t, DeviceResultMismatch, t.ID, f.Message, t.Current)
+		}
+	}
+	a.reviewers(t)
+}
+
+// grades returns the verdict of each revision of a test with more than one
+// (the current one as the projection graded it); nil for a test with one,
+// whose only verdict is t.Result's.
+func (a *audit) grades(t *ledger.Test) map[string]qc.Result {
+	if len(t.Revisions) < 2 {
+		return nil
+	}
+	g := make(map[string]qc.Result, len(t.Revisions))
+	for _, r := range t.Revisions {
+		if r.EventID == t.Current {
+			g[r.EventID] = t.Result
+		} else {
+			g[r.EventID] = a.p.Assess(r.Content, t.Day, t.RetestOf).Result
+		}
+	}
+	return g
+}
+
+func (a *audit) notRetested(t *ledger.Test) {
+	if t.Result.Verdict != qc.Fail || t.RetestOf != "" || t.Voided() || t.ExceptionAccepted() {
+		return
+	}
+	age := a.o.AsOf.Sub(t.DeviceTime)
+	if age <= a.within || a.closedByRetest(t) {
+		return
+	}
+	a.add(t, FailureNotRetested, t.ID, fmt.Sprintf(
+		"test %s failed (relative compaction %.1f %%) at %s by its device's clock and is still open %s later, as of %s: no passing retest, no QA exception, not voided; the project's retest window is %s",
+		shortRef(t.ID), t.Result.RelativeCompaction, stamp(t.DeviceTime), span(age.Round(time.Minute)), stamp(a.o.AsOf), span(a.within)),
+		recording(t))
+}
+
+// closedByRetest reports whether a retest in t's chain (retests of retests
+// included) passed and counts.
+func (a *audit) closedByRetest(t *ledger.Test) bool {
+	seen := map[string]bool{t.ID: true}
+	queue := []string{t.ID}
+	for len(queue) > 0 {
+		id := queue[0]
+		queue = queue[1:]
+		for _, rid := range a.p.RetestsOf(id) {
+			if seen[rid] {
+				continue
+			}
+			seen[rid] = true
+			r, ok := a.p.Test(rid)
+			if !ok {
+				continue
+			}
+			if counts(r) && r.Result.Verdict == qc.Pass {
+				return true
+			}
+			queue = append(queue, rid)
+		}
+	}
+	return false
+}
+
+// retest runs the rules about a retest r of orig.
+func (a *audit) retest(r, orig *ledger.Test) {
+	entries := func() []string { return []string{recording(orig), recording(r)} }
+	voided := ""
+	if r.Voided() {
+		voided = " (since voided)"
+	}
+	if !r.Voided() {
+		d, basis := separation(orig.Content.Location, r.Content.Location)
+		if d > a.distance {
+			a.add(r, RetestAwayFromFailure, r.ID, fmt.Sprintf("retest %s is %.1f m from test %s, which it retests (%s), beyond the project's retest distance of %.1f m",
+				shortRef(r.ID), d, shortRef(orig.ID), basis, a.distance), entries()...)
+		}
+	}
+	lr, lo := a.liftOf(r.Content), a.liftOf(orig.Content)
+	if lr.placement != "" && lo.placement != "" && lr.placement != lo.placement ||
+		lr.feature != "" && lo.feature != "" && lr.feature != lo.feature ||
+		lr.number != 0 && lo.number != 0 && lr.number != lo.number {
+		a.add(r, RetestOnOtherLift, r.ID, fmt.Sprintf("retest %s%s is on %s; test %s, which it retests, is on %s",
+			shortRef(r.ID), voided, lr, shortRef(orig.ID), lo), entries()...)
+	}
+	var before []string
+	if r.HLC.Compare(orig.HLC) < 0 {
+		before = append(before, fmt.Sprintf("hybrid time %s, before %s", hlcStamp(r.HLC), hlcStamp(orig.HLC)))
+	}
+	if r.DeviceTime.Before(orig.DeviceTime) {
+		before = append(before, fmt.Sprintf("device time %s, before %s", stamp(r.DeviceTime), stamp(orig.DeviceTime)))
+	}
+	if len(before) > 0 {
+		a.add(r, RetestBeforeOriginal, r.ID, fmt.Sprintf("retest %s%s is dated before test %s, which it retests: %s",
+			shortRef(r.ID), voided, shortRef(orig.ID), strings.Join(before, "; ")), entries()...)
+	}
+	if orig.Result.Verdict == qc.Pass {
+		a.add(r, PassingTestRetested, r.ID, fmt.Sprintf("retest %s%s by %s retests test %s, which passed (relative compaction %.1f %%)",
+			shortRef(r.ID), voided, r.Author, shortRef(orig.ID), orig.Result.RelativeCompaction), entries()...)
+	}
+}
+
+// separation is the distance between two test locations, metres, and its
+// basis in words.
+func separation(a, b ledger.Location) (float64, string) {
+	if a.Position != nil && b.Position != nil {
+		return greatCircle(*a.Position, *b.Position), "great-circle distance between their satellite positions"
+	}
+	return math.Hypot(a.Station-b.Station, a.Offset-b.Offset), "plan distance from station and offset"
+}
+
+// greatCircle is the haversine distance between two WGS84 positions on a
+// sphere of the Earth's mean radius, metres: d = 2 R asin(sqrt(sin²(Δφ/2) +
+// cos φ1 cos φ2 sin²(Δλ/2))). Over the few metres between a failure and
+// its retest the sphere is well within a satellite fix's accuracy.
+func greatCircle(a, b ledger.GeoPosition) float64 {
+	rad := math.Pi / 180
+	p1, p2 := a.Latitude*rad, b.Latitude*rad
+	dp, dl := p2-p1, (b.Longitude-a.Longitude)*rad
+	h := math.Pow(math.Sin(dp/2), 2) + math.Cos(p1)*math.Cos(p2)*math.Pow(math.Sin(dl/2), 2)
+	return 2 * earthRadius * math.Asin(math.Sqrt(min(1, h)))
+}
+
+// lift is the fill a test stands on: its placement, and the feature and
+// lift number the test names or, failing that, its placement records.
+type lift struct {
+	placement, feature string
+	number             uint32
+}
+
+func (l lift) String() string {
+	var parts []string
+	if l.placement != "" {
+		parts = append(parts, "placement "+shortRef(l.placement))
+	}
+	if l.feature != "" {
+		parts = append(parts, l.feature)
+	}
+	if l.number != 0 {
+		parts = append(parts, fmt.Sprintf("lift %d", l.number))
+	}
+	if len(parts) == 0 {
+		return "no recorded lift"
+	}
+	return strings.Join(parts, ", ")
+}
+
+func (a *audit) liftOf(c ledger.TestContent) lift {
+	l := lift{placement: c.PlacementID, feature: c.Feature, number: c.LiftNumber}
+	if pl, ok := a.p.Placement(c.PlacementID); ok && c.PlacementID != "" {
+		l.feature = cmp.Or(l.feature, pl.Feature)
+		l.number = cmp.Or(l.number, pl.LiftNumber)
+	}
+	return l
+}
+
+func (a *audit) voidedFailure(t *ledger.Test, grades map[string]qc.Result) {
+	if !t.Voided() {
+		return
+	}
+	failed := t.Result.Verdict == qc.Fail
+	for _, g := range grades {
+		failed = failed || g.Verdict == qc.Fail
+	}
+	if !failed {
+		return
+	}
+	var others []string
+	for _, x := range t.Exceptions {
+		role := a.roleAtEvent(x.Author, x.EventID)
+		if role == roleQA {
+			return
+		}
+		others = append(others, fmt.Sprintf("%s (%s)", x.Author, roleWords(role)))
+	}
+	entries := []string{recording(t)}
+	var voids []string
+	for _, v := range t.Voids {
+		entries = append(entries, v.EventID)
+		voids = append(voids, fmt.Sprintf("by %s (%q)", v.Author, v.Reason))
+	}
+	msg := fmt.Sprintf("test %s graded fail and was voided %s, and no QA manager accepted an exception for it",
+		shortRef(t.ID), strings.Join(voids, " and "))
+	if len(others) > 0 {
+		msg += "; the exception accepted by " + strings.Join(others, ", ") + " was not by QA"
+	}
+	a.add(t, FailureVoidedWithoutAcceptance, t.ID, msg, entries...)
+}
+
+func (a *audit) corrections(t *ledger.Test, grades map[string]qc.Result) {
+	for _, r := range t.Revisions {
+		if r.Supersedes == "" {
+			continue
+		}
+		was, now := grades[r.Supersedes], grades[r.EventID]
+		if was.Verdict != qc.Fail || now.Verdict != qc.Pass {
+			continue
+		}
+		device := " at"
+		if ev, ok := a.p.Event(r.EventID); ok {
+			device = fmt.Sprintf(" at %s by the device's clock,", stamp(ev.Event.DeviceTime))
+		}
+		a.add(t, CorrectionTurnedFailIntoPass, t.ID, fmt.Sprintf(
+			"test %s: the correction by %s%s hybrid time %s, turned a fail (relative compaction %.1f %%) into a pass (%.1f %%); reason given: %q",
+			shortRef(t.ID), r.Author, device, hlcStamp(r.HLC), was.RelativeCompaction, now.RelativeCompaction, r.Reason),
+			r.Supersedes, r.EventID)
+	}
+}
+
+func (a *audit) reviewers(t *ledger.Test) {
+	for _, rv := range t.Reviews {
+		role, intro := a.p.RoleAt(rv.Author, rv.HLC)
+		if role == roleOffice || role == roleQA {
+			continue
+		}
+		entries := []string{rv.EventID}
+		if intro != "" {
+			entries = append(entries, intro)
+		}
+		decision := "approved"
+		if rv.Decision == ledger.Return {
+			decision = "returned"
+		}
+		who := "who had no role recorded on the project then"
+		if role != "" {
+			who = "whose role on the project then was " + role
+		}
+		a.add(t, ReviewerNotOfficeOrQA, t.ID, fmt.Sprintf("test %s was %s at %s by %s, %s",
+			shortRef(t.ID), decision, hlcStamp(rv.HLC), rv.Author, who), entries...)
+	}
+}
+
+// roleAtEvent is the author's role at the hybrid time of a held event.
+func (a *audit) roleAtEvent(author, eventID string) string {
+	ev, ok := a.p.Event(eventID)
+	if !ok {
+		return ""
+	}
+	role, _ := a.p.RoleAt(author, ev.Event.HLC)
+	return role
+}
+
+func roleWords(role string) string {
+	if role == "" {
+		return "no role recorded"
+	}
+	return role
+}
+
+func (a *audit) clockSkews() {
+	for id, skew := range a.o.Skews {
+		s, ok := a.p.Event(id)
+		if !ok {
+			continue
+		}
+		e := s.Event
+		var testID string
+		switch k := e.Kind.(type) {
+		case *ledger.TestRecorded:
+			testID = k.TestID
+		case *ledger.TestCorrected:
+			testID = k.TestID
+		case *ledger.TestVoided:
+			testID = k.TestID
+		case *ledger.TestReviewed:
+			testID = k.TestID
+		case *ledger.ExceptionAccepted:
+			testID = k.TestID
+		}
+		at, held := a.p.Test(testID)
+		if testID == "" || !held {
+			at = &ledger.Test{ID: e.ID, HLC: e.HLC}
+		}
+		d := time.Duration(skew) * time.Microsecond
+		side := "ahead of"
+		if d < 0 {
+			side = "behind"
+		}
+		about := ""
+		if testID != "" {
+			about = " about test " + shortRef(testID)
+		}
+		a.add(at, ClockSkew, testID, fmt.Sprintf("device clock %s %s the server's: entry %s (%s%s) by %s from device %s, dated %s by that clock",
+			span(d.Round(time.Second)), side, shortRef(e.ID), e.Kind.KindName(), about, e.Author, e.Device, stamp(e.DeviceTime)), e.ID)
+	}
+}
+
+// recording is the event that recorded a test.
+func recording(t *ledger.Test) string { return t.Revisions[0].EventID }
+
+// shortRef is the part of an id a person reads: its last eight characters,
+// from the random part of a UUIDv7.
+func shortRef(id string) string {
+	if len(id) <= 8 {
+		return id
+	}
+	return id[len(id)-8:]
+}
+
+func stamp(t time.Time) string { return t.UTC().Format(time.RFC3339) }
+
+func hlcStamp(h ledger.HLC) string { return stamp(time.UnixMicro(h.Wall)) }
+
+// span says a duration without its zero tail: 48h, 50h30m, 7m12s.
+func span(d time.Duration) string {
+	s := d.Abs().String()
+	if strings.HasSuffix(s, "m0s") {
+		s = s[:len(s)-2]
+	}
+	if strings.HasSuffix(s, "h0m") {
+		s = s[:len(s)-2]
+	}
+	return s
+}
