@@ -1,6 +1,7 @@
 package client
 
 import (
+	"context"
 	"fmt"
 
 	"tamp/internal/report"
@@ -58,12 +59,15 @@ func (s *Store) Lots(project string) ([]Lot, error) {
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	v := s.view(project)
-	lots, err := report.Lots(v)
+	lots, err := report.Lots(v, report.LotScope{})
 	if err != nil {
 		return nil, fmt.Errorf("client: lots: %w", err)
 	}
 	var out []Lot
 	for _, l := range lots {
+		if l.Compaction == nil || l.Compaction.PWL == nil {
+			continue // no estimate of relative compaction: not shown here yet
+		}
 		out = append(out, lotOf(v, l))
 	}
 	return out, nil
@@ -83,6 +87,53 @@ func (s *Store) Reconcile(project string) ([]VolumeBalance, error) {
 	var out []VolumeBalance
 	for _, b := range bs {
 		out = append(out, balanceOf(b))
+	}
+	return out, nil
+}
+
+// AuditFindings returns what the retest audit finds for the QA manager to
+// look at, as of now: failures not retested within the project's window,
+// retests away from their failure, on another lift, before their failure or
+// of a passing test, failures voided without QA's acceptance, corrections
+// that turned a failure into a pass, device results that disagree with the
+// readings, entries from a device whose clock was off (as the server
+// recorded at push, known here once pulled), and reviews by someone who was
+// not office or QA at the time. Each names the entries it rests on. It
+// supports, and never replaces, review by qualified personnel.
+func (s *Store) AuditFindings(ctx context.Context, project string) ([]AuditFinding, error) {
+	skews, err := s.clockSkews(ctx, project)
+	if err != nil {
+		return nil, err
+	}
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	var out []AuditFinding
+	for _, f := range report.Findings(s.view(project), report.AuditOptions{AsOf: s.now(), Skews: skews}) {
+		out = append(out, AuditFinding{Code: string(f.Code), Title: report.FindingTitle[f.Code], TestID: f.TestID, Message: f.Message,
+			Entries: append([]string{}, f.Entries...)})
+	}
+	return out, nil
+}
+
+// clockSkews returns the clock skews the server recorded for the project's
+// entries this device holds, by event id.
+func (s *Store) clockSkews(ctx context.Context, project string) (map[string]int64, error) {
+	rows, err := s.db.Reader().QueryContext(ctx, `SELECT event_id, clock_skew_micros FROM events WHERE project_id = ? AND clock_skew_micros != 0`, project)
+	if err != nil {
+		return nil, fmt.Errorf("client: clock skews: %w", err)
+	}
+	defer rows.Close()
+	out := map[string]int64{}
+	for rows.Next() {
+		var id string
+		var skew int64
+		if err := rows.Scan(&id, &skew); err != nil {
+			return nil, fmt.Errorf("client: clock skews: %w", err)
+		}
+		out[id] = skew
+	}
+	if err := rows.Err(); err != nil {
+		return nil, fmt.Errorf("client: clock skews: %w", err)
 	}
 	return out, nil
 }

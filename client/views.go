@@ -356,3 +356,17 @@ type VolumeBalance struct {
 	ShrinkDefinition string  `json:"shrink_definition"`
 	SwellDefinition  string  `json:"swell_definition"`
 }
+
+// AuditFinding is one thing the retest audit asks the QA manager to look
+// at.
+type AuditFinding struct {
+	// Code is machine-readable, e.g. "failure_not_retested"; Title says it
+	// in the trade's words.
+	Code  string `json:"code"`
+	Title string `json:"title"`
+	// TestID is the test it concerns; empty for an entry not about a test.
+	TestID  string `json:"test_id"`
+	Message string `json:"message"`
+	// Entries are the event ids of the ledger entries it rests on.
+	Entries []string `json:"entries"`
+}

@@ -129,3 +129,39 @@ func (pr presenter) balance(b report.Balance) *pb.ReconciliationRow {
 	}
 	return row
 }
+
+// closureWords say how a failure was closed.
+var closureWords = map[report.Closure]string{report.Open: "open: no passing retest", report.Retested: "closed by a passing retest",
+	report.Excepted: "closed: QA accepted it as it stands", report.Withdrawn: "voided"}
+
+func (r *readService) GetRetestAudit(ctx context.Context, req *pb.GetRetestAuditRequest) (*pb.GetRetestAuditResponse, error) {
+	if _, err := r.s.requireMember(ctx, req.GetProjectId()); err != nil {
+		return nil, err
+	}
+	skews, err := r.s.opts.Store.ClockSkews(ctx, req.GetProjectId())
+	if err != nil {
+		return nil, r.s.internal(ctx, "clock skews", err)
+	}
+	now := r.s.opts.Now()
+	resp := &pb.GetRetestAuditResponse{AsOf: now.UTC().Format(time.RFC3339)}
+	err = r.view(ctx, req.GetProjectId(), func(p *ledger.Projection) error {
+		pr := presenterOf(p)
+		resp.Units = pr.sys.String()
+		for _, c := range report.RetestAudit(p) {
+			ch := &pb.AuditChain{Failed: pr.line(c.Failed), Closure: string(c.Closure), ClosureText: closureWords[c.Closure]}
+			for _, t := range c.Retests {
+				ch.Retests = append(ch.Retests, pr.line(t))
+			}
+			if len(c.Retests) > 0 {
+				ch.RetestDistance = pr.measure(soil.Length, c.StationShift)
+			}
+			resp.Chains = append(resp.Chains, ch)
+		}
+		for _, f := range report.Findings(p, report.AuditOptions{AsOf: now, Skews: skews}) {
+			resp.Findings = append(resp.Findings, &pb.AuditFinding{Code: string(f.Code), Title: report.FindingTitle[f.Code], Message: f.Message,
+				TestId: f.TestID, Entries: f.Entries})
+		}
+		return nil
+	})
+	return resp, err
+}

@@ -97,6 +97,52 @@ review by qualified personnel; the project's specifications govern.`,
 	}
 	jsonFlag(audit, &auditJSON)
 
+	var findingsJSON bool
+	findings := &cobra.Command{
+		Use: "findings", Short: "What the retest audit asks QA to look at, each with the entries it rests on", Args: cobra.NoArgs,
+		Long: `The retest audit's findings, as of now: a failure not retested, voided or
+accepted within the project's retest window (48 hours unless the set-up says
+otherwise); a retest farther from its failure than the project's retest
+distance (10 m unless set; by satellite position when both tests have one,
+else by station and offset), on another lift, logged before its failure, or
+of a test that passed; a failure voided without QA's acceptance; a correction
+that turned a failure into a pass; device results that disagree with the
+readings; entries from a device whose clock was off when it synced; a review
+by someone who was not office or QA at the time. Each names the ledger
+entries it rests on. The findings support, and never replace, review by
+qualified personnel.`,
+		RunE: func(cmd *cobra.Command, _ []string) error {
+			ss, err := f.open(cmd.Context())
+			if err != nil {
+				return err
+			}
+			defer ss.close()
+			fs, err := ss.s.AuditFindings(cmd.Context(), ss.project)
+			if err != nil {
+				return err
+			}
+			if findingsJSON {
+				return writeJSON(cmd.OutOrStdout(), nonNil(fs))
+			}
+			w := cmd.OutOrStdout()
+			if len(fs) == 0 {
+				_, err := fmt.Fprintf(w, "No findings in project %s on this device.\n", quoted(ss.projectName()))
+				return err
+			}
+			p := &printer{w: w}
+			for _, fd := range fs {
+				test := ""
+				if fd.TestID != "" {
+					test = " (test " + shortID(fd.TestID) + ")"
+				}
+				p.f("%s%s\n  %s\n  entries: %s\n", strings.ToUpper(fd.Title), test, escape(fd.Message), strings.Join(fd.Entries, ", "))
+			}
+			p.f("%d finding(s). %s\n", len(fs), qc.Caution)
+			return p.err
+		},
+	}
+	jsonFlag(findings, &findingsJSON)
+
 	var freqJSON bool
 	frequency := &cobra.Command{
 		Use: "frequency", Short: "Tests taken against tests required, per placement", Args: cobra.NoArgs,
@@ -458,7 +504,7 @@ swell follow the project's convention, written out below the tables.`,
 	}
 	accept.Flags().StringVar(&reason, "reason", "", "why the failure is accepted (required)")
 
-	c.AddCommand(audit, frequency, lots, reconcile, accept, newQAExport(&f), newQAChart(&f))
+	c.AddCommand(audit, findings, frequency, lots, reconcile, accept, newQAExport(&f), newQAChart(&f))
 	return c
 }
 
