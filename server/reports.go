@@ -2,15 +2,19 @@ package server
 
 import (
 	"context"
+	"errors"
 	"math"
 	"strconv"
 	"time"
+
+	"google.golang.org/grpc/codes"
 
 	pb "tamp/internal/gen/tamp/v1"
 	"tamp/internal/ledger"
 	"tamp/internal/qc"
 	"tamp/internal/report"
 	"tamp/internal/soil"
+	"tamp/internal/valid"
 )
 
 // presenter writes a project's figures as its people read them: in the
@@ -164,4 +168,128 @@ func (r *readService) GetRetestAudit(ctx context.Context, req *pb.GetRetestAudit
 		return nil
 	})
 	return resp, err
+}
+
+// ruleWords writes a frequency rule as a QA manager reads it.
+func (pr presenter) ruleWords(r report.Rule) (string, *pb.Measure) {
+	switch r.Kind {
+	case report.VolumeRule:
+		return "one test per " + pr.sys.Show(soil.Volume, r.Per), pr.measure(soil.Volume, r.Quantity)
+	case report.AreaRule:
+		f := pr.sys.FromSI(soil.Length, 1)
+		unit := pr.sys.Unit(soil.Length) + "2"
+		a, q := math.Round(r.Per*f*f), math.Round(r.Quantity*f*f)
+		return "one test per " + formatFixed(a, 0) + " " + unit, &pb.Measure{Value: q, Unit: unit, Text: formatFixed(q, 0) + " " + unit}
+	case report.LengthRule:
+		return "one test per " + pr.sys.Show(soil.Length, r.Per), pr.measure(soil.Length, r.Quantity)
+	}
+	return formatFixed(r.Per, 0) + " tests per lift", nil
+}
+
+// placementWords names a placement: feature and lift.
+func placementWords(pl *ledger.Placement) string {
+	if pl == nil {
+		return ""
+	}
+	return pl.Feature + " lift " + strconv.FormatUint(uint64(pl.LiftNumber), 10)
+}
+
+func specName(p *ledger.Projection, id string) string {
+	if s, ok := p.Spec(id); ok {
+		return s.Name
+	}
+	return id
+}
+
+func (r *readService) GetTestFrequency(ctx context.Context, req *pb.GetTestFrequencyRequest) (*pb.GetTestFrequencyResponse, error) {
+	resp := &pb.GetTestFrequencyResponse{}
+	err := r.view(ctx, req.GetProjectId(), func(p *ledger.Projection) error {
+		pr := presenterOf(p)
+		resp.Units = pr.sys.String()
+		for _, f := range report.TestFrequency(p) {
+			row := &pb.FrequencyRow{PlacementId: f.Placement.ID, Placement: placementWords(f.Placement), SpecId: f.SpecID, Spec: specName(p, f.SpecID),
+				Required: uint32(f.Required), Taken: uint32(f.Taken), Shortfall: uint32(f.Shortfall), Status: "met"}
+			if f.Shortfall > 0 {
+				row.Status = "short"
+			}
+			for _, ru := range f.Rules {
+				words, q := pr.ruleWords(ru)
+				if !ru.Applies {
+					words += ": does not apply, " + ru.Why
+				}
+				row.Rules = append(row.Rules, &pb.FrequencyRule{Rule: words, Quantity: q, Required: uint32(ru.Required)})
+			}
+			resp.Rows = append(resp.Rows, row)
+		}
+		return nil
+	})
+	return resp, err
+}
+
+// acceptanceWords are a lot's acceptance in words.
+var acceptanceWords = map[report.Acceptance]string{report.Accepted: "accepted", report.Rejected: "rejected",
+	report.NoAcceptanceLimit: "no acceptance limit", report.NotEstimated: "not estimated"}
+
+func (r *readService) GetLots(ctx context.Context, req *pb.GetLotsRequest) (*pb.GetLotsResponse, error) {
+	resp := &pb.GetLotsResponse{}
+	scope := report.LotScope{Feature: req.GetFeature(), LiftFrom: req.GetLiftFrom(), LiftTo: req.GetLiftTo(), DayFrom: req.GetDayFrom(), DayTo: req.GetDayTo()}
+	var scopeErr error
+	err := r.view(ctx, req.GetProjectId(), func(p *ledger.Projection) error {
+		pr := presenterOf(p)
+		resp.Units = pr.sys.String()
+		lots, err := report.Lots(p, scope)
+		if err != nil {
+			scopeErr = err
+			return nil
+		}
+		for _, l := range lots {
+			row := &pb.LotRow{Lot: l.Name, SpecId: l.SpecID, Spec: specName(p, l.SpecID), Acceptance: acceptanceWords[l.Acceptance]}
+			if l.Why != "" && l.Acceptance == report.NotEstimated {
+				row.Acceptance += ": " + l.Why
+			}
+			if l.AcceptancePWL > 0 {
+				row.AcceptancePwl = pr.percent(l.AcceptancePWL)
+			}
+			for _, q := range []struct {
+				name string
+				q    *report.Quality
+			}{{"relative compaction", l.Compaction}, {"moisture", l.Moisture}} {
+				if q.q == nil {
+					continue
+				}
+				lq := &pb.LotQuality{Characteristic: q.name, Limits: limitWords(q.q), N: uint32(len(q.q.Values))}
+				if e := q.q.PWL; e != nil {
+					lq.Mean, lq.StdDev, lq.Pwl = pr.percent(e.Mean), pr.percent(e.StdDev), pr.percent(e.PWL)
+				}
+				row.Qualities = append(row.Qualities, lq)
+			}
+			for _, o := range l.LeftOut {
+				row.LeftOut = append(row.LeftOut, &pb.LeftOutTest{TestId: o.TestID, Reason: string(o.Reason), ReasonText: report.ReasonText[o.Reason],
+					ReplacedBy: o.ReplacedBy})
+			}
+			resp.Lots = append(resp.Lots, row)
+		}
+		return nil
+	})
+	if err == nil && scopeErr != nil {
+		var fe *valid.FieldError
+		if errors.As(scopeErr, &fe) {
+			return nil, statusError(codes.InvalidArgument, reasonInvalidArgument, fe.Field, "", fe.Rule)
+		}
+		return nil, statusError(codes.InvalidArgument, reasonInvalidArgument, "", "", scopeErr.Error())
+	}
+	return resp, err
+}
+
+// limitWords writes a quality's limits: "at least 95", "-2 to 2".
+func limitWords(q *report.Quality) string {
+	switch {
+	case q.Lower != nil && q.Upper != nil:
+		return strconv.FormatFloat(*q.Lower, 'f', -1, 64) + " to " + strconv.FormatFloat(*q.Upper, 'f', -1, 64)
+	case q.Lower != nil:
+		return "at least " + strconv.FormatFloat(*q.Lower, 'f', -1, 64)
+	case q.Upper != nil:
+		return "at most " + strconv.FormatFloat(*q.Upper, 'f', -1, 64)
+	}
+	return ""
 }

@@ -17,7 +17,7 @@ func newPlacement() *cobra.Command {
 	c := &cobra.Command{Use: "placement", Short: "Record and list lift placements (office)"}
 	f.register(c)
 
-	var feature, from, to, borrow, placedOn string
+	var feature, from, to, borrow, placedOn, spec string
 	var lift uint32
 	var left, right, area, thickness, volume float64
 	add := &cobra.Command{
@@ -83,6 +83,13 @@ volume reconciliation (tamp qa reconcile).`,
 				}
 				p.BorrowSourceID = b.ID
 			}
+			if spec != "" {
+				sp, err := ss.spec(spec)
+				if err != nil {
+					return err
+				}
+				p.SpecID = sp.ID
+			}
 			id, err := ss.s.RecordPlacement(cmd.Context(), ss.project, p)
 			if err != nil {
 				return entryError(cmd, err)
@@ -104,6 +111,7 @@ volume reconciliation (tamp qa reconcile).`,
 	fl.Float64Var(&volume, "volume", 0, "the compacted volume, yd3 or m3")
 	fl.StringVar(&borrow, "borrow", "", "the borrow source the fill came from, by name")
 	fl.StringVar(&placedOn, "placed-on", "", "the day placed, YYYY-MM-DD (default today)")
+	fl.StringVar(&spec, "spec", "", "the spec the lift is tested against, by name, for its test frequency (tamp qa frequency)")
 
 	var asJSON bool
 	list := &cobra.Command{

@@ -240,7 +240,8 @@ func newSpec() *cobra.Command {
 	f.register(c)
 
 	var name, minRC, window, basis string
-	var suspect, perTest float64
+	var suspect, perTest, areaPer, lengthPer, lotPWL float64
+	var minPerLift uint32
 	add := &cobra.Command{
 		Use:   "add",
 		Short: "Define a specification: minimum relative compaction and moisture window, as written",
@@ -249,8 +250,11 @@ decided on each value rounded to the last place of its limit (AASHTO R 11 /
 ASTM E29), so 94.6 conforms to --min-rc 95 and not to --min-rc 95.0.
 --moisture-window LO,HI is in points of optimum (or percent of optimum with
 --moisture-basis percent); either side may be left empty ("-2," or ",3").
---volume-per-test sets the test frequency: one test per so many yd3 or m3
-of compacted fill. A test is graded against the spec it names, so a later
+--volume-per-test, --area-per-test, --length-per-test and --min-per-lift set
+the test frequency: one test per so many yd3 or m3 of compacted fill, ft2 or
+m2 of lift, ft or m of alignment, and at least so many on every lift; a lift
+needs the most any of them asks. --lot-pwl is the percent within limits a lot
+must reach (tamp qa lots). A test is graded against the spec it names, so a later
 spec never re-grades history. The project's specifications govern.`,
 		Example: `  tamp spec add --name "embankment" --min-rc 95 --moisture-window -2,2 --volume-per-test 500`,
 		Args:    cobra.NoArgs,
@@ -281,6 +285,8 @@ spec never re-grades history. The project's specifications govern.`,
 			if perTest > 0 {
 				sp.VolumePerTest = ss.u.toSI(soil.Volume, perTest)
 			}
+			sp.AreaPerTest, sp.LengthPerTest = ss.u.areaToSI(areaPer), ss.u.toSI(soil.Length, lengthPer)
+			sp.MinTestsPerLift, sp.LotAcceptancePWL = minPerLift, lotPWL
 			if _, err := ss.spec(name); err == nil {
 				return failf("--name %s: the project has a spec of that name already; choose another name", quoted(name))
 			}
@@ -299,6 +305,10 @@ spec never re-grades history. The project's specifications govern.`,
 	fl.StringVar(&basis, "moisture-basis", "points", "points (of optimum) or percent (of optimum)")
 	fl.Float64Var(&suspect, "suspect-rc", 0, "flag relative compaction above this percent (default 105)")
 	fl.Float64Var(&perTest, "volume-per-test", 0, "one test required per this compacted volume, yd3 or m3")
+	fl.Float64Var(&areaPer, "area-per-test", 0, "one test required per this area of lift, ft2 or m2")
+	fl.Float64Var(&lengthPer, "length-per-test", 0, "one test required per this length of alignment, ft or m")
+	fl.Uint32Var(&minPerLift, "min-per-lift", 0, "at least this many tests on every lift")
+	fl.Float64Var(&lotPWL, "lot-pwl", 0, "percent within limits a lot must reach, e.g. 90")
 
 	var asJSON bool
 	list := &cobra.Command{
