@@ -200,7 +200,12 @@ func (d *demoDay) setUp(ctx context.Context) error {
 	}
 	d.clock.at(6, 25)
 	if err := d.admin.store.SetUpProject(ctx, d.project, client.ProjectSetUp{Name: demoProjectName, Units: client.USCustomary,
-		WaterDensity: demoPcf(62.4), Shrinkage: client.BankBasis, ClockSkewLimit: 5 * time.Minute, TimeZone: demoZone}); err != nil {
+		WaterDensity: demoPcf(62.4), Shrinkage: client.BankBasis, ClockSkewLimit: 5 * time.Minute, TimeZone: demoZone,
+		// The embankment as designed (invented figures): each zone is fed
+		// from the one borrow area its lifts come from.
+		Features: []client.FeatureDesign{{Feature: "Zone 1 core", DesignVolume: demoYd3(38500), DesignShrinkagePercent: 10},
+			{Feature: "Zone 2 shell, upstream", DesignVolume: demoYd3(52000), DesignShrinkagePercent: 8},
+			{Feature: "Zone 2 shell, downstream", DesignVolume: demoYd3(47000), DesignShrinkagePercent: 8}}}); err != nil {
 		return err
 	}
 	if _, err := d.sync(ctx, d.admin); err != nil {

@@ -280,7 +280,7 @@ func (d *demoDay) qaReports(context.Context) error {
 	t.flush()
 	p.f("\n")
 
-	p.f("Test frequency: original tests against each lift's specification (retests do not count)\n")
+	p.f("Test frequency: final tests against each lift's specification (a reworked failure counts once, through its retest; voided and returned tests do not count)\n")
 	t = newDemoTable(p, "LIFT", "SPECIFICATION", "COMPACTED VOLUME", "TESTS", "REQUIRED", "FREQUENCY")
 	for _, f := range qa.Frequency(project) {
 		state := "met"

@@ -148,6 +148,9 @@ func (d *demoDay) summarize(ctx context.Context) (*demoSummary, error) {
 	vol := func(v float64) num { return some(demoUnits.FromSI(soil.Volume, v), demoUnits.Places(soil.Volume)) }
 	den := func(v float64) num { return some(demoUnits.FromSI(soil.Density, v), demoUnits.Places(soil.Density)) }
 	for _, b := range bal {
+		if b.Scope != client.BorrowSourceScope {
+			continue
+		}
 		s.Reconciliation = append(s.Reconciliation, demoBalanceOut{Source: b.BorrowSource, CompactedVolume: vol(b.CompactedVolume),
 			CompactedDryDensity: den(b.FillDryDensity), Tests: b.Tests, BankDryDensity: den(b.BankDryDensity), BankVolume: vol(b.BankVolume),
 			ShrinkagePercent: some(b.ShrinkagePercent, 1), LooseHauled: vol(b.LooseHauled), LooseExpected: vol(b.LooseExpected)})
@@ -196,7 +199,7 @@ func (d *demoDay) keep(ctx context.Context, sum *demoSummary) (*demoKeptOut, err
 		return nil, err
 	}
 
-	if err := d.writeOutputs(dir, kept); err != nil {
+	if err := d.writeOutputs(ctx, dir, kept); err != nil {
 		return nil, err
 	}
 
@@ -256,7 +259,7 @@ func demoCopyFile(from, to string) error {
 // a moisture-density chart per laboratory reference and a run chart per
 // specification, as SVG and PNG. Each file is written whole under a
 // temporary name and renamed into place.
-func (d *demoDay) writeOutputs(dir string, kept *demoKeptOut) error {
+func (d *demoDay) writeOutputs(ctx context.Context, dir string, kept *demoKeptOut) error {
 	st := d.office.store
 	tests := st.Tests(d.project)
 	sys := demoUnits
@@ -298,12 +301,16 @@ func (d *demoDay) writeOutputs(dir string, kept *demoKeptOut) error {
 	if err != nil {
 		return err
 	}
+	findings, err := st.AuditFindings(ctx, d.project)
+	if err != nil {
+		return err
+	}
 	for _, r := range []struct {
 		name string
 		v    any
 	}{
 		{"review_queue", st.ReviewQueue(d.project, "")}, {"retest_audit", st.RetestAudit(d.project)},
-		{"frequency", st.Frequency(d.project)}, {"lots", lots}, {"reconciliation", balances},
+		{"audit_findings", findings}, {"frequency", st.Frequency(d.project)}, {"lots", lots}, {"reconciliation", balances},
 	} {
 		if err := write(r.name+".json", func(w io.Writer) error { return exports.ReportJSON(w, r.name, r.v) }); err != nil {
 			return err

@@ -372,7 +372,126 @@ convention), sync it, and remember the project for later commands.
 			return err
 		},
 	}
-	c.AddCommand(create, list, use)
+	c.AddCommand(create, list, use, newProjectDesign(&f), newProjectRetestRules(&f))
+	return c
+}
+
+// newProjectDesign records a feature's design in the project's set-up.
+func newProjectDesign(f *projectFlags) *cobra.Command {
+	var feature, borrow string
+	var volume, shrinkage float64
+	var remove bool
+	c := &cobra.Command{
+		Use:   "design",
+		Short: "Record a feature's design volume and planned borrow source, for the bank volume still needed (administrators)",
+		Long: `Record, in a new set-up entry, an earthwork feature as designed: its compacted
+--volume (yd3 or m3), the --borrow source planned to supply the rest of it,
+and the --shrinkage the design assumed (percent, under the project's
+convention). tamp qa reconcile then gives the bank volume still needed for
+the remaining design volume, with its range. Giving a feature again replaces
+its design; --remove takes it out.`,
+		Example: `  tamp project design --feature "main embankment" --volume 48000 --borrow "Quarry Hill pit" --shrinkage 12`,
+		Args:    cobra.NoArgs,
+		RunE: func(cmd *cobra.Command, _ []string) error {
+			ss, err := f.open(cmd.Context())
+			if err != nil {
+				return err
+			}
+			defer ss.close()
+			if strings.TrimSpace(feature) == "" {
+				return failf("--feature: name the feature as placements and tests name it")
+			}
+			su, ok := ss.s.SetUp(ss.project)
+			if !ok {
+				return failf("the project's set-up has not reached this device; run tamp sync first")
+			}
+			var kept []client.FeatureDesign
+			for _, d := range su.Features {
+				if d.Feature != feature {
+					kept = append(kept, d)
+				}
+			}
+			su.Features = kept
+			if !remove {
+				if volume <= 0 {
+					return failf("--volume: give the feature's design volume, compacted, in %s (more than zero)", ss.u.unit(soil.Volume))
+				}
+				d := client.FeatureDesign{Feature: feature, DesignVolume: ss.u.toSI(soil.Volume, volume), DesignShrinkagePercent: shrinkage}
+				if borrow != "" {
+					b, err := ss.borrow(borrow)
+					if err != nil {
+						return err
+					}
+					d.BorrowSourceID = b.ID
+				}
+				su.Features = append(su.Features, d)
+			}
+			if err := ss.s.SetUpProject(cmd.Context(), ss.project, su); err != nil {
+				return entryError(cmd, err)
+			}
+			what := fmt.Sprintf("feature %s designed at %s compacted", quoted(feature), ss.u.show(soil.Volume, volume))
+			if remove {
+				what = fmt.Sprintf("feature %s's design removed", quoted(feature))
+			}
+			_, err = fmt.Fprintf(cmd.OutOrStdout(), "%s; the set-up reaches the server with the next tamp sync\n", what)
+			return err
+		},
+	}
+	fl := c.Flags()
+	fl.StringVar(&feature, "feature", "", "the feature, as placements and tests name it")
+	fl.Float64Var(&volume, "volume", 0, "the design's compacted volume, yd3 or m3")
+	fl.StringVar(&borrow, "borrow", "", "the borrow source planned to supply the rest, by name")
+	fl.Float64Var(&shrinkage, "shrinkage", 0, "the shrinkage the design assumed, percent, under the project's convention")
+	fl.BoolVar(&remove, "remove", false, "take the feature's design out")
+	return c
+}
+
+// newProjectRetestRules records the retest audit's window and distance in
+// the project's set-up.
+func newProjectRetestRules(f *projectFlags) *cobra.Command {
+	var within time.Duration
+	var distance float64
+	c := &cobra.Command{
+		Use:   "retest-rules",
+		Short: "Set the time within which a failure must be retested and how far a retest may be from it (administrators)",
+		Long: `Record, in a new set-up entry, the retest audit's rules (tamp qa findings): a
+failing test not retested, voided or accepted within --within is reported
+(48h unless set), and so is a retest farther than --distance (ft or m; 10 m
+unless set) from its failure. Follow the project's specification.`,
+		Example: `  tamp project retest-rules --within 24h --distance 25`,
+		Args:    cobra.NoArgs,
+		RunE: func(cmd *cobra.Command, _ []string) error {
+			ss, err := f.open(cmd.Context())
+			if err != nil {
+				return err
+			}
+			defer ss.close()
+			set := cmd.Flags().Changed
+			if !set("within") && !set("distance") {
+				return failf("--within, --distance: give at least one")
+			}
+			if within < 0 || distance < 0 {
+				return failf("--within, --distance: must not be negative")
+			}
+			su, ok := ss.s.SetUp(ss.project)
+			if !ok {
+				return failf("the project's set-up has not reached this device; run tamp sync first")
+			}
+			if set("within") {
+				su.RetestWithin = within
+			}
+			if set("distance") {
+				su.RetestDistance = ss.u.toSI(soil.Length, distance)
+			}
+			if err := ss.s.SetUpProject(cmd.Context(), ss.project, su); err != nil {
+				return entryError(cmd, err)
+			}
+			_, err = fmt.Fprintf(cmd.OutOrStdout(), "retest rules set; the set-up reaches the server with the next tamp sync\n")
+			return err
+		},
+	}
+	c.Flags().DurationVar(&within, "within", 0, "time within which a failing test must be retested, e.g. 48h")
+	c.Flags().Float64Var(&distance, "distance", 0, "largest distance between a failure and its retest, ft or m")
 	return c
 }
 
