@@ -49,8 +49,11 @@ func (r *readService) view(ctx context.Context, project string, fn func(*ledger.
 func (r *readService) ListReviewQueue(ctx context.Context, req *pb.ListReviewQueueRequest) (*pb.ListReviewQueueResponse, error) {
 	resp := &pb.ListReviewQueueResponse{}
 	err := r.view(ctx, req.GetProjectId(), func(p *ledger.Projection) error {
+		pr := presenterOf(p)
+		resp.Units = pr.sys.String()
 		for _, t := range report.ReviewQueue(p, req.GetDay()) {
 			resp.Tests = append(resp.Tests, summary(t))
+			resp.Lines = append(resp.Lines, pr.line(t))
 		}
 		return nil
 	})

@@ -80,6 +80,20 @@ func TestReportsRoundedInProjectUnits(t *testing.T) {
 		}
 	}
 
+	queue, err := rs.ListReviewQueue(rctx, &pb.ListReviewQueueRequest{ProjectId: project})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if queue.GetUnits() != "us" || len(queue.GetLines()) != 5 || len(queue.GetLines()) != len(queue.GetTests()) {
+		t.Fatalf("review queue: %d lines in %q for %d tests, want 5 in us", len(queue.GetLines()), queue.GetUnits(), len(queue.GetTests()))
+	}
+	for _, l := range queue.GetLines() {
+		rounded("queued dry density", l.GetDryDensity(), 1, "pcf")
+		if l.GetVerdict() != "pass" && l.GetVerdict() != "fail" {
+			t.Errorf("verdict %q, want a word", l.GetVerdict())
+		}
+	}
+
 	audit, err := rs.GetRetestAudit(rctx, &pb.GetRetestAuditRequest{ProjectId: project})
 	if err != nil {
 		t.Fatal(err)

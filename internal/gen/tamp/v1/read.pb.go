@@ -1841,8 +1841,12 @@ func (x *ListReviewQueueRequest) GetDay() string {
 // ListReviewQueueResponse is the review queue.
 type ListReviewQueueResponse struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
-	// Tests awaiting review, oldest first.
-	Tests         []*TestSummary `protobuf:"bytes,1,rep,name=tests,proto3" json:"tests,omitempty"`
+	// Tests awaiting review, oldest first, in SI.
+	Tests []*TestSummary `protobuf:"bytes,1,rep,name=tests,proto3" json:"tests,omitempty"`
+	// The same tests as a report lists them, rounded in the project's units.
+	Lines []*TestLine `protobuf:"bytes,2,rep,name=lines,proto3" json:"lines,omitempty"`
+	// The unit system of lines: "us" or "si".
+	Units         string `protobuf:"bytes,3,opt,name=units,proto3" json:"units,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -1882,6 +1886,20 @@ func (x *ListReviewQueueResponse) GetTests() []*TestSummary {
 		return x.Tests
 	}
 	return nil
+}
+
+func (x *ListReviewQueueResponse) GetLines() []*TestLine {
+	if x != nil {
+		return x.Lines
+	}
+	return nil
+}
+
+func (x *ListReviewQueueResponse) GetUnits() string {
+	if x != nil {
+		return x.Units
+	}
+	return ""
 }
 
 // AuditRetestsRequest asks for the retest audit.
@@ -2481,9 +2499,11 @@ const file_tamp_v1_read_proto_rawDesc = "" +
 	"\x16ListReviewQueueRequest\x12\x1d\n" +
 	"\n" +
 	"project_id\x18\x01 \x01(\tR\tprojectId\x12\x10\n" +
-	"\x03day\x18\x02 \x01(\tR\x03day\"E\n" +
+	"\x03day\x18\x02 \x01(\tR\x03day\"\x84\x01\n" +
 	"\x17ListReviewQueueResponse\x12*\n" +
-	"\x05tests\x18\x01 \x03(\v2\x14.tamp.v1.TestSummaryR\x05tests\"4\n" +
+	"\x05tests\x18\x01 \x03(\v2\x14.tamp.v1.TestSummaryR\x05tests\x12'\n" +
+	"\x05lines\x18\x02 \x03(\v2\x11.tamp.v1.TestLineR\x05lines\x12\x14\n" +
+	"\x05units\x18\x03 \x01(\tR\x05units\"4\n" +
 	"\x13AuditRetestsRequest\x12\x1d\n" +
 	"\n" +
 	"project_id\x18\x01 \x01(\tR\tprojectId\"\x83\x01\n" +
@@ -2619,33 +2639,34 @@ var file_tamp_v1_read_proto_depIdxs = []int32{
 	34, // 38: tamp.v1.TestSummary.results:type_name -> tamp.v1.Results
 	32, // 39: tamp.v1.TestSummary.review_flags:type_name -> tamp.v1.Finding
 	20, // 40: tamp.v1.ListReviewQueueResponse.tests:type_name -> tamp.v1.TestSummary
-	20, // 41: tamp.v1.RetestChain.failed:type_name -> tamp.v1.TestSummary
-	20, // 42: tamp.v1.RetestChain.retests:type_name -> tamp.v1.TestSummary
-	24, // 43: tamp.v1.AuditRetestsResponse.chains:type_name -> tamp.v1.RetestChain
-	27, // 44: tamp.v1.ReconcileVolumesResponse.balances:type_name -> tamp.v1.VolumeBalance
-	35, // 45: tamp.v1.ExportLedgerResponse.entries:type_name -> tamp.v1.LedgerEntry
-	31, // 46: tamp.v1.ExportLedgerResponse.device_keys:type_name -> tamp.v1.ExportLedgerResponse.DeviceKeysEntry
-	21, // 47: tamp.v1.LedgerReadService.ListReviewQueue:input_type -> tamp.v1.ListReviewQueueRequest
-	23, // 48: tamp.v1.LedgerReadService.AuditRetests:input_type -> tamp.v1.AuditRetestsRequest
-	26, // 49: tamp.v1.LedgerReadService.ReconcileVolumes:input_type -> tamp.v1.ReconcileVolumesRequest
-	29, // 50: tamp.v1.LedgerReadService.ExportLedger:input_type -> tamp.v1.ExportLedgerRequest
-	2,  // 51: tamp.v1.LedgerReadService.GetRetestAudit:input_type -> tamp.v1.GetRetestAuditRequest
-	6,  // 52: tamp.v1.LedgerReadService.GetTestFrequency:input_type -> tamp.v1.GetTestFrequencyRequest
-	10, // 53: tamp.v1.LedgerReadService.GetLots:input_type -> tamp.v1.GetLotsRequest
-	15, // 54: tamp.v1.LedgerReadService.GetReconciliation:input_type -> tamp.v1.GetReconciliationRequest
-	22, // 55: tamp.v1.LedgerReadService.ListReviewQueue:output_type -> tamp.v1.ListReviewQueueResponse
-	25, // 56: tamp.v1.LedgerReadService.AuditRetests:output_type -> tamp.v1.AuditRetestsResponse
-	28, // 57: tamp.v1.LedgerReadService.ReconcileVolumes:output_type -> tamp.v1.ReconcileVolumesResponse
-	30, // 58: tamp.v1.LedgerReadService.ExportLedger:output_type -> tamp.v1.ExportLedgerResponse
-	5,  // 59: tamp.v1.LedgerReadService.GetRetestAudit:output_type -> tamp.v1.GetRetestAuditResponse
-	9,  // 60: tamp.v1.LedgerReadService.GetTestFrequency:output_type -> tamp.v1.GetTestFrequencyResponse
-	14, // 61: tamp.v1.LedgerReadService.GetLots:output_type -> tamp.v1.GetLotsResponse
-	19, // 62: tamp.v1.LedgerReadService.GetReconciliation:output_type -> tamp.v1.GetReconciliationResponse
-	55, // [55:63] is the sub-list for method output_type
-	47, // [47:55] is the sub-list for method input_type
-	47, // [47:47] is the sub-list for extension type_name
-	47, // [47:47] is the sub-list for extension extendee
-	0,  // [0:47] is the sub-list for field type_name
+	1,  // 41: tamp.v1.ListReviewQueueResponse.lines:type_name -> tamp.v1.TestLine
+	20, // 42: tamp.v1.RetestChain.failed:type_name -> tamp.v1.TestSummary
+	20, // 43: tamp.v1.RetestChain.retests:type_name -> tamp.v1.TestSummary
+	24, // 44: tamp.v1.AuditRetestsResponse.chains:type_name -> tamp.v1.RetestChain
+	27, // 45: tamp.v1.ReconcileVolumesResponse.balances:type_name -> tamp.v1.VolumeBalance
+	35, // 46: tamp.v1.ExportLedgerResponse.entries:type_name -> tamp.v1.LedgerEntry
+	31, // 47: tamp.v1.ExportLedgerResponse.device_keys:type_name -> tamp.v1.ExportLedgerResponse.DeviceKeysEntry
+	21, // 48: tamp.v1.LedgerReadService.ListReviewQueue:input_type -> tamp.v1.ListReviewQueueRequest
+	23, // 49: tamp.v1.LedgerReadService.AuditRetests:input_type -> tamp.v1.AuditRetestsRequest
+	26, // 50: tamp.v1.LedgerReadService.ReconcileVolumes:input_type -> tamp.v1.ReconcileVolumesRequest
+	29, // 51: tamp.v1.LedgerReadService.ExportLedger:input_type -> tamp.v1.ExportLedgerRequest
+	2,  // 52: tamp.v1.LedgerReadService.GetRetestAudit:input_type -> tamp.v1.GetRetestAuditRequest
+	6,  // 53: tamp.v1.LedgerReadService.GetTestFrequency:input_type -> tamp.v1.GetTestFrequencyRequest
+	10, // 54: tamp.v1.LedgerReadService.GetLots:input_type -> tamp.v1.GetLotsRequest
+	15, // 55: tamp.v1.LedgerReadService.GetReconciliation:input_type -> tamp.v1.GetReconciliationRequest
+	22, // 56: tamp.v1.LedgerReadService.ListReviewQueue:output_type -> tamp.v1.ListReviewQueueResponse
+	25, // 57: tamp.v1.LedgerReadService.AuditRetests:output_type -> tamp.v1.AuditRetestsResponse
+	28, // 58: tamp.v1.LedgerReadService.ReconcileVolumes:output_type -> tamp.v1.ReconcileVolumesResponse
+	30, // 59: tamp.v1.LedgerReadService.ExportLedger:output_type -> tamp.v1.ExportLedgerResponse
+	5,  // 60: tamp.v1.LedgerReadService.GetRetestAudit:output_type -> tamp.v1.GetRetestAuditResponse
+	9,  // 61: tamp.v1.LedgerReadService.GetTestFrequency:output_type -> tamp.v1.GetTestFrequencyResponse
+	14, // 62: tamp.v1.LedgerReadService.GetLots:output_type -> tamp.v1.GetLotsResponse
+	19, // 63: tamp.v1.LedgerReadService.GetReconciliation:output_type -> tamp.v1.GetReconciliationResponse
+	56, // [56:64] is the sub-list for method output_type
+	48, // [48:56] is the sub-list for method input_type
+	48, // [48:48] is the sub-list for extension type_name
+	48, // [48:48] is the sub-list for extension extendee
+	0,  // [0:48] is the sub-list for field type_name
 }
 
 func init() { file_tamp_v1_read_proto_init() }
