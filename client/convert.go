@@ -406,18 +406,54 @@ func chainOf(p *ledger.Projection, c report.Chain) RetestChain {
 }
 
 func frequencyOf(f report.Frequency) Frequency {
-	return Frequency{Placement: placementOf(f.Placement), SpecID: f.SpecID, Tests: f.Taken, Required: f.Required, Shortfall: f.Shortfall}
+	out := Frequency{Placement: placementOf(f.Placement), SpecID: f.SpecID, Rules: make([]FrequencyRule, 0, len(f.Rules)),
+		Required: f.Required, Taken: f.Taken, Shortfall: f.Shortfall, Tests: f.Taken}
+	for _, r := range f.Rules {
+		out.Rules = append(out.Rules, FrequencyRule{Kind: FrequencyRuleKind(r.Kind), Per: r.Per, Quantity: r.Quantity, Required: r.Required,
+			Applies: r.Applies, Why: r.Why})
+	}
+	return out
 }
 
+// lotOf converts a lot; p gives its spec's moisture basis.
 func lotOf(p *ledger.Projection, l report.Lot) Lot {
-	c := l.Compaction
-	out := Lot{Placement: placementOf(l.Placement), SpecID: l.SpecID, Values: slices.Clone(c.Values), N: c.PWL.N, Mean: c.PWL.Mean,
-		StdDev: c.PWL.StdDev, QualityIndex: c.PWL.QualityLower, PWL: c.PWL.PWL, LeftOut: []LeftOutTest{}}
-	for _, o := range l.LeftOut {
-		out.LeftOut = append(out.LeftOut, LeftOutTest{TestID: o.TestID, Reason: string(o.Reason), ReplacedBy: o.ReplacedBy})
+	out := Lot{Name: l.Name, Feature: l.Feature, SpecID: l.SpecID, TestIDs: make([]string, 0, len(l.Tests)), Values: []float64{},
+		Acceptance: LotAcceptance(l.Acceptance), AcceptancePWL: l.AcceptancePWL, Why: l.Why, LeftOut: make([]LeftOutTest, 0, len(l.LeftOut))}
+	if l.Placement != nil {
+		out.Placement = placementOf(l.Placement)
 	}
-	if sp, ok := p.Spec(l.SpecID); ok && sp.QC().MinCompaction != nil {
-		out.LowerLimit = sp.QC().MinCompaction.Value
+	for _, t := range l.Tests {
+		out.TestIDs = append(out.TestIDs, t.ID)
+	}
+	if c := l.Compaction; c != nil {
+		out.Values = append(out.Values, c.Values...)
+		if c.Lower != nil {
+			out.LowerLimit = *c.Lower
+		}
+		if e := c.PWL; e != nil {
+			out.N, out.Mean, out.StdDev, out.QualityIndex, out.PWL = e.N, e.Mean, e.StdDev, e.QualityLower, e.PWL
+		}
+	}
+	if m := l.Moisture; m != nil {
+		copyOf := func(v *float64) *float64 {
+			if v == nil {
+				return nil
+			}
+			c := *v
+			return &c
+		}
+		q := &MoistureQuality{Basis: PointsOfOptimum, Values: append([]float64{}, m.Values...), Lower: copyOf(m.Lower), Upper: copyOf(m.Upper)}
+		if sp, ok := p.Spec(l.SpecID); ok {
+			q.Basis = basisOf(sp.MoistureBasis)
+		}
+		if e := m.PWL; e != nil {
+			q.N, q.Mean, q.StdDev, q.PWL = e.N, e.Mean, e.StdDev, e.PWL
+		}
+		out.Moisture = q
+	}
+	for _, o := range l.LeftOut {
+		out.LeftOut = append(out.LeftOut, LeftOutTest{TestID: o.TestID, Reason: string(o.Reason), ReasonText: report.ReasonText[o.Reason],
+			ReplacedBy: o.ReplacedBy})
 	}
 	return out
 }

@@ -2,9 +2,11 @@ package client
 
 import (
 	"context"
+	"errors"
 	"fmt"
 
 	"tamp/internal/report"
+	"tamp/internal/valid"
 )
 
 // The reports of the read side, computed from this device's own copy of
@@ -37,9 +39,16 @@ func (s *Store) RetestAudit(project string) []RetestChain {
 	return out
 }
 
-// Frequency compares, for every placement whose tests name a spec with a
-// required volume per test, the tests taken with the tests the spec asks
-// for. Retests do not count.
+// Frequency compares, for every placement and every spec that applies to
+// it (the placement's own spec, and every spec a test on it names), the
+// final tests taken with the most any of the spec's frequency rules asks:
+// one test per so much compacted volume, plan area or length, and at least
+// so many on every lift. A rule whose quantity the placement does not
+// record is listed as not applying, with why. Final tests count: a failure
+// replaced by a passing retest counts once, through the retest; a voided
+// test, one the office returned and one not graded do not count. A spec
+// that sets no frequency rule, or that has not reached this device, is left
+// out. Sorted by placement, then spec.
 func (s *Store) Frequency(project string) []Frequency {
 	s.mu.Lock()
 	defer s.mu.Unlock()
@@ -50,24 +59,41 @@ func (s *Store) Frequency(project string) []Frequency {
 	return out
 }
 
-// Lots estimates, for every placement with at least three final graded
-// tests against one spec with a minimum relative compaction, the percent of
-// the lot within the minimum. A failure replaced by a retest, a test the
-// office returned and a voided test are not final: each lot lists them in
-// LeftOut with the reason.
-func (s *Store) Lots(project string) ([]Lot, error) {
+// Lots estimates, for each lot of the scope, the percent within limits of
+// its final tests' relative compaction against the spec's minimum and,
+// when the spec sets a moisture window, of their moisture against it
+// (AASHTO R 9, beta-distribution estimator), and judges the lot against the
+// spec's LotAcceptancePWL. The zero scope makes one lot per lift and spec;
+// a scope with a feature, one lot per spec of that feature's tests within
+// its lifts and days. A failure replaced by a retest, a test the office
+// returned, a voided test and one not graded are not final: each lot lists
+// them in LeftOut with the reason. A lot with fewer than three final
+// results is listed without an estimate, saying why. A test that names no
+// spec is in no lot; in the zero scope, neither is one that names no
+// placement this device holds. Sorted by placement, then spec.
+//
+// A scope that breaks a rule (bounds without a feature, a first lift above
+// the last, a day not written YYYY-MM-DD or after the last) returns an
+// *EntryError (errors.Is ErrInvalid) whose Field names the scope's field
+// (lift_from, day_to...).
+func (s *Store) Lots(project string, scope LotScope) ([]Lot, error) {
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	v := s.view(project)
-	lots, err := report.Lots(v, report.LotScope{})
+	lots, err := report.Lots(v, report.LotScope(scope))
 	if err != nil {
+		var fe *valid.FieldError
+		if errors.As(err, &fe) {
+			msg := fe.Rule
+			if fe.Value != "" {
+				msg = fe.Value + " " + fe.Rule
+			}
+			return nil, invalid(fe.Field, msg)
+		}
 		return nil, fmt.Errorf("client: lots: %w", err)
 	}
-	var out []Lot
+	out := make([]Lot, 0, len(lots))
 	for _, l := range lots {
-		if l.Compaction == nil || l.Compaction.PWL == nil {
-			continue // no estimate of relative compaction: not shown here yet
-		}
 		out = append(out, lotOf(v, l))
 	}
 	return out, nil

@@ -246,37 +246,155 @@ type RetestChain struct {
 	StationShift float64 `json:"station_shift"`
 }
 
-// Frequency is the test count of one placement against its spec.
+// FrequencyRuleKind names a spec's test frequency rule.
+type FrequencyRuleKind string
+
+// The frequency rules a spec can set (Spec.VolumePerTest, AreaPerTest,
+// LengthPerTest and MinTestsPerLift).
+const (
+	PerVolume FrequencyRuleKind = "volume"   // one test per so many m3 of compacted fill
+	PerArea   FrequencyRuleKind = "area"     // one test per so many m2 of the lift's plan area
+	PerLength FrequencyRuleKind = "length"   // one test per so many m along the alignment
+	PerLift   FrequencyRuleKind = "per_lift" // at least so many tests on every lift
+)
+
+// FrequencyRule is one of a spec's frequency rules applied to one lift.
+type FrequencyRule struct {
+	Kind FrequencyRuleKind `json:"kind"`
+	// Per is the spec's quantity per test: m3, m2 or m; for PerLift, the
+	// number of tests each lift needs.
+	Per float64 `json:"per"`
+	// Quantity is the lift's compacted volume (m3), plan area (m2, recorded
+	// or from its stations and offsets) or length along the alignment (m);
+	// 1, the lift, for PerLift; zero when the placement does not record it.
+	Quantity float64 `json:"quantity"`
+	// Required is Quantity / Per rounded up, or Per for PerLift; zero when
+	// the rule does not apply.
+	Required int `json:"required"`
+	// Applies is false when the lift's quantity is not recorded; Why then
+	// says what is missing.
+	Applies bool   `json:"applies"`
+	Why     string `json:"why"`
+}
+
+// Frequency is the test count of one placement against one spec.
 type Frequency struct {
 	Placement Placement `json:"placement"`
 	SpecID    string    `json:"spec_id"`
-	Tests     int       `json:"tests"`     // graded, not voided, not retests
-	Required  int       `json:"required"`  // ceil(compacted volume / volume per test)
-	Shortfall int       `json:"shortfall"` // Required - Tests when positive
+	// Rules are the spec's frequency rules in the order volume, area,
+	// length, per lift: only those the spec sets, applied or not.
+	Rules []FrequencyRule `json:"rules"`
+	// Required is the most any applying rule asks. Taken counts the final
+	// tests of the placement against the spec: a failure replaced by a
+	// passing retest counts once, through the retest; a voided test, one
+	// the office returned and one not graded do not count. Shortfall is
+	// Required - Taken when positive, else zero.
+	Required  int `json:"required"`
+	Taken     int `json:"taken"`
+	Shortfall int `json:"shortfall"`
+	// Deprecated: Tests is Taken, kept for apps that read "tests".
+	Tests int `json:"tests"`
 }
 
-// Lot is the statistical acceptance of the graded original tests of one
-// placement against one spec's minimum relative compaction, by percent
-// within limits.
+// LotScope says what makes a lot. The zero scope makes one lot per lift:
+// per placement and spec. With Feature set, one lot per spec of the tests
+// of that feature within the bounds, each of which is unbounded when zero:
+// lifts LiftFrom to LiftTo and days DayFrom to DayTo (YYYY-MM-DD in the
+// project's time zone), inclusive. A test belongs to a feature and a lift
+// by its placement's, or by its own feature and lift when it names no
+// placement this device holds; with a lift bound set, a test of no lift is
+// out.
+type LotScope struct {
+	Feature  string `json:"feature"`
+	LiftFrom uint32 `json:"lift_from"`
+	LiftTo   uint32 `json:"lift_to"`
+	DayFrom  string `json:"day_from"`
+	DayTo    string `json:"day_to"`
+}
+
+// LotAcceptance is a lot's outcome against its spec's LotAcceptancePWL.
+type LotAcceptance string
+
+// The outcomes of a lot.
+const (
+	// LotAccepted: every characteristic's PWL reaches the spec's limit.
+	LotAccepted LotAcceptance = "accepted"
+	// LotRejected: a characteristic's PWL falls below it; Lot.Why says
+	// which.
+	LotRejected LotAcceptance = "rejected"
+	// LotNoAcceptanceLimit: the spec sets no LotAcceptancePWL; the
+	// estimate, if any, is for information.
+	LotNoAcceptanceLimit LotAcceptance = "no_acceptance_limit"
+	// LotNotEstimated: the spec sets a limit but the lot has no estimate
+	// (too few final results, nothing to estimate, or its spec has not
+	// reached this device); Lot.Why says why.
+	LotNotEstimated LotAcceptance = "not_estimated"
+)
+
+// Lot is the statistical acceptance, by percent within limits (AASHTO R 9,
+// beta-distribution estimator), of the final tests of one lot against one
+// spec: relative compaction against the spec's minimum and, when the spec
+// sets a moisture window, moisture against it.
 type Lot struct {
+	// Name says the lot in words: "embankment lift 3", "embankment lifts
+	// 2–5, 2026-07-01 to 2026-07-07".
+	Name    string `json:"name"`
+	Feature string `json:"feature"`
+	// Placement is the lift of a one-lift lot; zero (empty ID) for a lot
+	// of a feature scope.
 	Placement Placement `json:"placement"`
 	SpecID    string    `json:"spec_id"`
-	Values    []float64 `json:"values"` // relative compaction of each test, percent
-	N         int       `json:"n"`
-	Mean      float64   `json:"mean"`
-	StdDev    float64   `json:"std_dev"` // sample standard deviation (n - 1)
-	// LowerLimit is the spec's minimum relative compaction; QualityIndex is
-	// (Mean - LowerLimit) / StdDev, and PWL the estimated percent of the
-	// lot at or above the limit.
-	LowerLimit   float64 `json:"lower_limit"`
-	QualityIndex float64 `json:"quality_index"`
-	PWL          float64 `json:"pwl"`
-	// LeftOut are the placement's tests against the spec that are not
-	// final, oldest first: a lot holds final tests only.
+	// TestIDs are the lot's final tests, oldest first.
+	TestIDs []string `json:"test_ids"`
+
+	// Relative compaction. Values are the final tests' relative compaction,
+	// percent, in the order of TestIDs; empty when the spec sets no
+	// minimum, which LowerLimit is. N, Mean, StdDev (n - 1), QualityIndex
+	// ((Mean - LowerLimit) / StdDev) and PWL are the estimate; N is zero
+	// when there is none (Why says why).
+	Values       []float64 `json:"values"`
+	LowerLimit   float64   `json:"lower_limit"`
+	N            int       `json:"n"`
+	Mean         float64   `json:"mean"`
+	StdDev       float64   `json:"std_dev"`
+	QualityIndex float64   `json:"quality_index"`
+	PWL          float64   `json:"pwl"`
+
+	// Moisture is against the spec's moisture window; nil when the spec
+	// sets none.
+	Moisture *MoistureQuality `json:"moisture,omitempty"`
+
+	// Acceptance is the outcome against AcceptancePWL, the spec's
+	// LotAcceptancePWL (zero for none).
+	Acceptance    LotAcceptance `json:"acceptance"`
+	AcceptancePWL float64       `json:"acceptance_pwl"`
+	// Why says why the lot has no estimate, or why it was rejected.
+	Why string `json:"why"`
+	// LeftOut are the lot's tests that are not final, oldest first: a lot
+	// holds final tests only.
 	LeftOut []LeftOutTest `json:"left_out"`
 }
 
-// Why a test is left out of its lot.
+// MoistureQuality is a lot's moisture against its spec's window.
+type MoistureQuality struct {
+	// Basis is the spec's: Values are w - w_opt in percentage points
+	// (PointsOfOptimum) or w / w_opt x 100 (PercentOfOptimum), in the order
+	// of Lot.TestIDs.
+	Basis  MoistureBasis `json:"basis"`
+	Values []float64     `json:"values"`
+	// Lower and Upper are the window's limits; nil for an open side.
+	Lower *float64 `json:"lower"`
+	Upper *float64 `json:"upper"`
+	// N, Mean, StdDev (n - 1) and PWL, within both limits, are the
+	// estimate; N is zero when there is none (Lot.Why says why).
+	N      int     `json:"n"`
+	Mean   float64 `json:"mean"`
+	StdDev float64 `json:"std_dev"`
+	PWL    float64 `json:"pwl"`
+}
+
+// Why a test is not final: why a lot, the frequency count and the
+// reconciliation leave it out.
 const (
 	// LeftOutReworked: the test failed and a retest that counts (graded,
 	// neither voided nor returned) replaced it.
@@ -285,12 +403,16 @@ const (
 	LeftOutReturned = "returned_by_office"
 	// LeftOutVoided: the test was voided.
 	LeftOutVoided = "voided"
+	// LeftOutNotGraded: the test's verdict is pending (a record it names
+	// has not reached this device, or its readings could not be graded).
+	LeftOutNotGraded = "not_graded"
 )
 
 // LeftOutTest is a test left out of its lot, and why.
 type LeftOutTest struct {
 	TestID     string `json:"test_id"`
-	Reason     string `json:"reason"`                // LeftOutReworked, LeftOutReturned or LeftOutVoided
+	Reason     string `json:"reason"`                // a LeftOut constant
+	ReasonText string `json:"reason_text"`           // the reason in words
 	ReplacedBy string `json:"replaced_by,omitempty"` // for LeftOutReworked, the retest that counts in its place
 }
 

@@ -189,6 +189,17 @@ func TestFieldDayThroughTheFacade(t *testing.T) {
 	if len(queue) != 1 || queue[0].ID != rec.TestID {
 		t.Errorf("review queue %s, want the inspector's test", text)
 	}
+	text, err = qa.Report(project, mobile.ReportAuditFindings, "")
+	if err != nil {
+		t.Fatal(err)
+	}
+	var findings []struct {
+		Code string `json:"code"`
+	}
+	payload(t, text, mobile.ReportAuditFindings, &findings)
+	if findings == nil {
+		t.Errorf("audit findings %s, want a list (empty when nothing is found)", text)
+	}
 	if err := qa.ReviewTest(project, rec.TestID, false, ""); mobile.ErrorReason(errText(err)) != mobile.ReasonInvalidEntry {
 		t.Errorf("return without a comment: %v, want INVALID_ENTRY", err)
 	}

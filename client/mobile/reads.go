@@ -66,8 +66,9 @@ func (s *Store) Status(project string) (string, error) {
 const (
 	ReportReviewQueue    = "review_queue"   // the day's tests awaiting review (day: YYYY-MM-DD, "" for all)
 	ReportRetestAudit    = "retest_audit"   // every failure with its retests
-	ReportFrequency      = "frequency"      // tests required and taken per placement
-	ReportLots           = "lots"           // percent within limits per lot
+	ReportAuditFindings  = "audit_findings" // what the retest audit asks QA to look at, with the entries it rests on
+	ReportFrequency      = "frequency"      // final tests required and taken per placement and spec, by rule
+	ReportLots           = "lots"           // percent within limits and acceptance per lift and spec
 	ReportReconciliation = "reconciliation" // volumes per borrow source
 )
 
@@ -82,10 +83,19 @@ func (s *Store) Report(project, name, day string) (string, error) {
 		v = nonNil(s.s.ReviewQueue(project, day))
 	case ReportRetestAudit:
 		v = s.s.RetestAudit(project)
+	case ReportAuditFindings:
+		fs, err := s.s.AuditFindings(context.Background(), project)
+		if err != nil {
+			return "", wrap(err)
+		}
+		if fs == nil {
+			fs = []client.AuditFinding{}
+		}
+		v = fs
 	case ReportFrequency:
 		v = s.s.Frequency(project)
 	case ReportLots:
-		lots, err := s.s.Lots(project)
+		lots, err := s.s.Lots(project, client.LotScope{})
 		if err != nil {
 			return "", wrap(err)
 		}
@@ -98,7 +108,7 @@ func (s *Store) Report(project, name, day string) (string, error) {
 		v = r
 	default:
 		return "", &Error{Reason: ReasonUnknownReport, Field: "name", Message: "mobile: no report " + name +
-			"; the reports are review_queue, retest_audit, frequency, lots and reconciliation"}
+			"; the reports are review_queue, retest_audit, audit_findings, frequency, lots and reconciliation"}
 	}
 	return out(name, v)
 }

@@ -204,10 +204,11 @@ func TestSmallDay(t *testing.T) {
 		}
 	}
 	holds(t, "qa lots", c.as("qa", "qa", "lots"), "embankment lift 4", "min 95 %", "PWL",
-		"test "+back+": reworked and retested; retest "+last.ShortID+" counts in its place",
+		"test "+back+": failed, reworked and replaced by a retest (retest "+last.ShortID+" counts in its place)",
 		"test "+ids["wet-density"]+": returned by the office", "test "+balloon+": voided")
-	var rec []struct {
-		Source              string
+	var rows []struct {
+		Scope               string
+		Source              string  `json:"borrow_source"`
 		CompactedVolume     float64 `json:"compacted_volume"`
 		CompactedDryDensity float64 `json:"compacted_dry_density"`
 		BankDryDensity      float64 `json:"bank_dry_density"`
@@ -215,10 +216,14 @@ func TestSmallDay(t *testing.T) {
 		LooseHauled         float64 `json:"loose_hauled"`
 		Units               string
 	}
-	decode(t, c.as("qa", "qa", "reconcile", "--json"), &rec)
-	if len(rec) != 1 || rec[0].Source != "Quarry Hill pit" || rec[0].CompactedVolume != 296.3 || rec[0].BankDryDensity != 108.4 ||
-		rec[0].LooseHauled != 504 || rec[0].Units != "us" || rec[0].BankVolume <= rec[0].CompactedVolume*0.9 {
-		t.Errorf("qa reconcile: %+v", rec)
+	decode(t, c.as("qa", "qa", "reconcile", "--json"), &rows)
+	// One row per borrow source, then one per feature.
+	if len(rows) != 2 || rows[0].Scope != "borrow_source" || rows[1].Scope != "feature" || rows[1].CompactedVolume != 296.3 {
+		t.Fatalf("qa reconcile: %+v, want the borrow source's row and the feature's", rows)
+	}
+	if rec := rows[0]; rec.Source != "Quarry Hill pit" || rec.CompactedVolume != 296.3 || rec.BankDryDensity != 108.4 ||
+		rec.LooseHauled != 504 || rec.Units != "us" || rec.BankVolume <= rec.CompactedVolume*0.9 {
+		t.Errorf("qa reconcile of the borrow source: %+v", rec)
 	}
 	holds(t, "qa reconcile", c.as("qa", "qa", "reconcile"), "Quarry Hill pit", "504.0 yd3", "shrinkage = (bank volume - compacted volume) / bank volume")
 	holds(t, "qa reconcile in si", c.as("qa", "qa", "reconcile", "--units", "si"), "m3", "kg/m3")

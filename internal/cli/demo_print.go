@@ -293,13 +293,16 @@ func (d *demoDay) qaReports(context.Context) error {
 	t.flush()
 	p.f("\n")
 
-	lots, err := qa.Lots(project)
+	lots, err := qa.Lots(project, client.LotScope{})
 	if err != nil {
 		return err
 	}
 	p.f("Lots: percent within limits of relative compaction (final graded tests; Q = (mean - limit) / s)\n")
 	t = newDemoTable(p, "LIFT", "SPECIFICATION", "N", "MEAN RC", "STD DEV", "MIN RC", "Q", "PWL")
 	for _, l := range lots {
+		if l.N == 0 {
+			continue // no estimate of relative compaction
+		}
 		t.row(demoLift(l.Placement), d.specs[l.SpecID], fmt.Sprint(l.N), demoValue(l.Mean, 1, "%"),
 			demoValue(l.StdDev, 2, "%"), demoValue(l.LowerLimit, 0, "%"), some(l.QualityIndex, 2).String(), demoValue(l.PWL, 1, "%"))
 	}

@@ -293,7 +293,7 @@ func (d *demoDay) writeOutputs(ctx context.Context, dir string, kept *demoKeptOu
 	}); err != nil {
 		return err
 	}
-	lots, err := st.Lots(d.project)
+	lots, err := st.Lots(d.project, client.LotScope{})
 	if err != nil {
 		return err
 	}

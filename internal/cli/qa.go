@@ -3,6 +3,7 @@ package cli
 import (
 	"fmt"
 	"math"
+	"slices"
 	"strconv"
 	"strings"
 
@@ -145,10 +146,21 @@ qualified personnel.`,
 
 	var freqJSON bool
 	frequency := &cobra.Command{
-		Use: "frequency", Short: "Tests taken against tests required, per placement", Args: cobra.NoArgs,
-		Long: `For each placement whose tests name a spec with a volume per test (tamp spec add
---volume-per-test), the tests required (the compacted volume over the volume
-per test, rounded up) against the tests taken (retests do not count).`,
+		Use: "frequency", Short: "Final tests taken against the tests each spec's frequency rules require, per placement", Args: cobra.NoArgs,
+		Long: `For each placement and each spec that applies to it (the placement's own spec,
+tamp placement add --spec, and every spec its tests name), the tests the
+spec's frequency rules require against the final tests taken. A spec sets
+its rules with tamp spec add: one test per so many yd3 or m3 of compacted
+fill (--volume-per-test), ft2 or m2 of lift (--area-per-test: the
+placement's area, or its stations times its offsets), ft or m of alignment
+(--length-per-test: its stations), and at least so many on every lift
+(--min-per-lift). A lift needs the most any applying rule asks; a rule
+whose quantity the placement does not record is listed under the table,
+with what is missing.
+
+Final tests count: a failure replaced by its passing retest counts once,
+through the retest; a voided test, a test the office returned and a test
+not graded do not count. The project's specifications govern.`,
 		RunE: func(cmd *cobra.Command, _ []string) error {
 			ss, err := f.open(cmd.Context())
 			if err != nil {
@@ -158,56 +170,114 @@ per test, rounded up) against the tests taken (retests do not count).`,
 			specName := ss.specNames()
 			fs := ss.s.Frequency(ss.project)
 			if freqJSON {
+				type ruleJSON struct {
+					Kind     client.FrequencyRuleKind `json:"kind"`
+					Rule     string                   `json:"rule"`
+					Per      num                      `json:"per"`
+					Quantity num                      `json:"quantity"`
+					Unit     string                   `json:"unit"`
+					Required int                      `json:"required"`
+					Applies  bool                     `json:"applies"`
+					Why      string                   `json:"why"`
+				}
 				type row struct {
-					Placement       string `json:"placement"`
-					PlacementID     string `json:"placement_id"`
-					Spec            string `json:"spec"`
-					CompactedVolume num    `json:"compacted_volume"`
-					Required        int    `json:"required"`
-					Taken           int    `json:"taken"`
-					Shortfall       int    `json:"shortfall"`
-					Met             bool   `json:"met"`
-					Units           string `json:"units"`
+					Placement       string     `json:"placement"`
+					PlacementID     string     `json:"placement_id"`
+					Spec            string     `json:"spec"`
+					SpecID          string     `json:"spec_id"`
+					CompactedVolume num        `json:"compacted_volume"`
+					Rules           []ruleJSON `json:"rules"`
+					Required        int        `json:"required"`
+					Taken           int        `json:"taken"`
+					Shortfall       int        `json:"shortfall"`
+					Met             bool       `json:"met"`
+					Units           string     `json:"units"`
 				}
 				rows := []row{}
 				for _, fr := range fs {
-					rows = append(rows, row{Placement: placementName(fr.Placement), PlacementID: fr.Placement.ID, Spec: specName[fr.SpecID],
-						CompactedVolume: ss.u.num(soil.Volume, fr.Placement.CompactedVolume), Required: fr.Required, Taken: fr.Tests,
-						Shortfall: fr.Shortfall, Met: fr.Shortfall == 0, Units: ss.u.name()})
+					r := row{Placement: placementName(fr.Placement), PlacementID: fr.Placement.ID, Spec: specName[fr.SpecID], SpecID: fr.SpecID,
+						CompactedVolume: ss.u.num(soil.Volume, fr.Placement.CompactedVolume), Rules: []ruleJSON{}, Required: fr.Required, Taken: fr.Taken,
+						Shortfall: fr.Shortfall, Met: fr.Shortfall == 0, Units: ss.u.name()}
+					for _, ru := range fr.Rules {
+						per, q, unit := ss.u.ruleAmounts(ru)
+						if !ru.Applies {
+							q = some(math.NaN(), 0)
+						}
+						r.Rules = append(r.Rules, ruleJSON{Kind: ru.Kind, Rule: ss.u.ruleWords(ru), Per: per, Quantity: q, Unit: unit,
+							Required: ru.Required, Applies: ru.Applies, Why: ru.Why})
+					}
+					rows = append(rows, r)
 				}
 				return writeJSON(cmd.OutOrStdout(), rows)
 			}
 			w := cmd.OutOrStdout()
 			if len(fs) == 0 {
-				_, err := fmt.Fprintln(w, "No placement has tests against a spec with a volume per test (tamp spec add --volume-per-test).")
+				_, err := fmt.Fprintln(w, "No placement has a spec with a test frequency: set the rules with tamp spec add (--volume-per-test, "+
+					"--area-per-test, --length-per-test, --min-per-lift) and name the spec on the lift (tamp placement add --spec) or its tests.")
 				return err
 			}
-			t := newTable(w, "PLACEMENT", "SPEC", "COMPACTED VOLUME", "REQUIRED", "TAKEN", "SHORTFALL", "FREQUENCY")
+			t := newTable(w, "PLACEMENT", "SPEC", "RULES (TESTS EACH REQUIRES)", "REQUIRED", "TAKEN (FINAL)", "SHORTFALL", "FREQUENCY")
+			var notes []string
 			for _, fr := range fs {
+				var rules []string
+				for _, ru := range fr.Rules {
+					if !ru.Applies {
+						notes = append(notes, fmt.Sprintf("%s, spec %s: %s does not apply: %s", placementName(fr.Placement), quoted(specName[fr.SpecID]),
+							ss.u.ruleWords(ru), ru.Why))
+						continue
+					}
+					rules = append(rules, fmt.Sprintf("%s (%d)", ss.u.ruleWords(ru), ru.Required))
+				}
 				word := "met"
 				if fr.Shortfall > 0 {
 					word = "SHORT"
 				}
-				t.row(placementName(fr.Placement), specName[fr.SpecID], ss.u.show(soil.Volume, fr.Placement.CompactedVolume), strconv.Itoa(fr.Required),
-					strconv.Itoa(fr.Tests), strconv.Itoa(fr.Shortfall), word)
+				t.row(placementName(fr.Placement), specName[fr.SpecID], orDefault(strings.Join(rules, "; "), "-"), strconv.Itoa(fr.Required),
+					strconv.Itoa(fr.Taken), strconv.Itoa(fr.Shortfall), word)
 			}
-			return t.flush()
+			if err := t.flush(); err != nil {
+				return err
+			}
+			p := &printer{w: w}
+			for _, n := range notes {
+				p.f("Not applied: %s\n", escape(n))
+			}
+			p.f("Final tests count: a failure replaced by its retest counts once; voided, returned and ungraded tests do not.\n")
+			return p.err
 		},
 	}
 	jsonFlag(frequency, &freqJSON)
 
 	var lotsJSON bool
+	var lotFeature, lotLifts, lotFrom, lotTo string
 	lots := &cobra.Command{
-		Use: "lots", Short: "Percent within limits of each lot's relative compaction", Args: cobra.NoArgs,
-		Long: `For each placement with at least three final graded tests against one spec's
-minimum relative compaction: the mean, the sample standard deviation, the
-quality index Q = (mean - limit) / s and the estimated percent of the lot
-within the limit (PWL; AASHTO R 9, beta-distribution estimator).
+		Use:   "lots [--feature NAME [--lifts FIRST-LAST] [--from YYYY-MM-DD] [--to YYYY-MM-DD]]",
+		Short: "Percent within limits and acceptance of each lot: per lift, or per feature over lifts and days",
+		Long: `The percent within limits (PWL; AASHTO R 9, beta-distribution estimator) of each
+lot's final tests: relative compaction against the spec's minimum and, when
+the spec sets a moisture window, moisture against it, with the mean, the
+sample standard deviation s and the quality index Q = (mean - limit) / s.
+By default a lot is one lift against one spec. With --feature, a lot is the
+feature's tests against one spec, within --lifts (2-5, 3, or 4- for 4 and
+above) and the days --from and --to (YYYY-MM-DD in the project's time zone,
+inclusive) when given.
 
-A lot holds final tests only. Left out, and listed under the table with
-the reason: a failure that a retest replaced (the retest counts), a test the
-office returned, and a voided test.`,
+A lot is accepted when the PWL of every characteristic reaches the spec's
+--lot-pwl (tamp spec add), and rejected when one falls below it; under a
+spec without one, the estimate is for information. An estimate needs at
+least three final results.
+
+A lot holds final tests only. Left out, and listed under the table with the
+reason: a failure that a retest replaced (the retest counts), a test the
+office returned, a voided test and a test not graded.`,
+		Example: `  tamp qa lots
+  tamp qa lots --feature embankment --lifts 2-5 --from 2031-06-01 --to 2031-06-07`,
+		Args: cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, _ []string) error {
+			scope, err := lotScopeOf(cmd, lotFeature, lotLifts, lotFrom, lotTo)
+			if err != nil {
+				return err
+			}
 			ss, err := f.open(cmd.Context())
 			if err != nil {
 				return err
@@ -218,61 +288,75 @@ office returned, and a voided test.`,
 			for _, sp := range ss.s.Specs(ss.project) {
 				minRC[sp.ID] = sp.MinCompaction
 			}
-			ls, err := ss.s.Lots(ss.project)
+			ls, err := ss.s.Lots(ss.project, scope)
 			if err != nil {
-				return err
+				return entryError(cmd, err)
+			}
+			if len(ls) == 0 && scope.Feature != "" {
+				if known := ss.features(); !slices.Contains(known, scope.Feature) {
+					return failf("--feature %s: no placement or test of that feature on this device (features: %s); tamp sync brings others' entries",
+						quoted(scope.Feature), orDefault(escape(strings.Join(known, ", ")), "none yet"))
+				}
 			}
 			if lotsJSON {
-				type row struct {
-					Placement    string `json:"placement"`
-					PlacementID  string `json:"placement_id"`
-					Spec         string `json:"spec"`
-					N            int    `json:"n"`
-					Mean         num    `json:"mean"`
-					StdDev       num    `json:"std_dev"`
-					LowerLimit   num    `json:"lower_limit"`
-					QualityIndex num    `json:"quality_index"`
-					PWL          num    `json:"pwl"`
-					LeftOutCount int    `json:"left_out_count"`
-					LeftOut      []left `json:"left_out"`
-				}
-				rows := []row{}
+				rows := []lotJSON{}
 				for _, l := range ls {
-					r := row{Placement: placementName(l.Placement), PlacementID: l.Placement.ID, Spec: specName[l.SpecID], N: l.N,
-						Mean: some(l.Mean, 1), StdDev: some(l.StdDev, 2), LowerLimit: some(l.LowerLimit, 1), QualityIndex: some(l.QualityIndex, 2), PWL: some(l.PWL, 1),
-						LeftOutCount: len(l.LeftOut), LeftOut: []left{}}
-					for _, o := range l.LeftOut {
-						r.LeftOut = append(r.LeftOut, leftOf(o))
-					}
-					rows = append(rows, r)
+					rows = append(rows, ss.lotOut(l, specName[l.SpecID]))
 				}
 				return writeJSON(cmd.OutOrStdout(), rows)
 			}
 			w := cmd.OutOrStdout()
 			if len(ls) == 0 {
-				_, err := fmt.Fprintln(w, "No lot yet: a lot needs a placement with at least three final graded tests against a spec with a minimum relative compaction.")
+				what := "no test names a spec and a placement yet"
+				if scope.Feature != "" {
+					what = "no test of " + quoted(scope.Feature) + " names a spec within those lifts and days"
+				}
+				_, err := fmt.Fprintf(w, "No lot: %s.\n", what)
 				return err
 			}
-			t := newTable(w, "LOT (PLACEMENT)", "SPEC", "TESTS", "MEAN RC", "STD DEV", "LIMIT", "Q", "PWL")
+			t := newTable(w, "LOT", "SPEC", "N", "MEAN RC", "S", "RC LIMIT", "PWL RC", "PWL MOISTURE", "ACCEPTANCE")
+			pct := func(v float64, places int, ok bool) string {
+				if !ok {
+					return "-"
+				}
+				return some(v, places).String() + " %"
+			}
 			for _, l := range ls {
-				t.row(placementName(l.Placement), specName[l.SpecID], strconv.Itoa(l.N), some(l.Mean, 1).String()+" %", some(l.StdDev, 2).String()+" %",
-					"min "+orDefault(minRC[l.SpecID], some(l.LowerLimit, 1).String())+" %", some(l.QualityIndex, 2).String(), some(l.PWL, 1).String()+" %")
+				moisture := "-"
+				if m := l.Moisture; m != nil && m.N > 0 {
+					moisture = pct(m.PWL, 1, true)
+				}
+				limit := "-"
+				if minRC[l.SpecID] != "" {
+					limit = "min " + minRC[l.SpecID] + " %"
+				}
+				t.row(l.Name, specName[l.SpecID], strconv.Itoa(len(l.TestIDs)), pct(l.Mean, 1, l.N > 0), pct(l.StdDev, 2, l.N > 0), limit,
+					pct(l.PWL, 1, l.N > 0), moisture, acceptanceWords(l))
 			}
 			if err := t.flush(); err != nil {
 				return err
 			}
+			p := &printer{w: w}
 			for _, l := range ls {
-				for _, o := range l.LeftOut {
-					if _, err := fmt.Fprintf(w, "Left out of %s: %s\n", placementName(l.Placement), leftOutLine(o)); err != nil {
-						return err
-					}
+				if l.Acceptance == client.LotRejected {
+					p.f("Rejected: %s: %s.\n", escape(l.Name), escape(l.Why))
 				}
 			}
-			_, err = fmt.Fprintln(w, "The project's specification says which PWL a lot must reach.")
-			return err
+			for _, l := range ls {
+				for _, o := range l.LeftOut {
+					p.f("Left out of %s: %s\n", escape(l.Name), leftOutLine(o))
+				}
+			}
+			p.f("A lot holds final tests only. %s\n", qc.Caution)
+			return p.err
 		},
 	}
 	jsonFlag(lots, &lotsJSON)
+	lfl := lots.Flags()
+	lfl.StringVar(&lotFeature, "feature", "", "a lot of this feature's tests per spec, instead of one per lift")
+	lfl.StringVar(&lotLifts, "lifts", "", "with --feature: the lifts, FIRST-LAST (2-5), one (3), or from one up (4-)")
+	lfl.StringVar(&lotFrom, "from", "", "with --feature: the first day, YYYY-MM-DD")
+	lfl.StringVar(&lotTo, "to", "", "with --feature: the last day, YYYY-MM-DD")
 
 	var recJSON bool
 	reconcile := &cobra.Command{
@@ -525,30 +609,241 @@ func (ss *session) specNames() map[string]string {
 	return out
 }
 
+// ruleAmounts returns a frequency rule's quantity per test and the lift's
+// quantity in the project's units, rounded as they are shown, with their
+// unit ("" for a per-lift rule, whose Per is a count of tests).
+func (u units) ruleAmounts(r client.FrequencyRule) (per, quantity num, unit string) {
+	switch r.Kind {
+	case client.PerVolume:
+		return u.num(soil.Volume, r.Per), u.num(soil.Volume, r.Quantity), u.unit(soil.Volume)
+	case client.PerArea:
+		f := u.sys.FromSI(soil.Length, 1) // as units.area: ft2 or m2, to 1 place
+		return some(r.Per*f*f, 1), some(r.Quantity*f*f, 1), u.unit(soil.Length) + "2"
+	case client.PerLength:
+		return u.num(soil.Length, r.Per), u.num(soil.Length, r.Quantity), u.unit(soil.Length)
+	}
+	return some(r.Per, 0), some(r.Quantity, 0), ""
+}
+
+// ruleWords says a frequency rule in words, in the project's units: "1 per
+// 500 yd3", "1 per 2,000 ft2", "1 per 200 ft", "3 per lift".
+func (u units) ruleWords(r client.FrequencyRule) string {
+	per, _, unit := u.ruleAmounts(r)
+	if r.Kind == client.PerLift {
+		return grouped(per) + " per lift"
+	}
+	return "1 per " + grouped(per) + " " + unit
+}
+
+// grouped writes n with its thousands grouped by commas and without
+// trailing zeros after the point: 2000.0 is "2,000", 76.50 is "76.5".
+func grouped(n num) string {
+	s := n.String()
+	if strings.Contains(s, ".") {
+		s = strings.TrimRight(strings.TrimRight(s, "0"), ".")
+	}
+	whole, frac, _ := strings.Cut(s, ".")
+	sign := ""
+	if strings.HasPrefix(whole, "-") {
+		sign, whole = "-", whole[1:]
+	}
+	var b strings.Builder
+	for i, d := range whole {
+		if i > 0 && (len(whole)-i)%3 == 0 {
+			b.WriteByte(',')
+		}
+		b.WriteRune(d)
+	}
+	if frac != "" {
+		return sign + b.String() + "." + frac
+	}
+	return sign + b.String()
+}
+
+// lotScopeOf reads tamp qa lots' flags into a scope, refusing a flag that
+// breaks a rule with the flag and the rule named.
+func lotScopeOf(cmd *cobra.Command, feature, lifts, from, to string) (client.LotScope, error) {
+	set := cmd.Flags().Changed
+	sc := client.LotScope{Feature: strings.TrimSpace(feature), DayFrom: from, DayTo: to}
+	if set("feature") && sc.Feature == "" {
+		return sc, failf("--feature: name the feature whose tests make the lot")
+	}
+	for _, fl := range []string{"lifts", "from", "to"} {
+		if set(fl) && sc.Feature == "" {
+			return sc, failf("--%s: give --feature too: a lot of several lifts or days is of one feature", fl)
+		}
+	}
+	if set("lifts") {
+		bad := failf("--lifts %s: write the lifts as FIRST-LAST (2-5), one lift (3) or from one up (4-); lifts are numbered from 1", quoted(lifts))
+		a, b, ranged := strings.Cut(strings.TrimSpace(lifts), "-")
+		first, err := strconv.ParseUint(strings.TrimSpace(a), 10, 32)
+		if err != nil || first == 0 {
+			return sc, bad
+		}
+		last := first
+		switch b = strings.TrimSpace(b); {
+		case ranged && b == "":
+			last = 0 // no upper bound
+		case ranged:
+			if last, err = strconv.ParseUint(b, 10, 32); err != nil || last == 0 {
+				return sc, bad
+			}
+		}
+		if last != 0 && first > last {
+			return sc, failf("--lifts %s: the first lift must not be above the last (write %d-%d)", escape(lifts), last, first)
+		}
+		sc.LiftFrom, sc.LiftTo = uint32(first), uint32(last)
+	}
+	for _, d := range []struct{ flag, v string }{{"from", from}, {"to", to}} {
+		if set(d.flag) {
+			if err := checkDate(d.flag, d.v); err != nil {
+				return sc, err
+			}
+		}
+	}
+	if from != "" && to != "" && from > to {
+		return sc, failf("--from %s: the first day must not be after the last (--to %s)", from, to)
+	}
+	return sc, nil
+}
+
+// features lists, sorted, the features of the project's placements and
+// tests on this device.
+func (ss *session) features() []string {
+	var out []string
+	for _, p := range ss.s.Placements(ss.project) {
+		out = append(out, p.Feature)
+	}
+	for _, t := range ss.s.Tests(ss.project) {
+		if t.Content.Feature != "" {
+			out = append(out, t.Content.Feature)
+		}
+	}
+	slices.Sort(out)
+	return slices.Compact(out)
+}
+
+// acceptanceWords says a lot's outcome in words: "accepted (PWL ≥ 90)",
+// "REJECTED", "no acceptance limit", "not estimated: why".
+func acceptanceWords(l client.Lot) string {
+	switch l.Acceptance {
+	case client.LotAccepted:
+		return "accepted (PWL ≥ " + strconv.FormatFloat(l.AcceptancePWL, 'f', -1, 64) + ")"
+	case client.LotRejected:
+		return "REJECTED"
+	case client.LotNoAcceptanceLimit:
+		if l.Why != "" {
+			return "no acceptance limit; not estimated: " + l.Why
+		}
+		return "no acceptance limit"
+	}
+	return "not estimated: " + l.Why
+}
+
+// lotJSON is a lot as tamp qa lots --json writes it: percentages rounded
+// as shown, ids short.
+type lotJSON struct {
+	Name           string        `json:"name"`
+	Feature        string        `json:"feature"`
+	Placement      string        `json:"placement"`    // "" for a lot of a feature scope
+	PlacementID    string        `json:"placement_id"` // "" for a lot of a feature scope
+	Spec           string        `json:"spec"`
+	SpecID         string        `json:"spec_id"`
+	Tests          []string      `json:"tests"` // the final tests' short ids, oldest first
+	N              int           `json:"n"`     // final tests
+	Values         []num         `json:"values"`
+	Mean           num           `json:"mean"`
+	StdDev         num           `json:"std_dev"`
+	LowerLimit     num           `json:"lower_limit"`
+	QualityIndex   num           `json:"quality_index"`
+	PWL            num           `json:"pwl"`
+	Moisture       *moistureJSON `json:"moisture"`
+	Acceptance     string        `json:"acceptance"`
+	AcceptancePWL  num           `json:"acceptance_pwl"`
+	AcceptanceText string        `json:"acceptance_text"`
+	Why            string        `json:"why"`
+	LeftOutCount   int           `json:"left_out_count"`
+	LeftOut        []left        `json:"left_out"`
+	Units          string        `json:"units"`
+}
+
+// moistureJSON is a lot's moisture against its spec's window.
+type moistureJSON struct {
+	Basis  client.MoistureBasis `json:"basis"`
+	Values []num                `json:"values"`
+	Lower  num                  `json:"lower"` // null for an open side
+	Upper  num                  `json:"upper"`
+	N      int                  `json:"n"` // final tests, as the lot's n
+	Mean   num                  `json:"mean"`
+	StdDev num                  `json:"std_dev"`
+	PWL    num                  `json:"pwl"`
+}
+
+// lotOut rounds a lot for --json; an estimate it lacks is null.
+func (ss *session) lotOut(l client.Lot, spec string) lotJSON {
+	nan := math.NaN()
+	est := func(v float64, places int, ok bool) num {
+		if !ok {
+			return some(nan, places)
+		}
+		return some(v, places)
+	}
+	rounded := func(vs []float64) []num {
+		out := make([]num, 0, len(vs))
+		for _, v := range vs {
+			out = append(out, some(v, 1))
+		}
+		return out
+	}
+	r := lotJSON{Name: l.Name, Feature: l.Feature, Spec: spec, SpecID: l.SpecID, Tests: []string{}, N: len(l.TestIDs), Values: rounded(l.Values),
+		Mean: est(l.Mean, 1, l.N > 0), StdDev: est(l.StdDev, 2, l.N > 0), LowerLimit: est(l.LowerLimit, 1, len(l.Values) > 0),
+		QualityIndex: est(l.QualityIndex, 2, l.N > 0), PWL: est(l.PWL, 1, l.N > 0), Acceptance: string(l.Acceptance),
+		AcceptancePWL: est(l.AcceptancePWL, 1, l.AcceptancePWL > 0), AcceptanceText: acceptanceWords(l), Why: l.Why,
+		LeftOutCount: len(l.LeftOut), LeftOut: []left{}, Units: ss.u.name()}
+	if l.Placement.ID != "" {
+		r.Placement, r.PlacementID = placementName(l.Placement), l.Placement.ID
+	}
+	for _, id := range l.TestIDs {
+		r.Tests = append(r.Tests, shortID(id))
+	}
+	if m := l.Moisture; m != nil {
+		limit := func(p *float64) num {
+			if p == nil {
+				return some(nan, 1)
+			}
+			return some(*p, 1)
+		}
+		r.Moisture = &moistureJSON{Basis: m.Basis, Values: rounded(m.Values), Lower: limit(m.Lower), Upper: limit(m.Upper), N: len(m.Values),
+			Mean: est(m.Mean, 1, m.N > 0), StdDev: est(m.StdDev, 2, m.N > 0), PWL: est(m.PWL, 1, m.N > 0)}
+	}
+	for _, o := range l.LeftOut {
+		r.LeftOut = append(r.LeftOut, leftOf(o))
+	}
+	return r
+}
+
 // left is a test left out of its lot, as `tamp qa lots --json` writes it.
 type left struct {
 	Test       string `json:"test"`                  // short id
-	Reason     string `json:"reason"`                // reworked_and_retested, returned_by_office or voided
+	Reason     string `json:"reason"`                // reworked_and_retested, returned_by_office, voided or not_graded
+	ReasonText string `json:"reason_text"`           // the reason in words
 	ReplacedBy string `json:"replaced_by,omitempty"` // short id of the retest that counts in its place
 }
 
 func leftOf(o client.LeftOutTest) left {
-	l := left{Test: shortID(o.TestID), Reason: o.Reason}
+	l := left{Test: shortID(o.TestID), Reason: o.Reason, ReasonText: o.ReasonText}
 	if o.ReplacedBy != "" {
 		l.ReplacedBy = shortID(o.ReplacedBy)
 	}
 	return l
 }
 
-// leftOutLine says in words why a test is not in its lot.
+// leftOutLine says in words why a test is not in its lot, and for a
+// reworked failure which retest counts in its place.
 func leftOutLine(o client.LeftOutTest) string {
-	switch o.Reason {
-	case client.LeftOutReworked:
-		return fmt.Sprintf("test %s: reworked and retested; retest %s counts in its place", shortID(o.TestID), shortID(o.ReplacedBy))
-	case client.LeftOutReturned:
-		return fmt.Sprintf("test %s: returned by the office", shortID(o.TestID))
-	case client.LeftOutVoided:
-		return fmt.Sprintf("test %s: voided", shortID(o.TestID))
+	s := fmt.Sprintf("test %s: %s", shortID(o.TestID), orDefault(o.ReasonText, o.Reason))
+	if o.ReplacedBy != "" {
+		s += fmt.Sprintf(" (retest %s counts in its place)", shortID(o.ReplacedBy))
 	}
-	return fmt.Sprintf("test %s: %s", shortID(o.TestID), o.Reason)
+	return escape(s)
 }

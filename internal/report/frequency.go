@@ -1,50 +1,161 @@
 package report
 
 import (
-	"cmp"
 	"math"
 	"slices"
 
 	"tamp/internal/ledger"
 )
 
-// Frequency is the test count of one placement against its spec.
+// RuleKind names a spec's test frequency rule.
+type RuleKind string
+
+// The frequency rules a spec can set.
+const (
+	// VolumeRule asks one test per VolumePerTest of compacted volume.
+	VolumeRule RuleKind = "volume"
+	// AreaRule asks one test per AreaPerTest of the lift's plan area.
+	AreaRule RuleKind = "area"
+	// LengthRule asks one test per LengthPerTest along the alignment.
+	LengthRule RuleKind = "length"
+	// PerLiftRule asks at least MinTestsPerLift tests of every lift.
+	PerLiftRule RuleKind = "per_lift"
+)
+
+// Rule is one frequency rule of a spec applied to one lift.
+type Rule struct {
+	Kind RuleKind
+	// Per is the spec's quantity per test, SI (m3, m2 or m); for
+	// PerLiftRule, the count of tests each lift needs.
+	Per float64
+	// Quantity is the lift's volume, plan area or length, SI; 1 (the
+	// lift) for PerLiftRule; zero when not known.
+	Quantity float64
+	// Required is ceil(Quantity / Per), or Per for PerLiftRule; zero when
+	// the rule does not apply.
+	Required int
+	// Applies is false when the lift's quantity is not known; Why says
+	// what is missing.
+	Applies bool
+	Why     string
+}
+
+// Frequency is the test count of one placement against one spec.
 type Frequency struct {
 	Placement *ledger.Placement
 	SpecID    string
-	Tests     int // graded, not voided, not retests
-	Required  int // ceil(compacted volume / volume per test)
-	Shortfall int // Required - Tests when positive
+	// Rules are the spec's rules in the order volume, area, length, per
+	// lift; only the rules the spec sets.
+	Rules []Rule
+	// Required is the most any applicable rule asks; Taken the final tests
+	// of the placement against the spec (see Finals); Shortfall is
+	// Required - Taken when positive.
+	Required, Taken, Shortfall int
 }
 
-// TestFrequency compares, for every placement whose tests name a spec with a
-// required frequency, the tests taken with the tests the spec asks for.
-// Retests do not count toward frequency (common practice).
+// ceilTests is ceil(q / per), with a tolerance so that an exact multiple
+// stored with floating noise (1,500 yd3 over 500 yd3 in m3) does not round
+// up.
+func ceilTests(q, per float64) int { return int(math.Ceil(q/per - 1e-9)) }
+
+// rules applies the frequency rules of spec to the placement pl.
+func rules(spec *ledger.Spec, pl *ledger.Placement) []Rule {
+	var out []Rule
+	perQuantity := func(kind RuleKind, per, q float64, why string) {
+		if per <= 0 {
+			return
+		}
+		r := Rule{Kind: kind, Per: per, Quantity: max(q, 0)}
+		if q > 0 {
+			r.Applies, r.Required = true, ceilTests(q, per)
+		} else {
+			r.Why = why
+		}
+		out = append(out, r)
+	}
+	perQuantity(VolumeRule, spec.VolumePerTest, pl.CompactedVolume, "the placement records no compacted volume")
+	area, why := pl.Area, ""
+	if area <= 0 {
+		switch st := pl.Stations; {
+		case st == nil:
+			area, why = 0, "the placement records neither an area nor stations"
+		case st.To-st.From <= 0:
+			area, why = 0, "the placement records no area and its stations give no length"
+		case st.OffsetRight-st.OffsetLeft <= 0:
+			area, why = 0, "the placement records no area and its offsets give no width"
+		default:
+			area = (st.To - st.From) * (st.OffsetRight - st.OffsetLeft)
+		}
+	}
+	perQuantity(AreaRule, spec.AreaPerTest, area, why)
+	length, why := 0.0, "the placement records no stations"
+	if st := pl.Stations; st != nil {
+		length, why = st.To-st.From, "the placement's stations give no length"
+	}
+	perQuantity(LengthRule, spec.LengthPerTest, length, why)
+	if n := spec.MinTestsPerLift; n > 0 {
+		out = append(out, Rule{Kind: PerLiftRule, Per: float64(n), Quantity: 1, Required: int(n), Applies: true})
+	}
+	return out
+}
+
+// TestFrequency compares, for every placement and every spec that applies
+// to it (the placement's own spec, and every spec a test on it names), the
+// final tests taken with the most any of the spec's frequency rules asks.
+// A rule whose lift quantity is not recorded is listed as not applicable
+// with why. A placement with a spec and no test is listed with none taken;
+// a spec that sets no frequency rule, or that this replica does not hold
+// yet, is left out. Final tests count (see Finals): a failure replaced by
+// its retest counts once, through the retest; a voided, returned or
+// ungraded test does not count. Sorted by placement, then spec.
 func TestFrequency(p *ledger.Projection) []Frequency {
-	counts := map[string]map[string]int{} // placement -> spec -> tests
-	for _, t := range p.Tests() {
+	snap := p.Snapshot()
+	finals := NewFinals(snap.Tests)
+	named := map[string]map[string]int{} // placement -> spec -> final tests
+	for _, t := range snap.Tests {
 		c := t.Content
-		if t.Voided() || t.RetestOf != "" || c.PlacementID == "" || c.SpecID == "" {
+		if c.PlacementID == "" || c.SpecID == "" {
 			continue
 		}
-		if counts[c.PlacementID] == nil {
-			counts[c.PlacementID] = map[string]int{}
+		m := named[c.PlacementID]
+		if m == nil {
+			m = map[string]int{}
+			named[c.PlacementID] = m
 		}
-		counts[c.PlacementID][c.SpecID]++
+		m[c.SpecID] += 0 // the spec applies to the placement, final or not
+		if why, _ := finals.Why(t); why == "" {
+			m[c.SpecID]++
+		}
 	}
 	var out []Frequency
-	for _, pl := range p.Snapshot().Placements {
-		for specID, n := range counts[pl.ID] {
-			spec, ok := p.Spec(specID)
-			if !ok || spec.VolumePerTest <= 0 {
+	for _, pl := range snap.Placements { // sorted by id, and ids below: the output is sorted
+		specs := named[pl.ID]
+		ids := make([]string, 0, len(specs)+1)
+		for id := range specs {
+			ids = append(ids, id)
+		}
+		if pl.SpecID != "" {
+			if _, ok := specs[pl.SpecID]; !ok {
+				ids = append(ids, pl.SpecID)
+			}
+		}
+		slices.Sort(ids)
+		for _, id := range ids {
+			spec, ok := p.Spec(id)
+			if !ok {
 				continue
 			}
-			req := int(math.Ceil(pl.CompactedVolume/spec.VolumePerTest - 1e-9))
-			out = append(out, Frequency{Placement: pl, SpecID: specID, Tests: n, Required: req, Shortfall: max(0, req-n)})
+			rs := rules(spec, pl)
+			if len(rs) == 0 {
+				continue
+			}
+			f := Frequency{Placement: pl, SpecID: id, Rules: rs, Taken: specs[id]}
+			for _, r := range rs {
+				f.Required = max(f.Required, r.Required)
+			}
+			f.Shortfall = max(0, f.Required-f.Taken)
+			out = append(out, f)
 		}
 	}
-	slices.SortFunc(out, func(a, b Frequency) int {
-		return cmp.Or(cmp.Compare(a.Placement.ID, b.Placement.ID), cmp.Compare(a.SpecID, b.SpecID))
-	})
 	return out
 }
