@@ -429,7 +429,7 @@ its design; --remove takes it out.`,
 			if err := ss.s.SetUpProject(cmd.Context(), ss.project, su); err != nil {
 				return entryError(cmd, err)
 			}
-			what := fmt.Sprintf("feature %s designed at %s compacted", quoted(feature), ss.u.show(soil.Volume, volume))
+			what := fmt.Sprintf("feature %s designed at %s compacted", quoted(feature), ss.u.show(soil.Volume, ss.u.toSI(soil.Volume, volume)))
 			if remove {
 				what = fmt.Sprintf("feature %s's design removed", quoted(feature))
 			}

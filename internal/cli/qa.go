@@ -489,8 +489,8 @@ swell follow the project's convention, written out below the tables.`,
 				if scope == client.FeatureScope {
 					head = "FEATURE"
 				}
-				t := newTable(w, head, "COMPACTED", "FILL DRY DENSITY (TESTS)", "BANK DRY DENSITY (TESTS)", "BANK VOLUME", "LOOSE HAULED", "LOOSE EXPECTED",
-					"SHRINKAGE", "DESIGN", "SWELL", "HAULED SWELL")
+				t := newTable(w, head, "COMPACTED", "FILL DRY DENSITY ± 95 % (TESTS)", "BANK DRY DENSITY ± 95 % (TESTS)", "BANK VOLUME", "LOOSE HAULED", "LOOSE EXPECTED",
+					"SHRINKAGE", "DESIGN SHRINKAGE", "SWELL", "HAULED SWELL")
 				rows := 0
 				for _, b := range bs {
 					if b.Scope != scope {
@@ -542,7 +542,7 @@ swell follow the project's convention, written out below the tables.`,
 				}
 				p.f("  Range: %s.\n", method)
 			} else {
-				p.f("No feature is designed yet (tamp project set-up --design FEATURE=VOLUME): no bank volume still needed.\n")
+				p.f("No feature is designed yet (tamp project design --feature NAME --volume V): no bank volume still needed.\n")
 			}
 			for _, d := range defList {
 				p.f("  %s\n", d)
