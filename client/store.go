@@ -285,26 +285,41 @@ func (s *Store) record(ctx context.Context, project string, k ledger.Kind) (ledg
 	if err := s.notOwnTest(project, k); err != nil {
 		return ledger.Signed{}, ledger.Outcome{}, err
 	}
-	// The link to the device's previous entry in the project lets the
-	// server find entries it lacks; entries the server refused are not in
-	// its ledger, so the link skips them.
-	var prev uint64
-	if err := s.db.Reader().QueryRowContext(ctx, `SELECT COALESCE(MAX(device_seq), 0) FROM events
-		WHERE project_id = ? AND device_id = ? AND status NOT IN ('rejected', 'discarded')`, project, s.deviceID).Scan(&prev); err != nil {
-		return ledger.Signed{}, ledger.Outcome{}, fmt.Errorf("client: record %s: %w", k.KindName(), err)
-	}
-	now := s.now().UTC().Truncate(time.Microsecond)
-	e := ledger.Event{ID: s.NewID(), Project: project, Author: s.user, Device: s.deviceID, DeviceSeq: s.seq + 1, PrevDeviceSeq: prev,
-		HLC: s.clock.Now(), DeviceTime: now, Kind: k}
-	signed, err := ledger.Seal(e, s.key)
-	if err != nil {
-		return ledger.Signed{}, ledger.Outcome{}, refused(err)
-	}
-	e = signed.Event // as every replica decodes it from the signed bytes
-	if taken := s.view(project).Claimed(&e); taken != nil {
-		return ledger.Signed{}, ledger.Outcome{}, refused(taken)
-	}
-	err = s.db.Tx(ctx, func(tx *sql.Tx) error {
+	// The sequence number is taken inside the write transaction, from the
+	// store itself: another opener of the same file (the review page beside
+	// a command) may have recorded since this one opened it.
+	var e ledger.Event
+	var signed ledger.Signed
+	var refusal error // the entry's own fault, returned as it is
+	err := s.db.Tx(ctx, func(tx *sql.Tx) error {
+		var last uint64
+		var wall int64
+		var logical uint32
+		if err := tx.QueryRowContext(ctx, `SELECT last_seq, hlc_wall, hlc_logical FROM device WHERE id = 1`).Scan(&last, &wall, &logical); err != nil {
+			return err
+		}
+		s.clock.Observe(ledger.HLC{Wall: wall, Logical: logical})
+		// The link to the device's previous entry in the project lets the
+		// server find entries it lacks; entries the server refused are not
+		// in its ledger, so the link skips them.
+		var prev uint64
+		if err := tx.QueryRowContext(ctx, `SELECT COALESCE(MAX(device_seq), 0) FROM events
+			WHERE project_id = ? AND device_id = ? AND status NOT IN ('rejected', 'discarded')`, project, s.deviceID).Scan(&prev); err != nil {
+			return err
+		}
+		now := s.now().UTC().Truncate(time.Microsecond)
+		e = ledger.Event{ID: s.NewID(), Project: project, Author: s.user, Device: s.deviceID, DeviceSeq: max(s.seq, last) + 1, PrevDeviceSeq: prev,
+			HLC: s.clock.Now(), DeviceTime: now, Kind: k}
+		var err error
+		if signed, err = ledger.Seal(e, s.key); err != nil {
+			refusal = refused(err)
+			return refusal
+		}
+		e = signed.Event // as every replica decodes it from the signed bytes
+		if taken := s.view(project).Claimed(&e); taken != nil {
+			refusal = refused(taken)
+			return refusal
+		}
 		if _, err := tx.ExecContext(ctx, `INSERT INTO events (event_id, project_id, device_id, device_seq, kind, record_id,
 			hlc_wall, hlc_logical, body, signature, origin, status, created_micros)
 			VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 'local', 'pending', ?)`,
@@ -312,10 +327,13 @@ func (s *Store) record(ctx context.Context, project string, k ledger.Kind) (ledg
 			signed.Body, signed.Signature, now.UnixMicro()); err != nil {
 			return err
 		}
-		_, err := tx.ExecContext(ctx, `UPDATE device SET last_seq = ?, hlc_wall = ?, hlc_logical = ? WHERE id = 1`,
+		_, err = tx.ExecContext(ctx, `UPDATE device SET last_seq = ?, hlc_wall = ?, hlc_logical = ? WHERE id = 1`,
 			e.DeviceSeq, e.HLC.Wall, e.HLC.Logical)
 		return err
 	})
+	if refusal != nil {
+		return ledger.Signed{}, ledger.Outcome{}, refusal
+	}
 	if err != nil {
 		return ledger.Signed{}, ledger.Outcome{}, fmt.Errorf("client: record %s: %w", k.KindName(), err)
 	}

@@ -3,6 +3,7 @@ package client
 import (
 	"context"
 	"errors"
+	"fmt"
 	"math/rand/v2"
 	"path/filepath"
 	"testing"
@@ -371,5 +372,44 @@ func TestRecordRefusesTakenTestID(t *testing.T) {
 	wantEntryError(t, "second recording of test "+id, err, ErrInvalid, "conflicting_id", "record_id", "")
 	if tt, _ := e.store.Test(e.project, id); tt.Current != first.Event.ID {
 		t.Errorf("current revision %s, want the first recording %s", tt.Current, first.Event.ID)
+	}
+}
+
+// Two openers of one store file (the review page beside a command) both
+// record: each entry takes the next number and a later hybrid time from
+// the file itself, so neither write is refused and the numbers run on.
+func TestTwoOpenersRecordInTurn(t *testing.T) {
+	e := newEnv(t, "ines")
+	first := e.store
+	second, err := Open(context.Background(), e.path, Options{Now: e.clock.now, Rand: newSeeded(9)})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer second.Close()
+	var seqs []uint64
+	var last ledger.HLC
+	for i, s := range []*Store{first, second, first, second} {
+		e.tick()
+		sg, _, err := s.recordEntry(context.Background(), e.project, &ledger.TestVoided{TestID: s.NewID(), Reason: fmt.Sprintf("entry %d", i)})
+		if err != nil {
+			t.Fatalf("entry %d: %v", i, err)
+		}
+		if i > 0 && sg.Event.HLC.Compare(last) <= 0 {
+			t.Errorf("entry %d's hybrid time %v is not after %v", i, sg.Event.HLC, last)
+		}
+		last = sg.Event.HLC
+		seqs = append(seqs, sg.Event.DeviceSeq)
+	}
+	for i := 1; i < len(seqs); i++ {
+		if seqs[i] != seqs[i-1]+1 {
+			t.Fatalf("device sequence numbers %v, want consecutive", seqs)
+		}
+	}
+	out, err := first.Outbox(context.Background())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if out.Pending < 4 {
+		t.Errorf("outbox holds %d pending entries, want the four recorded", out.Pending)
 	}
 }

@@ -125,7 +125,7 @@ specifications and local codes govern every acceptance limit.`,
 	}{
 		{"setup", []*cobra.Command{newProject(), newSpec(), newReference(), newEquipment(), newBorrow(), newAdmin(), newEnroll()}},
 		{"field", []*cobra.Command{newTest(), newCalc()}},
-		{"office", []*cobra.Command{newPlacement(), newHaul(), newReview()}},
+		{"office", []*cobra.Command{newPlacement(), newHaul(), newReview(), newWeb()}},
 		{"qa", []*cobra.Command{newQA(), newExport(), newVerify()}},
 		{"device", []*cobra.Command{newSync(), newStatus()}},
 	} {

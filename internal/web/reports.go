@@ -1,0 +1,272 @@
+package web
+
+import (
+	"cmp"
+	"fmt"
+	"math"
+	"net/http"
+
+	"tamp/client"
+	"tamp/internal/soil"
+)
+
+// reports.go is the one file that reads the QA reports of package client
+// (ReviewQueue, RetestAudit, Frequency, Lots, Reconcile) and lays them out
+// for the page: the review queue, the retest audit's findings, test
+// frequency, lots and the volume reconciliation.
+
+func (s *Server) reportRoutes(m *http.ServeMux) {
+	m.HandleFunc("GET /queue", s.page(s.queue))
+	m.HandleFunc("GET /audit", s.page(s.audit))
+	m.HandleFunc("GET /frequency", s.page(s.frequency))
+	m.HandleFunc("GET /lots", s.page(s.lots))
+	m.HandleFunc("GET /reconciliation", s.page(s.reconciliation))
+}
+
+// queuePage is the tests awaiting the office.
+type queuePage struct {
+	Rows    []row
+	Nuclear bool
+}
+
+// queue is GET /queue: the tests whose current revision awaits review,
+// oldest first.
+func (s *Server) queue(w http.ResponseWriter, r *http.Request, v *view) error {
+	var p queuePage
+	for _, t := range v.st.ReviewQueue(v.project, "") {
+		p.Rows = append(p.Rows, v.rowOf(t))
+		p.Nuclear = p.Nuclear || nuclear(t.Result.Method)
+	}
+	return s.render(w, http.StatusOK, "queue.html", s.frame(r, v, "Awaiting review", "queue", "", p))
+}
+
+// auditChain is one failing test and what followed it.
+type auditChain struct {
+	Failed  row
+	Retests []row
+	Closure string
+	Class   string // pass for a closed failure, fail for an open one
+	Shift   string
+	Far     bool
+}
+
+// auditPage is the retest audit.
+type auditPage struct {
+	Chains              []auditChain
+	Open, Closed, Total int
+}
+
+// closureWords says how a failure was closed.
+var closureWords = map[client.Closure]string{
+	client.ClosureOpen:      "OPEN: no passing retest, no exception",
+	client.ClosureRetested:  "closed: a retest passed",
+	client.ClosureException: "closed: QA accepted it as it stands",
+	client.ClosureVoided:    "closed: the failing test was voided",
+}
+
+// farShift is the distance along the alignment beyond which a retest is
+// shown as far from its failure, m (about 10 ft; common practice, the
+// project's own rule governs).
+const farShift = 3.0
+
+// audit is GET /audit: one chain per failing test that is not itself a
+// retest.
+func (s *Server) audit(w http.ResponseWriter, r *http.Request, v *view) error {
+	var p auditPage
+	for _, c := range v.st.RetestAudit(v.project) {
+		ac := auditChain{Failed: v.rowOf(c.Failed), Closure: cmp.Or(closureWords[c.Closure], string(c.Closure)), Class: "pass",
+			Shift: v.u.show(soil.Length, c.StationShift), Far: c.StationShift > farShift}
+		for _, t := range c.Retests {
+			ac.Retests = append(ac.Retests, v.rowOf(t))
+		}
+		if c.Closure == client.ClosureOpen {
+			ac.Class = "fail"
+			p.Open++
+		} else {
+			p.Closed++
+		}
+		p.Chains = append(p.Chains, ac)
+	}
+	p.Total = len(p.Chains)
+	return s.render(w, http.StatusOK, "audit.html", s.frame(r, v, "Retest audit", "audit", "", p))
+}
+
+// specNames maps spec ids to names.
+func (v *view) specNames() map[string]string {
+	out := map[string]string{}
+	for _, sp := range v.st.Specs(v.project) {
+		out[sp.ID] = visible(sp.Name)
+	}
+	return out
+}
+
+// frequencyRow is one placement's test count against its spec.
+type frequencyRow struct {
+	Placement string
+	Spec      string
+	Volume    string
+	Tests     int
+	Required  int
+	Shortfall int
+	Class     string
+}
+
+// frequency is GET /frequency.
+func (s *Server) frequency(w http.ResponseWriter, r *http.Request, v *view) error {
+	names := v.specNames()
+	var rows []frequencyRow
+	for _, f := range v.st.Frequency(v.project) {
+		fr := frequencyRow{Placement: placementName(f.Placement), Spec: cmp.Or(names[f.SpecID], shortID(f.SpecID)),
+			Volume: v.u.show(soil.Volume, f.Placement.CompactedVolume), Tests: f.Tests, Required: f.Required, Shortfall: f.Shortfall, Class: "pass"}
+		if f.Shortfall > 0 {
+			fr.Class = "fail"
+		}
+		rows = append(rows, fr)
+	}
+	return s.render(w, http.StatusOK, "frequency.html", s.frame(r, v, "Test frequency", "frequency", "", rows))
+}
+
+// lotRow is one lot's estimate.
+type lotRow struct {
+	Name, Spec                        string
+	N                                 int
+	Mean, StdDev, Limit, Quality, PWL string
+	Moisture                          string // the moisture estimate in words, or ""
+	Acceptance                        verdict
+	Why                               string
+	LeftOut                           []string
+}
+
+// leftOutWords say why a test is left out of its lot.
+var leftOutWords = map[string]string{
+	client.LeftOutReworked: "reworked and retested",
+	client.LeftOutReturned: "returned by the office",
+	client.LeftOutVoided:   "voided",
+}
+
+// acceptanceOf shows a lot's outcome like a verdict.
+func acceptanceOf(l client.Lot) verdict {
+	switch l.Acceptance {
+	case client.LotAccepted:
+		return verdict{Class: "pass", Word: "ACCEPTED", Why: "PWL at least " + fixed(l.AcceptancePWL, 0) + " %"}
+	case client.LotRejected:
+		return verdict{Class: "fail", Word: "REJECTED", Why: "PWL under " + fixed(l.AcceptancePWL, 0) + " %"}
+	case client.LotNoAcceptanceLimit:
+		return verdict{Class: "pending", Word: "FOR INFORMATION", Why: "the spec sets no acceptance limit"}
+	}
+	return verdict{Class: "pending", Word: "NOT ESTIMATED"}
+}
+
+// lots is GET /lots: one lot per placement and spec.
+func (s *Server) lots(w http.ResponseWriter, r *http.Request, v *view) error {
+	lots, err := v.st.Lots(v.project, client.LotScope{})
+	if err != nil {
+		return err
+	}
+	names := v.specNames()
+	var rows []lotRow
+	for _, l := range lots {
+		lr := lotRow{Name: visible(cmp.Or(l.Name, placementName(l.Placement))), Spec: cmp.Or(names[l.SpecID], shortID(l.SpecID)), N: l.N,
+			Mean: "-", StdDev: "-", Limit: "-", Quality: "-", PWL: "-", Acceptance: acceptanceOf(l), Why: visible(l.Why)}
+		if l.N > 0 {
+			lr.Mean, lr.StdDev, lr.Limit = fixed(l.Mean, 1)+" %", fixed(l.StdDev, 2)+" %", fixed(l.LowerLimit, 1)+" %"
+			lr.Quality, lr.PWL = fixed(l.QualityIndex, 2), fixed(l.PWL, 1)+" %"
+		}
+		if m := l.Moisture; m != nil && m.N > 0 {
+			mean := fixed(m.Mean, 1) + " % of optimum"
+			if m.Basis != client.PercentOfOptimum {
+				mean = fmt.Sprintf("%+.1f points", m.Mean)
+			}
+			lr.Moisture = "mean " + mean + ", s " + fixed(m.StdDev, 2) + ", " + fixed(m.PWL, 1) + " % within the window"
+		}
+		for _, x := range l.LeftOut {
+			s := "test " + shortID(x.TestID) + ": " + cmp.Or(leftOutWords[x.Reason], x.Reason)
+			if x.ReplacedBy != "" {
+				s += ", by test " + shortID(x.ReplacedBy)
+			}
+			lr.LeftOut = append(lr.LeftOut, s)
+		}
+		rows = append(rows, lr)
+	}
+	return s.render(w, http.StatusOK, "lots.html", s.frame(r, v, "Lots", "lots", "", rows))
+}
+
+// balanceRow is one line of the reconciliation.
+type balanceRow struct {
+	Scope, Name, Source string
+	Lines               []line
+	Notes               []string
+}
+
+// reconciliation is GET /reconciliation: compacted volume placed, bank
+// volume taken from borrow, loose volume hauled, shrink and swell, and the
+// bank volume still needed.
+func (s *Server) reconciliation(w http.ResponseWriter, r *http.Request, v *view) error {
+	bs, err := v.st.Reconcile(v.project)
+	if err != nil {
+		return err
+	}
+	u := v.u
+	vol := func(m3 float64) string { return u.show(soil.Volume, m3) }
+	den := func(x float64) string { return u.show(soil.Density, x) }
+	var rows []balanceRow
+	for _, b := range bs {
+		br := balanceRow{Scope: "borrow source", Name: visible(cmp.Or(b.Name, b.BorrowSource)), Source: visible(b.BorrowSource)}
+		for _, n := range b.Notes {
+			br.Notes = append(br.Notes, visible(n))
+		}
+		if b.Scope == client.FeatureScope {
+			br.Scope = "feature"
+		}
+		add := func(label, value string) { br.Lines = append(br.Lines, line{Label: label, Value: value}) }
+		add("compacted volume placed", vol(b.CompactedVolume))
+		if b.Tests > 0 {
+			add("fill dry density", fmt.Sprintf("%s (%d final tests; 95 %% interval ± %s)", den(b.FillDryDensity), b.Tests, den(b.FillHalfWidth)))
+		}
+		add("dry mass placed", tonnes(u, b.DryMass))
+		if b.BankDryDensity > 0 {
+			add("bank dry density", fmt.Sprintf("%s (%d bank tests; 95 %% interval ± %s)", den(b.BankDryDensity), b.BankTests, den(b.BankHalfWidth)))
+			add("bank volume taken from borrow", vol(b.BankVolume))
+		}
+		if b.LooseHauled > 0 {
+			add("loose volume hauled", vol(b.LooseHauled))
+		}
+		if b.LooseExpected > 0 {
+			add("loose volume the dry mass implies", vol(b.LooseExpected))
+		}
+		if b.ShrinkFactor > 0 {
+			add("shrinkage", fixed(b.ShrinkagePercent, 1)+" % (shrink factor "+fixed(b.ShrinkFactor, 3)+"; "+b.ShrinkDefinition+")")
+		}
+		if b.SwellFactor > 0 {
+			add("swell", fixed(b.SwellPercent, 1)+" % (swell factor "+fixed(b.SwellFactor, 3)+"; "+b.SwellDefinition+")")
+		}
+		if b.DesignVolume > 0 {
+			add("design compacted volume", vol(b.DesignVolume))
+			add("still to place", vol(b.RemainingVolume))
+			need := vol(b.StillNeeded)
+			if b.StillNeededHigh > 0 {
+				high := vol(b.StillNeededHigh)
+				if math.IsInf(b.StillNeededHigh, 1) {
+					high = "no upper bound"
+				}
+				rng := " (from " + vol(b.StillNeededLow) + " to " + high
+				if b.RangeMethod != "" {
+					rng += "; " + b.RangeMethod
+				}
+				need += rng + ")"
+			}
+			add("bank volume still needed", need)
+		}
+		rows = append(rows, br)
+	}
+	return s.render(w, http.StatusOK, "reconciliation.html", s.frame(r, v, "Volume reconciliation", "reconciliation", "", rows))
+}
+
+// tonnes shows a mass of earthwork (kg): short tons of 2000 lb in US
+// units, tonnes of 1000 kg in SI.
+func tonnes(u units, kg float64) string {
+	if u.sys == soil.US {
+		return fixed(kg/(2000*soil.Pound), 0) + " tons (2000 lb)"
+	}
+	return fixed(kg/1000, 0) + " t"
+}
