@@ -188,12 +188,12 @@ func TestOfficeReportsOfflineMatchServer(t *testing.T) {
 	}
 	for i, f := range freq {
 		s := sFreq[i]
-		if f.Placement.ID != s.Placement.ID || f.SpecID != s.SpecID || f.Tests != s.Taken || f.Required != s.Required || f.Shortfall != s.Shortfall {
+		if f.Placement.ID != s.Placement.ID || f.SpecID != s.SpecID || f.Taken != s.Taken || f.Required != s.Required || f.Shortfall != s.Shortfall {
 			t.Errorf("frequency offline %+v, the server's %+v", f, s)
 		}
 	}
-	if freq[0].Required != 8 || freq[0].Tests != 4 {
-		t.Errorf("frequency of the first lift: %d of %d tests, want 4 of 8", freq[0].Tests, freq[0].Required)
+	if freq[0].Required != 8 || freq[0].Taken != 4 {
+		t.Errorf("frequency of the first lift: %d of %d tests, want 4 of 8", freq[0].Taken, freq[0].Required)
 	}
 	lots, err := office.Lots(project, client.LotScope{})
 	if err != nil {

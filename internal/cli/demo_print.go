@@ -288,7 +288,7 @@ func (d *demoDay) qaReports(context.Context) error {
 			state = fmt.Sprintf("short by %d", f.Shortfall)
 		}
 		t.row(demoLift(f.Placement), d.specs[f.SpecID], demoU.show(soil.Volume, f.Placement.CompactedVolume),
-			fmt.Sprint(f.Tests), fmt.Sprint(f.Required), state)
+			fmt.Sprint(f.Taken), fmt.Sprint(f.Required), state)
 	}
 	t.flush()
 	p.f("\n")

@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"math"
 	"net/http"
+	"time"
 
 	"tamp/client"
 	"tamp/internal/soil"
@@ -54,6 +55,14 @@ type auditChain struct {
 type auditPage struct {
 	Chains              []auditChain
 	Open, Closed, Total int
+	Findings            []auditFinding
+	Within, Distance    string // the project's retest rules
+}
+
+// auditFinding is one thing the audit asks QA to look at.
+type auditFinding struct {
+	Title, Message, TestID, Short string
+	Entries                       []string
 }
 
 // closureWords says how a failure was closed.
@@ -64,18 +73,31 @@ var closureWords = map[client.Closure]string{
 	client.ClosureVoided:    "closed: the failing test was voided",
 }
 
-// farShift is the distance along the alignment beyond which a retest is
-// shown as far from its failure, m (about 10 ft; common practice, the
-// project's own rule governs).
-const farShift = 3.0
-
 // audit is GET /audit: one chain per failing test that is not itself a
 // retest.
 func (s *Server) audit(w http.ResponseWriter, r *http.Request, v *view) error {
 	var p auditPage
+	// The project's retest rules: a failure retested within so long, a
+	// retest within so far of it (the set-up's, or the defaults).
+	within, far := 48*time.Hour, 10.0
+	if su, ok := v.st.SetUp(v.project); ok {
+		within, far = cmp.Or(su.RetestWithin, within), cmp.Or(su.RetestDistance, far)
+	}
+	p.Within, p.Distance = within.String(), v.u.show(soil.Length, far)
+	fs, err := v.st.AuditFindings(r.Context(), v.project)
+	if err != nil {
+		return err
+	}
+	for _, f := range fs {
+		af := auditFinding{Title: f.Title, Message: visible(f.Message), TestID: f.TestID, Short: shortID(f.TestID)}
+		for _, e := range f.Entries {
+			af.Entries = append(af.Entries, shortID(e))
+		}
+		p.Findings = append(p.Findings, af)
+	}
 	for _, c := range v.st.RetestAudit(v.project) {
 		ac := auditChain{Failed: v.rowOf(c.Failed), Closure: cmp.Or(closureWords[c.Closure], string(c.Closure)), Class: "pass",
-			Shift: v.u.show(soil.Length, c.StationShift), Far: c.StationShift > farShift}
+			Shift: v.u.show(soil.Length, c.StationShift), Far: c.StationShift > far}
 		for _, t := range c.Retests {
 			ac.Retests = append(ac.Retests, v.rowOf(t))
 		}
@@ -105,6 +127,7 @@ type frequencyRow struct {
 	Placement string
 	Spec      string
 	Volume    string
+	Rules     []string // each rule of the spec with what it requires of the lift
 	Tests     int
 	Required  int
 	Shortfall int
@@ -117,7 +140,10 @@ func (s *Server) frequency(w http.ResponseWriter, r *http.Request, v *view) erro
 	var rows []frequencyRow
 	for _, f := range v.st.Frequency(v.project) {
 		fr := frequencyRow{Placement: placementName(f.Placement), Spec: cmp.Or(names[f.SpecID], shortID(f.SpecID)),
-			Volume: v.u.show(soil.Volume, f.Placement.CompactedVolume), Tests: f.Tests, Required: f.Required, Shortfall: f.Shortfall, Class: "pass"}
+			Volume: v.u.show(soil.Volume, f.Placement.CompactedVolume), Tests: f.Taken, Required: f.Required, Shortfall: f.Shortfall, Class: "pass"}
+		for _, ru := range f.Rules {
+			fr.Rules = append(fr.Rules, v.ruleWords(ru))
+		}
 		if f.Shortfall > 0 {
 			fr.Class = "fail"
 		}
@@ -269,4 +295,24 @@ func tonnes(u units, kg float64) string {
 		return fixed(kg/(2000*soil.Pound), 0) + " tons (2000 lb)"
 	}
 	return fixed(kg/1000, 0) + " t"
+}
+
+// ruleWords writes a frequency rule and what it asks of the lift.
+func (v *view) ruleWords(r client.FrequencyRule) string {
+	var words string
+	switch r.Kind {
+	case client.PerVolume:
+		words = "1 per " + v.u.show(soil.Volume, r.Per)
+	case client.PerArea:
+		f := v.u.sys.FromSI(soil.Length, 1)
+		words = fmt.Sprintf("1 per %.0f %s2", r.Per*f*f, v.u.sys.Unit(soil.Length))
+	case client.PerLength:
+		words = "1 per " + v.u.show(soil.Length, r.Per)
+	default:
+		words = fmt.Sprintf("%.0f per lift", r.Per)
+	}
+	if !r.Applies {
+		return words + ": does not apply (" + r.Why + ")"
+	}
+	return fmt.Sprintf("%s: %d", words, r.Required)
 }

@@ -550,3 +550,26 @@ func TestWebVisible(t *testing.T) {
 		}
 	}
 }
+
+// The audit page lists the audit's findings with the entries they rest
+// on: here the correction that turned the third test's failure (6.11 lb of
+// soil from the hole) into a pass (8.11 lb), with its reason escaped.
+func TestWebAuditFindings(t *testing.T) {
+	f := newFixture(t)
+	_, ts := serve(t, f)
+	code, body := get(t, ts.URL+"/audit")
+	if code != http.StatusOK {
+		t.Fatalf("GET /audit: %d", code)
+	}
+	i := strings.Index(body, "correction turned a fail into a pass")
+	if i < 0 {
+		t.Fatalf("the audit page lacks the correction finding:\n%s", body)
+	}
+	row := body[i:min(len(body), i+2000)]
+	if !strings.Contains(row, shortID(f.fixed)) || !strings.Contains(row, "soil mass typed as 6.11 lb") || strings.Contains(row, "<script>") {
+		t.Errorf("the finding's row does not name test %s and its reason, escaped:\n%s", shortID(f.fixed), row)
+	}
+	if !strings.Contains(body, "retest a failure within 48h0m0s, within 32.81 ft of it") {
+		t.Errorf("the audit page does not state the project's retest rules (the defaults: 48 h, 10 m)")
+	}
+}
