@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"path/filepath"
+	"slices"
 	"strings"
 	"sync"
 	"testing"
@@ -222,6 +223,40 @@ func TestClockSkewFlagged(t *testing.T) {
 		if _, ok := skews[tt.Current]; !ok {
 			t.Errorf("fay's test %s not flagged", tt.ID)
 		}
+	}
+
+	// Another device that pulls fay's entries learns their skew with them,
+	// and its audit reports each, as the server's does.
+	syncOK(t, ok, c.conn(""), project)
+	offline, err := ok.AuditFindings(ctx, project)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var got []string
+	for _, f := range offline {
+		if f.Code == "clock_skew" {
+			if len(f.Entries) != 1 || skews[f.Entries[0]] == 0 || !strings.Contains(f.Message, "ahead") {
+				t.Errorf("finding %+v, want one of fay's entries, ahead", f)
+			}
+			got = append(got, f.Entries...)
+		}
+	}
+	rctx, err := ok.CallContext(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	audit, err := pb.NewLedgerReadServiceClient(c.conn("")).GetRetestAudit(rctx, &pb.GetRetestAuditRequest{ProjectId: project})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var online []string
+	for _, f := range audit.GetFindings() {
+		if f.GetCode() == "clock_skew" {
+			online = append(online, f.GetEntries()...)
+		}
+	}
+	if len(got) != 2 || !slices.Equal(got, online) {
+		t.Errorf("clock-skew findings on gus's device %v, on the server %v; want fay's 2 on both", got, online)
 	}
 }
 
