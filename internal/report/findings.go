@@ -5,11 +5,13 @@ import (
 	"fmt"
 	"math"
 	"slices"
+	"strconv"
 	"strings"
 	"time"
 
 	"tamp/internal/ledger"
 	"tamp/internal/qc"
+	"tamp/internal/soil"
 )
 
 // AuditOptions says when and with what the audit runs.
@@ -120,10 +122,21 @@ const (
 // the project's specifications and local codes govern what must be done
 // about each one.
 func Findings(p *ledger.Projection, o AuditOptions) []Finding {
-	a := audit{p: p, o: o}
+	a := audit{p: p, o: o, loc: time.UTC, sys: soil.SI, names: map[string]string{}}
 	var su *ledger.ProjectSetUp
 	if s := p.SetUp(); s != nil {
 		su = &s.ProjectSetUp
+		if l, err := time.LoadLocation(s.TimeZone); err == nil {
+			a.loc = l
+		}
+		if s.Units == soil.US {
+			a.sys = soil.US
+		}
+	}
+	for _, d := range p.Devices() {
+		if d.UserName != "" {
+			a.names[d.UserID] = d.UserName
+		}
 	}
 	a.within, a.distance = su.RetestWithinOrDefault(), su.RetestDistanceOrDefault()
 	for _, t := range p.Tests() {
@@ -154,6 +167,9 @@ type audit struct {
 	within   time.Duration
 	distance float64
 	out      []located
+	loc      *time.Location    // the project's time zone
+	sys      soil.System       // the project's units
+	names    map[string]string // user id -> name, from the ledger's introductions
 }
 
 func (a *audit) add(at *ledger.Test, code FindingCode, testID, msg string, entries ...string) {
@@ -205,7 +221,7 @@ func (a *audit) notRetested(t *ledger.Test) {
 	}
 	a.add(t, FailureNotRetested, t.ID, fmt.Sprintf(
 		"test %s failed (relative compaction %.1f %%) at %s by its device's clock and is still open %s later, as of %s: no passing retest, no QA exception, not voided; the project's retest window is %s",
-		shortRef(t.ID), t.Result.RelativeCompaction, stamp(t.DeviceTime), span(age.Round(time.Minute)), stamp(a.o.AsOf), span(a.within)),
+		shortRef(t.ID), t.Result.RelativeCompaction, a.stamp(t.DeviceTime), span(age.Round(time.Minute)), a.stamp(a.o.AsOf), span(a.within)),
 		recording(t))
 }
 
@@ -245,8 +261,8 @@ func (a *audit) retest(r, orig *ledger.Test) {
 	if !r.Voided() {
 		d, basis := separation(orig.Content.Location, r.Content.Location)
 		if d > a.distance {
-			a.add(r, RetestAwayFromFailure, r.ID, fmt.Sprintf("retest %s is %.1f m from test %s, which it retests (%s), beyond the project's retest distance of %.1f m",
-				shortRef(r.ID), d, shortRef(orig.ID), basis, a.distance), entries()...)
+			a.add(r, RetestAwayFromFailure, r.ID, fmt.Sprintf("retest %s is %s from test %s, which it retests (%s), beyond the project's retest distance of %s",
+				shortRef(r.ID), a.dist(d), shortRef(orig.ID), basis, a.dist(a.distance)), entries()...)
 		}
 	}
 	lr, lo := a.liftOf(r.Content), a.liftOf(orig.Content)
@@ -258,10 +274,10 @@ func (a *audit) retest(r, orig *ledger.Test) {
 	}
 	var before []string
 	if r.HLC.Compare(orig.HLC) < 0 {
-		before = append(before, fmt.Sprintf("hybrid time %s, before %s", hlcStamp(r.HLC), hlcStamp(orig.HLC)))
+		before = append(before, fmt.Sprintf("hybrid time %s, before %s", a.hlcStamp(r.HLC), a.hlcStamp(orig.HLC)))
 	}
 	if r.DeviceTime.Before(orig.DeviceTime) {
-		before = append(before, fmt.Sprintf("device time %s, before %s", stamp(r.DeviceTime), stamp(orig.DeviceTime)))
+		before = append(before, fmt.Sprintf("device time %s, before %s", a.stamp(r.DeviceTime), a.stamp(orig.DeviceTime)))
 	}
 	if len(before) > 0 {
 		a.add(r, RetestBeforeOriginal, r.ID, fmt.Sprintf("retest %s%s is dated before test %s, which it retests: %s",
@@ -269,7 +285,7 @@ func (a *audit) retest(r, orig *ledger.Test) {
 	}
 	if orig.Result.Verdict == qc.Pass {
 		a.add(r, PassingTestRetested, r.ID, fmt.Sprintf("retest %s%s by %s retests test %s, which passed (relative compaction %.1f %%)",
-			shortRef(r.ID), voided, r.Author, shortRef(orig.ID), orig.Result.RelativeCompaction), entries()...)
+			shortRef(r.ID), voided, a.who(r.Author), shortRef(orig.ID), orig.Result.RelativeCompaction), entries()...)
 	}
 }
 
@@ -344,13 +360,13 @@ func (a *audit) voidedFailure(t *ledger.Test, grades map[string]qc.Result) {
 		if role == roleQA {
 			return
 		}
-		others = append(others, fmt.Sprintf("%s (%s)", x.Author, roleWords(role)))
+		others = append(others, fmt.Sprintf("%s (%s)", a.who(x.Author), roleWords(role)))
 	}
 	entries := []string{recording(t)}
 	var voids []string
 	for _, v := range t.Voids {
 		entries = append(entries, v.EventID)
-		voids = append(voids, fmt.Sprintf("by %s (%q)", v.Author, v.Reason))
+		voids = append(voids, fmt.Sprintf("by %s (%q)", a.who(v.Author), v.Reason))
 	}
 	msg := fmt.Sprintf("test %s graded fail and was voided %s, and no QA manager accepted an exception for it",
 		shortRef(t.ID), strings.Join(voids, " and "))
@@ -371,11 +387,11 @@ func (a *audit) corrections(t *ledger.Test, grades map[string]qc.Result) {
 		}
 		device := " at"
 		if ev, ok := a.p.Event(r.EventID); ok {
-			device = fmt.Sprintf(" at %s by the device's clock,", stamp(ev.Event.DeviceTime))
+			device = fmt.Sprintf(" at %s by the device's clock,", a.stamp(ev.Event.DeviceTime))
 		}
 		a.add(t, CorrectionTurnedFailIntoPass, t.ID, fmt.Sprintf(
 			"test %s: the correction by %s%s hybrid time %s, turned a fail (relative compaction %.1f %%) into a pass (%.1f %%); reason given: %q",
-			shortRef(t.ID), r.Author, device, hlcStamp(r.HLC), was.RelativeCompaction, now.RelativeCompaction, r.Reason),
+			shortRef(t.ID), a.who(r.Author), device, a.hlcStamp(r.HLC), was.RelativeCompaction, now.RelativeCompaction, r.Reason),
 			r.Supersedes, r.EventID)
 	}
 }
@@ -399,7 +415,7 @@ func (a *audit) reviewers(t *ledger.Test) {
 			who = "whose role on the project then was " + role
 		}
 		a.add(t, ReviewerNotOfficeOrQA, t.ID, fmt.Sprintf("test %s was %s at %s by %s, %s",
-			shortRef(t.ID), decision, hlcStamp(rv.HLC), rv.Author, who), entries...)
+			shortRef(t.ID), decision, a.hlcStamp(rv.HLC), a.who(rv.Author), who), entries...)
 	}
 }
 
@@ -454,7 +470,8 @@ func (a *audit) clockSkews() {
 			about = " about test " + shortRef(testID)
 		}
 		a.add(at, ClockSkew, testID, fmt.Sprintf("device clock %s %s the server's: entry %s (%s%s) by %s from device %s, dated %s by that clock",
-			span(d.Round(time.Second)), side, shortRef(e.ID), e.Kind.KindName(), about, e.Author, e.Device, stamp(e.DeviceTime)), e.ID)
+			span(d.Round(time.Second)), side, shortRef(e.ID), strings.ReplaceAll(e.Kind.KindName(), "_", " "), about, a.who(e.Author), a.device(e.Device),
+			a.stamp(e.DeviceTime)), e.ID)
 	}
 }
 
@@ -470,12 +487,43 @@ func shortRef(id string) string {
 	return id[len(id)-8:]
 }
 
-func stamp(t time.Time) string { return t.UTC().Format(time.RFC3339) }
+// stamp writes a time in the project's time zone, to the minute.
+func (a *audit) stamp(t time.Time) string { return t.In(a.loc).Format("2006-01-02 15:04 MST") }
 
-func hlcStamp(h ledger.HLC) string { return stamp(time.UnixMicro(h.Wall)) }
+func (a *audit) hlcStamp(h ledger.HLC) string { return a.stamp(time.UnixMicro(h.Wall)) }
 
-// span says a duration without its zero tail: 48h, 50h30m, 7m12s.
+// dist writes a distance (m) in the project's length unit at 0.1.
+func (a *audit) dist(m float64) string {
+	return strconv.FormatFloat(math.Round(a.sys.FromSI(soil.Length, m)*10)/10, 'f', 1, 64) + " " + a.sys.Unit(soil.Length)
+}
+
+// who names a user as the ledger's introductions of their devices do, or
+// by the short id when none does.
+func (a *audit) who(user string) string {
+	if n := a.names[user]; n != "" {
+		return n
+	}
+	return "user " + shortRef(user)
+}
+
+// device names a device as the ledger introduced it, or by its short id.
+func (a *audit) device(id string) string {
+	if d, ok := a.p.Device(id); ok && d.Name != "" {
+		return fmt.Sprintf("%q", d.Name)
+	}
+	return shortRef(id)
+}
+
+// span says a duration in days and hours from three days on (9 d 18 h),
+// else without its zero tail: 48h, 50h30m, 7m12s.
 func span(d time.Duration) string {
+	if d.Abs() >= 72*time.Hour {
+		days, hours := int(d.Abs()/(24*time.Hour)), int(d.Abs()%(24*time.Hour)/time.Hour)
+		if hours == 0 {
+			return fmt.Sprintf("%d d", days)
+		}
+		return fmt.Sprintf("%d d %d h", days, hours)
+	}
 	s := d.Abs().String()
 	if strings.HasSuffix(s, "m0s") {
 		s = s[:len(s)-2]

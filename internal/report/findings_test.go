@@ -111,7 +111,7 @@ func TestFindingsFailureNotRetested(t *testing.T) {
 			t.Errorf("at 48h: %+v, want none", got)
 		}
 		checkFindings(t, Findings(s.p, AuditOptions{AsOf: taken.Add(48*time.Hour + time.Minute)}), FailureNotRetested,
-			wantFinding{f, []string{fe.Event.ID}, []string{shortRef(f), "89.0 %", "48h1m later", "retest window is 48h", taken.Format(time.RFC3339)}})
+			wantFinding{f, []string{fe.Event.ID}, []string{shortRef(f), "89.0 %", "48h1m later", "retest window is 48h", taken.Format(auditStamp)}})
 		// The project's own window, 24 h, replaces the default.
 		s.add("admin", &ledger.ProjectSetUp{Name: "Tern Hollow spur", Units: soil.SI, RetestWithin: 24 * time.Hour})
 		checkFindings(t, Findings(s.p, AuditOptions{AsOf: taken.Add(24*time.Hour + time.Minute)}), FailureNotRetested,
@@ -247,8 +247,8 @@ func TestFindingsRetestBeforeOriginal(t *testing.T) {
 	r1, r1e := retest(t0.Add(2*time.Hour), t0.Add(-10*time.Minute))
 	r2, r2e := retest(t0.Add(-time.Second), t0.Add(3*time.Hour))
 	checkFindings(t, Findings(s.p, AuditOptions{}), RetestBeforeOriginal,
-		wantFinding{r2, []string{fe.Event.ID, r2e.Event.ID}, []string{"hybrid time " + t0.Add(-time.Second).Format(time.RFC3339) + ", before " + t0.Format(time.RFC3339)}},
-		wantFinding{r1, []string{fe.Event.ID, r1e.Event.ID}, []string{"device time " + t0.Add(-10*time.Minute).Format(time.RFC3339) + ", before " + t0.Format(time.RFC3339)}})
+		wantFinding{r2, []string{fe.Event.ID, r2e.Event.ID}, []string{"hybrid time " + t0.Add(-time.Second).Format(auditStamp) + ", before " + t0.Format(auditStamp)}},
+		wantFinding{r1, []string{fe.Event.ID, r1e.Event.ID}, []string{"device time " + t0.Add(-10*time.Minute).Format(auditStamp) + ", before " + t0.Format(auditStamp)}})
 }
 
 func TestFindingsPassingTestRetested(t *testing.T) {
@@ -258,7 +258,7 @@ func TestFindingsPassingTestRetested(t *testing.T) {
 	f, _ := s.auditRecord(s.auditContent(failDry, 200), "")
 	s.auditRecord(s.auditContent(passDry, 200), f) // retest of a failure: none
 	checkFindings(t, Findings(s.p, AuditOptions{}), PassingTestRetested,
-		wantFinding{r, []string{pe.Event.ID, re.Event.ID}, []string{"retest " + shortRef(r) + " by ann", "test " + shortRef(p) + ", which passed (relative compaction 95.8 %)"}})
+		wantFinding{r, []string{pe.Event.ID, re.Event.ID}, []string{"retest " + shortRef(r) + " by user ann", "test " + shortRef(p) + ", which passed (relative compaction 95.8 %)"}})
 }
 
 func TestFindingsFailureVoidedWithoutAcceptance(t *testing.T) {
@@ -297,8 +297,8 @@ func TestFindingsFailureVoidedWithoutAcceptance(t *testing.T) {
 	v7 := void(f7)
 
 	checkFindings(t, Findings(s.p, AuditOptions{}), FailureVoidedWithoutAcceptance,
-		wantFinding{f1, []string{f1e.Event.ID, v1.Event.ID}, []string{shortRef(f1), `voided by ann ("wrong lift")`, "no QA manager accepted"}},
-		wantFinding{f3, []string{f3e.Event.ID, v3.Event.ID}, []string{"accepted by office (office) was not by QA"}},
+		wantFinding{f1, []string{f1e.Event.ID, v1.Event.ID}, []string{shortRef(f1), `voided by user ann ("wrong lift")`, "no QA manager accepted"}},
+		wantFinding{f3, []string{f3e.Event.ID, v3.Event.ID}, []string{"accepted by user office (office) was not by QA"}},
 		wantFinding{f4, []string{f4e.Event.ID, v4.Event.ID}, nil},
 		wantFinding{f7, []string{f7e.Event.ID, v7.Event.ID}, []string{"kim (no role recorded)"}})
 }
@@ -321,9 +321,9 @@ func TestFindingsCorrectionTurnedFailIntoPass(t *testing.T) {
 	c4a := correct(f4, f4e, 110, "moisture")
 	c4b := correct(f4, c4a, passDry, "moisture again")
 
-	when := c1.Event.DeviceTime.UTC().Format(time.RFC3339)
+	when := c1.Event.DeviceTime.UTC().Format(auditStamp)
 	checkFindings(t, Findings(s.p, AuditOptions{}), CorrectionTurnedFailIntoPass,
-		wantFinding{f1, []string{f1e.Event.ID, c1.Event.ID}, []string{"correction by ann at " + when + " by the device's clock", "hybrid time " + when,
+		wantFinding{f1, []string{f1e.Event.ID, c1.Event.ID}, []string{"correction by user ann at " + when + " by the device's clock", "hybrid time " + when,
 			"fail (relative compaction 89.0 %) into a pass (95.8 %)", `"soil mass was 8.71 lb, not 8.11"`}},
 		wantFinding{f4, []string{c4a.Event.ID, c4b.Event.ID}, []string{"fail (relative compaction 93.2 %) into a pass (95.8 %)", `"moisture again"`}})
 }
@@ -360,8 +360,8 @@ func TestFindingsClockSkew(t *testing.T) {
 		id():          1e9,               // an entry this replica does not hold: none
 	}
 	checkFindings(t, Findings(s.p, AuditOptions{Skews: skews}), ClockSkew,
-		wantFinding{f, []string{fe.Event.ID}, []string{"device clock 7m12s ahead of the server's", "(test_recorded about test " + shortRef(f) + ") by ann from device dev-ann"}},
-		wantFinding{"", []string{spec.Event.ID}, []string{"device clock 10m behind the server's", "(spec_defined) by qa from device dev-qa"}})
+		wantFinding{f, []string{fe.Event.ID}, []string{"device clock 7m12s ahead of the server's", "(test recorded about test " + shortRef(f) + ") by user ann from device dev-ann"}},
+		wantFinding{"", []string{spec.Event.ID}, []string{"device clock 10m behind the server's", "(spec defined) by user qa from device dev-qa"}})
 }
 
 func TestFindingsReviewerNotOfficeOrQA(t *testing.T) {
@@ -381,9 +381,9 @@ func TestFindingsReviewerNotOfficeOrQA(t *testing.T) {
 	s.enrol("kim", "office", kimDevice) // kim moves to the office
 	review("kim")                       // none: office by now
 	checkFindings(t, Findings(s.p, AuditOptions{}), ReviewerNotOfficeOrQA,
-		wantFinding{test, []string{byAnn.Event.ID, annIntro.Event.ID}, []string{"approved", "by ann, whose role on the project then was inspector"}},
-		wantFinding{test, []string{byBob.Event.ID}, []string{"by bob, who had no role recorded on the project then"}},
-		wantFinding{test, []string{byKim.Event.ID, kimIntro.Event.ID}, []string{"by kim, whose role on the project then was inspector"}})
+		wantFinding{test, []string{byAnn.Event.ID, annIntro.Event.ID}, []string{"approved", "by user ann, whose role on the project then was inspector"}},
+		wantFinding{test, []string{byBob.Event.ID}, []string{"by user bob, who had no role recorded on the project then"}},
+		wantFinding{test, []string{byKim.Event.ID, kimIntro.Event.ID}, []string{"by user kim, whose role on the project then was inspector"}})
 }
 
 // Findings come in the order of the tests they concern, then by code; an
@@ -417,5 +417,43 @@ func TestFindingsOrder(t *testing.T) {
 	}
 	if len(FindingTitle) != 10 {
 		t.Errorf("%d titles, want one per code (10)", len(FindingTitle))
+	}
+}
+
+// auditStamp is how findings write a time (in the project's zone; these
+// projects set none, so UTC).
+const auditStamp = "2006-01-02 15:04 MST"
+
+// Findings speak the project's language: distances in its units, times in
+// its zone, people by the names the ledger introduces them with. In a US
+// project on Denver time: a retest 20 m (65.6 ft) from its failure, against
+// the default 10 m (32.8 ft); a retest of a passing test by Ann Ruiz; a
+// failure left open, recorded at 15:xx UTC, which is 09:xx MDT.
+func TestFindingsSpeakTheProjectsLanguage(t *testing.T) {
+	s := newSite(t)
+	s.add("admin", &ledger.ProjectSetUp{Name: "units", Units: soil.US, TimeZone: "America/Denver"})
+	pub, _, _ := ed25519.GenerateKey(nil)
+	s.add("server", &ledger.DeviceEnrolled{DeviceID: id(), UserID: "ann", UserName: "Ann Ruiz", PublicKey: pub, Role: "inspector", Enrolled: s.clock})
+	f, _ := s.auditRecord(s.auditContent(failDry, 100), "")
+	s.auditRecord(s.auditContent(passDry, 120), f)
+	p, _ := s.auditRecord(s.auditContent(passDry, 300), "")
+	s.auditRecord(s.auditContent(passDry, 300), p)
+	g, _ := s.auditRecord(s.auditContent(failDry, 500), "")
+	msgs := map[FindingCode]string{}
+	for _, fd := range Findings(s.p, AuditOptions{AsOf: s.clock.Add(100 * time.Hour)}) {
+		if fd.TestID != g || fd.Code == FailureNotRetested {
+			msgs[fd.Code] = fd.Message
+		}
+	}
+	for code, want := range map[FindingCode][]string{
+		RetestAwayFromFailure: {"is 65.6 ft from test", "retest distance of 32.8 ft"},
+		PassingTestRetested:   {"by Ann Ruiz retests test " + shortRef(p)},
+		FailureNotRetested:    {"at 2026-07-01 09:", " MDT by its device's clock", "still open 4 d 4 h later"},
+	} {
+		for _, w := range want {
+			if !strings.Contains(msgs[code], w) {
+				t.Errorf("%s: message %q lacks %q", code, msgs[code], w)
+			}
+		}
 	}
 }

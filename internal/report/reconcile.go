@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"math"
 	"slices"
+	"strings"
 
 	"gonum.org/v1/gonum/stat"
 	"gonum.org/v1/gonum/stat/distuv"
@@ -219,7 +220,10 @@ func Reconcile(p *ledger.Projection) ([]Balance, error) {
 		if b.Remaining == 0 {
 			return
 		}
-		f, k := b.FillDensity, b.BankDensity
+		f, k := b.FillDensity, Mean{}
+		if bank != nil {
+			k = meanOf(bank.BankDryDensities)
+		}
 		switch {
 		case f.N == 0:
 			b.Notes = append(b.Notes, "no final test yet: the bank volume still needed is unknown")
@@ -261,19 +265,24 @@ func Reconcile(p *ledger.Projection) ([]Balance, error) {
 		a := byFeature[n]
 		fill(&b, a)
 		d, designed := design[n]
-		var bank *ledger.BorrowSource
+		// The bank volume taken is at the density of the source the lifts
+		// came from (when they came from one); the volume still needed at
+		// the planned source's, or that one's when the design names none.
+		var placedFrom *ledger.BorrowSource
+		if a != nil && len(a.sources) == 1 {
+			for id := range a.sources {
+				placedFrom = sources[id]
+			}
+		}
+		bank := placedFrom
 		if designed && d.BorrowSourceID != "" {
 			bank = sources[d.BorrowSourceID]
 			if bank == nil {
 				b.Notes = append(b.Notes, fmt.Sprintf("the planned borrow source %s is not on this replica", d.BorrowSourceID))
 			}
-		} else if a != nil && len(a.sources) == 1 {
-			for id := range a.sources {
-				bank = sources[id]
-			}
 		}
 		b.LooseHauled = looseByFeature[n]
-		if err := balance(&b, bank); err != nil {
+		if err := balance(&b, placedFrom); err != nil {
 			return nil, err
 		}
 		b.Source = bank
@@ -295,7 +304,11 @@ func Reconcile(p *ledger.Projection) ([]Balance, error) {
 			return nil, err
 		}
 		var weight float64
+		var unknown []string
 		for _, f := range planned[src.ID] {
+			if f.Remaining > 0 && f.StillNeeded.Estimate == 0 {
+				unknown = append(unknown, f.Name)
+			}
 			b.DesignVolume += f.DesignVolume
 			b.Remaining += f.Remaining
 			b.StillNeeded.Estimate += f.StillNeeded.Estimate
@@ -305,6 +318,10 @@ func Reconcile(p *ledger.Projection) ([]Balance, error) {
 			if f.DesignShrinkagePercent > 0 {
 				weight += f.DesignVolume
 			}
+		}
+		if len(unknown) > 0 {
+			b.Notes = append(b.Notes, fmt.Sprintf("the bank volume still needed leaves out %s, whose need is not known yet (see each feature)",
+				strings.Join(unknown, ", ")))
 		}
 		if weight > 0 {
 			b.DesignShrinkagePercent /= weight

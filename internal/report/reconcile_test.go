@@ -171,6 +171,9 @@ func TestReconcileStillNeeded(t *testing.T) {
 	near(t, "source design", pit.DesignVolume, 10500, 1e-9)
 	near(t, "source remaining", pit.Remaining, 6500, 1e-9)
 	near(t, "source still needed", pit.StillNeeded.Estimate, core.StillNeeded.Estimate, 1e-9)
+	if !hasNote(pit.Notes, "leaves out toe berm") {
+		t.Errorf("source notes %q: its still needed leaves the toe berm out and must say so", pit.Notes)
+	}
 	// Design shrinkage weighted by the design volumes of features that set one.
 	near(t, "source design shrinkage", pit.DesignShrinkagePercent, 12, 1e-9)
 	near(t, "source bank volume", pit.BankVolume, 4000*1877.5/1620, 1e-6)
