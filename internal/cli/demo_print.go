@@ -298,7 +298,7 @@ func (d *demoDay) qaReports(context.Context) error {
 		return err
 	}
 	p.f("Lots: percent within limits of relative compaction (final graded tests; Q = (mean - limit) / s)\n")
-	t = newDemoTable(p, "LIFT", "SPECIFICATION", "N", "MEAN RC", "STD DEV", "MIN RC", "Q", "PWL")
+	t = newDemoTable(p, "LIFT", "SPECIFICATION", "N", "MEAN RC", "STD DEV", "RC LIMIT", "Q", "PWL")
 	for _, l := range lots {
 		if l.N == 0 {
 			continue // no estimate of relative compaction
@@ -318,6 +318,9 @@ func (d *demoDay) qaReports(context.Context) error {
 		"LOOSE HAULED", "LOOSE EXPECTED")
 	var def string
 	for _, b := range bal {
+		if b.Scope != client.BorrowSourceScope {
+			continue
+		}
 		t.row(b.BorrowSource, demoU.show(soil.Volume, b.CompactedVolume), fmt.Sprintf("%s (%d)", demoU.show(soil.Density, b.FillDryDensity), b.Tests),
 			demoU.show(soil.Density, b.BankDryDensity), demoU.show(soil.Volume, b.BankVolume), demoValue(b.ShrinkagePercent, 1, "%"),
 			demoU.show(soil.Volume, b.LooseHauled), demoU.show(soil.Volume, b.LooseExpected))
@@ -327,6 +330,20 @@ func (d *demoDay) qaReports(context.Context) error {
 	if def != "" {
 		p.f("  Shrinkage: %s\n", escape(def))
 	}
+	p.f("\nPer feature, with the bank volume still needed for the rest of its design (range: 95 %% t-intervals on both densities)\n")
+	t = newDemoTable(p, "FEATURE", "DESIGN", "PLACED", "REMAINING", "BANK STILL NEEDED", "RANGE")
+	for _, b := range bal {
+		if b.Scope != client.FeatureScope {
+			continue
+		}
+		need, rng := "-", "-"
+		if b.StillNeeded > 0 {
+			need = demoU.show(soil.Volume, b.StillNeeded)
+			rng = demoU.num(soil.Volume, b.StillNeededLow).String() + " to " + demoU.num(soil.Volume, b.StillNeededHigh).String()
+		}
+		t.row(b.Name, demoU.show(soil.Volume, b.DesignVolume), demoU.show(soil.Volume, b.CompactedVolume), demoU.show(soil.Volume, b.RemainingVolume), need, rng)
+	}
+	t.flush()
 	p.f("\n  %s\n\n", qc.Caution)
 	return nil
 }
