@@ -2,6 +2,7 @@ package cli
 
 import (
 	"crypto/tls"
+	"crypto/x509"
 	"errors"
 	"fmt"
 	"log/slog"
@@ -15,7 +16,7 @@ import (
 // newWeb is tamp web: the office's review page over this device's store.
 func newWeb() *cobra.Command {
 	var f projectFlags
-	var listen, certFile, keyFile string
+	var listen, certFile, keyFile, clientCA string
 	c := &cobra.Command{
 		Use:   "web [--store FILE] [--listen 127.0.0.1:PORT]",
 		Short: "Serve the office's review page over this device's store, for a browser on this machine",
@@ -30,7 +31,10 @@ user and sent with the next tamp sync, as tamp review makes it. tamp sync may
 run on the same store at the same time.
 
 It listens on a loopback address (127.0.0.1, ::1 or localhost) only, unless
---listen names another address and --tls-cert and --tls-key give it TLS.
+--listen names another address, --tls-cert and --tls-key give it TLS, and
+--client-ca names the authority whose client certificates may reach it: the
+page signs reviews with this device's key, so nobody without a certificate
+may open it from another machine.
 Stop it with Ctrl+C.
 
 Nuclear gauges are licensed radioactive sources. Results support, and never
@@ -56,6 +60,20 @@ codes govern every acceptance limit.`,
 				}
 				tlsConf = &tls.Config{Certificates: []tls.Certificate{pair}, MinVersion: tls.VersionTLS12}
 			}
+			if clientCA != "" {
+				if tlsConf == nil {
+					return failf("--client-ca: client certificates need TLS: give --tls-cert and --tls-key too")
+				}
+				pem, err := os.ReadFile(clientCA)
+				if err != nil {
+					return failf("--client-ca %s: %s", quoted(clientCA), escape(err.Error()))
+				}
+				pool := x509.NewCertPool()
+				if !pool.AppendCertsFromPEM(pem) {
+					return failf("--client-ca %s: no PEM certificate in it", quoted(clientCA))
+				}
+				tlsConf.ClientCAs, tlsConf.ClientAuth = pool, tls.RequireAndVerifyClientCert
+			}
 			ss, err := f.open(ctx)
 			if err != nil {
 				return err
@@ -71,6 +89,10 @@ codes govern every acceptance limit.`,
 			if errors.Is(err, web.ErrTLSRequired) {
 				return failf("--listen %s: not a loopback address; the page is served beyond this machine only over TLS:\n"+
 					"give --tls-cert FILE and --tls-key FILE, or listen on 127.0.0.1", quoted(listen))
+			}
+			if errors.Is(err, web.ErrClientCertRequired) {
+				return failf("--listen %s: not a loopback address; the page signs reviews with this device's key, so beyond this machine it\n"+
+					"is served only to people holding a client certificate: give --client-ca FILE (the CA that issued them)", quoted(listen))
 			}
 			if err != nil {
 				return failf("--listen %s: %s", quoted(listen), escape(err.Error()))
@@ -89,5 +111,6 @@ codes govern every acceptance limit.`,
 	fl.StringVar(&listen, "listen", "127.0.0.1:8415", "the address to serve on, host:port (port 0 picks a free one); other than loopback needs TLS")
 	fl.StringVar(&certFile, "tls-cert", "", "TLS certificate (PEM), to serve on an address other than loopback")
 	fl.StringVar(&keyFile, "tls-key", "", "the certificate's private key (PEM)")
+	fl.StringVar(&clientCA, "client-ca", "", "CA certificate (PEM) whose client certificates may reach the page; required beyond loopback")
 	return c
 }

@@ -380,4 +380,8 @@ func TestWebListenRules(t *testing.T) {
 	if err == nil || !strings.Contains(err.Error(), "--tls-key") {
 		t.Errorf("tamp web with --tls-cert alone: %v, want an error naming --tls-key", err)
 	}
+	_, _, err = run(t, "web", "--store", store, "--client-ca", filepath.Join(dir, "ca.pem"))
+	if err == nil || !strings.Contains(err.Error(), "--client-ca") || !strings.Contains(err.Error(), "--tls-cert") {
+		t.Errorf("tamp web with --client-ca and no TLS: %v, want an error naming --client-ca and --tls-cert", err)
+	}
 }

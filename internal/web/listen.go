@@ -17,18 +17,31 @@ import (
 // beyond this machine only over TLS.
 var ErrTLSRequired = errors.New("web: an address other than loopback is served only over TLS")
 
+// ErrClientCertRequired is returned by Listen for an address that is not a
+// loopback address when the TLS configuration does not require and verify
+// client certificates: the page signs reviews with this device's key, so
+// beyond this machine only people holding a certificate the office issued
+// may reach it at all.
+var ErrClientCertRequired = errors.New("web: an address other than loopback is served only to clients with a verified certificate")
+
 // Listen opens the page's listener on addr (host:port; port 0 picks a free
 // one). A loopback address (127.0.0.0/8, ::1 or localhost) may be served
 // over plain HTTP; any other address, an empty host included, needs tlsConf
-// and returns ErrTLSRequired without it. With tlsConf the listener speaks
-// TLS.
+// and returns ErrTLSRequired without it, and ErrClientCertRequired unless it
+// requires and verifies client certificates (tls.RequireAndVerifyClientCert
+// with ClientCAs). With tlsConf the listener speaks TLS.
 func Listen(addr string, tlsConf *tls.Config) (net.Listener, error) {
 	host, port, err := net.SplitHostPort(addr)
 	if err != nil {
 		return nil, fmt.Errorf("web: listen %s: want host:port, e.g. 127.0.0.1:8080: %w", addr, err)
 	}
-	if tlsConf == nil && !loopbackName(host) {
-		return nil, fmt.Errorf("%w: %s", ErrTLSRequired, addr)
+	if !loopbackName(host) {
+		if tlsConf == nil {
+			return nil, fmt.Errorf("%w: %s", ErrTLSRequired, addr)
+		}
+		if tlsConf.ClientAuth != tls.RequireAndVerifyClientCert || tlsConf.ClientCAs == nil {
+			return nil, fmt.Errorf("%w: %s", ErrClientCertRequired, addr)
+		}
 	}
 	if strings.EqualFold(host, "localhost") { // what the name resolves to is not ours to trust
 		addr = net.JoinHostPort("127.0.0.1", port)

@@ -1,6 +1,15 @@
 package web
 
 import (
+	"crypto/ecdsa"
+	"crypto/elliptic"
+	"crypto/rand"
+	"crypto/tls"
+	"crypto/x509"
+	"crypto/x509/pkix"
+	"math/big"
+	"net"
+
 	"context"
 	"errors"
 	"fmt"
@@ -571,5 +580,92 @@ func TestWebAuditFindings(t *testing.T) {
 	}
 	if !strings.Contains(body, "retest a failure within 48h0m0s, within 32.81 ft of it") {
 		t.Errorf("the audit page does not state the project's retest rules (the defaults: 48 h, 10 m)")
+	}
+}
+
+// testPKI is a throwaway certificate authority with a server certificate
+// for 127.0.0.1 and a client certificate, both signed by it.
+type testPKI struct {
+	pool           *x509.CertPool
+	server, client tls.Certificate
+}
+
+func newTestPKI(t *testing.T) testPKI {
+	t.Helper()
+	key := func() *ecdsa.PrivateKey {
+		k, err := ecdsa.GenerateKey(elliptic.P256(), rand.Reader)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return k
+	}
+	caKey := key()
+	ca := &x509.Certificate{SerialNumber: big.NewInt(1), Subject: pkix.Name{CommonName: "site office CA"}, NotBefore: time.Now().Add(-time.Hour),
+		NotAfter: time.Now().Add(time.Hour), IsCA: true, BasicConstraintsValid: true, KeyUsage: x509.KeyUsageCertSign}
+	caDER, err := x509.CreateCertificate(rand.Reader, ca, ca, &caKey.PublicKey, caKey)
+	if err != nil {
+		t.Fatal(err)
+	}
+	caCert, _ := x509.ParseCertificate(caDER)
+	issue := func(serial int64, usage x509.ExtKeyUsage, ip net.IP) tls.Certificate {
+		k := key()
+		tmpl := &x509.Certificate{SerialNumber: big.NewInt(serial), Subject: pkix.Name{CommonName: "holder"}, NotBefore: time.Now().Add(-time.Hour),
+			NotAfter: time.Now().Add(time.Hour), ExtKeyUsage: []x509.ExtKeyUsage{usage}, KeyUsage: x509.KeyUsageDigitalSignature}
+		if ip != nil {
+			tmpl.IPAddresses = []net.IP{ip}
+		}
+		der, err := x509.CreateCertificate(rand.Reader, tmpl, caCert, &k.PublicKey, caKey)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return tls.Certificate{Certificate: [][]byte{der}, PrivateKey: k}
+	}
+	pool := x509.NewCertPool()
+	pool.AddCert(caCert)
+	return testPKI{pool: pool, server: issue(2, x509.ExtKeyUsageServerAuth, net.ParseIP("127.0.0.1")), client: issue(3, x509.ExtKeyUsageClientAuth, nil)}
+}
+
+// Beyond loopback the page is served only over TLS that requires a client
+// certificate from the office's authority: TLS alone is refused, and a
+// browser without a certificate cannot even read a page (so it never sees
+// the form's token), while one holding a certificate can.
+func TestWebListenBeyondLoopbackNeedsClientCertificates(t *testing.T) {
+	pki := newTestPKI(t)
+	plain := &tls.Config{Certificates: []tls.Certificate{pki.server}, MinVersion: tls.VersionTLS12}
+	if _, err := Listen("0.0.0.0:0", plain); !errors.Is(err, ErrClientCertRequired) {
+		t.Fatalf("Listen beyond loopback with TLS but no client certificates: %v, want ErrClientCertRequired", err)
+	}
+	strict := plain.Clone()
+	strict.ClientAuth, strict.ClientCAs = tls.RequireAndVerifyClientCert, pki.pool
+	ln, err := Listen("0.0.0.0:0", strict)
+	if err != nil {
+		t.Fatal(err)
+	}
+	f := newFixture(t)
+	s, err := New(Options{Store: f.path, Project: f.project, Now: func() time.Time { return fixtureNow }})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- s.Serve(ctx, ln) }()
+	defer func() { cancel(); <-done }()
+	_, port, _ := net.SplitHostPort(ln.Addr().String())
+	url := "https://127.0.0.1:" + port + "/day"
+	get := func(certs []tls.Certificate) (*http.Response, error) {
+		c := &http.Client{Timeout: 10 * time.Second, Transport: &http.Transport{TLSClientConfig: &tls.Config{RootCAs: pki.pool, Certificates: certs}}}
+		return c.Get(url)
+	}
+	if resp, err := get(nil); err == nil {
+		resp.Body.Close()
+		t.Errorf("a client without a certificate got %s", resp.Status)
+	}
+	resp, err := get([]tls.Certificate{pki.client})
+	if err != nil {
+		t.Fatalf("a client holding a certificate: %v", err)
+	}
+	resp.Body.Close()
+	if resp.StatusCode != http.StatusOK {
+		t.Errorf("a client holding a certificate got %s", resp.Status)
 	}
 }
