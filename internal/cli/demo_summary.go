@@ -1,7 +1,9 @@
 package cli
 
 import (
+	"bytes"
 	"context"
+	"encoding/json"
 	"errors"
 	"fmt"
 	"io"
@@ -293,26 +295,22 @@ func (d *demoDay) writeOutputs(ctx context.Context, dir string, kept *demoKeptOu
 	}); err != nil {
 		return err
 	}
-	lots, err := st.Lots(d.project, client.LotScope{})
-	if err != nil {
-		return err
-	}
-	balances, err := st.Reconcile(d.project)
-	if err != nil {
-		return err
-	}
-	findings, err := st.AuditFindings(ctx, d.project)
-	if err != nil {
-		return err
-	}
+	// Each report as its command's --json gives it (rounded, in the
+	// project's units, with the unit system named), in the report envelope.
 	for _, r := range []struct {
 		name string
-		v    any
+		args []string
 	}{
-		{"review_queue", st.ReviewQueue(d.project, "")}, {"retest_audit", st.RetestAudit(d.project)},
-		{"audit_findings", findings}, {"frequency", st.Frequency(d.project)}, {"lots", lots}, {"reconciliation", balances},
+		{"review_queue", []string{"review", "queue"}}, {"retest_audit", []string{"qa", "audit"}},
+		{"audit_findings", []string{"qa", "findings"}}, {"frequency", []string{"qa", "frequency"}}, {"lots", []string{"qa", "lots"}},
+		{"reconciliation", []string{"qa", "reconcile"}},
 	} {
-		if err := write(r.name+".json", func(w io.Writer) error { return exports.ReportJSON(w, r.name, r.v) }); err != nil {
+		var out, errOut bytes.Buffer
+		args := append(r.args, "--store", d.office.path, "--project", d.project, "--json")
+		if err := Run(ctx, args, &out, &errOut); err != nil {
+			return fmt.Errorf("report %s: %w %s", r.name, err, errOut.String())
+		}
+		if err := write(r.name+".json", func(w io.Writer) error { return exports.ReportJSON(w, r.name, json.RawMessage(out.Bytes())) }); err != nil {
 			return err
 		}
 	}

@@ -10,7 +10,7 @@ import (
 // when a report's layout changes in a way a reader must know of.
 const (
 	ReportSchema        = "tamp.report"
-	ReportSchemaVersion = 1
+	ReportSchemaVersion = 2
 )
 
 // report is the envelope of a report's JSON.
