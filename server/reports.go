@@ -70,7 +70,7 @@ func (pr presenter) line(t *ledger.Test) *pb.TestLine {
 		Verdict: verdictWords[r.Verdict], Reasons: findings(r.Reasons), Voided: t.Voided(), Review: string(t.ReviewStatus)}
 	if r.Verdict != qc.Pending {
 		l.RelativeCompaction = pr.percent(r.RelativeCompaction)
-		l.MoistureDeviation = &pb.Measure{Value: math.Round(r.MoistureDeviation*10) / 10, Unit: "points", Text: formatFixed(math.Round(r.MoistureDeviation*10)/10, 1) + " points"}
+		l.MoistureDeviation = tenth(r.MoistureDeviation, "points")
 	}
 	return l
 }
@@ -250,16 +250,22 @@ func (r *readService) GetLots(ctx context.Context, req *pb.GetLotsRequest) (*pb.
 			if l.AcceptancePWL > 0 {
 				row.AcceptancePwl = pr.percent(l.AcceptancePWL)
 			}
+			// Moisture is judged in the spec's basis: points of optimum, or
+			// percent of optimum.
+			moistureUnit := "points"
+			if sp, ok := p.Spec(l.SpecID); ok && sp.QC().MoistureBasis == qc.PercentOfOptimum {
+				moistureUnit = "% of optimum"
+			}
 			for _, q := range []struct {
-				name string
-				q    *report.Quality
-			}{{"relative compaction", l.Compaction}, {"moisture", l.Moisture}} {
+				name, unit string
+				q          *report.Quality
+			}{{"relative compaction", "%", l.Compaction}, {"moisture", moistureUnit, l.Moisture}} {
 				if q.q == nil {
 					continue
 				}
-				lq := &pb.LotQuality{Characteristic: q.name, Limits: limitWords(q.q), N: uint32(len(q.q.Values))}
+				lq := &pb.LotQuality{Characteristic: q.name, Limits: limitWords(q.q) + " " + q.unit, N: uint32(len(q.q.Values))}
 				if e := q.q.PWL; e != nil {
-					lq.Mean, lq.StdDev, lq.Pwl = pr.percent(e.Mean), pr.percent(e.StdDev), pr.percent(e.PWL)
+					lq.Mean, lq.StdDev, lq.Pwl = tenth(e.Mean, q.unit), tenth(e.StdDev, q.unit), pr.percent(e.PWL)
 				}
 				row.Qualities = append(row.Qualities, lq)
 			}
@@ -279,6 +285,12 @@ func (r *readService) GetLots(ctx context.Context, req *pb.GetLotsRequest) (*pb.
 		return nil, statusError(codes.InvalidArgument, reasonInvalidArgument, "", "", scopeErr.Error())
 	}
 	return resp, err
+}
+
+// tenth is a value at 0.1 in unit.
+func tenth(v float64, unit string) *pb.Measure {
+	r := math.Round(v*10) / 10
+	return &pb.Measure{Value: r, Unit: unit, Text: formatFixed(r, 1) + " " + unit}
 }
 
 // limitWords writes a quality's limits: "at least 95", "-2 to 2".

@@ -154,7 +154,7 @@ func TestReportsRoundedInProjectUnits(t *testing.T) {
 		t.Fatalf("lots %v", lots)
 	}
 	q := lots.GetLots()[0].GetQualities()[0]
-	if q.GetCharacteristic() != "relative compaction" || q.GetN() != 4 || q.GetLimits() != "at least 95" {
+	if q.GetCharacteristic() != "relative compaction" || q.GetN() != 4 || q.GetLimits() != "at least 95 %" {
 		t.Errorf("quality %v", q)
 	}
 	rounded("PWL", q.GetPwl(), 1, "%")
