@@ -83,7 +83,10 @@ func (s *Server) audit(w http.ResponseWriter, r *http.Request, v *view) error {
 	if su, ok := v.st.SetUp(v.project); ok {
 		within, far = cmp.Or(su.RetestWithin, within), cmp.Or(su.RetestDistance, far)
 	}
-	p.Within, p.Distance = within.String(), v.u.show(soil.Length, far)
+	p.Within, p.Distance = within.Round(time.Minute).String(), v.u.show(soil.Length, far)
+	if within%time.Hour == 0 {
+		p.Within = fmt.Sprintf("%d h", within/time.Hour)
+	}
 	fs, err := v.st.AuditFindings(r.Context(), v.project)
 	if err != nil {
 		return err
@@ -246,12 +249,18 @@ func (s *Server) reconciliation(w http.ResponseWriter, r *http.Request, v *view)
 		}
 		add := func(label, value string) { br.Lines = append(br.Lines, line{Label: label, Value: value}) }
 		add("compacted volume placed", vol(b.CompactedVolume))
+		spread := func(n int, what string, half float64) string {
+			if n < 2 {
+				return fmt.Sprintf("%d %s; its spread is not known from one", n, what)
+			}
+			return fmt.Sprintf("%d %ss; 95 %% interval on the mean ± %s", n, what, den(half))
+		}
 		if b.Tests > 0 {
-			add("fill dry density", fmt.Sprintf("%s (%d final tests; 95 %% interval ± %s)", den(b.FillDryDensity), b.Tests, den(b.FillHalfWidth)))
+			add("fill dry density", fmt.Sprintf("%s, volume-weighted (%s)", den(b.FillDryDensity), spread(b.Tests, "final test", b.FillHalfWidth)))
 		}
 		add("dry mass placed", tonnes(u, b.DryMass))
 		if b.BankDryDensity > 0 {
-			add("bank dry density", fmt.Sprintf("%s (%d bank tests; 95 %% interval ± %s)", den(b.BankDryDensity), b.BankTests, den(b.BankHalfWidth)))
+			add("bank dry density", fmt.Sprintf("%s (%s)", den(b.BankDryDensity), spread(b.BankTests, "bank test", b.BankHalfWidth)))
 			add("bank volume taken from borrow", vol(b.BankVolume))
 		}
 		if b.LooseHauled > 0 {
@@ -263,14 +272,23 @@ func (s *Server) reconciliation(w http.ResponseWriter, r *http.Request, v *view)
 		if b.ShrinkFactor > 0 {
 			add("shrinkage", fixed(b.ShrinkagePercent, 1)+" % (shrink factor "+fixed(b.ShrinkFactor, 3)+"; "+b.ShrinkDefinition+")")
 		}
+		if b.DesignShrinkagePercent > 0 {
+			add("shrinkage the design assumed", fixed(b.DesignShrinkagePercent, 1)+" %")
+		}
 		if b.SwellFactor > 0 {
 			add("swell", fixed(b.SwellPercent, 1)+" % (swell factor "+fixed(b.SwellFactor, 3)+"; "+b.SwellDefinition+")")
+		}
+		if b.HauledSwellPercent != 0 {
+			add("swell from the haul records", fixed(b.HauledSwellPercent, 1)+" % ((loose volume hauled - bank volume) / bank volume)")
 		}
 		if b.DesignVolume > 0 {
 			add("design compacted volume", vol(b.DesignVolume))
 			add("still to place", vol(b.RemainingVolume))
-			need := vol(b.StillNeeded)
-			if b.StillNeededHigh > 0 {
+			need := "not known yet (see the notes)"
+			if b.StillNeeded > 0 {
+				need = vol(b.StillNeeded)
+			}
+			if b.StillNeeded > 0 && b.StillNeededHigh > 0 {
 				high := vol(b.StillNeededHigh)
 				if math.IsInf(b.StillNeededHigh, 1) {
 					high = "no upper bound"

@@ -578,7 +578,7 @@ func TestWebAuditFindings(t *testing.T) {
 	if !strings.Contains(row, shortID(f.fixed)) || !strings.Contains(row, "soil mass typed as 6.11 lb") || strings.Contains(row, "<script>") {
 		t.Errorf("the finding's row does not name test %s and its reason, escaped:\n%s", shortID(f.fixed), row)
 	}
-	if !strings.Contains(body, "retest a failure within 48h0m0s, within 32.81 ft of it") {
+	if !strings.Contains(body, "retest a failure within 48 h, within 32.81 ft of it") {
 		t.Errorf("the audit page does not state the project's retest rules (the defaults: 48 h, 10 m)")
 	}
 }
