@@ -1,9 +1,12 @@
 package client
 
 import (
+	"sync"
+
 	"context"
 	"errors"
 	"fmt"
+	"github.com/google/uuid"
 	"math/rand/v2"
 	"path/filepath"
 	"testing"
@@ -411,5 +414,49 @@ func TestTwoOpenersRecordInTurn(t *testing.T) {
 	}
 	if out.Pending < 4 {
 		t.Errorf("outbox holds %d pending entries, want the four recorded", out.Pending)
+	}
+}
+
+// Two openers recording at the same time (the page's review while a command
+// records) take turns at the file's write lock: every entry is kept, each
+// with its own number.
+func TestTwoOpenersRecordAtOnce(t *testing.T) {
+	e := newEnv(t, "ines")
+	second, err := Open(context.Background(), e.path, Options{Rand: newSeeded(11)})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer second.Close()
+	const each = 15
+	errs := make(chan error, 2*each)
+	var wg sync.WaitGroup
+	for _, s := range []*Store{e.store, second} {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for i := range each {
+				_, _, err := s.recordEntry(context.Background(), e.project, &ledger.TestVoided{TestID: uuid.Must(uuid.NewV7()).String(), Reason: fmt.Sprint(i)})
+				errs <- err
+			}
+		}()
+	}
+	wg.Wait()
+	close(errs)
+	for err := range errs {
+		if err != nil {
+			t.Fatal(err)
+		}
+	}
+	third, err := Open(context.Background(), e.path, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer third.Close()
+	var n, distinct int
+	if err := third.db.Reader().QueryRow(`SELECT COUNT(*), COUNT(DISTINCT device_seq) FROM events WHERE kind = 'test_voided'`).Scan(&n, &distinct); err != nil {
+		t.Fatal(err)
+	}
+	if n != 2*each || distinct != n {
+		t.Errorf("%d entries kept with %d distinct numbers, want %d each", n, distinct, 2*each)
 	}
 }
