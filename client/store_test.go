@@ -1,16 +1,16 @@
 package client
 
 import (
-	"sync"
-
 	"context"
 	"errors"
 	"fmt"
-	"github.com/google/uuid"
 	"math/rand/v2"
 	"path/filepath"
+	"sync"
 	"testing"
 	"time"
+
+	"github.com/google/uuid"
 
 	"tamp/internal/ledger"
 	"tamp/internal/qc"
