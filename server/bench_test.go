@@ -11,9 +11,12 @@ import (
 	"testing"
 	"time"
 
+	"github.com/jackc/pgx/v5"
+
 	"tamp/internal/daemon"
 	pb "tamp/internal/gen/tamp/v1"
 	"tamp/internal/ledger"
+	"tamp/internal/pgtest"
 	"tamp/server"
 	"tamp/server/sqlitestore"
 )
@@ -27,23 +30,96 @@ const (
 // BenchmarkPush measures push throughput in events per second through the
 // real gRPC path (decode, signature check, validation, authorisation,
 // projection, append with the hash chain), and in the same run the raw
-// SQLite insert rate of the same rows in batches of the same size, and
-// reports their ratio. A crew's devices push at once, as at day's end;
-// push and raw runs alternate, so that both see the machine alike. Both
+// insert rate of the same rows in batches of the same size, and reports
+// their ratio. A crew's devices push at once, as at day's end; push and raw
+// runs alternate, so that both see the machine alike. On SQLite both
 // stores commit as tampd does by default (synchronous=FULL) or as with
-// --synchronous-normal; the process collects garbage as tampd's does.
+// --synchronous-normal, the raw rows going into a fresh store's ledger
+// table; on PostgreSQL (TAMP_TEST_POSTGRES, see internal/pgtest) the raw
+// rows are copied (COPY) into a fresh table like the ledger's, with its
+// indexes, in the same database. The process collects garbage as tampd's
+// does.
 func BenchmarkPush(b *testing.B) {
 	defer debug.SetGCPercent(daemon.TuneGC())
 	for _, mode := range []struct {
 		name string
 		opts sqlitestore.Options
 	}{{"full", sqlitestore.Options{}}, {"normal", sqlitestore.Options{SynchronousNormal: true}}} {
-		b.Run("sync="+mode.name, func(b *testing.B) { benchmarkPush(b, mode.opts) })
+		b.Run("sync="+mode.name, func(b *testing.B) {
+			benchmarkPush(b, startClusterSync(b, b.TempDir(), mode.opts), sqliteRaw(b, mode.opts))
+		})
+	}
+	b.Run("postgres", func(b *testing.B) {
+		dsn := pgtest.NewDatabase(b)
+		benchmarkPush(b, startPostgresClusterOn(b, dsn), postgresRaw(b, dsn))
+	})
+}
+
+// rawInsert inserts a batch of events straight into a ledger table, at
+// sequence numbers from first, in one transaction.
+type rawInsert func(ctx context.Context, project string, first uint64, events []ledger.Signed) error
+
+// sqliteRaw inserts into a fresh SQLite store's ledger table, row by row
+// with a prepared statement.
+func sqliteRaw(b *testing.B, mode sqlitestore.Options) rawInsert {
+	raw, err := sqlitestore.Open(context.Background(), filepath.Join(b.TempDir(), "raw.db"), mode)
+	if err != nil {
+		b.Fatal(err)
+	}
+	b.Cleanup(func() { raw.Close() })
+	rawDB := storeDB(b, raw)
+	return func(ctx context.Context, project string, first uint64, events []ledger.Signed) error {
+		if _, err := raw.Head(ctx, project); err != nil {
+			if err := raw.CreateProject(ctx, project, "bench", server.Hash(ledger.Genesis(project)), time.Now()); err != nil {
+				return err
+			}
+		}
+		return rawDB.Tx(ctx, func(tx *sql.Tx) error {
+			ins, err := tx.Prepare(`INSERT INTO ledger (project_id, seq, event_id, device_id, device_seq, kind, record_id, envelope, hash, received_micros)
+				VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`)
+			if err != nil {
+				return err
+			}
+			defer ins.Close()
+			for i, s := range events {
+				var h ledger.Hash
+				if _, err := ins.Exec(project, first+uint64(i), s.Event.ID, s.Event.Device, s.Event.DeviceSeq, "test_recorded", ledger.RecordID(s.Event.Kind), s.Bytes(), h[:], 0); err != nil {
+					return err
+				}
+			}
+			return nil
+		})
 	}
 }
 
-func benchmarkPush(b *testing.B, mode sqlitestore.Options) {
-	c := startClusterSync(b, b.TempDir(), mode)
+// postgresRaw copies into raw_ledger, a table like the ledger's (its
+// columns, keys and indexes, no foreign key) in the database dsn names.
+func postgresRaw(b *testing.B, dsn string) rawInsert {
+	ctx := context.Background()
+	conn, err := pgx.Connect(ctx, dsn)
+	if err != nil {
+		b.Fatal(err)
+	}
+	b.Cleanup(func() { conn.Close(context.Background()) })
+	if _, err := conn.Exec(ctx, `CREATE TABLE raw_ledger (LIKE ledger INCLUDING ALL)`); err != nil {
+		b.Fatal(err)
+	}
+	cols := []string{"project_id", "seq", "event_id", "device_id", "device_seq", "kind", "record_id", "envelope", "hash", "received_at"}
+	return func(ctx context.Context, project string, first uint64, events []ledger.Signed) error {
+		return pgx.BeginFunc(ctx, conn, func(tx pgx.Tx) error {
+			now := time.Now()
+			var h ledger.Hash
+			_, err := tx.CopyFrom(ctx, pgx.Identifier{"raw_ledger"}, cols, pgx.CopyFromSlice(len(events), func(i int) ([]any, error) {
+				s := events[i]
+				return []any{project, int64(first) + int64(i), s.Event.ID, s.Event.Device, int64(s.Event.DeviceSeq), "test_recorded",
+					ledger.RecordID(s.Event.Kind), s.Bytes(), h[:], now}, nil
+			}))
+			return err
+		})
+	}
+}
+
+func benchmarkPush(b *testing.B, c *cluster, raw rawInsert) {
 	ctx := context.Background()
 	project, _ := c.srv.CreateProject(ctx, "bench")
 	type batch struct {
@@ -59,16 +135,6 @@ func benchmarkPush(b *testing.B, mode sqlitestore.Options) {
 	for i := range batches {
 		batches[i] = batch{device: i % benchDevices, events: devices[i%benchDevices].tests(b, project, benchBatch)}
 	}
-	// The raw rows go straight into a fresh store's ledger table.
-	raw, err := sqlitestore.Open(ctx, filepath.Join(b.TempDir(), "raw.db"), mode)
-	if err != nil {
-		b.Fatal(err)
-	}
-	defer raw.Close()
-	if err := raw.CreateProject(ctx, project, "bench", server.Hash(ledger.Genesis(project)), time.Now()); err != nil {
-		b.Fatal(err)
-	}
-	rawDB := storeDB(b, raw)
 	sc := pb.NewSyncServiceClient(c.conn(""))
 	push := func(round []batch) {
 		var wg sync.WaitGroup
@@ -97,26 +163,14 @@ func benchmarkPush(b *testing.B, mode sqlitestore.Options) {
 	var n uint64 // raw rows inserted
 	insert := func(round []batch) {
 		for _, bt := range round {
-			err := rawDB.Tx(ctx, func(tx *sql.Tx) error {
-				ins, err := tx.Prepare(`INSERT INTO ledger (project_id, seq, event_id, device_id, device_seq, kind, record_id, envelope, hash, received_micros)
-					VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`)
-				if err != nil {
-					return err
-				}
-				defer ins.Close()
-				for _, s := range bt.events {
-					n++
-					var h ledger.Hash
-					if _, err := ins.Exec(project, n, s.Event.ID, s.Event.Device, s.Event.DeviceSeq, "test_recorded", ledger.RecordID(s.Event.Kind), s.Bytes(), h[:], 0); err != nil {
-						return err
-					}
-				}
-				return nil
-			})
-			if err != nil {
+			if err := raw(ctx, project, n+1, bt.events); err != nil {
 				b.Fatal(err)
 			}
+			n += uint64(len(bt.events))
 		}
+	}
+	if err := raw(ctx, project, 1, nil); err != nil { // creates the raw project before the clock starts
+		b.Fatal(err)
 	}
 	b.ResetTimer()
 	var pushWall, pushCPU, rawWall time.Duration

@@ -21,11 +21,18 @@ import (
 	"tamp/server/sqlitestore"
 )
 
-// cluster is a real server on 127.0.0.1:0 over a temporary data directory.
+// closingStore is a store the cluster opens and closes.
+type closingStore interface {
+	server.Store
+	Close() error
+}
+
+// cluster is a real server on 127.0.0.1:0 over a temporary data directory
+// (or over the store openStore opens).
 type cluster struct {
 	tb      testing.TB
 	dir     string
-	store   *sqlitestore.Store
+	store   closingStore
 	srv     *server.Server
 	g       *grpc.Server
 	addr    string
@@ -37,6 +44,9 @@ type cluster struct {
 	wrap    func(server.Store) server.Store // stands between server and store when set
 	now     func() time.Time                // the server's clock; time.Now when nil
 	opts    func(*server.Options)           // adjusts the server's options when set
+	// openStore opens the store at each start when set; the SQLite file
+	// ledger.db in dir otherwise.
+	openStore func() (closingStore, error)
 }
 
 func hashOf(secret string) []byte {
@@ -59,7 +69,13 @@ func startClusterSync(t testing.TB, dir string, storage sqlitestore.Options) *cl
 
 func (c *cluster) start(addr string) {
 	c.tb.Helper()
-	st, err := sqlitestore.Open(context.Background(), filepath.Join(c.dir, "ledger.db"), c.storage)
+	var st closingStore
+	var err error
+	if c.openStore != nil {
+		st, err = c.openStore()
+	} else {
+		st, err = sqlitestore.Open(context.Background(), filepath.Join(c.dir, "ledger.db"), c.storage)
+	}
 	if err != nil {
 		c.tb.Fatal(err)
 	}

@@ -9,9 +9,11 @@ import (
 	"io"
 	"log/slog"
 	"net"
+	"net/url"
 	"os"
 	"path/filepath"
 	"runtime/debug"
+	"strings"
 	"time"
 
 	"github.com/spf13/cobra"
@@ -21,6 +23,7 @@ import (
 	"google.golang.org/grpc/reflection"
 
 	"tamp/server"
+	"tamp/server/pgstore"
 	"tamp/server/sqlitestore"
 )
 
@@ -70,7 +73,8 @@ const (
 )
 
 type serveFlags struct {
-	data, listen      string
+	data, store       string
+	listen            string
 	tlsCert, tlsKey   string
 	insecure          bool
 	logFormat         string
@@ -81,45 +85,41 @@ func newServe(stdout, stderr io.Writer) *cobra.Command {
 	var f serveFlags
 	c := &cobra.Command{
 		Use:   "serve",
-		Short: "Serve the sync and administration services over a data directory",
+		Short: "Serve the sync and administration services over a data directory or a PostgreSQL database",
 		Long: `Serve the sync and administration services of the project ledgers kept in the
-data directory (created if missing). Plain gRPC is allowed on a loopback
+data directory (created if missing), or with --store in a PostgreSQL database,
+which several tampd may share. Plain gRPC is allowed on a loopback
 address; any other address needs --tls-cert and --tls-key, or --insecure.
 SIGINT or SIGTERM stops the server after the calls in flight have finished.`,
 		Args: cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, _ []string) error { return serve(cmd.Context(), f, stdout, stderr) },
 	}
 	fl := c.Flags()
-	fl.StringVar(&f.data, "data", "", "data directory (required)")
+	fl.StringVar(&f.data, "data", "", "data directory: the ledger in its SQLite file ledger.db (this or --store)")
+	fl.StringVar(&f.store, "store", "", "PostgreSQL database URL, postgres://USER@HOST:5432/DB (this or --data)")
 	fl.StringVar(&f.listen, "listen", "127.0.0.1:7420", "address to listen on")
 	fl.StringVar(&f.tlsCert, "tls-cert", "", "TLS certificate file (PEM)")
 	fl.StringVar(&f.tlsKey, "tls-key", "", "TLS private key file (PEM)")
 	fl.BoolVar(&f.insecure, "insecure", false, "allow plain gRPC on a non-loopback address (warned on every start)")
 	fl.StringVar(&f.logFormat, "log-format", "json", "log format: json or text")
-	fl.BoolVar(&f.synchronousNormal, "synchronous-normal", false, "use synchronous=NORMAL (faster; may lose the last writes on power loss)")
-	_ = c.MarkFlagRequired("data")
+	fl.BoolVar(&f.synchronousNormal, "synchronous-normal", false, "with --data: use synchronous=NORMAL (faster; may lose the last writes on power loss)")
 	return c
 }
 
 func newInit(stdout io.Writer) *cobra.Command {
-	var data, admin string
+	var data, store, admin string
 	var codeOnly bool
 	c := &cobra.Command{
 		Use:   "init",
-		Short: "Create a server's data directory and its first administrator",
-		Long: `Create the ledger in the data directory and a first administrator, and print a
-one-time code that enrols the administrator's device (tamp enroll). Everything
-after that is done from tamp admin. init refuses a data directory that already
-has users.`,
+		Short: "Create a server's data directory (or PostgreSQL schema) and its first administrator",
+		Long: `Create the ledger in the data directory, or with --store in a PostgreSQL
+database (which must exist; init creates the tables), and a first
+administrator, and print a one-time code that enrols the administrator's
+device (tamp enroll). Everything after that is done from tamp admin. init
+refuses a ledger that already has users.`,
 		Args: cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, _ []string) error {
-			if data == "" {
-				return fmt.Errorf("--data: is required")
-			}
-			if err := os.MkdirAll(data, 0o700); err != nil {
-				return fmt.Errorf("--data: %w", err)
-			}
-			st, err := sqlitestore.Open(cmd.Context(), filepath.Join(data, "ledger.db"), sqlitestore.Options{})
+			st, _, err := openStore(cmd.Context(), data, store, false)
 			if err != nil {
 				return err
 			}
@@ -138,10 +138,57 @@ has users.`,
 			return nil
 		},
 	}
-	c.Flags().StringVar(&data, "data", "", "data directory (required)")
+	c.Flags().StringVar(&data, "data", "", "data directory: the ledger in its SQLite file ledger.db (this or --store)")
+	c.Flags().StringVar(&store, "store", "", "PostgreSQL database URL, postgres://USER@HOST:5432/DB (this or --data)")
 	c.Flags().StringVar(&admin, "admin", "administrator", "the first administrator's name")
 	c.Flags().BoolVar(&codeOnly, "code-only", false, "print only the enrolment code, for scripts")
 	return c
+}
+
+// closingStore is a store tampd opens and closes.
+type closingStore interface {
+	server.Store
+	Close() error
+}
+
+// openStore opens the ledger: the SQLite file ledger.db in the data
+// directory data (created if missing), or the PostgreSQL database the URL
+// store names; exactly one of them is given. It returns the store and what
+// to log of where it is (no password).
+func openStore(ctx context.Context, data, store string, synchronousNormal bool) (closingStore, string, error) {
+	switch {
+	case data != "" && store != "":
+		return nil, "", fmt.Errorf("--data and --store: give one of them, not both (--data for SQLite, --store for PostgreSQL)")
+	case store != "":
+		u, err := url.Parse(store)
+		if err != nil || (u.Scheme != "postgres" && u.Scheme != "postgresql") || u.Host == "" {
+			return nil, "", fmt.Errorf("--store: must be a PostgreSQL URL, postgres://USER@HOST:5432/DATABASE (SQLite is --data DIR)")
+		}
+		if synchronousNormal {
+			return nil, "", fmt.Errorf("--synchronous-normal: applies to SQLite (--data) only; PostgreSQL's durability is its synchronous_commit")
+		}
+		st, err := pgstore.Open(ctx, store, pgstore.Options{})
+		if err != nil {
+			return nil, "", fmt.Errorf("--store %s: %w", where(u), err)
+		}
+		return st, where(u), nil
+	case data != "":
+		if err := os.MkdirAll(data, 0o700); err != nil {
+			return nil, "", fmt.Errorf("--data: %w", err)
+		}
+		st, err := sqlitestore.Open(ctx, filepath.Join(data, "ledger.db"), sqlitestore.Options{SynchronousNormal: synchronousNormal})
+		if err != nil {
+			return nil, "", err
+		}
+		return st, data, nil
+	}
+	return nil, "", fmt.Errorf("--data or --store: one is required (--data DIR for SQLite, --store postgres://... for PostgreSQL)")
+}
+
+// where names a PostgreSQL database by its URL's host and path, leaving out
+// the user, password and parameters.
+func where(u *url.URL) string {
+	return "postgres://" + u.Host + "/" + strings.TrimPrefix(u.Path, "/")
 }
 
 func isLoopback(addr string) bool {
@@ -181,18 +228,15 @@ func serve(ctx context.Context, f serveFlags, stdout, stderr io.Writer) error {
 	case !isLoopback(f.listen):
 		log.Warn("serving plain gRPC on a non-loopback address: tokens and records cross the network unencrypted", "listen", f.listen)
 	}
-	if err := os.MkdirAll(f.data, 0o700); err != nil {
-		return fmt.Errorf("--data: %w", err)
-	}
-	st, err := sqlitestore.Open(ctx, filepath.Join(f.data, "ledger.db"), sqlitestore.Options{SynchronousNormal: f.synchronousNormal})
+	st, at, err := openStore(ctx, f.data, f.store, f.synchronousNormal)
 	if err != nil {
 		return err
 	}
 	defer st.Close()
 	srv := server.New(server.Options{Store: st, Logger: log})
 	defer srv.Close()
-	// A data directory that cannot be written (a full disk, read-only) does
-	// not stop tampd: it serves reads, reports NOT_SERVING and resumes once
+	// A store that cannot be written (a full disk, read-only) does not
+	// stop tampd: it serves reads, reports NOT_SERVING and resumes once
 	// a write succeeds.
 	if err := srv.CheckStorage(ctx); err != nil {
 		return err
@@ -214,7 +258,7 @@ func serve(ctx context.Context, f serveFlags, stdout, stderr io.Writer) error {
 		return fmt.Errorf("--listen: %w", err)
 	}
 	fmt.Fprintf(stdout, "tampd: listening on %s\n", lis.Addr())
-	log.Info("serving", "listen", lis.Addr().String(), "data", f.data, "tls", f.tlsCert != "")
+	log.Info("serving", "listen", lis.Addr().String(), "store", at, "tls", f.tlsCert != "")
 	served := make(chan error, 1)
 	go func() { served <- g.Serve(lis) }()
 	select {

@@ -23,11 +23,17 @@ import (
 // function that stops it and returns Run's error.
 func startServe(t *testing.T, args ...string) (string, func() error) {
 	t.Helper()
+	return startServeOn(t, append([]string{"--data", t.TempDir()}, args...)...)
+}
+
+// startServeOn is startServe with the store given in args.
+func startServeOn(t *testing.T, args ...string) (string, func() error) {
+	t.Helper()
 	ctx, cancel := context.WithCancel(context.Background())
 	r, w := io.Pipe()
 	done := make(chan error, 1)
 	go func() {
-		done <- Run(ctx, append([]string{"serve", "--data", t.TempDir(), "--listen", "127.0.0.1:0", "--log-format", "text"}, args...), w, io.Discard)
+		done <- Run(ctx, append([]string{"serve", "--listen", "127.0.0.1:0", "--log-format", "text"}, args...), w, io.Discard)
 		w.Close()
 	}()
 	line, err := bufio.NewReader(r).ReadString('\n')
