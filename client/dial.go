@@ -6,15 +6,19 @@ import (
 	"crypto/x509"
 	"errors"
 	"fmt"
+	"io"
 	"net"
 	"os"
 	"strings"
 	"sync"
+	"sync/atomic"
 
 	"google.golang.org/grpc"
 	"google.golang.org/grpc/codes"
 	"google.golang.org/grpc/credentials"
 	"google.golang.org/grpc/credentials/insecure"
+	"google.golang.org/grpc/encoding"
+	"google.golang.org/grpc/encoding/gzip"
 	"google.golang.org/grpc/status"
 )
 
@@ -37,9 +41,16 @@ type DialOptions struct {
 // (errors.Is ErrCertificate) instead of Unavailable, so that it is not
 // retried. A server's refusal of any call over the connection is a
 // *ServerError, as it is from the Store's methods.
+//
+// Calls over the connection are compressed with gzip, and the server
+// answers compressed. A server that cannot decompress gzip (a tampd of an
+// earlier release) refuses the first call; the connection repeats that
+// call uncompressed and sends the rest uncompressed.
 func Dial(addr string, opts DialOptions) (*grpc.ClientConn, error) {
 	var creds credentials.TransportCredentials
-	dopts := []grpc.DialOption{grpc.WithChainUnaryInterceptor(wireUnary), grpc.WithChainStreamInterceptor(wireStream)}
+	z := new(compression)
+	dopts := []grpc.DialOption{grpc.WithChainUnaryInterceptor(wireUnary, z.unary), grpc.WithChainStreamInterceptor(wireStream, z.stream),
+		grpc.WithDefaultCallOptions(grpc.UseCompressor(gzip.Name))}
 	if opts.Plaintext {
 		if !opts.AllowPlaintextRemote && !loopback(addr) {
 			return nil, fmt.Errorf("client: dial %s: plaintext is allowed only to a loopback address", addr)
@@ -164,4 +175,99 @@ func certificateProblem(err error) (CertificateProblem, bool) {
 		return CertificateInvalid, true
 	}
 	return 0, false
+}
+
+// compression is a connection's compression of requests: gzip, until a
+// server refuses it, and then none for the connection's life. The
+// interceptors repeat a call the server refused for its compression
+// uncompressed: the server refused it before any handler saw it.
+type compression struct{ off atomic.Bool }
+
+// refusesGzip reports whether err is a server's refusal of a compressed
+// request: grpc-go answers Unimplemented when it holds no decompressor for
+// the request's encoding.
+func refusesGzip(err error) bool {
+	st, ok := status.FromError(err)
+	return ok && st.Code() == codes.Unimplemented && strings.Contains(st.Message(), "Decompressor is not installed")
+}
+
+var uncompressed = grpc.UseCompressor(encoding.Identity)
+
+func (z *compression) callOpts(opts []grpc.CallOption) []grpc.CallOption {
+	if z.off.Load() {
+		return append(opts[:len(opts):len(opts)], uncompressed) // the last compressor named is the one used
+	}
+	return opts
+}
+
+func (z *compression) unary(ctx context.Context, method string, req, reply any, cc *grpc.ClientConn, invoke grpc.UnaryInvoker, opts ...grpc.CallOption) error {
+	err := invoke(ctx, method, req, reply, cc, z.callOpts(opts)...)
+	if refusesGzip(err) {
+		z.off.Store(true)
+		err = invoke(ctx, method, req, reply, cc, z.callOpts(opts)...)
+	}
+	return err
+}
+
+// stream opens a stream with the connection's compression. A stream with
+// one request (the server streams its answer, as Pull does) is opened again
+// uncompressed, its request sent again, when its first answer is the
+// server's refusal of gzip.
+func (z *compression) stream(ctx context.Context, desc *grpc.StreamDesc, cc *grpc.ClientConn, method string, streamer grpc.Streamer, opts ...grpc.CallOption) (grpc.ClientStream, error) {
+	cs, err := streamer(ctx, desc, cc, method, z.callOpts(opts)...)
+	if err != nil || z.off.Load() || desc.ClientStreams {
+		return cs, err
+	}
+	return &onceCompressed{ClientStream: cs, z: z, reopen: func() (grpc.ClientStream, error) {
+		return streamer(ctx, desc, cc, method, z.callOpts(opts)...)
+	}}, nil
+}
+
+// onceCompressed is a stream of one compressed request that, until it has
+// received an answer, can be opened again uncompressed.
+type onceCompressed struct {
+	grpc.ClientStream
+	z        *compression
+	reopen   func() (grpc.ClientStream, error)
+	req      any  // the request sent
+	closed   bool // whether the request side was closed
+	answered bool // whether an answer or a refusal other than gzip's arrived
+}
+
+func (s *onceCompressed) SendMsg(m any) error {
+	s.req = m
+	err := s.ClientStream.SendMsg(m)
+	if errors.Is(err, io.EOF) && !s.answered {
+		return nil // the server ended the stream: RecvMsg tells why
+	}
+	return err
+}
+
+func (s *onceCompressed) CloseSend() error {
+	s.closed = true
+	return s.ClientStream.CloseSend()
+}
+
+func (s *onceCompressed) RecvMsg(m any) error {
+	err := s.ClientStream.RecvMsg(m)
+	if s.answered || !refusesGzip(err) || s.req == nil {
+		s.answered = true
+		return err
+	}
+	s.answered = true
+	s.z.off.Store(true)
+	cs, rerr := s.reopen()
+	if rerr != nil {
+		return rerr
+	}
+	s.ClientStream = cs
+	if err := cs.SendMsg(s.req); err != nil && !errors.Is(err, io.EOF) {
+		return err
+	}
+	if s.closed {
+		if err := cs.CloseSend(); err != nil {
+			return err
+		}
+	}
+	return cs.RecvMsg(m)
 }

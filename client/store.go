@@ -91,6 +91,7 @@ type Store struct {
 	clock    *ledger.Clock
 	views    map[string]*ledger.Projection
 	enrolled []string
+	stmts    *recordStatements // record's statements, prepared at its first use
 }
 
 // Open opens the store at path, creating it (and the device's key) on first
@@ -274,6 +275,52 @@ func (s *Store) recordEntry(ctx context.Context, project string, k ledger.Kind) 
 	return s.record(ctx, project, k)
 }
 
+// recordStatements are record's statements, prepared once on the writer so
+// that each entry does not parse them again.
+type recordStatements struct {
+	counters, insert, update *sql.Stmt
+}
+
+// recordStmts returns record's statements, preparing them at the first
+// call. Call with s.mu held.
+func (s *Store) recordStmts(ctx context.Context) (*recordStatements, error) {
+	if s.stmts != nil {
+		return s.stmts, nil
+	}
+	var st recordStatements
+	for _, p := range []struct {
+		to  **sql.Stmt
+		sql string
+	}{
+		// The device's counters, and the link to its previous entry in the
+		// project, which lets the server find entries it lacks: entries the
+		// server refused are not in its ledger, so the link skips them. The
+		// latest such entry is found walking the device's entries back from
+		// the newest (a MAX with the status filter would read them all).
+		{&st.counters, `SELECT last_seq, hlc_wall, hlc_logical,
+			COALESCE((SELECT device_seq FROM events WHERE project_id = ? AND device_id = ? AND status NOT IN ('rejected', 'discarded')
+				ORDER BY device_seq DESC LIMIT 1), 0)
+			FROM device WHERE id = 1`},
+		{&st.insert, `INSERT INTO events (event_id, project_id, device_id, device_seq, kind, record_id,
+			hlc_wall, hlc_logical, body, signature, origin, status, created_micros)
+			VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 'local', 'pending', ?)`},
+		{&st.update, `UPDATE device SET last_seq = ?, hlc_wall = ?, hlc_logical = ? WHERE id = 1`},
+	} {
+		stmt, err := s.db.Writer().PrepareContext(ctx, p.sql)
+		if err != nil {
+			for _, done := range []*sql.Stmt{st.counters, st.insert, st.update} {
+				if done != nil {
+					done.Close()
+				}
+			}
+			return nil, err
+		}
+		*p.to = stmt
+	}
+	s.stmts = &st
+	return s.stmts, nil
+}
+
 // record is recordEntry with s.mu held.
 func (s *Store) record(ctx context.Context, project string, k ledger.Kind) (ledger.Signed, ledger.Outcome, error) {
 	if s.closed {
@@ -291,22 +338,18 @@ func (s *Store) record(ctx context.Context, project string, k ledger.Kind) (ledg
 	var e ledger.Event
 	var signed ledger.Signed
 	var refusal error // the entry's own fault, returned as it is
-	err := s.db.Tx(ctx, func(tx *sql.Tx) error {
-		var last uint64
+	st, err := s.recordStmts(ctx)
+	if err != nil {
+		return ledger.Signed{}, ledger.Outcome{}, fmt.Errorf("client: record %s: %w", k.KindName(), err)
+	}
+	err = s.db.Tx(ctx, func(tx *sql.Tx) error {
+		var last, prev uint64 // the device's last number, and its last in the project the server may hold
 		var wall int64
 		var logical uint32
-		if err := tx.QueryRowContext(ctx, `SELECT last_seq, hlc_wall, hlc_logical FROM device WHERE id = 1`).Scan(&last, &wall, &logical); err != nil {
+		if err := tx.StmtContext(ctx, st.counters).QueryRowContext(ctx, project, s.deviceID).Scan(&last, &wall, &logical, &prev); err != nil {
 			return err
 		}
 		s.clock.Observe(ledger.HLC{Wall: wall, Logical: logical})
-		// The link to the device's previous entry in the project lets the
-		// server find entries it lacks; entries the server refused are not
-		// in its ledger, so the link skips them.
-		var prev uint64
-		if err := tx.QueryRowContext(ctx, `SELECT COALESCE(MAX(device_seq), 0) FROM events
-			WHERE project_id = ? AND device_id = ? AND status NOT IN ('rejected', 'discarded')`, project, s.deviceID).Scan(&prev); err != nil {
-			return err
-		}
 		now := s.now().UTC().Truncate(time.Microsecond)
 		e = ledger.Event{ID: s.NewID(), Project: project, Author: s.user, Device: s.deviceID, DeviceSeq: max(s.seq, last) + 1, PrevDeviceSeq: prev,
 			HLC: s.clock.Now(), DeviceTime: now, Kind: k}
@@ -320,15 +363,11 @@ func (s *Store) record(ctx context.Context, project string, k ledger.Kind) (ledg
 			refusal = refused(taken)
 			return refusal
 		}
-		if _, err := tx.ExecContext(ctx, `INSERT INTO events (event_id, project_id, device_id, device_seq, kind, record_id,
-			hlc_wall, hlc_logical, body, signature, origin, status, created_micros)
-			VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 'local', 'pending', ?)`,
-			e.ID, project, s.deviceID, e.DeviceSeq, k.KindName(), ledger.RecordID(k), e.HLC.Wall, e.HLC.Logical,
-			signed.Body, signed.Signature, now.UnixMicro()); err != nil {
+		if _, err := tx.StmtContext(ctx, st.insert).ExecContext(ctx, e.ID, project, s.deviceID, e.DeviceSeq, k.KindName(), ledger.RecordID(k),
+			e.HLC.Wall, e.HLC.Logical, signed.Body, signed.Signature, now.UnixMicro()); err != nil {
 			return err
 		}
-		_, err = tx.ExecContext(ctx, `UPDATE device SET last_seq = ?, hlc_wall = ?, hlc_logical = ? WHERE id = 1`,
-			e.DeviceSeq, e.HLC.Wall, e.HLC.Logical)
+		_, err = tx.StmtContext(ctx, st.update).ExecContext(ctx, e.DeviceSeq, e.HLC.Wall, e.HLC.Logical)
 		return err
 	})
 	if refusal != nil {
@@ -338,8 +377,8 @@ func (s *Store) record(ctx context.Context, project string, k ledger.Kind) (ledg
 		return ledger.Signed{}, ledger.Outcome{}, fmt.Errorf("client: record %s: %w", k.KindName(), err)
 	}
 	s.seq = e.DeviceSeq
-	out, err := s.view(project).Apply(signed)
-	if err != nil { // Seal validated it and its id is new: this is a bug, and the event is stored
+	out, err := s.view(project).ApplyValidated(signed) // Seal validated the event as decoded
+	if err != nil {                                    // its id is new: this is a bug, and the event is stored
 		return signed, out, fmt.Errorf("client: apply %s: %w", e.ID, err)
 	}
 	return signed, out, nil

@@ -150,8 +150,7 @@ func (s *Store) Status(ctx context.Context, project string) (SyncStatus, error) 
 		st.LastAttempt = time.UnixMicro(at).UTC()
 	}
 	var oldest sql.NullInt64
-	if err := s.db.Reader().QueryRowContext(ctx, `SELECT COUNT(*), COUNT(*) FILTER (WHERE status = 'waiting'), MIN(created_micros) FROM events
-		WHERE origin = 'local' AND status IN ('pending', 'waiting') AND project_id = ?`, project).Scan(&st.Outbox.Pending, &st.Waiting, &oldest); err != nil {
+	if err := s.db.Reader().QueryRowContext(ctx, outboxStatusQuery, project).Scan(&st.Outbox.Pending, &st.Waiting, &oldest); err != nil {
 		return st, fmt.Errorf("client: sync status: %w", err)
 	}
 	if oldest.Valid {
@@ -374,19 +373,44 @@ type outboxEvent struct {
 	seq       uint64 // its device sequence number
 }
 
+// The queries of the events table a sync runs, besides those by event id.
+// Each reads only the rows it returns, through a partial index or a key,
+// whatever the store holds (TestSyncQueryPlans reads their plans); the
+// whole project is read only to push everything back (everythingQuery).
+const (
+	// outboxQuery: what a push offers, through events_unconfirmed (the
+	// entries not yet seen in the verified chain).
+	outboxQuery = `SELECT event_id, body, signature, status = 'accepted', device_seq FROM events WHERE project_id = ? AND confirmed = 0
+		AND (status = 'accepted' OR origin = 'local' AND status IN ('pending', 'waiting'))
+		ORDER BY hlc_wall, hlc_logical, device_id, event_id`
+	// everythingQuery: every entry of the project, to push back to a server
+	// that lost some.
+	everythingQuery = `SELECT event_id, body, signature, status = 'accepted', device_seq FROM events WHERE project_id = ? AND status NOT IN ('rejected', 'discarded')
+		ORDER BY hlc_wall, hlc_logical, device_id, event_id`
+	// supplyQuery: a device's entries in a range of its sequence numbers,
+	// which the server asked for.
+	supplyQuery = `SELECT event_id, body, signature, status = 'accepted', device_seq FROM events
+		WHERE project_id = ? AND device_id = ? AND device_seq > ? AND device_seq <= ? ORDER BY device_seq`
+	// lackingUpdate: after a pull, the acknowledged entries it did not bring
+	// back, through events_unconfirmed.
+	lackingUpdate = `UPDATE events SET server_lacks = 1 WHERE project_id = ? AND confirmed = 0
+		AND server_lacks = 0 AND status = 'accepted' AND (server_seq IS NULL OR server_seq > ?)`
+	// outboxStatusQuery: the outbox's size for Status, through the partial
+	// index of local entries, events_outbox. Left to itself SQLite takes
+	// the index of project_id and reads every entry of the project.
+	outboxStatusQuery = `SELECT COUNT(*), COUNT(*) FILTER (WHERE status = 'waiting'), MIN(created_micros) FROM events INDEXED BY events_outbox
+		WHERE origin = 'local' AND status IN ('pending', 'waiting') AND project_id = ?`
+)
+
 // outbox returns what a push offers the server: the pending and waiting
 // entries, and every entry the server acknowledged (or the device pulled)
 // that the device has not seen in the chain it verified, in hybrid time
 // order. With all, it returns every entry the device holds.
 func (s *Store) outbox(ctx context.Context, project string, all bool) ([]outboxEvent, error) {
-	q := `SELECT event_id, body, signature, status = 'accepted', device_seq FROM events WHERE project_id = ? AND confirmed = 0
-		AND (status = 'accepted' OR origin = 'local' AND status IN ('pending', 'waiting'))
-		ORDER BY hlc_wall, hlc_logical, device_id, event_id`
 	if all {
-		q = `SELECT event_id, body, signature, status = 'accepted', device_seq FROM events WHERE project_id = ? AND status NOT IN ('rejected', 'discarded')
-		ORDER BY hlc_wall, hlc_logical, device_id, event_id`
+		return s.offers(ctx, everythingQuery, project)
 	}
-	return s.offers(ctx, q, project)
+	return s.offers(ctx, outboxQuery, project)
 }
 
 func (s *Store) offers(ctx context.Context, q string, args ...any) ([]outboxEvent, error) {
@@ -488,9 +512,7 @@ func (s *Store) supply(ctx context.Context, project string, missing []*pb.Missin
 	var out []outboxEvent
 	var unheld []MissingEntry
 	for _, m := range missing {
-		held, err := s.offers(ctx, `SELECT event_id, body, signature, status = 'accepted', device_seq FROM events
-			WHERE project_id = ? AND device_id = ? AND device_seq > ? AND device_seq <= ? ORDER BY device_seq`,
-			project, m.GetDeviceId(), m.GetAfterDeviceSeq(), m.GetThroughDeviceSeq())
+		held, err := s.offers(ctx, supplyQuery, project, m.GetDeviceId(), m.GetAfterDeviceSeq(), m.GetThroughDeviceSeq())
 		if err != nil {
 			return nil, err
 		}
@@ -620,14 +642,38 @@ func (n *newEpoch) Error() string { return fmt.Sprintf("the server opened epoch 
 
 func (f *forkError) Error() string { return f.err.Error() }
 
+// errOwnLacking says a pull that left out the device's own events met one
+// the device does not hold (its store was restored from an older copy), or
+// whose copy does not give the server's chain hash.
+var errOwnLacking = errors.New("the server's ledger holds an entry of this device that its store lacks")
+
 // pull streams the ledger after the verified point, verifying each chunk
-// and applying it in one transaction with the new checkpoint.
+// and applying it in one transaction with the new checkpoint. The server
+// leaves out the device's own events, which the device rebuilds from the
+// copies it holds to verify the chain; when it lacks one, it pulls again,
+// from the point verified so far, with its own events in full.
 func (s *Store) pull(ctx context.Context, sc pb.SyncServiceClient, project string, opts SyncOptions, rep *SyncReport) error {
+	err := s.pullChain(ctx, sc, project, opts, rep, true)
+	if errors.Is(err, errOwnLacking) {
+		err = s.pullChain(ctx, sc, project, opts, rep, false)
+	}
+	return err
+}
+
+// pullChain is one pull, with the device's own events left out (omitOwn)
+// or in full.
+func (s *Store) pullChain(ctx context.Context, sc pb.SyncServiceClient, project string, opts SyncOptions, rep *SyncReport, omitOwn bool) error {
 	cp, err := s.checkpoint(ctx, project)
 	if err != nil {
 		return err
 	}
-	stream, err := sc.Pull(ctx, &pb.PullRequest{ProjectId: project, After: ledger.CheckpointToProto(cp), ReferenceDataFirst: cp.Seq == 0})
+	s.mu.Lock()
+	self, pub := s.deviceID, s.PublicKey()
+	s.mu.Unlock()
+	// The server reads the cursor's epoch and sequence; the device checks
+	// the hash itself against the anchor the server sends.
+	stream, err := sc.Pull(ctx, &pb.PullRequest{ProjectId: project, After: &pb.Checkpoint{Epoch: cp.Epoch, Sequence: cp.Seq},
+		ReferenceDataFirst: cp.Seq == 0, OmitOwnEvents: omitOwn})
 	if err != nil {
 		return fromWire(err)
 	}
@@ -666,37 +712,64 @@ func (s *Store) pull(ctx context.Context, sc pb.SyncServiceClient, project strin
 			continue
 		}
 		keys := func(dev string) (ed25519.PublicKey, bool) {
-			if dev == s.deviceID {
-				return s.PublicKey(), true
+			if dev == self {
+				return pub, true
 			}
 			k, ok := resp.GetDeviceKeys()[dev]
 			return ed25519.PublicKey(k), ok && len(k) == ed25519.PublicKeySize
 		}
+		own, err := s.ownEvents(ctx, project, self, entries, omitOwn)
+		if err != nil {
+			return err
+		}
+		chained := !resp.GetReferenceData()
 		var chain []ledger.Entry
 		var signed []ledger.Signed
 		var seqs []uint64
 		var skews []int64
+		prev := v.At().Hash // the hash before each entry, for those whose hash the device computes
+		rebuilt := false    // whether the last entry's hash was computed here
 		for _, e := range entries {
-			sg, err := ledger.Open(e.GetEvent(), keys)
-			if err != nil {
-				return &forkError{fmt.Errorf("event %d from the server: %w", e.GetSequence(), err)}
-			}
+			var sg ledger.Signed
 			var h ledger.Hash
-			copy(h[:], e.GetHash())
-			chain = append(chain, ledger.Entry{Seq: e.GetSequence(), Event: sg.Bytes(), Hash: h})
+			var env []byte
+			if n := e.GetOwnDeviceSeq(); n > 0 && e.GetEvent() == nil {
+				sg = own[n]
+				env = sg.Bytes()
+				h = ledger.Link(prev, e.GetSequence(), env)
+				rebuilt = true
+			} else {
+				if sg, err = ledger.Open(e.GetEvent(), keys); err != nil {
+					return &forkError{fmt.Errorf("event %d from the server: %w", e.GetSequence(), err)}
+				}
+				env = sg.Bytes()
+				copy(h[:], e.GetHash())
+				bytes += int64(len(sg.Body) + len(sg.Signature))
+				rebuilt = false
+			}
+			prev = h
+			chain = append(chain, ledger.Entry{Seq: e.GetSequence(), Event: env, Hash: h})
 			signed = append(signed, sg)
 			seqs = append(seqs, e.GetSequence())
 			skews = append(skews, e.GetClockSkewMicros())
-			bytes += int64(len(sg.Body) + len(sg.Signature))
 		}
-		if !resp.GetReferenceData() {
+		if chained {
 			if err := v.Verify(chain); err != nil {
+				if len(own) > 0 && errors.Is(err, ledger.ErrChainBroken) {
+					return errOwnLacking // the device's copy may not be what the server holds: pull them in full
+				}
 				return &forkError{err}
+			}
+			if rebuilt { // the chunk's head confirms the hashes computed at its end
+				head := ledger.CheckpointFromProto(resp.GetHead())
+				if at := v.At(); head.Epoch != at.Epoch || head.Seq != at.Seq || head.Hash != at.Hash {
+					return errOwnLacking
+				}
 			}
 		} else {
 			seqs = nil // out of chain order: keep no sequence for them yet
 		}
-		fresh, err := s.applyPulled(ctx, project, signed, seqs, skews, v.At(), !resp.GetReferenceData())
+		fresh, err := s.applyPulled(ctx, project, signed, seqs, skews, v.At(), chained)
 		if err != nil {
 			return err
 		}
@@ -716,6 +789,76 @@ func (s *Store) pull(ctx context.Context, sc pb.SyncServiceClient, project strin
 	return s.resetCheckpointIfNew(ctx, v.At())
 }
 
+// ownEventsQuery finds the copies of the device's own entries the server
+// sent by their device sequence numbers, one lookup each in the
+// (device_id, device_seq) key.
+const ownEventsQuery = `SELECT device_seq, event_id, body, signature FROM events WHERE device_id = ? AND project_id = ? AND device_seq IN (`
+
+// ownEvents returns the copies this device holds of the entries of a
+// pulled chunk sent as its device sequence numbers, by sequence number. It
+// returns errOwnLacking when it holds not all of them, and a fork when the
+// server sent such entries unasked.
+func (s *Store) ownEvents(ctx context.Context, project, self string, entries []*pb.LedgerEntry, asked bool) (map[uint64]ledger.Signed, error) {
+	var want []any
+	for _, e := range entries {
+		if n := e.GetOwnDeviceSeq(); n > 0 && e.GetEvent() == nil {
+			want = append(want, n)
+		}
+	}
+	if len(want) == 0 {
+		return nil, nil
+	}
+	if !asked {
+		return nil, &forkError{fmt.Errorf("the server sent entry %d without its event", entries[0].GetSequence())}
+	}
+	out := make(map[uint64]ledger.Signed, len(want))
+	type copyHeld struct {
+		id        string
+		body, sig []byte
+	}
+	held := make(map[uint64]copyHeld, len(want))
+	for part := range slices.Chunk(want, 500) {
+		q := ownEventsQuery + strings.Repeat("?, ", len(part)-1) + "?)"
+		rows, err := s.db.Reader().QueryContext(ctx, q, append([]any{self, project}, part...)...)
+		if err != nil {
+			return nil, fmt.Errorf("client: read own entries: %w", err)
+		}
+		for rows.Next() {
+			var n uint64
+			var c copyHeld
+			if err := rows.Scan(&n, &c.id, &c.body, &c.sig); err != nil {
+				rows.Close()
+				return nil, fmt.Errorf("client: read own entries: %w", err)
+			}
+			held[n] = c
+		}
+		rows.Close()
+		if err := rows.Err(); err != nil {
+			return nil, fmt.Errorf("client: read own entries: %w", err)
+		}
+	}
+	if len(held) != len(want) {
+		return nil, errOwnLacking
+	}
+	s.mu.Lock()
+	v := s.view(project)
+	for n, c := range held {
+		if sg, ok := v.Event(c.id); ok && bytes.Equal(sg.Body, c.body) && bytes.Equal(sg.Signature, c.sig) {
+			out[n] = sg
+			delete(held, n)
+		}
+	}
+	s.mu.Unlock()
+	for n, c := range held { // not in the view (rejected or discarded here): decode the copy
+		sg, err := ledger.FromEnvelope(&pb.Event{Body: c.body, Signature: c.sig})
+		if err != nil {
+			return nil, fmt.Errorf("client: own entry %d: %w", n, err)
+		}
+		out[n] = sg
+	}
+	return out, nil
+}
+
 // markLacking notes, after a pull that verified the server's whole ledger
 // from the point after, the entries the server lacks: those it acknowledged
 // above that point (or in no known place) that the pull did not bring back.
@@ -723,8 +866,7 @@ func (s *Store) pull(ctx context.Context, sc pb.SyncServiceClient, project strin
 func (s *Store) markLacking(ctx context.Context, project string, after uint64) error {
 	s.mu.Lock()
 	defer s.mu.Unlock()
-	if _, err := s.db.Writer().ExecContext(ctx, `UPDATE events SET server_lacks = 1 WHERE project_id = ? AND confirmed = 0
-		AND server_lacks = 0 AND status = 'accepted' AND (server_seq IS NULL OR server_seq > ?)`, project, after); err != nil {
+	if _, err := s.db.Writer().ExecContext(ctx, lackingUpdate, project, after); err != nil {
 		return fmt.Errorf("client: note entries the server lacks: %w", err)
 	}
 	return nil
@@ -758,7 +900,20 @@ func (s *Store) applyPulled(ctx context.Context, project string, evs []ledger.Si
 			fresh++
 		}
 	}
+	// A store restored from an older copy gets its own later entries back:
+	// its next entry must be numbered after them.
+	var ownLast uint64
+	for _, sg := range evs {
+		if sg.Event.Device == s.deviceID {
+			ownLast = max(ownLast, sg.Event.DeviceSeq)
+		}
+	}
 	err := s.db.Tx(ctx, func(tx *sql.Tx) error {
+		if ownLast > 0 {
+			if _, err := tx.ExecContext(ctx, `UPDATE device SET last_seq = MAX(last_seq, ?) WHERE id = 1`, ownLast); err != nil {
+				return fmt.Errorf("client: own entries pulled back: %w", err)
+			}
+		}
 		for i, sg := range evs {
 			e := sg.Event
 			var seq any
@@ -789,6 +944,7 @@ func (s *Store) applyPulled(ctx context.Context, project string, evs []ledger.Si
 	if err != nil {
 		return 0, err
 	}
+	s.seq = max(s.seq, ownLast)
 	for _, sg := range evs {
 		if _, err := v.Apply(sg); err != nil { // Open validated it and its bytes are new or the same
 			return 0, fmt.Errorf("client: apply pulled %s: %w", sg.Event.ID, err)

@@ -31,13 +31,14 @@ func findings(fs []qc.Finding) []*pb.Finding {
 	return out
 }
 
-// view runs fn over a project's projection for a member of it.
+// view runs fn over a project's projection for a member of it, beside
+// other reports (Server.read): fn only reads.
 func (r *readService) view(ctx context.Context, project string, fn func(*ledger.Projection) error) error {
 	if _, err := r.s.requireMember(ctx, project); err != nil {
 		return err
 	}
 	var ferr error
-	if err := r.s.inspect(ctx, project, func(p *ledger.Projection) { ferr = fn(p) }); err != nil {
+	if err := r.s.read(ctx, project, func(p *ledger.Projection) { ferr = fn(p) }); err != nil {
 		return projectErr(r.s, ctx, project, err)
 	}
 	if ferr != nil {
@@ -116,7 +117,7 @@ func (r *readService) ExportLedger(req *pb.ExportLedgerRequest, stream grpc.Serv
 			break
 		}
 		cursor = entries[len(entries)-1].Seq
-		w, keys, err := r.s.wire(ctx, entries)
+		w, keys, err := r.s.wire(ctx, entries, "") // an export carries every event
 		if err != nil {
 			return r.s.internal(ctx, "export", err)
 		}

@@ -22,6 +22,7 @@ import (
 	"github.com/google/uuid"
 	"google.golang.org/grpc"
 	"google.golang.org/grpc/codes"
+	_ "google.golang.org/grpc/encoding/gzip" // registers gzip: compressed requests are accepted and answered compressed
 	healthpb "google.golang.org/grpc/health/grpc_health_v1"
 	"google.golang.org/grpc/metadata"
 
@@ -85,8 +86,11 @@ type Server struct {
 // written. A failed write counts in failed: the next holder of mu reloads
 // the state from the store, and every batch decided since the last load is
 // given up, since its outcomes may rest on the batch that was not stored.
+//
+// Whatever changes the state holds mu's write side; a report only reads
+// view, under mu's read side (see read), beside other reports.
 type project struct {
-	mu     sync.Mutex
+	mu     sync.RWMutex
 	view   *ledger.Projection
 	head   ledger.Checkpoint // the chain head after the last decided batch
 	seqs   map[string]uint64 // the sequence number of every decided event
@@ -410,16 +414,22 @@ func (s *Server) StreamInterceptor(srv any, ss grpc.ServerStream, info *grpc.Str
 	return s.detailed(ctx, h(srv, authedStream{s.requests.stream(ss), ctx}))
 }
 
-// lockProject returns a project's state with its mu held, loading it from
-// the store on first use or after a failed write.
-func (s *Server) lockProject(ctx context.Context, id string) (*project, error) {
+// projectOf returns a project's state, not loaded before first use.
+func (s *Server) projectOf(id string) *project {
 	s.mu.Lock()
+	defer s.mu.Unlock()
 	p := s.projects[id]
 	if p == nil {
 		p = &project{}
 		s.projects[id] = p
 	}
-	s.mu.Unlock()
+	return p
+}
+
+// lockProject returns a project's state with its mu held, loading it from
+// the store on first use or after a failed write.
+func (s *Server) lockProject(ctx context.Context, id string) (*project, error) {
+	p := s.projectOf(id)
 	p.mu.Lock()
 	if p.fresh() {
 		return p, nil
@@ -489,6 +499,40 @@ func (s *Server) inspect(ctx context.Context, id string, fn func(*ledger.Project
 	}
 	fn(p.view)
 	return nil
+}
+
+// read runs fn with a project's projection as the store holds it, under
+// the read side of the project's lock: reports run side by side, and a
+// push waits only for those already running (a waiting push holds off new
+// ones). fn must only read the projection.
+func (s *Server) read(ctx context.Context, id string, fn func(*ledger.Projection)) error {
+	p := s.projectOf(id)
+	for {
+		p.mu.RLock()
+		if p.fresh() {
+			// Wait for the batches being written, so that fn sees only what
+			// is stored: no push decides while the read side is held.
+			p.write.Lock()
+			p.write.Unlock()
+			if p.fresh() {
+				defer p.mu.RUnlock()
+				fn(p.view)
+				return nil
+			}
+		}
+		p.mu.RUnlock()
+		// Not loaded, or a write failed: load under the write side, and read
+		// again.
+		p.mu.Lock()
+		var err error
+		if !p.fresh() {
+			err = s.load(ctx, p, id)
+		}
+		p.mu.Unlock()
+		if err != nil {
+			return err
+		}
+	}
 }
 
 func (s *Server) key(ctx context.Context, device string) (ed25519.PublicKey, bool) {
@@ -829,8 +873,13 @@ func (s *Server) checkVerified(ctx context.Context, p *project, v *pb.Checkpoint
 // pull streams a project's ledger after the request's cursor.
 func (s *Server) pull(req *pb.PullRequest, stream grpc.ServerStreamingServer[pb.PullResponse]) error {
 	ctx := stream.Context()
-	if _, err := s.requireMember(ctx, req.GetProjectId()); err != nil {
+	d, err := s.requireMember(ctx, req.GetProjectId())
+	if err != nil {
 		return err
+	}
+	own := "" // the device whose events go as their device sequence numbers
+	if req.GetOmitOwnEvents() {
+		own = d.ID
 	}
 	head, err := s.storeHead(ctx, req.GetProjectId())
 	if err != nil {
@@ -858,7 +907,7 @@ func (s *Server) pull(req *pb.PullRequest, stream grpc.ServerStreamingServer[pb.
 		for start := 0; start < len(ref); {
 			part := bounded(ref[start:min(len(ref), start+chunk)])
 			start += len(part)
-			w, keys, err := s.wire(ctx, part)
+			w, keys, err := s.wire(ctx, part, own)
 			if err != nil {
 				return s.internal(ctx, "reference data", err)
 			}
@@ -874,7 +923,7 @@ func (s *Server) pull(req *pb.PullRequest, stream grpc.ServerStreamingServer[pb.
 			return s.internal(ctx, "read ledger", err)
 		}
 		entries = bounded(entries)
-		w, keys, err := s.wire(ctx, entries)
+		w, keys, err := s.wire(ctx, entries, own)
 		if err != nil {
 			return s.internal(ctx, "read ledger", err)
 		}
@@ -918,14 +967,22 @@ func bounded(es []ledger.Entry) []ledger.Entry {
 
 // wire decodes stored entries once each into their wire form, with the keys
 // of the devices that signed them. A stored event that does not decode is
-// an error: leaving it out would break the chain the device verifies.
-func (s *Server) wire(ctx context.Context, es []ledger.Entry) ([]*pb.LedgerEntry, map[string][]byte, error) {
+// an error: leaving it out would break the chain the device verifies. An
+// event device own signed goes as its device sequence number alone, without
+// its hash (the device holds the event and computes the hash; the next hash
+// sent, a later entry's or the chunk's head, confirms it); own empty sends
+// every event.
+func (s *Server) wire(ctx context.Context, es []ledger.Entry, own string) ([]*pb.LedgerEntry, map[string][]byte, error) {
 	out := make([]*pb.LedgerEntry, 0, len(es))
 	keys := map[string][]byte{}
 	for _, e := range es {
 		sg, err := ledger.Decode(e.Event)
 		if err != nil {
 			return nil, nil, fmt.Errorf("server: stored event %d: %w", e.Seq, err)
+		}
+		if own != "" && sg.Event.Device == own {
+			out = append(out, &pb.LedgerEntry{Sequence: e.Seq, OwnDeviceSeq: sg.Event.DeviceSeq, ClockSkewMicros: e.SkewMicros})
+			continue
 		}
 		out = append(out, &pb.LedgerEntry{Sequence: e.Seq, Event: sg.Proto(), Hash: e.Hash[:], ClockSkewMicros: e.SkewMicros})
 		if _, ok := keys[sg.Event.Device]; !ok {

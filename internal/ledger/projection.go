@@ -5,6 +5,7 @@ import (
 	"cmp"
 	"fmt"
 	"slices"
+	"sync"
 	"time"
 )
 
@@ -56,7 +57,9 @@ type Outcome struct {
 // depends only on the set: any replicas holding the same events show the
 // same state, whatever order and however often the events arrived. Every
 // record's state is recomputed from all events about it whenever one
-// arrives. A Projection is not safe for concurrent use.
+// arrives. A Projection's read methods may run concurrently with each
+// other (a server reporting under a read lock), never with Apply or
+// ApplyValidated.
 type Projection struct {
 	project string
 	now     func() time.Time
@@ -67,6 +70,7 @@ type Projection struct {
 	retests  map[string]map[string]bool // test id -> tests that name it in retest_of
 
 	setup       *SetUp
+	loc         *time.Location // the set-up's time zone, loaded once; nil for UTC
 	specs       map[string]*Spec
 	refs        map[string]*Reference
 	equipment   map[string]*Equipment
@@ -79,6 +83,65 @@ type Projection struct {
 	// revokedOut holds the events of revoked devices signed after their
 	// revocation: held, for the chain, but without effect.
 	revokedOut map[string]bool
+
+	byID testOrder // the tests sorted by id, for Tests and Snapshot
+}
+
+// testOrder keeps the tests sorted by id between calls of Tests, so that a
+// report does not sort every test again: Apply notes the tests it rebuilt,
+// and the next Tests merges just those into the order it kept.
+type testOrder struct {
+	mu      sync.Mutex // readers may refresh the order concurrently
+	sorted  []*Test    // never changed once built: a refresh builds anew
+	changed []string   // ids of tests rebuilt or removed since sorted was built
+	stale   bool       // too many changes to merge: sort afresh
+}
+
+// touched notes that the test id was rebuilt or removed. It runs under
+// Apply, which no reader runs concurrently with.
+func (o *testOrder) touched(id string, tests int) {
+	if o.stale {
+		return
+	}
+	o.changed = append(o.changed, id)
+	if len(o.changed) > max(tests, 1024) { // more changes than tests: a sort costs less than the merge
+		o.sorted, o.changed, o.stale = nil, nil, true
+	}
+}
+
+// sortedTests returns the tests sorted by id. The slice is shared: never
+// change it.
+func (p *Projection) sortedTests() []*Test {
+	o := &p.byID
+	o.mu.Lock()
+	defer o.mu.Unlock()
+	switch {
+	case o.stale || (o.sorted == nil && len(p.tests) > 0):
+		o.sorted, o.stale = sorted(p.tests), false
+	case len(o.changed) > 0:
+		slices.Sort(o.changed)
+		ids := slices.Compact(o.changed)
+		out := make([]*Test, 0, len(p.tests))
+		old := o.sorted
+		for len(old) > 0 || len(ids) > 0 {
+			switch {
+			case len(ids) == 0 || (len(old) > 0 && old[0].ID < ids[0]):
+				out = append(out, old[0])
+				old = old[1:]
+			default: // ids[0] was rebuilt, added or removed: take what the map holds now
+				if len(old) > 0 && old[0].ID == ids[0] {
+					old = old[1:]
+				}
+				if t, ok := p.tests[ids[0]]; ok {
+					out = append(out, t)
+				}
+				ids = ids[1:]
+			}
+		}
+		o.sorted = out
+	}
+	o.changed = nil
+	return o.sorted
 }
 
 // NewProjection returns an empty projection of a project.
@@ -310,6 +373,12 @@ func (p *Projection) recompute(key string, kind Kind) {
 	switch kind.(type) {
 	case *ProjectSetUp:
 		p.setup = buildSetUp(evs)
+		p.loc = nil
+		if p.setup != nil && p.setup.TimeZone != "" {
+			if loc, err := time.LoadLocation(p.setup.TimeZone); err == nil {
+				p.loc = loc
+			}
+		}
 		for id := range p.tests { // units, water and time zone grade every test
 			p.recomputeTest(id, false)
 		}
@@ -364,6 +433,7 @@ func (p *Projection) recomputeTest(id string, cascade bool) {
 			}
 		}()
 	}
+	p.byID.touched(id, len(p.tests))
 	if t == nil {
 		delete(p.tests, id)
 		return

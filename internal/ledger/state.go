@@ -5,6 +5,7 @@ import (
 	"crypto/sha256"
 	"encoding/json"
 	"fmt"
+	"iter"
 	"slices"
 	"time"
 
@@ -320,7 +321,7 @@ func sorted[T any](m map[string]*T) []*T {
 func (p *Projection) Snapshot() Snapshot {
 	return Snapshot{SetUp: p.setup, Specs: sorted(p.specs), References: sorted(p.refs), Equipment: sorted(p.equipment),
 		Corrections: sorted(p.corrections), BorrowSource: sorted(p.borrow), Placements: sorted(p.placements),
-		Hauls: sorted(p.hauls), Tests: sorted(p.tests), Devices: sorted(p.devices)}
+		Hauls: sorted(p.hauls), Tests: p.Tests(), Devices: sorted(p.devices)}
 }
 
 // Digest returns a SHA-256 of the projection's state (its Snapshot as JSON).
@@ -353,8 +354,40 @@ func (p *Projection) Equipment(id string) (*Equipment, bool) { e, ok := p.equipm
 // Test returns a test by id.
 func (p *Projection) Test(id string) (*Test, bool) { t, ok := p.tests[id]; return t, ok }
 
-// Tests returns every test, sorted by id.
-func (p *Projection) Tests() []*Test { return sorted(p.tests) }
+// Tests returns every test, sorted by id. The slice is the caller's; the
+// tests are shared with the projection: treat them as read-only.
+func (p *Projection) Tests() []*Test {
+	s := p.sortedTests()
+	return append(make([]*Test, 0, len(s)), s...) // never nil, as sorted gives
+}
+
+// AllTests iterates over every test sorted by id, as Tests returns them,
+// without copying them out: the order is kept between calls, so a report
+// reads the tests without sorting them. The tests are shared with the
+// projection: treat them as read-only.
+func (p *Projection) AllTests() iter.Seq[*Test] {
+	return func(yield func(*Test) bool) {
+		for _, t := range p.sortedTests() {
+			if !yield(t) {
+				return
+			}
+		}
+	}
+}
+
+// NumTests returns the number of tests.
+func (p *Projection) NumTests() int { return len(p.tests) }
+
+// Placements returns every placement, sorted by id (treat them as
+// read-only).
+func (p *Projection) Placements() []*Placement { return sorted(p.placements) }
+
+// Hauls returns every haul, sorted by id (treat them as read-only).
+func (p *Projection) Hauls() []*Haul { return sorted(p.hauls) }
+
+// BorrowSources returns every borrow source, sorted by id (treat them as
+// read-only).
+func (p *Projection) BorrowSources() []*BorrowSource { return sorted(p.borrow) }
 
 // RetestsOf returns the ids of the tests that name id in retest_of, sorted.
 func (p *Projection) RetestsOf(id string) []string {

@@ -246,11 +246,11 @@ func (p *Projection) buildTest(evs []*Event) *Test {
 	return t
 }
 
+// location is the project's time zone, loaded when the set-up arrived
+// (loading one reads the zone database: a cost for every test built).
 func (p *Projection) location() *time.Location {
-	if p.setup != nil && p.setup.TimeZone != "" {
-		if loc, err := time.LoadLocation(p.setup.TimeZone); err == nil {
-			return loc
-		}
+	if p.loc != nil {
+		return p.loc
 	}
 	return time.UTC
 }

@@ -42,8 +42,8 @@ func PercentWithinLimits(values []float64, lower, upper *float64) (Lot, error) {
 		return Lot{}, fmt.Errorf("qc: percent within limits: %w", valid.Missing("lower", "a lower or an upper limit is required"))
 	}
 	for i, v := range values {
-		if err := valid.Finite(fmt.Sprintf("values[%d]", i), v); err != nil {
-			return Lot{}, fmt.Errorf("qc: percent within limits: %w", err)
+		if math.IsNaN(v) || math.IsInf(v, 0) { // the field is named only when it is at fault
+			return Lot{}, fmt.Errorf("qc: percent within limits: %w", valid.Finite(fmt.Sprintf("values[%d]", i), v))
 		}
 	}
 	for _, l := range []struct {

@@ -15,7 +15,10 @@ import (
 
 // A project at scale for the report benchmarks: 2,000 placements on four
 // features fed by two borrow sources, 50 tests on each (100,000 in all),
-// one in twenty failing and retested, a third of them reviewed.
+// one in twenty failing and retested (nine retests in ten within a few
+// metres of the failure, the tenth away from it), a third of them reviewed
+// by the office. The users' devices are introduced with their roles, as
+// on every ledger a server holds.
 const (
 	benchPlacements = 2000
 	benchPerLift    = 50
@@ -24,6 +27,7 @@ const (
 var (
 	benchOnce sync.Once
 	benchView *ledger.Projection
+	benchAsOf time.Time // a month after the last entry, for the audit
 	benchErr  error
 )
 
@@ -61,7 +65,14 @@ func benchProject() (*ledger.Projection, error) {
 				return
 			}
 		}
+		for _, u := range []struct{ user, role string }{{"qa", "qa"}, {"office", "office"}, {"olga", "office"}, {"ann", "inspector"}} {
+			if _, benchErr = add("server", &ledger.DeviceEnrolled{DeviceID: uuid.Must(uuid.NewV7()).String(), UserID: u.user,
+				PublicKey: key.Public().(ed25519.PublicKey), Name: "dev-" + u.user, UserName: u.user, Enrolled: clock, Role: u.role}); benchErr != nil {
+				return
+			}
+		}
 		var last string // the test recorded last
+		var lastAt ledger.Location
 		for i := range benchPlacements {
 			pl := uuid.Must(uuid.NewV7()).String()
 			f := features[i%len(features)]
@@ -80,9 +91,12 @@ func benchProject() (*ledger.Projection, error) {
 				if j%20 == 18 {
 					dry = 1650
 				}
+				at := ledger.Location{Station: 400 * rng.Float64(), Offset: 10*rng.Float64() - 5}
+				if j%20 == 19 && i%10 != 9 { // the retest, in the reworked area
+					at = ledger.Location{Station: lastAt.Station + 2*rng.Float64() - 1, Offset: lastAt.Offset + 2*rng.Float64() - 1}
+				}
 				tr := &ledger.TestRecorded{TestID: uuid.Must(uuid.NewV7()).String(), Content: ledger.TestContent{
-					Readings: coneSI(dry, 11+2*rng.Float64()), ReferenceID: ref, SpecID: spec, PlacementID: pl, Feature: f,
-					Location: ledger.Location{Station: 400 * rng.Float64(), Offset: 10*rng.Float64() - 5}}}
+					Readings: coneSI(dry, 11+2*rng.Float64()), ReferenceID: ref, SpecID: spec, PlacementID: pl, Feature: f, Location: at}}
 				if j%20 == 19 {
 					tr.RetestOf = last
 				}
@@ -90,7 +104,7 @@ func benchProject() (*ledger.Projection, error) {
 				if benchErr = err; err != nil {
 					return
 				}
-				last = tr.TestID
+				last, lastAt = tr.TestID, at
 				if j%3 == 0 {
 					if _, benchErr = add("olga", &ledger.TestReviewed{TestID: tr.TestID, Revision: s.Event.ID, Decision: ledger.Approve}); benchErr != nil {
 						return
@@ -98,7 +112,7 @@ func benchProject() (*ledger.Projection, error) {
 				}
 			}
 		}
-		benchView = p
+		benchView, benchAsOf = p, clock.Add(30*24*time.Hour)
 	})
 	return benchView, benchErr
 }
@@ -135,6 +149,7 @@ func BenchmarkReports(b *testing.B) {
 			return err
 		}},
 		{"reconcile", func() error { r, err := Reconcile(p); sink += float64(len(r)); return err }},
+		{"findings", func() error { sink += float64(len(Findings(p, AuditOptions{AsOf: benchAsOf}))); return nil }},
 	}
 	timeOf := func(f func() error) (time.Duration, error) {
 		start := time.Now()

@@ -1,6 +1,9 @@
 package report
 
 import (
+	"iter"
+	"slices"
+
 	"tamp/internal/ledger"
 	"tamp/internal/qc"
 )
@@ -47,9 +50,14 @@ func counts(t *ledger.Test) bool {
 }
 
 // NewFinals indexes the retests of tests.
-func NewFinals(tests []*ledger.Test) Finals {
+func NewFinals(tests []*ledger.Test) Finals { return newFinals(slices.Values(tests)) }
+
+// finalsOf indexes the retests of a projection's tests.
+func finalsOf(p *ledger.Projection) Finals { return newFinals(p.AllTests()) }
+
+func newFinals(tests iter.Seq[*ledger.Test]) Finals {
 	f := Finals{replacedBy: map[string]*ledger.Test{}}
-	for _, t := range tests {
+	for t := range tests {
 		if t.RetestOf == "" || !counts(t) {
 			continue
 		}
@@ -71,8 +79,10 @@ func (f Finals) Why(t *ledger.Test) (Reason, *ledger.Test) {
 	case t.Result.Verdict == qc.Pending:
 		return NotGraded, nil
 	}
-	if r, ok := f.replacedBy[t.ID]; ok && t.Result.Verdict == qc.Fail {
-		return ReworkedAndRetested, r
+	if t.Result.Verdict == qc.Fail {
+		if r, ok := f.replacedBy[t.ID]; ok {
+			return ReworkedAndRetested, r
+		}
 	}
 	return "", nil
 }

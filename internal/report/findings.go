@@ -122,7 +122,7 @@ const (
 // the project's specifications and local codes govern what must be done
 // about each one.
 func Findings(p *ledger.Projection, o AuditOptions) []Finding {
-	a := audit{p: p, o: o, loc: time.UTC, sys: soil.SI, names: map[string]string{}}
+	a := audit{p: p, o: o, loc: time.UTC, sys: soil.SI, names: map[string]string{}, roles: map[string][]ledger.RoleChange{}}
 	var su *ledger.ProjectSetUp
 	if s := p.SetUp(); s != nil {
 		su = &s.ProjectSetUp
@@ -137,9 +137,10 @@ func Findings(p *ledger.Projection, o AuditOptions) []Finding {
 		if d.UserName != "" {
 			a.names[d.UserID] = d.UserName
 		}
+		a.roles[d.UserID] = append(a.roles[d.UserID], d.Roles...)
 	}
 	a.within, a.distance = su.RetestWithinOrDefault(), su.RetestDistanceOrDefault()
-	for _, t := range p.Tests() {
+	for t := range p.AllTests() {
 		a.test(t)
 	}
 	a.clockSkews()
@@ -167,9 +168,22 @@ type audit struct {
 	within   time.Duration
 	distance float64
 	out      []located
-	loc      *time.Location    // the project's time zone
-	sys      soil.System       // the project's units
-	names    map[string]string // user id -> name, from the ledger's introductions
+	loc      *time.Location                 // the project's time zone
+	sys      soil.System                    // the project's units
+	names    map[string]string              // user id -> name, from the ledger's introductions
+	roles    map[string][]ledger.RoleChange // user id -> the roles introductions of their devices record
+}
+
+// roleAt is the user's role at time at, as ledger.Projection.RoleAt gives
+// it, from the roles gathered once for the audit.
+func (a *audit) roleAt(user string, at ledger.HLC) (role, eventID string) {
+	var best ledger.HLC
+	for _, r := range a.roles[user] {
+		if r.HLC.Compare(at) <= 0 && (role == "" || r.HLC.Compare(best) > 0) {
+			role, eventID, best = r.Role, r.EventID, r.HLC
+		}
+	}
+	return role, eventID
 }
 
 func (a *audit) add(at *ledger.Test, code FindingCode, testID, msg string, entries ...string) {
@@ -180,8 +194,10 @@ func (a *audit) add(at *ledger.Test, code FindingCode, testID, msg string, entri
 func (a *audit) test(t *ledger.Test) {
 	grades := a.grades(t)
 	a.notRetested(t)
-	if orig, ok := a.p.Test(t.RetestOf); ok {
-		a.retest(t, orig)
+	if t.RetestOf != "" {
+		if orig, ok := a.p.Test(t.RetestOf); ok {
+			a.retest(t, orig)
+		}
 	}
 	a.voidedFailure(t, grades)
 	a.corrections(t, grades)
@@ -398,7 +414,7 @@ func (a *audit) corrections(t *ledger.Test, grades map[string]qc.Result) {
 
 func (a *audit) reviewers(t *ledger.Test) {
 	for _, rv := range t.Reviews {
-		role, intro := a.p.RoleAt(rv.Author, rv.HLC)
+		role, intro := a.roleAt(rv.Author, rv.HLC)
 		if role == roleOffice || role == roleQA {
 			continue
 		}
@@ -425,7 +441,7 @@ func (a *audit) roleAtEvent(author, eventID string) string {
 	if !ok {
 		return ""
 	}
-	role, _ := a.p.RoleAt(author, ev.Event.HLC)
+	role, _ := a.roleAt(author, ev.Event.HLC)
 	return role
 }
 

@@ -109,35 +109,37 @@ func rules(spec *ledger.Spec, pl *ledger.Placement) []Rule {
 // its retest counts once, through the retest; a voided, returned or
 // ungraded test does not count. Sorted by placement, then spec.
 func TestFrequency(p *ledger.Projection) []Frequency {
-	snap := p.Snapshot()
-	finals := NewFinals(snap.Tests)
-	named := map[string]map[string]int{} // placement -> spec -> final tests
-	for _, t := range snap.Tests {
+	finals := finalsOf(p)
+	named := map[string]*specCounts{} // placement -> the specs its tests name
+	var last string                   // a placement's tests mostly follow one another in id order
+	var cur *specCounts
+	for t := range p.AllTests() {
 		c := t.Content
 		if c.PlacementID == "" || c.SpecID == "" {
 			continue
 		}
-		m := named[c.PlacementID]
-		if m == nil {
-			m = map[string]int{}
-			named[c.PlacementID] = m
+		if cur == nil || c.PlacementID != last {
+			if cur = named[c.PlacementID]; cur == nil {
+				cur = &specCounts{}
+				named[c.PlacementID] = cur
+			}
+			last = c.PlacementID
 		}
-		m[c.SpecID] += 0 // the spec applies to the placement, final or not
-		if why, _ := finals.Why(t); why == "" {
-			m[c.SpecID]++
-		}
+		why, _ := finals.Why(t) // the spec applies to the placement, final or not
+		cur.add(c.SpecID, why == "")
 	}
 	var out []Frequency
-	for _, pl := range snap.Placements { // sorted by id, and ids below: the output is sorted
-		specs := named[pl.ID]
-		ids := make([]string, 0, len(specs)+1)
-		for id := range specs {
-			ids = append(ids, id)
+	for _, pl := range p.Placements() { // sorted by id, and ids below: the output is sorted
+		var specs specCounts
+		if sc := named[pl.ID]; sc != nil {
+			specs = *sc
 		}
-		if pl.SpecID != "" {
-			if _, ok := specs[pl.SpecID]; !ok {
-				ids = append(ids, pl.SpecID)
-			}
+		ids := make([]string, 0, len(specs)+1)
+		for _, c := range specs {
+			ids = append(ids, c.spec)
+		}
+		if pl.SpecID != "" && !slices.Contains(ids, pl.SpecID) {
+			ids = append(ids, pl.SpecID)
 		}
 		slices.Sort(ids)
 		for _, id := range ids {
@@ -149,7 +151,7 @@ func TestFrequency(p *ledger.Projection) []Frequency {
 			if len(rs) == 0 {
 				continue
 			}
-			f := Frequency{Placement: pl, SpecID: id, Rules: rs, Taken: specs[id]}
+			f := Frequency{Placement: pl, SpecID: id, Rules: rs, Taken: specs.taken(id)}
 			for _, r := range rs {
 				f.Required = max(f.Required, r.Required)
 			}
@@ -158,4 +160,31 @@ func TestFrequency(p *ledger.Projection) []Frequency {
 		}
 	}
 	return out
+}
+
+// specCounts are the specs the tests of one placement name, each with its
+// count of final tests: a few, so a list.
+type specCounts []specCount
+
+type specCount struct {
+	spec  string
+	final int
+}
+
+func (s *specCounts) add(spec string, final bool) {
+	i := slices.IndexFunc(*s, func(c specCount) bool { return c.spec == spec })
+	if i < 0 {
+		*s = append(*s, specCount{spec: spec})
+		i = len(*s) - 1
+	}
+	if final {
+		(*s)[i].final++
+	}
+}
+
+func (s specCounts) taken(spec string) int {
+	if i := slices.IndexFunc(s, func(c specCount) bool { return c.spec == spec }); i >= 0 {
+		return s[i].final
+	}
+	return 0
 }

@@ -4,6 +4,7 @@ import (
 	"cmp"
 	"fmt"
 	"slices"
+	"strconv"
 	"strings"
 	"time"
 
@@ -100,9 +101,9 @@ func (s LotScope) name() string {
 // liftName names a one-lift lot: "embankment lift 3".
 func liftName(pl *ledger.Placement) string {
 	if pl.LiftNumber == 0 {
-		return fmt.Sprintf("%s, placement %s", pl.Feature, pl.ID)
+		return pl.Feature + ", placement " + pl.ID
 	}
-	return fmt.Sprintf("%s lift %d", pl.Feature, pl.LiftNumber)
+	return pl.Feature + " lift " + strconv.FormatUint(uint64(pl.LiftNumber), 10)
 }
 
 // Acceptance is a lot's outcome against the spec's acceptance limit.
@@ -192,8 +193,7 @@ func Lots(p *ledger.Projection, scope LotScope) ([]Lot, error) {
 	if err := scope.validate(); err != nil {
 		return nil, fmt.Errorf("report: lots: %w", err)
 	}
-	tests := p.Tests()
-	finals := NewFinals(tests)
+	finals := finalsOf(p)
 	type key struct{ placement, spec string }
 	type left struct {
 		t *ledger.Test
@@ -205,14 +205,22 @@ func Lots(p *ledger.Projection, scope LotScope) ([]Lot, error) {
 		left  []left
 	}
 	groups := map[key]*group{}
-	for _, t := range tests {
+	// A lot's tests mostly follow one another in id order: the last
+	// placement and group are kept at hand.
+	var lastPlacement string
+	var pl *ledger.Placement
+	var lastKey key
+	var g *group
+	for t := range p.AllTests() {
 		c := t.Content
 		if c.SpecID == "" {
 			continue
 		}
-		var pl *ledger.Placement
-		if c.PlacementID != "" {
-			pl, _ = p.Placement(c.PlacementID)
+		if c.PlacementID != lastPlacement {
+			lastPlacement, pl = c.PlacementID, nil
+			if c.PlacementID != "" {
+				pl, _ = p.Placement(c.PlacementID)
+			}
 		}
 		k := key{spec: c.SpecID}
 		switch {
@@ -225,13 +233,15 @@ func Lots(p *ledger.Projection, scope LotScope) ([]Lot, error) {
 		default:
 			k.placement = pl.ID
 		}
-		g := groups[k]
-		if g == nil {
-			g = &group{}
-			if k.placement != "" {
-				g.pl = pl
+		if g == nil || k != lastKey {
+			if g = groups[k]; g == nil {
+				g = &group{}
+				if k.placement != "" {
+					g.pl = pl
+				}
+				groups[k] = g
 			}
-			groups[k] = g
+			lastKey = k
 		}
 		switch why, by := finals.Why(t); {
 		case why == "":
@@ -250,21 +260,33 @@ func Lots(p *ledger.Projection, scope LotScope) ([]Lot, error) {
 	}
 	slices.SortFunc(keys, func(a, b key) int { return cmp.Or(cmp.Compare(a.placement, b.placement), cmp.Compare(a.spec, b.spec)) })
 	out := make([]Lot, 0, len(keys))
+	name := scope.name()
 	for _, k := range keys {
 		g := groups[k]
-		slices.SortFunc(g.final, byTime)
+		sortByTime(g.final)
 		slices.SortFunc(g.left, func(a, b left) int { return byTime(a.t, b.t) })
-		l := Lot{Name: scope.name(), Feature: scope.Feature, Placement: g.pl, SpecID: k.spec, Tests: g.final}
+		l := Lot{Name: name, Feature: scope.Feature, Placement: g.pl, SpecID: k.spec, Tests: g.final}
 		if g.pl != nil {
 			l.Name, l.Feature = liftName(g.pl), g.pl.Feature
 		}
-		for _, o := range g.left {
-			l.LeftOut = append(l.LeftOut, o.o)
+		if len(g.left) > 0 {
+			l.LeftOut = make([]LeftOut, 0, len(g.left))
+			for _, o := range g.left {
+				l.LeftOut = append(l.LeftOut, o.o)
+			}
 		}
 		l.estimate(p)
 		out = append(out, l)
 	}
 	return out, nil
+}
+
+// values returns room for n values: nil for none, as appending gives.
+func values(n int) []float64 {
+	if n == 0 {
+		return nil
+	}
+	return make([]float64, 0, n)
 }
 
 // estimate fills the lot's characteristics, their estimates and the
@@ -289,13 +311,13 @@ func (l *Lot) estimate(p *ledger.Projection) {
 		return &v
 	}
 	if s.MinCompaction != nil {
-		l.Compaction = &Quality{Lower: limit(s.MinCompaction)}
+		l.Compaction = &Quality{Lower: limit(s.MinCompaction), Values: values(len(l.Tests))}
 		for _, t := range l.Tests {
 			l.Compaction.Values = append(l.Compaction.Values, t.Result.RelativeCompaction)
 		}
 	}
 	if s.MoistureLow != nil || s.MoistureHigh != nil {
-		l.Moisture = &Quality{Lower: limit(s.MoistureLow), Upper: limit(s.MoistureHigh)}
+		l.Moisture = &Quality{Lower: limit(s.MoistureLow), Upper: limit(s.MoistureHigh), Values: values(len(l.Tests))}
 		for _, t := range l.Tests {
 			v := t.Result.MoistureDeviation
 			if s.MoistureBasis == qc.PercentOfOptimum {

@@ -109,29 +109,49 @@ type Balance struct {
 // features the set-up designs, the bank volume still needed for the rest
 // with its range. One pass over the tests and one over the placements.
 func Reconcile(p *ledger.Projection) ([]Balance, error) {
-	snap := p.Snapshot()
 	conv := earthwork.BankBasis
 	var designs []ledger.FeatureDesign
 	if su := p.SetUp(); su != nil {
 		conv, designs = su.Shrinkage, su.Features
 	}
 
-	// Final tests' dry densities by placement.
-	finals := NewFinals(snap.Tests)
-	byPlacement := map[string][]float64{}
-	for _, t := range snap.Tests {
-		if pl := t.Content.PlacementID; pl != "" && t.Result.DryDensity > 0 {
-			if why, _ := finals.Why(t); why == "" {
-				byPlacement[pl] = append(byPlacement[pl], t.Result.DryDensity)
-			}
+	// Final tests' dry densities by placement, in id order. A placement's
+	// tests mostly follow one another in that order, so the last
+	// placement's list is kept at hand.
+	finals := finalsOf(p)
+	byPlacement := map[string]*[]float64{}
+	var last string
+	var cur *[]float64
+	for t := range p.AllTests() {
+		pl := t.Content.PlacementID
+		if pl == "" || !(t.Result.DryDensity > 0) {
+			continue
 		}
+		if why, _ := finals.Why(t); why != "" {
+			continue
+		}
+		if cur == nil || pl != last {
+			if cur = byPlacement[pl]; cur == nil {
+				cur = new([]float64)
+				byPlacement[pl] = cur
+			}
+			last = pl
+		}
+		*cur = append(*cur, t.Result.DryDensity)
 	}
 
 	type acc struct {
 		volume, weighted, weight float64
 		tests                    []float64
+		n                        int // the final tests of its placements
 		untested                 int
 		sources                  map[string]float64 // source id -> compacted volume from it
+	}
+	testsOf := func(pl *ledger.Placement) []float64 {
+		if d := byPlacement[pl.ID]; d != nil {
+			return *d
+		}
+		return nil
 	}
 	add := func(a *acc, pl *ledger.Placement) {
 		a.volume += pl.CompactedVolume
@@ -139,40 +159,53 @@ func Reconcile(p *ledger.Projection) ([]Balance, error) {
 			a.sources = map[string]float64{}
 		}
 		a.sources[pl.BorrowSourceID] += pl.CompactedVolume
-		ds := byPlacement[pl.ID]
+		ds := testsOf(pl)
 		if len(ds) == 0 {
 			a.untested++
 			return
 		}
 		a.weighted += pl.CompactedVolume * stat.Mean(ds, nil)
 		a.weight += pl.CompactedVolume
+		if a.tests == nil {
+			a.tests = make([]float64, 0, a.n)
+		}
 		a.tests = append(a.tests, ds...)
 	}
 	bySource, byFeature := map[string]*acc{}, map[string]*acc{}
-	for _, pl := range snap.Placements {
-		for _, m := range []struct {
-			to  map[string]*acc
-			key string
-		}{{bySource, pl.BorrowSourceID}, {byFeature, pl.Feature}} {
-			if m.key == "" {
-				continue
+	placements := p.Placements()
+	// Twice over the placements: first to size each balance's tests, so
+	// that they are gathered in one allocation, then to add them up.
+	for pass := range 2 {
+		for _, pl := range placements {
+			for _, m := range []struct {
+				to  map[string]*acc
+				key string
+			}{{bySource, pl.BorrowSourceID}, {byFeature, pl.Feature}} {
+				if m.key == "" {
+					continue
+				}
+				if m.to[m.key] == nil {
+					m.to[m.key] = &acc{}
+				}
+				if pass == 0 {
+					m.to[m.key].n += len(testsOf(pl))
+				} else {
+					add(m.to[m.key], pl)
+				}
 			}
-			if m.to[m.key] == nil {
-				m.to[m.key] = &acc{}
-			}
-			add(m.to[m.key], pl)
 		}
 	}
 	looseBySource, looseByFeature := map[string]float64{}, map[string]float64{}
-	for _, h := range snap.Hauls {
+	for _, h := range p.Hauls() {
 		v := float64(h.Loads) * h.LooseVolumePerLoad
 		looseBySource[h.BorrowSourceID] += v
 		if pl, ok := p.Placement(h.PlacementID); ok && h.PlacementID != "" {
 			looseByFeature[pl.Feature] += v
 		}
 	}
+	borrow := p.BorrowSources()
 	sources := map[string]*ledger.BorrowSource{}
-	for _, s := range snap.BorrowSource {
+	for _, s := range borrow {
 		sources[s.ID] = s
 	}
 
@@ -297,7 +330,7 @@ func Reconcile(p *ledger.Projection) ([]Balance, error) {
 		}
 	}
 
-	for _, src := range snap.BorrowSource {
+	for _, src := range borrow {
 		b := Balance{Scope: SourceScope, ID: src.ID, Name: src.Name, Source: src, Convention: conv, LooseHauled: looseBySource[src.ID]}
 		fill(&b, bySource[src.ID])
 		if err := balance(&b, src); err != nil {

@@ -18,8 +18,21 @@ import (
 	"tamp/internal/qc"
 )
 
+// byTime orders tests by hybrid time, then id.
 func byTime(a, b *ledger.Test) int {
-	return cmp.Or(a.HLC.Compare(b.HLC), cmp.Compare(a.ID, b.ID))
+	if c := a.HLC.Compare(b.HLC); c != 0 {
+		return c
+	}
+	return cmp.Compare(a.ID, b.ID)
+}
+
+// sortByTime sorts tests by byTime. Tests come from the projection in id
+// order, which for UUIDv7 ids is nearly time order: most are sorted
+// already, and checking costs one pass.
+func sortByTime(ts []*ledger.Test) {
+	if !slices.IsSortedFunc(ts, byTime) {
+		slices.SortFunc(ts, byTime)
+	}
 }
 
 // ReviewQueue returns the tests whose current revision awaits the office:
@@ -30,13 +43,16 @@ func byTime(a, b *ledger.Test) int {
 // Oldest first.
 func ReviewQueue(p *ledger.Projection, day string) []*ledger.Test {
 	var out []*ledger.Test
-	for _, t := range p.Tests() {
-		if t.Voided() || t.ReviewStatus != ledger.Unreviewed || (day != "" && t.Day != day) {
+	for t := range p.AllTests() {
+		if t.ReviewStatus != ledger.Unreviewed || t.Voided() || (day != "" && t.Day != day) {
 			continue
+		}
+		if out == nil {
+			out = make([]*ledger.Test, 0, p.NumTests())
 		}
 		out = append(out, t)
 	}
-	slices.SortFunc(out, byTime)
+	sortByTime(out)
 	return out
 }
 
@@ -66,25 +82,15 @@ type Chain struct {
 // retest, oldest first.
 func RetestAudit(p *ledger.Projection) []Chain {
 	var out []Chain
-	for _, t := range p.Tests() {
+	var chain retestChain
+	for t := range p.AllTests() {
 		if t.Result.Verdict != qc.Fail || t.RetestOf != "" {
 			continue
 		}
 		c := Chain{Failed: t, Closure: Open}
-		seen := map[string]bool{t.ID: true}
-		queue := []string{t.ID}
-		for len(queue) > 0 {
-			id := queue[0]
-			queue = queue[1:]
-			for _, r := range p.RetestsOf(id) {
-				if seen[r] {
-					continue
-				}
-				seen[r] = true
-				rt, _ := p.Test(r)
-				c.Retests = append(c.Retests, rt)
-				queue = append(queue, r)
-			}
+		for _, r := range chain.of(p, t.ID) {
+			rt, _ := p.Test(r)
+			c.Retests = append(c.Retests, rt)
 		}
 		slices.SortFunc(c.Retests, byTime)
 		for _, r := range c.Retests {
@@ -106,6 +112,53 @@ func RetestAudit(p *ledger.Projection) []Chain {
 		}
 		out = append(out, c)
 	}
-	slices.SortFunc(out, func(a, b Chain) int { return byTime(a.Failed, b.Failed) })
+	if !slices.IsSortedFunc(out, func(a, b Chain) int { return byTime(a.Failed, b.Failed) }) {
+		slices.SortFunc(out, func(a, b Chain) int { return byTime(a.Failed, b.Failed) })
+	}
 	return out
+}
+
+// retestChain walks the retests of a test, retests of retests included,
+// breadth first; it keeps its buffers from one test to the next.
+type retestChain struct {
+	ids  []string // the test, then its retests in the order found
+	seen map[string]bool
+}
+
+// of returns the ids of every test in the chain of retests after id, in
+// the order a breadth-first walk finds them, each once. The slice is
+// reused by the next call.
+func (c *retestChain) of(p *ledger.Projection, id string) []string {
+	c.ids = append(c.ids[:0], id)
+	clear(c.seen)
+	for i := 0; i < len(c.ids); i++ {
+		for _, r := range p.RetestsOf(c.ids[i]) {
+			if c.has(r) {
+				continue
+			}
+			c.ids = append(c.ids, r)
+		}
+	}
+	return c.ids[1:]
+}
+
+// has reports whether id is in the chain so far: a look along it while
+// the chain is short, as chains are, and a set beyond.
+func (c *retestChain) has(id string) bool {
+	if len(c.ids) <= 16 {
+		return slices.Contains(c.ids, id)
+	}
+	if c.seen == nil {
+		c.seen = map[string]bool{}
+	}
+	if len(c.seen) == 0 {
+		for _, s := range c.ids {
+			c.seen[s] = true
+		}
+	}
+	if c.seen[id] {
+		return true
+	}
+	c.seen[id] = true
+	return false
 }

@@ -577,7 +577,8 @@ type PullRequest struct {
 	// The project.
 	ProjectId string `protobuf:"bytes,1,opt,name=project_id,json=projectId,proto3" json:"project_id,omitempty"`
 	// The last point the device verified; absent (or sequence zero) for the
-	// whole ledger.
+	// whole ledger. The server reads only its epoch and sequence, so a device
+	// may leave the rest out (it checks its hash against the anchor).
 	After *Checkpoint `protobuf:"bytes,2,opt,name=after,proto3" json:"after,omitempty"`
 	// Largest number of events per chunk the device wants; zero lets the
 	// server choose.
@@ -586,8 +587,14 @@ type PullRequest struct {
 	// specs, references, equipment, corrections) first, so the device can
 	// grade tests offline before the history arrives.
 	ReferenceDataFirst bool `protobuf:"varint,4,opt,name=reference_data_first,json=referenceDataFirst,proto3" json:"reference_data_first,omitempty"`
-	unknownFields      protoimpl.UnknownFields
-	sizeCache          protoimpl.SizeCache
+	// The device holds its own events: send each entry the pulling device
+	// signed as LedgerEntry.own_device_seq instead of the event, and the
+	// device rebuilds it from its copy. A device that finds it lacks one of
+	// them (its store was restored from an older copy) pulls again without
+	// this flag.
+	OmitOwnEvents bool `protobuf:"varint,5,opt,name=omit_own_events,json=omitOwnEvents,proto3" json:"omit_own_events,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
 }
 
 func (x *PullRequest) Reset() {
@@ -648,6 +655,13 @@ func (x *PullRequest) GetReferenceDataFirst() bool {
 	return false
 }
 
+func (x *PullRequest) GetOmitOwnEvents() bool {
+	if x != nil {
+		return x.OmitOwnEvents
+	}
+	return false
+}
+
 // LedgerEntry is one event at its place in the chain.
 type LedgerEntry struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
@@ -655,14 +669,21 @@ type LedgerEntry struct {
 	Sequence uint64 `protobuf:"varint,1,opt,name=sequence,proto3" json:"sequence,omitempty"`
 	// The signed event.
 	Event *Event `protobuf:"bytes,2,opt,name=event,proto3" json:"event,omitempty"`
-	// Chain hash after this event.
+	// Chain hash after this event. Empty for an entry sent as
+	// own_device_seq: the device computes it from the copy it holds, and the
+	// next hash the server sends (a later entry's, or the chunk's head)
+	// confirms it.
 	Hash []byte `protobuf:"bytes,3,opt,name=hash,proto3" json:"hash,omitempty"`
 	// The pushing device's clock skew against the server's when the server
 	// appended the event, microseconds (device minus server), when it was
 	// beyond the project's limit; zero otherwise. Not covered by the hash.
 	ClockSkewMicros int64 `protobuf:"varint,4,opt,name=clock_skew_micros,json=clockSkewMicros,proto3" json:"clock_skew_micros,omitempty"`
-	unknownFields   protoimpl.UnknownFields
-	sizeCache       protoimpl.SizeCache
+	// Set instead of event (and hash) when the event is the pulling device's
+	// own and the request set omit_own_events: the event's device sequence
+	// number, by which the device finds the copy it holds.
+	OwnDeviceSeq  uint64 `protobuf:"varint,5,opt,name=own_device_seq,json=ownDeviceSeq,proto3" json:"own_device_seq,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
 }
 
 func (x *LedgerEntry) Reset() {
@@ -719,6 +740,13 @@ func (x *LedgerEntry) GetHash() []byte {
 func (x *LedgerEntry) GetClockSkewMicros() int64 {
 	if x != nil {
 		return x.ClockSkewMicros
+	}
+	return 0
+}
+
+func (x *LedgerEntry) GetOwnDeviceSeq() uint64 {
+	if x != nil {
+		return x.OwnDeviceSeq
 	}
 	return 0
 }
@@ -845,19 +873,21 @@ const file_tamp_v1_sync_proto_rawDesc = "" +
 	"\x0eMissingEntries\x12\x1b\n" +
 	"\tdevice_id\x18\x01 \x01(\tR\bdeviceId\x12(\n" +
 	"\x10after_device_seq\x18\x02 \x01(\x04R\x0eafterDeviceSeq\x12,\n" +
-	"\x12through_device_seq\x18\x03 \x01(\x04R\x10throughDeviceSeq\"\xa8\x01\n" +
+	"\x12through_device_seq\x18\x03 \x01(\x04R\x10throughDeviceSeq\"\xd0\x01\n" +
 	"\vPullRequest\x12\x1d\n" +
 	"\n" +
 	"project_id\x18\x01 \x01(\tR\tprojectId\x12)\n" +
 	"\x05after\x18\x02 \x01(\v2\x13.tamp.v1.CheckpointR\x05after\x12\x1d\n" +
 	"\n" +
 	"max_events\x18\x03 \x01(\rR\tmaxEvents\x120\n" +
-	"\x14reference_data_first\x18\x04 \x01(\bR\x12referenceDataFirst\"\x8f\x01\n" +
+	"\x14reference_data_first\x18\x04 \x01(\bR\x12referenceDataFirst\x12&\n" +
+	"\x0fomit_own_events\x18\x05 \x01(\bR\romitOwnEvents\"\xb5\x01\n" +
 	"\vLedgerEntry\x12\x1a\n" +
 	"\bsequence\x18\x01 \x01(\x04R\bsequence\x12$\n" +
 	"\x05event\x18\x02 \x01(\v2\x0e.tamp.v1.EventR\x05event\x12\x12\n" +
 	"\x04hash\x18\x03 \x01(\fR\x04hash\x12*\n" +
-	"\x11clock_skew_micros\x18\x04 \x01(\x03R\x0fclockSkewMicros\"\xc2\x02\n" +
+	"\x11clock_skew_micros\x18\x04 \x01(\x03R\x0fclockSkewMicros\x12$\n" +
+	"\x0eown_device_seq\x18\x05 \x01(\x04R\fownDeviceSeq\"\xc2\x02\n" +
 	"\fPullResponse\x12.\n" +
 	"\aentries\x18\x01 \x03(\v2\x14.tamp.v1.LedgerEntryR\aentries\x12'\n" +
 	"\x04head\x18\x02 \x01(\v2\x13.tamp.v1.CheckpointR\x04head\x12F\n" +

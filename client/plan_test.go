@@ -1,0 +1,96 @@
+package client
+
+import (
+	"context"
+	"path/filepath"
+	"regexp"
+	"strings"
+	"testing"
+)
+
+// TestSyncQueryPlans reads SQLite's plans (EXPLAIN QUERY PLAN) of the
+// queries of the events table that a sync runs, on a store file holding
+// entries of two projects in every state a sync leaves them, before and
+// after ANALYZE: each must reach its rows through the index named, and none
+// may read the whole table. A sync's fixed cost then does not grow with the
+// entries the device holds.
+func TestSyncQueryPlans(t *testing.T) {
+	ctx := context.Background()
+	s, err := Open(ctx, filepath.Join(t.TempDir(), "device.db"), Options{User: "ines", Durability: DurabilityNormal})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer s.Close()
+	here, there := s.NewID(), s.NewID()
+	for i := range 600 {
+		p := here
+		if i%4 == 0 {
+			p = there
+		}
+		if _, err := s.RecordTest(ctx, TestInput{Project: p, Readings: sandCone(100+float64(i%20), 12), Feature: "pad"}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	// Most entries synced and seen in the chain, some pulled from other
+	// devices, a few acknowledged but not yet seen, the newest pending.
+	for _, q := range []string{
+		`UPDATE events SET status = 'accepted', confirmed = 1, server_seq = device_seq WHERE device_seq <= 540`,
+		`UPDATE events SET origin = 'remote', device_id = 'another-device' WHERE device_seq <= 300 AND device_seq % 2 = 0`,
+		`UPDATE events SET status = 'accepted', server_seq = device_seq WHERE device_seq > 540 AND device_seq <= 560`,
+		`UPDATE events SET status = 'waiting', waiting_since_micros = 1 WHERE device_seq > 590`,
+	} {
+		if _, err := s.db.Writer().ExecContext(ctx, q); err != nil {
+			t.Fatal(err)
+		}
+	}
+	partial := regexp.MustCompile(`^SCAN events USING (COVERING )?INDEX (events_unconfirmed|events_outbox|events_waiting)\b`)
+	cases := []struct {
+		name  string
+		query string
+		args  []any
+		want  string // a plan line must contain it
+	}{
+		{"outbox", outboxQuery, []any{here}, "USING INDEX events_unconfirmed"},
+		{"lacking", lackingUpdate, []any{here, 10}, "USING INDEX events_unconfirmed"},
+		{"outbox status", outboxStatusQuery, []any{here}, "USING INDEX events_outbox"},
+		{"supply", supplyQuery, []any{here, s.DeviceID(), 3, 9}, "device_id=? AND device_seq>? AND device_seq<?"},
+		{"own entries", ownEventsQuery + "?, ?)", []any{s.DeviceID(), here, 7, 8}, "device_seq=?"},
+		{"push everything back", everythingQuery, []any{here}, "(project_id=?)"},
+	}
+	for _, analyzed := range []bool{false, true} {
+		if analyzed {
+			if _, err := s.db.Writer().ExecContext(ctx, `ANALYZE`); err != nil {
+				t.Fatal(err)
+			}
+		}
+		for _, c := range cases {
+			rows, err := s.db.Reader().QueryContext(ctx, "EXPLAIN QUERY PLAN "+c.query, c.args...)
+			if err != nil {
+				t.Fatalf("%s: %v", c.name, err)
+			}
+			var plan []string
+			for rows.Next() {
+				var id, parent, unused int
+				var detail string
+				if err := rows.Scan(&id, &parent, &unused, &detail); err != nil {
+					t.Fatal(err)
+				}
+				plan = append(plan, detail)
+			}
+			rows.Close()
+			if err := rows.Err(); err != nil {
+				t.Fatal(err)
+			}
+			found := false
+			for _, d := range plan {
+				if strings.HasPrefix(d, "SCAN events") && !partial.MatchString(d) {
+					t.Errorf("%s (analyzed %v) reads the whole events table: %q", c.name, analyzed, d)
+				}
+				found = found || strings.Contains(d, c.want)
+			}
+			if !found {
+				t.Errorf("%s (analyzed %v): plan %q does not use %q", c.name, analyzed, plan, c.want)
+			}
+		}
+	}
+}
