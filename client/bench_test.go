@@ -112,29 +112,3 @@ func BenchmarkRecordTest(b *testing.B) {
 		})
 	}
 }
-
-// BenchmarkOpen measures opening a store that holds 5,000 tests: the views
-// are rebuilt from the events on open.
-func BenchmarkOpen(b *testing.B) {
-	ctx := context.Background()
-	path := filepath.Join(b.TempDir(), "open.db")
-	s, err := Open(ctx, path, Options{User: "ines", Durability: DurabilityNormal})
-	if err != nil {
-		b.Fatal(err)
-	}
-	project := s.NewID()
-	for i := range 5000 {
-		if _, err := s.RecordTest(ctx, TestInput{Project: project, Readings: sandCone(100+float64(i%20), 12)}); err != nil {
-			b.Fatal(err)
-		}
-	}
-	s.Close()
-	b.ResetTimer()
-	for range b.N {
-		s, err := Open(ctx, path, Options{})
-		if err != nil {
-			b.Fatal(err)
-		}
-		s.Close()
-	}
-}

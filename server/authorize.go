@@ -17,29 +17,27 @@ import (
 
 func validRole(r Role) bool { return r == Inspector || r == Office || r == QA || r == Admin }
 
-// entryRoles is the role table: which roles may make each kind of entry.
-// It is the one place the server's entry rules by role live; the README
-// states it as a table, and a test pushes every (role, kind) cell through a
-// server. A kind with no roles is made by the server itself and is never
-// accepted from a member's device.
-var entryRoles = map[string][]Role{
-	"project_set_up":          {Admin},
-	"spec_defined":            {QA},
-	"reference_added":         {QA},
-	"borrow_source_measured":  {QA},
-	"moisture_correction_set": {QA},
-	"equipment_registered":    {Office, QA},
-	"standard_count_recorded": {Inspector}, // the gauge operator's daily check
-	"lift_placement_recorded": {Office},
-	"haul_recorded":           {Office},
-	"test_recorded":           {Inspector},
-	"test_corrected":          {Inspector},
-	"test_voided":             {Inspector},
-	"test_reviewed":           {Office, QA},
-	"exception_accepted":      {QA},
-	"device_enrolled":         {}, // the server's own entries: no member makes them
-	"device_revoked":          {},
-}
+// entryRoles is the role table: which roles may make each kind of entry,
+// by kind name, built from the ledger's kind descriptors (their Roles). It
+// is the one place the server's entry rules by role live (rules beyond
+// roles are in authorizer.check); the README states it as a table, and a
+// test pushes every (role, kind) cell through a server. A kind with no
+// roles is made by the server itself and is never accepted from a member's
+// device.
+var entryRoles = func() map[string][]Role {
+	m := map[string][]Role{}
+	for _, d := range ledger.Kinds() {
+		roles := []Role{}
+		for _, r := range d.Roles {
+			if !validRole(Role(r)) {
+				panic(fmt.Sprintf("server: the ledger gives kind %s the unknown role %q", d.Name, r))
+			}
+			roles = append(roles, Role(r))
+		}
+		m[d.Name] = roles
+	}
+	return m
+}()
 
 // EntryRoles returns the roles that may make an entry of kind.
 func EntryRoles(kind string) []Role { return slices.Clone(entryRoles[kind]) }

@@ -3,7 +3,9 @@ package server_test
 import (
 	"context"
 	"crypto/ed25519"
+	"os"
 	"slices"
+	"strings"
 	"testing"
 	"time"
 
@@ -17,26 +19,49 @@ import (
 	"tamp/server"
 )
 
-// documentedEntryRoles is the role table as the README states it: which
-// roles may make each kind of entry. A kind with no roles is made by the
-// server itself, never pushed by a member.
-var documentedEntryRoles = map[string][]server.Role{
-	"project_set_up":          {server.Admin},
-	"spec_defined":            {server.QA},
-	"reference_added":         {server.QA},
-	"borrow_source_measured":  {server.QA},
-	"moisture_correction_set": {server.QA},
-	"equipment_registered":    {server.Office, server.QA},
-	"standard_count_recorded": {server.Inspector},
-	"lift_placement_recorded": {server.Office},
-	"haul_recorded":           {server.Office},
-	"test_recorded":           {server.Inspector},
-	"test_corrected":          {server.Inspector},
-	"test_voided":             {server.Inspector},
-	"test_reviewed":           {server.Office, server.QA},
-	"exception_accepted":      {server.QA},
-	"device_enrolled":         {},
-	"device_revoked":          {},
+// readmeEntryRoles reads the role table as the README states it (in its
+// Security section): which roles may make each kind of entry. A kind with
+// no roles is made by the server itself, never pushed by a member.
+// (TestReadmeStatesTheRoleTables checks that the README states the
+// server's table; this test checks the server against what it states.)
+func readmeEntryRoles(t *testing.T) map[string][]server.Role {
+	t.Helper()
+	readme, err := os.ReadFile("../README.md")
+	if err != nil {
+		t.Fatal(err)
+	}
+	lines := strings.Split(string(readme), "\n")
+	start := slices.Index(lines, "| entry | inspector | office | qa | admin |")
+	if start < 0 || start+2 > len(lines) {
+		t.Fatal("README.md has no role table headed | entry | inspector | office | qa | admin |")
+	}
+	out := map[string][]server.Role{}
+	for _, line := range lines[start+2:] {
+		if !strings.HasPrefix(line, "| `") {
+			break
+		}
+		cells := strings.Split(strings.Trim(line, "| "), "|")
+		if len(cells) != 1+len(allRoles) {
+			t.Fatalf("README.md role table: %q has %d cells, want %d", line, len(cells), 1+len(allRoles))
+		}
+		_, rest, _ := strings.Cut(cells[0], "`")
+		kind, _, _ := strings.Cut(rest, "`")
+		roles := []server.Role{}
+		for i, c := range cells[1:] {
+			switch strings.TrimSpace(c) {
+			case "yes":
+				roles = append(roles, allRoles[i])
+			case "-":
+			default:
+				t.Fatalf("README.md role table: %s: cell %q is neither yes nor -", kind, c)
+			}
+		}
+		out[kind] = roles
+	}
+	if len(out) == 0 {
+		t.Fatal("README.md's role table has no rows")
+	}
+	return out
 }
 
 var allRoles = []server.Role{server.Inspector, server.Office, server.QA, server.Admin}
@@ -47,6 +72,7 @@ var allRoles = []server.Role{server.Inspector, server.Office, server.QA, server.
 // administrator without a role on the project, member_of_project). A kind
 // with no roles is the server's own: refused from every member.
 func TestRoleTableCells(t *testing.T) {
+	documentedEntryRoles := readmeEntryRoles(t)
 	c := startCluster(t, t.TempDir())
 	a := c.newProject("Quarry Road embankment")
 	ctx := context.Background()

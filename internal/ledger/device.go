@@ -65,13 +65,11 @@ func buildDevice(evs []*Event) *Device {
 }
 
 // ServerMade reports whether only the server makes entries of kind k,
-// signed with its own key: a device's introduction and its revocation.
+// signed with its own key (its descriptor's ServerMade): a device's
+// introduction and its revocation.
 func ServerMade(k Kind) bool {
-	switch k.(type) {
-	case *DeviceEnrolled, *DeviceRevoked:
-		return true
-	}
-	return false
+	d := descriptorOf(k)
+	return d != nil && d.ServerMade
 }
 
 // Device returns what the ledger says of a device.

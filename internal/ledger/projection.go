@@ -223,85 +223,22 @@ func (p *Projection) apply(s Signed, validate bool) (Outcome, error) {
 }
 
 // RecordID returns the id of the record an event of kind k is about: the
-// spec, reference, equipment, test... ("" for the project set-up).
+// spec, reference, equipment, test... ("" for the project set-up), as its
+// descriptor says.
 func RecordID(k Kind) string {
-	switch k := k.(type) {
-	case *SpecDefined:
-		return k.ID
-	case *ReferenceAdded:
-		return k.ID
-	case *EquipmentRegistered:
-		return k.ID
-	case *StandardCountRecorded:
-		return k.EquipmentID
-	case *MoistureCorrectionSet:
-		return k.ID
-	case *BorrowSourceMeasured:
-		return k.ID
-	case *LiftPlacementRecorded:
-		return k.ID
-	case *HaulRecorded:
-		return k.ID
-	case *TestRecorded:
-		return k.TestID
-	case *TestCorrected:
-		return k.TestID
-	case *TestVoided:
-		return k.TestID
-	case *TestReviewed:
-		return k.TestID
-	case *ExceptionAccepted:
-		return k.TestID
-	case *DeviceEnrolled:
-		return k.DeviceID
-	case *DeviceRevoked:
-		return k.DeviceID
+	if d := descriptorOf(k); d != nil {
+		return d.Record(k)
 	}
-	return "" // the project set-up
+	return ""
 }
 
 // refsOf returns the ids of the records an event refers to (not the one it
-// is about).
+// is about), as its kind's descriptor says.
 func refsOf(e *Event) []string {
-	var ids []string
-	add := func(vs ...string) {
-		for _, v := range vs {
-			if v != "" {
-				ids = append(ids, v)
-			}
-		}
+	if d := descriptorOf(e.Kind); d != nil {
+		return d.Refs(e.Kind)
 	}
-	content := func(c TestContent) {
-		add(c.ReferenceID, c.SpecID, c.EquipmentID, c.PlacementID)
-		if c.Readings.Nuclear != nil {
-			add(c.Readings.Nuclear.CorrectionID)
-		}
-	}
-	switch k := e.Kind.(type) {
-	case *StandardCountRecorded:
-		add(k.EquipmentID)
-	case *MoistureCorrectionSet:
-		add(k.EquipmentID, k.ReferenceID)
-	case *BorrowSourceMeasured:
-		add(k.ReferenceID)
-	case *LiftPlacementRecorded:
-		add(k.BorrowSourceID)
-	case *HaulRecorded:
-		add(k.BorrowSourceID, k.PlacementID)
-	case *TestRecorded:
-		content(k.Content)
-		add(k.RetestOf)
-	case *TestCorrected:
-		add(k.TestID, k.Supersedes)
-		content(k.Content)
-	case *TestVoided:
-		add(k.TestID)
-	case *TestReviewed:
-		add(k.TestID, k.Revision)
-	case *ExceptionAccepted:
-		add(k.TestID, k.Revision)
-	}
-	return ids
+	return nil
 }
 
 // Missing returns the records e refers to that this replica does not hold:
@@ -365,47 +302,13 @@ func (p *Projection) addDep(on, test string) {
 	p.deps[on][test] = true
 }
 
-// recompute rebuilds the record key from its events, then the tests that
-// depend on it.
+// recompute rebuilds the record key from its events, as the descriptor
+// of kind says, then the tests that depend on it.
 func (p *Projection) recompute(key string, kind Kind) {
 	evs := p.byRecord[key]
 	slices.SortFunc(evs, order)
-	switch kind.(type) {
-	case *ProjectSetUp:
-		p.setup = buildSetUp(evs)
-		p.loc = nil
-		if p.setup != nil && p.setup.TimeZone != "" {
-			if loc, err := time.LoadLocation(p.setup.TimeZone); err == nil {
-				p.loc = loc
-			}
-		}
-		for id := range p.tests { // units, water and time zone grade every test
-			p.recomputeTest(id, false)
-		}
+	if d := descriptorOf(kind); d == nil || !d.rebuild(p, key, evs) {
 		return
-	case *TestRecorded, *TestCorrected, *TestVoided, *TestReviewed, *ExceptionAccepted:
-		p.recomputeTest(key, true)
-		return
-	case *SpecDefined:
-		p.specs = setOrDelete(p.specs, key, buildSpec(evs))
-	case *ReferenceAdded:
-		p.refs = setOrDelete(p.refs, key, buildReference(evs))
-	case *EquipmentRegistered, *StandardCountRecorded:
-		p.equipment = setOrDelete(p.equipment, key, buildEquipment(evs))
-	case *MoistureCorrectionSet:
-		p.corrections = setOrDelete(p.corrections, key, buildCorrection(evs))
-	case *BorrowSourceMeasured:
-		p.borrow = setOrDelete(p.borrow, key, p.buildBorrow(evs))
-	case *LiftPlacementRecorded:
-		p.placements = setOrDelete(p.placements, key, buildPlacement(evs))
-	case *HaulRecorded:
-		p.hauls = setOrDelete(p.hauls, key, buildHaul(evs))
-	case *DeviceEnrolled, *DeviceRevoked:
-		before := p.devices[key].cutoff()
-		p.devices = setOrDelete(p.devices, key, buildDevice(evs))
-		if p.devices[key].cutoff() != before {
-			p.sweepRevoked(key)
-		}
 	}
 	for dep := range p.deps[key] {
 		p.recomputeTest(dep, true)
@@ -453,15 +356,11 @@ func (p *Projection) recomputeTest(id string, cascade bool) {
 }
 
 // createsRecord reports whether events of kind k create the record they are
-// about, so that its id belongs to the first event that recorded it. (A
-// set-up and an equipment registration replace earlier ones instead.)
+// about, so that its id belongs to the first event that recorded it (the
+// descriptor's Creates).
 func createsRecord(k Kind) bool {
-	switch k.(type) {
-	case *TestRecorded, *SpecDefined, *ReferenceAdded, *MoistureCorrectionSet, *BorrowSourceMeasured,
-		*LiftPlacementRecorded, *HaulRecorded:
-		return true
-	}
-	return false
+	d := descriptorOf(k)
+	return d != nil && d.Creates
 }
 
 // Claimed returns a ConflictingID rejection when e would create a record

@@ -37,79 +37,78 @@ func Validate(e Event) error {
 	case e.HLC.Wall <= 0:
 		return reject(InvalidField, "hlc", "must be set")
 	}
-	switch k := e.Kind.(type) {
-	case *ProjectSetUp:
-		return k.validate()
-	case *SpecDefined:
-		return k.validate()
-	case *ReferenceAdded:
-		return k.validate()
-	case *EquipmentRegistered:
-		return k.validate()
-	case *StandardCountRecorded:
-		return k.validate()
-	case *MoistureCorrectionSet:
-		return k.validate()
-	case *BorrowSourceMeasured:
-		return k.validate()
-	case *LiftPlacementRecorded:
-		return k.validate()
-	case *HaulRecorded:
-		return k.validate()
-	case *TestRecorded:
-		if err := checkID("test_id", k.TestID, false); err != nil {
-			return err
-		}
-		if err := optionalID("retest_of", k.RetestOf); err != nil {
-			return err
-		}
-		if k.RetestOf == k.TestID {
-			return reject(InvalidField, "retest_of", "a test cannot retest itself")
-		}
-		return k.Content.validate()
-	case *TestCorrected:
-		if err := firstErr(checkID("test_id", k.TestID, false), checkID("supersedes", k.Supersedes, true), required("reason", k.Reason)); err != nil {
-			return err
-		}
-		return k.Content.validate()
-	case *TestVoided:
-		return firstErr(checkID("test_id", k.TestID, false), required("reason", k.Reason))
-	case *TestReviewed:
-		if err := firstErr(checkID("test_id", k.TestID, false), checkID("revision", k.Revision, true)); err != nil {
-			return err
-		}
-		switch k.Decision {
-		case Approve:
-		case Return:
-			if err := required("comment", k.Comment); err != nil {
-				return reject(InvalidField, "comment", "is required when a test is returned")
-			}
-		default:
-			return reject(InvalidField, "decision", "must be approve or return")
-		}
-		return nil
-	case *ExceptionAccepted:
-		return firstErr(checkID("test_id", k.TestID, false), checkID("revision", k.Revision, true), required("reason", k.Reason))
-	case *DeviceEnrolled:
-		if err := firstErr(checkID("device_id", k.DeviceID, false), required("user_id", k.UserID)); err != nil {
-			return err
-		}
-		if len(k.PublicKey) != ed25519.PublicKeySize {
-			return reject(InvalidField, "public_key", "must be a 32-byte Ed25519 key")
-		}
-		return nil
-	case *DeviceRevoked:
-		if err := checkID("device_id", k.DeviceID, false); err != nil {
-			return err
-		}
-		if k.Effective.UnixMicro() <= 0 {
-			return reject(InvalidField, "effective_micros", "is required")
-		}
-		return nil
-	case nil:
+	if e.Kind == nil {
 		return reject(UnknownKind, "kind", "the event holds no kind")
 	}
-	return reject(UnknownKind, "kind", fmt.Sprintf("unknown event kind %T", e.Kind))
+	d := descriptorOf(e.Kind)
+	if d == nil {
+		return reject(UnknownKind, "kind", fmt.Sprintf("unknown event kind %T", e.Kind))
+	}
+	return d.validate(e.Kind)
+}
+
+func (k *TestRecorded) validate() error {
+	if err := checkID("test_id", k.TestID, false); err != nil {
+		return err
+	}
+	if err := optionalID("retest_of", k.RetestOf); err != nil {
+		return err
+	}
+	if k.RetestOf == k.TestID {
+		return reject(InvalidField, "retest_of", "a test cannot retest itself")
+	}
+	return k.Content.validate()
+}
+
+func (k *TestCorrected) validate() error {
+	if err := firstErr(checkID("test_id", k.TestID, false), checkID("supersedes", k.Supersedes, true), required("reason", k.Reason)); err != nil {
+		return err
+	}
+	return k.Content.validate()
+}
+
+func (k *TestVoided) validate() error {
+	return firstErr(checkID("test_id", k.TestID, false), required("reason", k.Reason))
+}
+
+func (k *TestReviewed) validate() error {
+	if err := firstErr(checkID("test_id", k.TestID, false), checkID("revision", k.Revision, true)); err != nil {
+		return err
+	}
+	switch k.Decision {
+	case Approve:
+	case Return:
+		if err := required("comment", k.Comment); err != nil {
+			return reject(InvalidField, "comment", "is required when a test is returned")
+		}
+	default:
+		return reject(InvalidField, "decision", "must be approve or return")
+	}
+	return nil
+}
+
+func (k *ExceptionAccepted) validate() error {
+	return firstErr(checkID("test_id", k.TestID, false), checkID("revision", k.Revision, true), required("reason", k.Reason))
+}
+
+func (k *DeviceEnrolled) validate() error {
+	if err := firstErr(checkID("device_id", k.DeviceID, false), required("user_id", k.UserID)); err != nil {
+		return err
+	}
+	if len(k.PublicKey) != ed25519.PublicKeySize {
+		return reject(InvalidField, "public_key", "must be a 32-byte Ed25519 key")
+	}
+	return nil
+}
+
+func (k *DeviceRevoked) validate() error {
+	if err := checkID("device_id", k.DeviceID, false); err != nil {
+		return err
+	}
+	if k.Effective.UnixMicro() <= 0 {
+		return reject(InvalidField, "effective_micros", "is required")
+	}
+	return nil
 }
 
 func firstErr(errs ...*Rejection) error {

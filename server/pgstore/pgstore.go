@@ -68,17 +68,9 @@ func (s *Store) Close() error {
 	return nil
 }
 
-// referenceKinds are the kinds ReferenceData returns.
-var referenceKinds = kindNames(&ledger.ProjectSetUp{}, &ledger.SpecDefined{}, &ledger.ReferenceAdded{}, &ledger.EquipmentRegistered{},
-	&ledger.StandardCountRecorded{}, &ledger.MoistureCorrectionSet{})
-
-func kindNames(ks ...ledger.Kind) []string {
-	out := make([]string, len(ks))
-	for i, k := range ks {
-		out[i] = k.KindName()
-	}
-	return out
-}
+// referenceKinds are the kinds ReferenceData returns: those the ledger's
+// descriptors mark as reference data.
+var referenceKinds = ledger.KindNames(func(d ledger.KindDescriptor) bool { return d.Reference })
 
 // querier is a pool or a transaction.
 type querier interface {

@@ -16,6 +16,7 @@ import (
 	"strings"
 	"time"
 
+	"tamp/internal/ledger"
 	"tamp/internal/sqlite"
 	"tamp/server"
 )
@@ -243,10 +244,25 @@ func (s *Store) SetEpoch(ctx context.Context, project string, epoch uint64) erro
 	return nil
 }
 
+// referenceKinds are the names of the kinds ReferenceData returns, those
+// the ledger's descriptors mark as reference data, and referenceDataSQL its
+// query, with one parameter for the project and one for each kind.
+var (
+	referenceKinds   = referenceKindArgs()
+	referenceDataSQL = `SELECT seq, envelope, hash, clock_skew_micros FROM ledger WHERE project_id = ?
+		AND kind IN (?` + strings.Repeat(", ?", len(referenceKinds)-1) + `) ORDER BY seq`
+)
+
+func referenceKindArgs() []any {
+	var out []any
+	for _, name := range ledger.KindNames(func(d ledger.KindDescriptor) bool { return d.Reference }) {
+		out = append(out, name)
+	}
+	return out
+}
+
 func (s *Store) ReferenceData(ctx context.Context, project string) ([]server.Entry, error) {
-	rows, err := s.db.Reader().QueryContext(ctx, `SELECT seq, envelope, hash, clock_skew_micros FROM ledger WHERE project_id = ?
-		AND kind IN ('project_set_up', 'spec_defined', 'reference_added', 'equipment_registered', 'standard_count_recorded', 'moisture_correction_set')
-		ORDER BY seq`, project)
+	rows, err := s.db.Reader().QueryContext(ctx, referenceDataSQL, append([]any{project}, referenceKinds...)...)
 	if err != nil {
 		return nil, fmt.Errorf("sqlitestore: reference data: %w", err)
 	}

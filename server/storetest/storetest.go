@@ -438,24 +438,27 @@ func testAfterLimits(t *testing.T, s server.Store) {
 	}
 }
 
-// ReferenceData returns the rows of reference kinds, in order.
+// ReferenceData returns the rows of reference kinds (those the ledger's
+// kind descriptors mark as reference data), in order, and no others.
 func testReferenceData(t *testing.T, s server.Store) {
 	ctx := t.Context()
-	reference := []ledger.Kind{&ledger.ProjectSetUp{}, &ledger.SpecDefined{}, &ledger.ReferenceAdded{}, &ledger.EquipmentRegistered{},
-		&ledger.StandardCountRecorded{}, &ledger.MoistureCorrectionSet{}}
-	other := []ledger.Kind{&ledger.TestRecorded{}, &ledger.DeviceEnrolled{}, &ledger.LiftPlacementRecorded{}, &ledger.BorrowSourceMeasured{}, &ledger.TestReviewed{}}
+	reference := ledger.KindNames(func(d ledger.KindDescriptor) bool { return d.Reference })
+	other := ledger.KindNames(func(d ledger.KindDescriptor) bool { return !d.Reference })
+	if len(reference) == 0 || len(other) == 0 {
+		t.Fatalf("the ledger's descriptors give %d reference kinds and %d others", len(reference), len(other))
+	}
 	ref := map[string]bool{}
 	for _, k := range reference {
-		ref[k.KindName()] = true
+		ref[k] = true
 	}
 	h := newProject(t, s, projA)
-	kinds := func(i int) string { // interleaved, each reference kind twice
+	kinds := func(i int) string { // interleaved, each reference kind at least twice, every other kind at least once
 		if i%2 == 0 {
-			return reference[(i/2)%len(reference)].KindName()
+			return reference[(i/2)%len(reference)]
 		}
-		return other[(i/2)%len(other)].KindName()
+		return other[(i/2)%len(other)]
 	}
-	rows := rowsAfter(h, 24, "k", kinds)
+	rows := rowsAfter(h, 2*max(12, 2*len(reference), len(other)), "k", kinds)
 	rows[4].SkewMicros = -4_000_000
 	must(t, s.Append(ctx, projA, h, rows[:9]))
 	must(t, s.Append(ctx, projA, after(h, rows[:9]), rows[9:]))
