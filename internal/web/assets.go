@@ -5,6 +5,8 @@ import (
 	"fmt"
 	"html/template"
 	"strconv"
+
+	"tamp/internal/report"
 )
 
 // The page's templates and its style sheet, embedded in the binary.
@@ -25,6 +27,9 @@ var funcs = template.FuncMap{
 	"sub":  func(a, b float64) float64 { return a - b },
 	"half": func(a, b float64) float64 { return (a + b) / 2 },
 	"inc":  func(i int) int { return i + 1 },
+	// rangeMethod says how the range on the bank volume still needed is
+	// computed.
+	"rangeMethod": func() string { return report.RangeMethod },
 	// printURL and dayURL take a query that url.Values.Encode made.
 	"printURL": func(q string) template.URL { return template.URL("/print?" + q) },
 	"dayURL":   func(q string) template.URL { return template.URL("/day?" + q) },

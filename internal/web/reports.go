@@ -293,11 +293,7 @@ func (s *Server) reconciliation(w http.ResponseWriter, r *http.Request, v *view)
 				if math.IsInf(b.StillNeededHigh, 1) {
 					high = "no upper bound"
 				}
-				rng := " (from " + vol(b.StillNeededLow) + " to " + high
-				if b.RangeMethod != "" {
-					rng += "; " + b.RangeMethod
-				}
-				need += rng + ")"
+				need += " (range " + vol(b.StillNeededLow) + " to " + high + ", as said above)"
 			}
 			add("bank volume still needed", need)
 		}
