@@ -145,7 +145,8 @@
 //
 // Two tables in authorize.go hold every rule of who may do what: entryRoles
 // says which roles may make each kind of entry (a kind with none is the
-// server's own), and adminCalls who may make each administration call. No
+// server's own), built from the Roles of the ledger's kind descriptors, and
+// adminCalls who may make each administration call. No
 // one decides on a test they recorded (no review, no accepted exception),
 // whatever their role. An enrolment code lets its holder act as its user
 // everywhere the user has a role, so a project administrator may issue one

@@ -92,10 +92,10 @@ type Store interface {
 	ClockSkews(ctx context.Context, project string) (map[string]int64, error)
 	// ReferenceData returns the entries of reference kinds, in order of
 	// sequence number: the rows whose Kind the ledger's kind descriptors
-	// mark as Reference (today project_set_up, spec_defined,
-	// reference_added, equipment_registered, standard_count_recorded and
-	// moisture_correction_set: the records that grade and check the tests,
-	// which a new device pulls first).
+	// mark as Reference (ledger.KindDescriptor; the set-up, specs,
+	// references, equipment, standard counts and moisture corrections: the
+	// records that grade and check the tests, which a new device pulls
+	// first).
 	ReferenceData(ctx context.Context, project string) ([]Entry, error)
 
 	// AddUser creates a user; a server administrator may create projects

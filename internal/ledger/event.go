@@ -31,7 +31,8 @@ type Event struct {
 // *ReferenceAdded, *EquipmentRegistered, *StandardCountRecorded,
 // *MoistureCorrectionSet, *BorrowSourceMeasured, *LiftPlacementRecorded,
 // *HaulRecorded, *TestRecorded, *TestCorrected, *TestVoided, *TestReviewed,
-// *ExceptionAccepted, *DeviceEnrolled or *DeviceRevoked.
+// *ExceptionAccepted, *DeviceEnrolled or *DeviceRevoked. Each has a
+// descriptor in kinds.go (see Kinds and DescriptorOf).
 type Kind interface {
 	// KindName is the kind's name in snake case, as reports show it.
 	KindName() string
