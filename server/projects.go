@@ -1,0 +1,169 @@
+package server
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"sync"
+	"sync/atomic"
+
+	"google.golang.org/grpc/codes"
+
+	"tamp/internal/ledger"
+)
+
+// project is the server's state of one project's ledger. A push decides
+// under mu (what to accept, at which sequence numbers, with which hashes)
+// and applies what it accepts to view at once; it then takes write before
+// releasing mu and writes its rows to the store, so that batches reach the
+// store in the order they were decided while the next push decides. view,
+// head and seqs may thus run ahead of the store by the batches being
+// written. A failed write counts in failed: the next holder of mu reloads
+// the state from the store, and every batch decided since the last load is
+// given up, since its outcomes may rest on the batch that was not stored.
+//
+// Whatever changes the state holds mu's write side; a report only reads
+// view, under mu's read side (see read), beside other reports.
+type project struct {
+	mu     sync.RWMutex
+	view   *ledger.Projection
+	head   ledger.Checkpoint // the chain head after the last decided batch
+	seqs   map[string]uint64 // the sequence number of every decided event
+	devs   *deviceSeqs       // each device's decided entries, and the gaps between them
+	loaded bool
+	seen   uint64 // failed when the state was loaded
+
+	write  sync.Mutex
+	failed atomic.Uint64 // writes that failed after their batch was decided
+}
+
+// fresh reports whether p's state is loaded and no write failed since.
+func (p *project) fresh() bool { return p.loaded && p.failed.Load() == p.seen }
+
+// projectOf returns a project's state, not loaded before first use.
+func (s *Server) projectOf(id string) *project {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	p := s.projects[id]
+	if p == nil {
+		p = &project{}
+		s.projects[id] = p
+	}
+	return p
+}
+
+// lockProject returns a project's state with its mu held, loading it from
+// the store on first use or after a failed write.
+func (s *Server) lockProject(ctx context.Context, id string) (*project, error) {
+	p := s.projectOf(id)
+	p.mu.Lock()
+	if p.fresh() {
+		return p, nil
+	}
+	if err := s.load(ctx, p, id); err != nil {
+		p.mu.Unlock()
+		return nil, err
+	}
+	return p, nil
+}
+
+// load reads a project's state from the store, after the writes in flight.
+func (s *Server) load(ctx context.Context, p *project, id string) error {
+	p.write.Lock()
+	defer p.write.Unlock()
+	head, err := s.storeHead(ctx, id)
+	if err != nil {
+		return err
+	}
+	view := ledger.NewProjection(id)
+	seqs := map[string]uint64{}
+	devs := newDeviceSeqs()
+	var seq uint64
+	for {
+		entries, err := s.storeAfter(ctx, id, seq, 1000)
+		if err != nil {
+			return err
+		}
+		for _, e := range entries {
+			sg, err := ledger.Decode(e.Event)
+			if err != nil {
+				return fmt.Errorf("server: stored event %d of %s: %w", e.Seq, id, err)
+			}
+			if _, err := view.Apply(sg); err != nil {
+				return fmt.Errorf("server: stored event %d of %s: %w", e.Seq, id, err)
+			}
+			seqs[sg.Event.ID] = e.Seq
+			devs.hold(&sg.Event)
+		}
+		if len(entries) < 1000 {
+			break
+		}
+		seq = entries[len(entries)-1].Seq
+	}
+	s.syncDevices(ctx, id, view)
+	p.view, p.head, p.seqs, p.devs, p.loaded = view, head, seqs, devs, true
+	p.seen = p.failed.Load()
+	return nil
+}
+
+// inspect runs fn with a project's projection as the store holds it, under
+// the project's lock.
+func (s *Server) inspect(ctx context.Context, id string, fn func(*ledger.Projection)) error {
+	p, err := s.lockProject(ctx, id)
+	if err != nil {
+		return err
+	}
+	defer p.mu.Unlock()
+	// Wait for the batches being written, so that fn sees only what is
+	// stored; reload if one of them failed.
+	p.write.Lock()
+	p.write.Unlock()
+	if !p.fresh() {
+		if err := s.load(ctx, p, id); err != nil {
+			return err
+		}
+	}
+	fn(p.view)
+	return nil
+}
+
+// read runs fn with a project's projection as the store holds it, under
+// the read side of the project's lock: reports run side by side, and a
+// push waits only for those already running (a waiting push holds off new
+// ones). fn must only read the projection.
+func (s *Server) read(ctx context.Context, id string, fn func(*ledger.Projection)) error {
+	p := s.projectOf(id)
+	for {
+		p.mu.RLock()
+		if p.fresh() {
+			// Wait for the batches being written, so that fn sees only what
+			// is stored: no push decides while the read side is held.
+			p.write.Lock()
+			p.write.Unlock()
+			if p.fresh() {
+				defer p.mu.RUnlock()
+				fn(p.view)
+				return nil
+			}
+		}
+		p.mu.RUnlock()
+		// Not loaded, or a write failed: load under the write side, and read
+		// again.
+		p.mu.Lock()
+		var err error
+		if !p.fresh() {
+			err = s.load(ctx, p, id)
+		}
+		p.mu.Unlock()
+		if err != nil {
+			return err
+		}
+	}
+}
+
+func projectErr(s *Server, ctx context.Context, id string, err error) error {
+	if errors.Is(err, ErrNoProject) {
+		return statusError(codes.NotFound, reasonNoProject, "project_id", "", fmt.Sprintf("no project %s on this server", id))
+	}
+	return s.internal(ctx, "load project", err)
+}
