@@ -11,6 +11,7 @@ import (
 	"io"
 	"io/fs"
 	"slices"
+	"strings"
 	"sync"
 	"time"
 
@@ -92,6 +93,7 @@ type Store struct {
 	views    map[string]*ledger.Projection
 	enrolled []string
 	stmts    *recordStatements // record's statements, prepared at its first use
+	pulled   *pulledStatements // applyPulled's statements, prepared at its first use
 }
 
 // Open opens the store at path, creating it (and the device's key) on first
@@ -382,6 +384,54 @@ func (s *Store) recordStmts(ctx context.Context) (*recordStatements, error) {
 	}
 	s.stmts = &st
 	return s.stmts, nil
+}
+
+// pulledRows is how many pulled events one prepared insert stores; 14
+// parameters a row keeps it far below SQLite's limit on parameters.
+const (
+	pulledRows = 100
+	pulledCols = 14
+)
+
+// pulledRow is one pulled event's row, a chain entry (server_seq set)
+// confirmed; an event held already gets the server's number and
+// confirmation (status, server_lacks, waiting_for), nothing else.
+const (
+	pulledInsert = `INSERT INTO events (event_id, project_id, device_id, device_seq, kind, record_id,
+		hlc_wall, hlc_logical, body, signature, origin, status, server_seq, created_micros, confirmed, clock_skew_micros) VALUES `
+	pulledRow    = `(?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 'remote', 'accepted', ?, ?, ?, ?)`
+	pulledUpsert = ` ON CONFLICT (event_id) DO UPDATE SET server_seq = COALESCE(excluded.server_seq, server_seq),
+		clock_skew_micros = CASE WHEN excluded.clock_skew_micros != 0 THEN excluded.clock_skew_micros ELSE clock_skew_micros END,
+		status = CASE WHEN status IN ('pending', 'waiting') THEN 'accepted' ELSE status END,
+		confirmed = MAX(confirmed, excluded.confirmed),
+		server_lacks = CASE WHEN excluded.confirmed = 1 THEN 0 ELSE server_lacks END,
+		waiting_for = '', waiting_since_micros = 0`
+)
+
+// pulledStatements store pulled events: many stores pulledRows of them,
+// one a single one.
+type pulledStatements struct {
+	many, one *sql.Stmt
+}
+
+// pulledStmts returns applyPulled's statements, preparing them on the
+// writer at the first call. Call with s.mu held.
+func (s *Store) pulledStmts(ctx context.Context) (*pulledStatements, error) {
+	if s.pulled != nil {
+		return s.pulled, nil
+	}
+	rows := strings.Repeat(pulledRow+", ", pulledRows-1) + pulledRow
+	many, err := s.db.Writer().PrepareContext(ctx, pulledInsert+rows+pulledUpsert)
+	if err != nil {
+		return nil, err
+	}
+	one, err := s.db.Writer().PrepareContext(ctx, pulledInsert+pulledRow+pulledUpsert)
+	if err != nil {
+		many.Close()
+		return nil, err
+	}
+	s.pulled = &pulledStatements{many: many, one: one}
+	return s.pulled, nil
 }
 
 // record is recordEntry with s.mu held.

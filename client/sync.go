@@ -661,15 +661,18 @@ func (s *Store) pull(ctx context.Context, sc pb.SyncServiceClient, project strin
 }
 
 // pullChain is one pull, with the device's own events left out (omitOwn)
-// or in full.
+// or in full. Receiving, opening and verifying chunks (pullChunks, on its
+// own goroutine, its opening split across the cores) runs ahead of storing
+// and applying them (here), by up to two chunks: what was verified is
+// stored in order, and an error met ahead ends the pull after the chunks
+// verified before it are stored, as when the two ran in turn.
 func (s *Store) pullChain(ctx context.Context, sc pb.SyncServiceClient, project string, opts SyncOptions, rep *SyncReport, omitOwn bool) error {
 	cp, err := s.checkpoint(ctx, project)
 	if err != nil {
 		return err
 	}
-	s.mu.Lock()
-	self, pub := s.deviceID, s.PublicKey()
-	s.mu.Unlock()
+	ctx, cancel := context.WithCancel(ctx)
+	defer cancel()
 	// The server reads the cursor's epoch and sequence; the device checks
 	// the hash itself against the anchor the server sends.
 	stream, err := sc.Pull(ctx, &pb.PullRequest{ProjectId: project, After: &pb.Checkpoint{Epoch: cp.Epoch, Sequence: cp.Seq},
@@ -677,17 +680,138 @@ func (s *Store) pullChain(ctx context.Context, sc pb.SyncServiceClient, project 
 	if err != nil {
 		return fromWire(err)
 	}
-	v := ledger.NewVerifier(cp)
-	checked := false
+	chunks := make(chan pulledChunk, 2)
+	go s.pullChunks(ctx, stream, project, cp, omitOwn, chunks)
+	// On an error here, stop the reader and wait for it to end.
+	fail := func(err error) error {
+		cancel()
+		for range chunks {
+		}
+		return err
+	}
 	var received int
 	var bytes int64
+	var held *pulledChunk // a chunk taken from chunks but not yet merged
+	next := func() (pulledChunk, bool) {
+		if held != nil {
+			c := *held
+			held = nil
+			return c, true
+		}
+		c, ok := <-chunks
+		return c, ok
+	}
+	for {
+		c, ok := next()
+		if !ok {
+			break
+		}
+		// Chunks verified while the last were being stored are stored
+		// together, in one transaction, up to maxMerged events: when the
+		// writing lags, fewer commits.
+		for !c.done && c.err == nil && len(c.signed) < maxMerged {
+			var more pulledChunk
+			select {
+			case more, ok = <-chunks:
+			default:
+				ok = false
+			}
+			if !ok {
+				break
+			}
+			if more.done || more.err != nil || more.chained != c.chained {
+				held = &more
+				break
+			}
+			c = mergeChunks(c, more)
+		}
+		if c.done {
+			rep.Head = checkpointOf(c.at)
+		}
+		if c.err != nil {
+			return fail(c.err)
+		}
+		if c.done {
+			if err := s.markLacking(ctx, project, c.from); err != nil {
+				return fail(err)
+			}
+			return fail(s.resetCheckpointIfNew(ctx, c.at))
+		}
+		fresh, err := s.applyPulled(ctx, project, c.signed, c.seqs, c.skews, c.at, c.chained)
+		if err != nil {
+			return fail(err)
+		}
+		received += len(c.signed)
+		bytes += c.bytes
+		rep.Pulled += fresh
+		if opts.Progress != nil {
+			opts.Progress(Progress{Phase: "pull", Events: received, Bytes: bytes})
+		}
+	}
+	// pullChunks ends with done or an error unless the context ended.
+	if err := context.Cause(ctx); err != nil {
+		return fmt.Errorf("client: pull: %w", err)
+	}
+	return fmt.Errorf("client: pull: the chunks ended early")
+}
+
+// maxMerged bounds the events of pulled chunks stored in one transaction.
+const maxMerged = 2000
+
+// mergeChunks returns the chunks a and, after it, b as one: b's point
+// verified, both's events. Both are chain entries, or neither is.
+func mergeChunks(a, b pulledChunk) pulledChunk {
+	a.signed = append(a.signed, b.signed...)
+	if a.seqs != nil {
+		a.seqs = append(a.seqs, b.seqs...)
+	}
+	a.skews = append(a.skews, b.skews...)
+	a.at = b.at
+	a.bytes += b.bytes
+	return a
+}
+
+// pulledChunk is a verified chunk of a pull, ready to store; or the pull's
+// end (done: at is the point verified, from the point the pull verified
+// from); or the error that ended it (with done, after the whole stream).
+type pulledChunk struct {
+	signed  []ledger.Signed
+	seqs    []uint64
+	skews   []int64
+	at      ledger.Checkpoint
+	from    uint64
+	chained bool
+	bytes   int64
+	done    bool
+	err     error
+}
+
+// pullChunks receives the pull's chunks from stream, checks the anchor,
+// opens each chunk's events and verifies the chain, and sends each chunk
+// on out, then a done or an error, and closes out.
+func (s *Store) pullChunks(ctx context.Context, stream grpc.ServerStreamingClient[pb.PullResponse], project string, cp ledger.Checkpoint, omitOwn bool, out chan<- pulledChunk) {
+	defer close(out)
+	send := func(c pulledChunk) bool {
+		select {
+		case out <- c:
+			return true
+		case <-ctx.Done():
+			return false
+		}
+	}
+	s.mu.Lock()
+	self, pub := s.deviceID, s.PublicKey()
+	s.mu.Unlock()
+	v := ledger.NewVerifier(cp)
+	checked := false
 	for {
 		resp, err := stream.Recv()
 		if err == io.EOF {
 			break
 		}
 		if err != nil {
-			return fromWire(err)
+			send(pulledChunk{err: fromWire(err)})
+			return
 		}
 		if a := resp.GetAnchor(); a != nil && !checked {
 			anchor := ledger.CheckpointFromProto(a)
@@ -696,13 +820,16 @@ func (s *Store) pullChain(ctx context.Context, sc pb.SyncServiceClient, project 
 				cp = ledger.Start(project, anchor.Epoch)
 				v = ledger.NewVerifier(cp)
 			case anchor.Epoch > cp.Epoch:
-				return &newEpoch{anchor.Epoch}
+				send(pulledChunk{err: &newEpoch{anchor.Epoch}})
+				return
 			default:
 				if err := v.CheckHead(anchor); err != nil {
-					return &forkError{err}
+					send(pulledChunk{err: &forkError{err}})
+					return
 				}
 				if err := v.CheckAnchor(anchor); err != nil {
-					return &forkError{err}
+					send(pulledChunk{err: &forkError{err}})
+					return
 				}
 			}
 			checked = true
@@ -711,82 +838,98 @@ func (s *Store) pullChain(ctx context.Context, sc pb.SyncServiceClient, project 
 		if len(entries) == 0 {
 			continue
 		}
-		keys := func(dev string) (ed25519.PublicKey, bool) {
-			if dev == self {
-				return pub, true
-			}
-			k, ok := resp.GetDeviceKeys()[dev]
-			return ed25519.PublicKey(k), ok && len(k) == ed25519.PublicKeySize
-		}
-		own, err := s.ownEvents(ctx, project, self, entries, omitOwn)
+		c, err := s.openChunk(ctx, project, self, pub, resp, v, omitOwn)
 		if err != nil {
-			return err
+			send(pulledChunk{err: err})
+			return
 		}
-		chained := !resp.GetReferenceData()
-		var chain []ledger.Entry
-		var signed []ledger.Signed
-		var seqs []uint64
-		var skews []int64
-		prev := v.At().Hash // the hash before each entry, for those whose hash the device computes
-		rebuilt := false    // whether the last entry's hash was computed here
-		for _, e := range entries {
-			var sg ledger.Signed
-			var h ledger.Hash
-			var env []byte
-			if n := e.GetOwnDeviceSeq(); n > 0 && e.GetEvent() == nil {
-				sg = own[n]
-				env = sg.Bytes()
-				h = ledger.Link(prev, e.GetSequence(), env)
-				rebuilt = true
-			} else {
-				if sg, err = ledger.Open(e.GetEvent(), keys); err != nil {
-					return &forkError{fmt.Errorf("event %d from the server: %w", e.GetSequence(), err)}
-				}
-				env = sg.Bytes()
-				copy(h[:], e.GetHash())
-				bytes += int64(len(sg.Body) + len(sg.Signature))
-				rebuilt = false
-			}
-			prev = h
-			chain = append(chain, ledger.Entry{Seq: e.GetSequence(), Event: env, Hash: h})
-			signed = append(signed, sg)
-			seqs = append(seqs, e.GetSequence())
-			skews = append(skews, e.GetClockSkewMicros())
-		}
-		if chained {
-			if err := v.Verify(chain); err != nil {
-				if len(own) > 0 && errors.Is(err, ledger.ErrChainBroken) {
-					return errOwnLacking // the device's copy may not be what the server holds: pull them in full
-				}
-				return &forkError{err}
-			}
-			if rebuilt { // the chunk's head confirms the hashes computed at its end
-				head := ledger.CheckpointFromProto(resp.GetHead())
-				if at := v.At(); head.Epoch != at.Epoch || head.Seq != at.Seq || head.Hash != at.Hash {
-					return errOwnLacking
-				}
-			}
-		} else {
-			seqs = nil // out of chain order: keep no sequence for them yet
-		}
-		fresh, err := s.applyPulled(ctx, project, signed, seqs, skews, v.At(), chained)
-		if err != nil {
-			return err
-		}
-		received += len(signed)
-		rep.Pulled += fresh
-		if opts.Progress != nil {
-			opts.Progress(Progress{Phase: "pull", Events: received, Bytes: bytes})
+		if !send(c) {
+			return
 		}
 	}
-	rep.Head = checkpointOf(v.At())
 	if !checked {
-		return fmt.Errorf("client: pull: the server sent no anchor")
+		send(pulledChunk{done: true, at: v.At(), err: fmt.Errorf("client: pull: the server sent no anchor")})
+		return
 	}
-	if err := s.markLacking(ctx, project, cp.Seq); err != nil {
-		return err
+	send(pulledChunk{done: true, at: v.At(), from: cp.Seq})
+}
+
+// openChunk opens a pulled chunk's events, rebuilds the device's own
+// entries the server left out from the copies it holds, and verifies the
+// chunk's chain entries with v.
+func (s *Store) openChunk(ctx context.Context, project, self string, pub ed25519.PublicKey, resp *pb.PullResponse, v *ledger.Verifier, omitOwn bool) (pulledChunk, error) {
+	entries := resp.GetEntries()
+	keys := func(dev string) (ed25519.PublicKey, bool) {
+		if dev == self {
+			return pub, true
+		}
+		k, ok := resp.GetDeviceKeys()[dev]
+		return ed25519.PublicKey(k), ok && len(k) == ed25519.PublicKeySize
 	}
-	return s.resetCheckpointIfNew(ctx, v.At())
+	own, err := s.ownEvents(ctx, project, self, entries, omitOwn)
+	if err != nil {
+		return pulledChunk{}, err
+	}
+	chained := !resp.GetReferenceData()
+	// The chunk's events are opened together: decoded, their signatures
+	// checked at once by the batch verifier, validated.
+	var sent []*pb.Event
+	for _, e := range entries {
+		if e.GetOwnDeviceSeq() == 0 || e.GetEvent() != nil {
+			sent = append(sent, e.GetEvent())
+		}
+	}
+	opened, openErrs := ledger.OpenBatch(sent, keys)
+	c := pulledChunk{chained: chained, signed: make([]ledger.Signed, 0, len(entries)),
+		seqs: make([]uint64, 0, len(entries)), skews: make([]int64, 0, len(entries))}
+	chain := make([]ledger.Entry, 0, len(entries))
+	prev := v.At().Hash // the hash before each entry, for those whose hash the device computes
+	rebuilt := false    // whether the last entry's hash was computed here
+	next := 0           // the next of opened
+	for _, e := range entries {
+		var sg ledger.Signed
+		var h ledger.Hash
+		var env []byte
+		if n := e.GetOwnDeviceSeq(); n > 0 && e.GetEvent() == nil {
+			sg = own[n]
+			env = sg.Bytes()
+			h = ledger.Link(prev, e.GetSequence(), env)
+			rebuilt = true
+		} else {
+			sg, err = opened[next], openErrs[next]
+			next++
+			if err != nil {
+				return pulledChunk{}, &forkError{fmt.Errorf("event %d from the server: %w", e.GetSequence(), err)}
+			}
+			env = sg.Bytes()
+			copy(h[:], e.GetHash())
+			c.bytes += int64(len(sg.Body) + len(sg.Signature))
+			rebuilt = false
+		}
+		prev = h
+		chain = append(chain, ledger.Entry{Seq: e.GetSequence(), Event: env, Hash: h})
+		c.signed = append(c.signed, sg)
+		c.seqs = append(c.seqs, e.GetSequence())
+		c.skews = append(c.skews, e.GetClockSkewMicros())
+	}
+	if chained {
+		if err := v.Verify(chain); err != nil {
+			if len(own) > 0 && errors.Is(err, ledger.ErrChainBroken) {
+				return pulledChunk{}, errOwnLacking // the device's copy may not be what the server holds: pull them in full
+			}
+			return pulledChunk{}, &forkError{err}
+		}
+		if rebuilt { // the chunk's head confirms the hashes computed at its end
+			head := ledger.CheckpointFromProto(resp.GetHead())
+			if at := v.At(); head.Epoch != at.Epoch || head.Seq != at.Seq || head.Hash != at.Hash {
+				return pulledChunk{}, errOwnLacking
+			}
+		}
+	} else {
+		c.seqs = nil // out of chain order: keep no sequence for them yet
+	}
+	c.at = v.At()
+	return c, nil
 }
 
 // ownEventsQuery finds the copies of the device's own entries the server
@@ -908,33 +1051,46 @@ func (s *Store) applyPulled(ctx context.Context, project string, evs []ledger.Si
 			ownLast = max(ownLast, sg.Event.DeviceSeq)
 		}
 	}
-	err := s.db.Tx(ctx, func(tx *sql.Tx) error {
+	st, err := s.pulledStmts(ctx)
+	if err != nil {
+		return 0, fmt.Errorf("client: store pulled events: %w", err)
+	}
+	err = s.db.Tx(ctx, func(tx *sql.Tx) error {
 		if ownLast > 0 {
 			if _, err := tx.ExecContext(ctx, `UPDATE device SET last_seq = MAX(last_seq, ?) WHERE id = 1`, ownLast); err != nil {
 				return fmt.Errorf("client: own entries pulled back: %w", err)
 			}
 		}
-		for i, sg := range evs {
-			e := sg.Event
-			var seq any
-			if seqs != nil {
-				seq = seqs[i]
+		// A chain entry is confirmed: the device holds it at its place in
+		// the chain it verified. The rows go in pulledRows at a time with
+		// one prepared statement, the rest one by one with another.
+		now := s.now().UnixMicro()
+		args := make([]any, 0, pulledCols*pulledRows)
+		many, one := tx.StmtContext(ctx, st.many), tx.StmtContext(ctx, st.one)
+		for lo := 0; lo < len(evs); {
+			n := pulledRows
+			stmt := many
+			if len(evs)-lo < pulledRows {
+				n, stmt = 1, one
 			}
-			// A chain entry is confirmed: the device holds it at its place
-			// in the chain it verified.
-			if _, err := tx.ExecContext(ctx, `INSERT INTO events (event_id, project_id, device_id, device_seq, kind, record_id,
-				hlc_wall, hlc_logical, body, signature, origin, status, server_seq, created_micros, confirmed, clock_skew_micros)
-				VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 'remote', 'accepted', ?, ?, ?, ?)
-				ON CONFLICT (event_id) DO UPDATE SET server_seq = COALESCE(excluded.server_seq, server_seq),
-				clock_skew_micros = CASE WHEN excluded.clock_skew_micros != 0 THEN excluded.clock_skew_micros ELSE clock_skew_micros END,
-				status = CASE WHEN status IN ('pending', 'waiting') THEN 'accepted' ELSE status END,
-				confirmed = MAX(confirmed, excluded.confirmed),
-				server_lacks = CASE WHEN excluded.confirmed = 1 THEN 0 ELSE server_lacks END,
-				waiting_for = '', waiting_since_micros = 0`,
-				e.ID, project, e.Device, e.DeviceSeq, e.Kind.KindName(), ledger.RecordID(e.Kind), e.HLC.Wall, e.HLC.Logical,
-				sg.Body, sg.Signature, seq, s.now().UnixMicro(), seqs != nil, skews[i]); err != nil {
-				return fmt.Errorf("client: store pulled %s: %w", e.ID, err)
+			args = args[:0]
+			for i := lo; i < lo+n; i++ {
+				sg := &evs[i]
+				e := &sg.Event
+				var seq any
+				if seqs != nil {
+					seq = seqs[i]
+				}
+				args = append(args, e.ID, project, e.Device, e.DeviceSeq, e.Kind.KindName(), ledger.RecordID(e.Kind), e.HLC.Wall, e.HLC.Logical,
+					sg.Body, sg.Signature, seq, now, seqs != nil, skews[i])
 			}
+			if _, err := stmt.ExecContext(ctx, args...); err != nil {
+				if n == 1 {
+					return fmt.Errorf("client: store pulled %s: %w", evs[lo].Event.ID, err)
+				}
+				return fmt.Errorf("client: store pulled events %s to %s: %w", evs[lo].Event.ID, evs[lo+n-1].Event.ID, err)
+			}
+			lo += n
 		}
 		if chained {
 			return saveCheckpoint(ctx, tx, cp)
@@ -946,7 +1102,13 @@ func (s *Store) applyPulled(ctx context.Context, project string, evs []ledger.Si
 	}
 	s.seq = max(s.seq, ownLast)
 	for _, sg := range evs {
-		if _, err := v.Apply(sg); err != nil { // Open validated it and its bytes are new or the same
+		// Other devices' events were validated as they were opened
+		// (OpenBatch); the device's own may be copies read from the store.
+		apply := v.ApplyValidated
+		if sg.Event.Device == s.deviceID {
+			apply = v.Apply
+		}
+		if _, err := apply(sg); err != nil { // its bytes are new or the same
 			return 0, fmt.Errorf("client: apply pulled %s: %w", sg.Event.ID, err)
 		}
 		s.clock.Observe(sg.Event.HLC)
