@@ -58,6 +58,10 @@ func (s *Server) lockProject(ctx context.Context, id string) (*project, error) {
 	p := s.projectOf(id)
 	p.mu.Lock()
 	if p.fresh() {
+		if err := s.catchUp(ctx, p, id); err != nil {
+			p.mu.Unlock()
+			return nil, err
+		}
 		return p, nil
 	}
 	if err := s.load(ctx, p, id); err != nil {
@@ -132,6 +136,9 @@ func (s *Server) inspect(ctx context.Context, id string, fn func(*ledger.Project
 // push waits only for those already running (a waiting push holds off new
 // ones). fn must only read the projection.
 func (s *Server) read(ctx context.Context, id string, fn func(*ledger.Projection)) error {
+	if s.opts.Shared { // catching up changes the state: the write side
+		return s.inspect(ctx, id, fn)
+	}
 	p := s.projectOf(id)
 	for {
 		p.mu.RLock()
@@ -166,4 +173,68 @@ func projectErr(s *Server, ctx context.Context, id string, err error) error {
 		return statusError(codes.NotFound, reasonNoProject, "project_id", "", fmt.Sprintf("no project %s on this server", id))
 	}
 	return s.internal(ctx, "load project", err)
+}
+
+// catchUp brings a loaded project's state up to the store's head when
+// other servers share the store (Options.Shared), under p.mu's write side:
+// it waits for this server's own writes, then applies what the others
+// appended after this state's head, or reloads when this head is not on
+// the store's chain (another epoch, a failed write).
+func (s *Server) catchUp(ctx context.Context, p *project, id string) error {
+	if !s.opts.Shared {
+		return nil
+	}
+	p.write.Lock()
+	head, err := s.storeHead(ctx, id)
+	if err != nil {
+		p.write.Unlock()
+		return err
+	}
+	if head.Epoch == p.head.Epoch && head.Seq == p.head.Seq && head.Hash == p.head.Hash {
+		p.write.Unlock()
+		return nil
+	}
+	if head.Epoch == p.head.Epoch && head.Seq > p.head.Seq {
+		if h, ok, err := s.storeHashAt(ctx, id, p.head.Seq); err == nil && ok && h == p.head.Hash {
+			err := s.applyStored(ctx, p, id, head)
+			p.write.Unlock()
+			if err == nil {
+				return nil
+			}
+			s.log.WarnContext(ctx, "catching up from the shared store failed; reloading", "project", id, "err", err)
+			return s.load(ctx, p, id)
+		}
+	}
+	p.write.Unlock()
+	return s.load(ctx, p, id)
+}
+
+// applyStored applies the stored entries after p.head up to head to p's
+// state.
+func (s *Server) applyStored(ctx context.Context, p *project, id string, head ledger.Checkpoint) error {
+	seq := p.head.Seq
+	for seq < head.Seq {
+		entries, err := s.storeAfter(ctx, id, seq, min(1000, int(head.Seq-seq)))
+		if err != nil {
+			return err
+		}
+		if len(entries) == 0 {
+			return fmt.Errorf("server: the store's head of %s is %d, but it holds entries only to %d", id, head.Seq, seq)
+		}
+		for _, e := range entries {
+			sg, err := ledger.Decode(e.Event)
+			if err != nil {
+				return fmt.Errorf("server: stored event %d of %s: %w", e.Seq, id, err)
+			}
+			if _, err := p.view.Apply(sg); err != nil {
+				return fmt.Errorf("server: stored event %d of %s: %w", e.Seq, id, err)
+			}
+			p.seqs[sg.Event.ID] = e.Seq
+			p.devs.hold(&sg.Event)
+			seq = e.Seq
+		}
+	}
+	p.head = head
+	s.syncDevices(ctx, id, p.view)
+	return nil
 }

@@ -49,6 +49,14 @@ type Options struct {
 	// StorageProbeInterval is how often a server whose store cannot write
 	// tries a write again (default DefaultStorageProbeInterval).
 	StorageProbeInterval time.Duration
+	// Shared says other servers append to the same store (several tampd on
+	// one PostgreSQL database). A server then catches its projection up
+	// from the store before it decides anything about a project, or
+	// answers a report, and waits for its own writes before it does, so
+	// it never decides on stale state; the store's conditional append on
+	// the chain head serialises the decisions of all of them (a loser
+	// answers "the ledger moved; push again" and reloads).
+	Shared bool
 }
 
 // Server implements the sync and administration services over a Store. It

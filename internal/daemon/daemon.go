@@ -233,7 +233,9 @@ func serve(ctx context.Context, f serveFlags, stdout, stderr io.Writer) error {
 		return err
 	}
 	defer st.Close()
-	srv := server.New(server.Options{Store: st, Logger: log})
+	// Several tampd may serve one PostgreSQL database: each catches up from
+	// it before deciding. A SQLite file has one server.
+	srv := server.New(server.Options{Store: st, Logger: log, Shared: f.store != ""})
 	defer srv.Close()
 	// A store that cannot be written (a full disk, read-only) does not
 	// stop tampd: it serves reads, reports NOT_SERVING and resumes once
