@@ -37,7 +37,7 @@ func Run(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		SilenceUsage:  true,
 		SilenceErrors: true,
 	}
-	root.AddCommand(newServe(stdout, stderr), newInit(stdout))
+	root.AddCommand(newServe(stdout, stderr), newInit(stdout), newMigrate(stdout))
 	root.SetArgs(args)
 	root.SetOut(stdout)
 	root.SetErr(stderr)
