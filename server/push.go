@@ -13,6 +13,7 @@ import (
 	"time"
 
 	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/status"
 
 	pb "tamp/internal/gen/tamp/v1"
 	"tamp/internal/ledger"
@@ -110,6 +111,12 @@ func (s *Server) push(ctx context.Context, req *pb.PushRequest) (*pb.PushRespons
 			return nil, err
 		}
 		if err := s.ensureIntroduced(ctx, req.GetProjectId(), dev); err != nil {
+			// The introduction's own push answers in statuses: with
+			// several servers on one store it may lose the race for the
+			// chain head, and the device pushes again (LEDGER_MOVED).
+			if _, ok := status.FromError(err); ok {
+				return nil, err
+			}
 			return nil, projectErr(s, ctx, req.GetProjectId(), err)
 		}
 	}
