@@ -136,10 +136,13 @@ func oldFormCode(code string) bool {
 // a bucket of EnrollAttemptBurst attempts that refills at EnrollAttemptRate
 // a second; an attempt is taken from it as the call starts and given back
 // when the call does not fail so, so a crew enrolling many tablets from one
-// office address is never held up by its own successes. A call from an
-// address whose bucket is empty is refused with ResourceExhausted, reason
-// RATE_LIMITED, rule enrolment_attempts, before the code is looked up: its
-// code, right or not, is neither used up nor tested.
+// office address is never held up by its own successes. When the bucket is
+// empty only because calls from the address are still in flight (a crew
+// enrolling at once), a call waits for one of them to end rather than being
+// refused for failures no one made. A call from an address whose bucket is
+// empty of failures is refused with ResourceExhausted, reason RATE_LIMITED,
+// rule enrolment_attempts, before the code is looked up: its code, right or
+// not, is neither used up nor tested.
 //
 // At most maxAttemptAddresses addresses are tracked; a full bucket is
 // forgotten when room is needed, and while every tracked address has
@@ -166,21 +169,27 @@ var attemptLimited = map[string]bool{
 // attempts is a token bucket of failed attempts per network address. It is
 // safe for concurrent use.
 type attempts struct {
-	mu      sync.Mutex
-	rate    float64 // attempts a second
-	burst   float64
-	max     int // addresses tracked at once
-	buckets map[string]*bucket
+	mu       sync.Mutex
+	rate     float64 // attempts a second
+	burst    float64
+	max      int // addresses tracked at once
+	buckets  map[string]*bucket
+	inflight map[string]int // attempts taken and not yet settled, by bucket
 }
 
+// maxAttemptWait is how long a call waits for the calls in flight from its
+// address to settle before it is refused.
+const maxAttemptWait = 30 * time.Second
+
 func newAttempts(rate float64, burst int) *attempts {
-	return &attempts{rate: rate, burst: float64(burst), max: maxAttemptAddresses, buckets: map[string]*bucket{}}
+	return &attempts{rate: rate, burst: float64(burst), max: maxAttemptAddresses, buckets: map[string]*bucket{}, inflight: map[string]int{}}
 }
 
 // take takes an attempt from addr's bucket at now. It returns the bucket
 // it took from (addr, or the overflow bucket), and when the bucket was
-// empty, false and how long until it holds an attempt again.
-func (a *attempts) take(addr string, now time.Time) (key string, ok bool, wait time.Duration) {
+// empty, false, how long until it holds an attempt again, and whether
+// attempts taken from it are still in flight (and may be given back).
+func (a *attempts) take(addr string, now time.Time) (key string, ok bool, wait time.Duration, busy bool) {
 	a.mu.Lock()
 	defer a.mu.Unlock()
 	key = addr
@@ -198,17 +207,22 @@ func (a *attempts) take(addr string, now time.Time) (key string, ok bool, wait t
 	}
 	a.refill(b, now)
 	if b.tokens < 1 {
-		return key, false, time.Duration(math.Ceil((1-b.tokens)/a.rate)) * time.Second
+		return key, false, time.Duration(math.Ceil((1-b.tokens)/a.rate)) * time.Second, a.inflight[key] > 0
 	}
 	b.tokens--
-	return key, true, 0
+	a.inflight[key]++
+	return key, true, 0, false
 }
 
-// give gives back the attempt a call that did not fail took from key.
-func (a *attempts) give(key string) {
+// settle ends an attempt taken from key: a call that did not fail gives it
+// back.
+func (a *attempts) settle(key string, failed bool) {
 	a.mu.Lock()
 	defer a.mu.Unlock()
-	if b := a.buckets[key]; b != nil {
+	if a.inflight[key]--; a.inflight[key] <= 0 {
+		delete(a.inflight, key)
+	}
+	if b := a.buckets[key]; b != nil && !failed {
 		b.tokens = min(a.burst, b.tokens+1)
 	}
 }
@@ -254,14 +268,21 @@ func (s *Server) limitAttempts(ctx context.Context, req any, info *grpc.UnarySer
 	if !attemptLimited[info.FullMethod] {
 		return h(ctx, req)
 	}
-	key, ok, wait := s.attempts.take(callerAddress(ctx), s.opts.Now())
+	addr := callerAddress(ctx)
+	key, ok, wait, busy := s.attempts.take(addr, s.opts.Now())
+	for deadline := time.Now().Add(maxAttemptWait); !ok && busy && time.Now().Before(deadline); {
+		select { // calls from this address are in flight: wait for one to settle
+		case <-ctx.Done():
+			return nil, status.FromContextError(ctx.Err()).Err()
+		case <-time.After(20 * time.Millisecond):
+		}
+		key, ok, wait, busy = s.attempts.take(addr, s.opts.Now())
+	}
 	if !ok {
 		return nil, statusError(codes.ResourceExhausted, reasonRateLimited, "", "enrolment_attempts",
 			fmt.Sprintf("too many failed enrolment attempts from this address; try again in %s", wait))
 	}
 	resp, err := h(ctx, req)
-	if status.Code(err) != codes.Unauthenticated {
-		s.attempts.give(key)
-	}
+	s.attempts.settle(key, status.Code(err) == codes.Unauthenticated)
 	return resp, err
 }

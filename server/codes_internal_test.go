@@ -65,12 +65,12 @@ func TestAttemptsBoundTheAddressesTracked(t *testing.T) {
 	a := newAttempts(0.1, 2)
 	a.max = 3
 	for _, addr := range []string{"192.0.2.1", "192.0.2.2", "192.0.2.3"} {
-		if key, ok, _ := a.take(addr, now); !ok || key != addr {
+		if key, ok, _, _ := a.take(addr, now); !ok || key != addr {
 			t.Fatalf("take(%s) = %q, %v; want its own bucket", addr, key, ok)
 		}
 	}
 	for i, want := range []bool{true, true, false} {
-		key, ok, wait := a.take("192.0.2.4", now)
+		key, ok, wait, _ := a.take("192.0.2.4", now)
 		if key != overflowAddress || ok != want {
 			t.Fatalf("take %d from a fourth address = %q, %v; want %q, %v", i+1, key, ok, overflowAddress, want)
 		}
@@ -78,22 +78,33 @@ func TestAttemptsBoundTheAddressesTracked(t *testing.T) {
 			t.Errorf("wait = %v, want 10s", wait)
 		}
 	}
-	if key, ok, _ := a.take("192.0.2.5", now); key != overflowAddress || ok {
+	if key, ok, _, _ := a.take("192.0.2.5", now); key != overflowAddress || ok {
 		t.Errorf("a fifth address = %q, %v; want the overflow bucket, empty", key, ok)
 	}
 	// A minute on, every bucket is full again: room is made by forgetting
 	// them, and a new address has its own bucket.
 	later := now.Add(time.Minute)
-	if key, ok, _ := a.take("192.0.2.6", later); key != "192.0.2.6" || !ok {
+	if key, ok, _, _ := a.take("192.0.2.6", later); key != "192.0.2.6" || !ok {
 		t.Errorf("a new address once the buckets refilled = %q, %v; want its own", key, ok)
 	}
 	if len(a.buckets) != 1 {
 		t.Errorf("%d buckets kept, want 1", len(a.buckets))
 	}
 	// A call that does not fail gives its attempt back.
-	key, _, _ := a.take("192.0.2.6", later)
-	a.give(key)
-	if key, ok, _ := a.take("192.0.2.6", later); !ok {
-		t.Errorf("take after a give = %q, %v; want an attempt left", key, ok)
+	key, _, _, _ := a.take("192.0.2.6", later)
+	a.settle(key, false)
+	if key, ok, _, _ := a.take("192.0.2.6", later); !ok {
+		t.Errorf("take after a settled success = %q, %v; want an attempt left", key, ok)
+	}
+	// An empty bucket with attempts in flight says so (a call then waits
+	// for them); one emptied by failures does not.
+	b := newAttempts(0.1, 1)
+	k, _, _, _ := b.take("198.51.100.1", later)
+	if _, ok, _, busy := b.take("198.51.100.1", later); ok || !busy {
+		t.Errorf("take while one is in flight = %v, busy %v; want refused and busy", ok, busy)
+	}
+	b.settle(k, true)
+	if _, ok, _, busy := b.take("198.51.100.1", later); ok || busy {
+		t.Errorf("take after a failure = %v, busy %v; want refused, not busy", ok, busy)
 	}
 }

@@ -8,6 +8,7 @@ import (
 	"path/filepath"
 	"regexp"
 	"strings"
+	"sync"
 	"testing"
 	"time"
 
@@ -204,6 +205,38 @@ func TestFailedEnrolmentAttemptsAreLimited(t *testing.T) {
 	wantServerError(t, "the good code, used", err, "CODE_INVALID", "code", "", client.ErrCodeInvalid)
 	_, err = enrol(t, c, issue(t, c))
 	wantServerError(t, "another good code after the failure", err, "RATE_LIMITED", "", "enrolment_attempts", client.ErrRateLimited)
+}
+
+// A crew enrolling more tablets at once than the burst from one office
+// address is not refused: a call finding the bucket empty only because
+// others are in flight waits for them to settle.
+func TestCrewEnrolsAtOnceFromOneAddress(t *testing.T) {
+	c := &cluster{tb: t, dir: t.TempDir(), opts: func(o *server.Options) {
+		o.EnrollAttemptBurst = 2
+		o.EnrollAttemptRate = 0.01
+	}}
+	c.start("")
+	var codes []string
+	for range 8 {
+		codes = append(codes, issue(t, c))
+	}
+	errs := make(chan error, len(codes))
+	var wg sync.WaitGroup
+	for _, code := range codes {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			_, err := enrol(t, c, code)
+			errs <- err
+		}()
+	}
+	wg.Wait()
+	close(errs)
+	for err := range errs {
+		if err != nil {
+			t.Errorf("a crew member's enrolment: %v", err)
+		}
+	}
 }
 
 // A resume whose certificate another server signed is a failed attempt.
