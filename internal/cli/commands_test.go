@@ -10,6 +10,7 @@ import (
 
 	"tamp/client"
 	"tamp/internal/soil"
+	"tamp/internal/words"
 )
 
 // Each set-up command's happy path and main errors, with names for
@@ -233,7 +234,7 @@ func TestSyncNamesConflicts(t *testing.T) {
 	}
 	decode(t, c.as("tablet", "status", "--json"), &st)
 	if st.UserName != "Ines Cardenas" || len(st.Projects) != 1 || st.Projects[0].Name != "Cinder Butte interchange" ||
-		len(st.Projects[0].Conflicts) != 1 || shortID(st.Projects[0].Conflicts[0]) != r.ShortID {
+		len(st.Projects[0].Conflicts) != 1 || words.ShortID(st.Projects[0].Conflicts[0]) != r.ShortID {
 		t.Errorf("status --json: %+v", st)
 	}
 	holds(t, "test show", c.as("tablet", "test", "show", r.ShortID), "oven moisture came back", "typo in the moisture", "concurrent_revisions")

@@ -10,6 +10,7 @@ import (
 	"tamp/client"
 	"tamp/internal/qc"
 	"tamp/internal/soil"
+	"tamp/internal/words"
 )
 
 // The demo prints through the shared helpers of format.go (tables that
@@ -98,17 +99,17 @@ func demoMoistureText(r client.Result) string {
 		return w
 	}
 	if r.Limits.MoistureBasis == client.PercentOfOptimum {
-		return fmt.Sprintf("%s (%s; %s)", w, moistureValue(r), moistureLimit(r.Limits))
+		return fmt.Sprintf("%s (%s; %s)", w, moistureValue(r), words.MoistureLimit(r.Limits))
 	}
 	return fmt.Sprintf("%s (%s; %s)", w, strings.TrimSuffix(moistureValue(r), " points"),
-		demoOr(strings.TrimSuffix(moistureLimit(r.Limits), " points of optimum"), "no window"))
+		demoOr(strings.TrimSuffix(words.MoistureLimit(r.Limits), " points of optimum"), "no window"))
 }
 
 func demoRCText(r client.Result) string {
 	if !graded(r) {
 		return "-"
 	}
-	return fmt.Sprintf("%s (%s)", demoU.show(soil.Percent, r.RelativeCompaction), demoOr(compactionLimit(r.Limits), "no limit"))
+	return fmt.Sprintf("%s (%s)", demoU.show(soil.Percent, r.RelativeCompaction), demoOr(words.CompactionLimit(r.Limits), "no limit"))
 }
 
 func demoVerdictText(r client.Result) string {
@@ -185,7 +186,7 @@ func (d *demoDay) printQASetUp() {
 	t := newDemoTable(d.p, "SPECIFICATION", "RELATIVE COMPACTION", "MOISTURE", "TEST FREQUENCY")
 	for _, sp := range qa.Specs(d.project) {
 		l := client.Limits{MinCompaction: sp.MinCompaction, MoistureBasis: sp.MoistureBasis, MoistureLow: sp.MoistureLow, MoistureHigh: sp.MoistureHigh}
-		t.row(sp.Name, compactionLimit(l), moistureLimit(l), "one per "+demoU.show(soil.Volume, sp.VolumePerTest))
+		t.row(sp.Name, words.CompactionLimit(l), words.MoistureLimit(l), "one per "+demoU.show(soil.Volume, sp.VolumePerTest))
 	}
 	t.flush()
 	d.p.f("\n")

@@ -10,6 +10,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"tamp/internal/exports"
+	"tamp/internal/words"
 )
 
 // newQAExport is tamp qa export: the project's tests as CSV, their history
@@ -75,7 +76,7 @@ a spreadsheet shows it as text and never runs it as a formula.`,
 					fmt.Fprintf(w, "%d test(s) left out of the map:\n", len(skipped))
 					t := newTable(w, "TEST", "WHY")
 					for _, s := range skipped {
-						t.row(shortID(s.TestID), s.Reason)
+						t.row(words.ShortID(s.TestID), s.Reason)
 					}
 					if err := t.flush(); err != nil {
 						return err

@@ -14,6 +14,7 @@ import (
 	"tamp/client"
 	"tamp/internal/qc"
 	"tamp/internal/soil"
+	"tamp/internal/words"
 )
 
 // methodFlags maps --method's words to the methods.
@@ -445,7 +446,7 @@ func (ss *session) test(given string) (client.Test, error) {
 
 // testLabel names a test for people: its short id, where and what.
 func (ss *session) testLabel(id string, c client.TestInput) string {
-	parts := []string{shortID(id)}
+	parts := []string{words.ShortID(id)}
 	if c.Location.Station != 0 || c.Location.Offset != 0 {
 		parts = append(parts, "at "+ss.u.station(c.Location.Station))
 		if c.Location.Offset != 0 {
@@ -476,7 +477,7 @@ type recordedJSON struct {
 // printRecorded prints a result just recorded, as text or JSON.
 func (ss *session) printRecorded(cmd *cobra.Command, asJSON bool, c client.TestInput, r client.TestResult, retestOf string) error {
 	if asJSON {
-		out := recordedJSON{TestID: r.TestID, ShortID: shortID(r.TestID), RetestOf: retestOf, Result: resultOut(ss.u, r.Result),
+		out := recordedJSON{TestID: r.TestID, ShortID: words.ShortID(r.TestID), RetestOf: retestOf, Result: resultOut(ss.u, r.Result),
 			Flags: nonNil(r.Flags), Missing: nonNil(r.Missing), Cautions: cautionsFor(r.Result.Method), Steps: []stepOut{}}
 		for _, s := range r.Steps {
 			q := quantityOf[s.Quantity]
@@ -486,13 +487,13 @@ func (ss *session) printRecorded(cmd *cobra.Command, asJSON bool, c client.TestI
 	}
 	label := ss.testLabel(r.TestID, c)
 	if retestOf != "" {
-		label += " (retest of " + shortID(retestOf) + ")"
+		label += " (retest of " + words.ShortID(retestOf) + ")"
 	}
 	if err := printResult(cmd.OutOrStdout(), ss.u, label, r); err != nil {
 		return err
 	}
 	if r.Result.Verdict == client.Fail {
-		_, err := fmt.Fprintf(cmd.OutOrStdout(), "\nThe area needs rework and a retest: tamp test retest %s with the new readings once it is reworked.\n", shortID(r.TestID))
+		_, err := fmt.Fprintf(cmd.OutOrStdout(), "\nThe area needs rework and a retest: tamp test retest %s with the new readings once it is reworked.\n", words.ShortID(r.TestID))
 		return err
 	}
 	return nil
@@ -504,14 +505,14 @@ func (ss *session) testError(cmd *cobra.Command, t client.Test, err error) error
 	case errors.Is(err, client.ErrReasonRequired):
 		return failf("--reason: say why, in words; the reason stays in the test's history")
 	case errors.Is(err, client.ErrNotAuthor):
-		return failf("test %s was recorded by %s: only they may correct or void it; ask them, or record a new test", shortID(t.ID), escape(ss.who(t.Author)))
+		return failf("test %s was recorded by %s: only they may correct or void it; ask them, or record a new test", words.ShortID(t.ID), escape(ss.who(t.Author)))
 	case errors.Is(err, client.ErrVoided):
-		return failf("test %s was voided; it stays in the record as voided. Record a new test instead", shortID(t.ID))
+		return failf("test %s was voided; it stays in the record as voided. Record a new test instead", words.ShortID(t.ID))
 	case errors.Is(err, client.ErrNotFailing):
 		return failf("test %s did not fail (%s): only a failing test is retested; to check the area again, record a new test (tamp test record)",
-			shortID(t.ID), verdictWord(t.Result.Verdict))
+			words.ShortID(t.ID), verdictWord(t.Result.Verdict))
 	case errors.Is(err, client.ErrOwnTest):
-		return failf("test %s was recorded by you: someone else in the office or QA decides on it", shortID(t.ID))
+		return failf("test %s was recorded by you: someone else in the office or QA decides on it", words.ShortID(t.ID))
 	}
 	return entryError(cmd, err)
 }
@@ -748,7 +749,7 @@ closes the failure.`,
 				return err
 			}
 			if idOnly { // for scripts: TEST=$(tamp test show last --id-only)
-				_, err := fmt.Fprintln(cmd.OutOrStdout(), shortID(t.ID))
+				_, err := fmt.Fprintln(cmd.OutOrStdout(), words.ShortID(t.ID))
 				return err
 			}
 			if showJSON {
@@ -844,7 +845,7 @@ type historyJSON struct {
 
 func (ss *session) testOut(t client.Test) testJSON {
 	c := t.Content
-	out := testJSON{ID: t.ID, ShortID: shortID(t.ID), Project: ss.projectName(), Taken: t.Taken, Day: t.Day, RecordedBy: ss.who(t.Author),
+	out := testJSON{ID: t.ID, ShortID: words.ShortID(t.ID), Project: ss.projectName(), Taken: t.Taken, Day: t.Day, RecordedBy: ss.who(t.Author),
 		Units: ss.u.name(), Station: ss.u.num(soil.Length, c.Location.Station), StationText: ss.u.station(c.Location.Station),
 		Offset: ss.u.num(soil.Length, c.Location.Offset), Elevation: ss.u.num(soil.Length, c.Location.Elevation), Position: c.Location.Position,
 		Feature: c.Feature, Lift: c.LiftNumber, Remarks: c.Remarks, Result: resultOut(ss.u, t.Result), ReviewStatus: t.ReviewStatus,
@@ -852,10 +853,10 @@ func (ss *session) testOut(t client.Test) testJSON {
 		History: ss.history(t)}
 	out.Spec, out.Reference, out.Equipment, out.Placement = ss.names(c)
 	if t.RetestOf != "" {
-		out.RetestOf = shortID(t.RetestOf)
+		out.RetestOf = words.ShortID(t.RetestOf)
 	}
 	for _, r := range t.Retests {
-		out.Retests = append(out.Retests, shortID(r))
+		out.Retests = append(out.Retests, words.ShortID(r))
 	}
 	return out
 }
@@ -867,7 +868,7 @@ func (ss *session) names(c client.TestInput) (spec, ref, eq, place string) {
 		if id == "" {
 			return ""
 		}
-		return "(not on this device: " + shortID(id) + ")"
+		return "(not on this device: " + words.ShortID(id) + ")"
 	}
 	spec, ref, eq, place = missing(c.SpecID), missing(c.ReferenceID), missing(c.EquipmentID), missing(c.PlacementID)
 	for _, s := range ss.s.Specs(ss.project) {
@@ -938,7 +939,7 @@ func (ss *session) printTest(cmd *cobra.Command, t client.Test) error {
 	if t.Voided {
 		state = " (VOIDED)"
 	}
-	p.f("Test %s%s: %s, project %s\n", shortID(t.ID), state, methodNames[t.Result.Method], quoted(ss.projectName()))
+	p.f("Test %s%s: %s, project %s\n", words.ShortID(t.ID), state, methodNames[t.Result.Method], quoted(ss.projectName()))
 	p.f("  %-28s %s by %s (id %s)\n", "taken", localTime(t.Taken, ss.loc), escape(ss.who(t.Author)), t.ID)
 	loc := ss.u.station(c.Location.Station) + ", offset " + ss.u.offset(c.Location.Offset)
 	if c.Location.Elevation != 0 {
@@ -961,12 +962,12 @@ func (ss *session) printTest(cmd *cobra.Command, t client.Test) error {
 	printGrade(p, ss.u, t.Result)
 	p.f("Review: %s\n", t.ReviewStatus)
 	if t.RetestOf != "" {
-		p.f("Retest of %s\n", shortID(t.RetestOf))
+		p.f("Retest of %s\n", words.ShortID(t.RetestOf))
 	}
 	if len(t.Retests) > 0 {
 		var ids []string
 		for _, r := range t.Retests {
-			ids = append(ids, shortID(r))
+			ids = append(ids, words.ShortID(r))
 		}
 		p.f("Retested by %s\n", strings.Join(ids, ", "))
 	}
@@ -1033,13 +1034,13 @@ func (ss *session) printTests(cmd *cobra.Command, asJSON bool, ts []client.Test,
 		if t.Voided {
 			verdict = "voided"
 		}
-		id := shortID(t.ID)
+		id := words.ShortID(t.ID)
 		if t.RetestOf != "" {
-			id += " (retest of " + shortID(t.RetestOf) + ")"
+			id += " (retest of " + words.ShortID(t.RetestOf) + ")"
 		}
 		tab.row(t.Taken.In(ss.loc).Format("15:04"), id, ss.u.station(t.Content.Location.Station), ss.u.offset(t.Content.Location.Offset),
 			t.Content.Feature, strconv.Itoa(int(t.Content.LiftNumber)), methodShort[res.Method], ss.u.show(soil.Density, res.DryDensity),
-			ss.u.show(soil.Percent, res.Moisture), rc, orDefault(compactionLimit(res.Limits), "-"), verdict, string(t.ReviewStatus), ss.who(t.Author))
+			ss.u.show(soil.Percent, res.Moisture), rc, orDefault(words.CompactionLimit(res.Limits), "-"), verdict, string(t.ReviewStatus), ss.who(t.Author))
 	}
 	if p.err == nil {
 		p.err = tab.flush()

@@ -12,6 +12,7 @@ import (
 	"tamp/client"
 	"tamp/internal/qc"
 	"tamp/internal/soil"
+	"tamp/internal/words"
 )
 
 // format.go holds the printing helpers the project commands share (and
@@ -194,15 +195,6 @@ func (u units) parseOffset(flag, s string) (float64, error) {
 	return u.toSI(soil.Length, sign*f), nil
 }
 
-// shortID is the part of a test's id tamp shows and accepts: its last
-// eight characters, from the random part of the UUIDv7.
-func shortID(id string) string {
-	if len(id) <= 8 {
-		return id
-	}
-	return id[len(id)-8:]
-}
-
 // verdictWord is a verdict in words: PASS, FAIL, or "not graded" while the
 // test's reference or spec has not reached the device.
 func verdictWord(v client.Verdict) string {
@@ -265,40 +257,6 @@ var methodNames = map[client.Method]string{
 var methodShort = map[client.Method]string{
 	client.NuclearDirect: "nuclear DT", client.NuclearBackscatter: "nuclear BS", client.SandConeMethod: "sand cone",
 	client.DriveCylinderMethod: "drive cyl.", client.RubberBalloonMethod: "balloon", client.MeasuredWetDensity: "wet density",
-}
-
-// compactionLimit is the limit a test's relative compaction was judged
-// against, as its spec writes it: "min 95 %", or "" for none.
-func compactionLimit(l client.Limits) string {
-	if l.MinCompaction == "" {
-		return ""
-	}
-	return "min " + l.MinCompaction + " %"
-}
-
-// moistureLimit is the moisture window a test was judged against, as its
-// spec writes it: "-2 to +2 points of optimum", "at most +3 points", or ""
-// for none.
-func moistureLimit(l client.Limits) string {
-	unit := "points of optimum"
-	if l.MoistureBasis == client.PercentOfOptimum {
-		unit = "% of optimum"
-	}
-	signed := func(s string) string {
-		if l.MoistureBasis != client.PercentOfOptimum && !strings.HasPrefix(s, "-") && !strings.HasPrefix(s, "+") {
-			return "+" + s
-		}
-		return s
-	}
-	switch {
-	case l.MoistureLow != "" && l.MoistureHigh != "":
-		return signed(l.MoistureLow) + " to " + signed(l.MoistureHigh) + " " + unit
-	case l.MoistureLow != "":
-		return "at least " + signed(l.MoistureLow) + " " + unit
-	case l.MoistureHigh != "":
-		return "at most " + signed(l.MoistureHigh) + " " + unit
-	}
-	return ""
 }
 
 // moistureValue is a test's moisture against optimum on its spec's basis:
@@ -366,12 +324,12 @@ func printGrade(p *printer, u units, res client.Result) {
 		p.f("  %-28s %s at %s optimum moisture\n", "maximum dry density", u.show(soil.Density, res.MaxDryDensity),
 			u.show(soil.Percent, res.OptimumMoisture))
 		rc := u.show(soil.Percent, res.RelativeCompaction)
-		if l := compactionLimit(res.Limits); l != "" {
+		if l := words.CompactionLimit(res.Limits); l != "" {
 			rc += "   (" + l + ")"
 		}
 		p.f("  %-28s %s\n", "relative compaction", rc)
 		mv := moistureValue(res)
-		if l := moistureLimit(res.Limits); l != "" {
+		if l := words.MoistureLimit(res.Limits); l != "" {
 			mv += "   (" + l + ")"
 		}
 		p.f("  %-28s %s\n", "moisture against optimum", mv)

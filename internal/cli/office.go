@@ -10,6 +10,7 @@ import (
 
 	"tamp/client"
 	"tamp/internal/soil"
+	"tamp/internal/words"
 )
 
 func newPlacement() *cobra.Command {
@@ -94,7 +95,7 @@ volume reconciliation (tamp qa reconcile).`,
 			if err != nil {
 				return entryError(cmd, err)
 			}
-			_, err = fmt.Fprintf(cmd.OutOrStdout(), "placement %s recorded (%s): %s compacted, placed %s\n", quoted(placementName(p)), shortID(id),
+			_, err = fmt.Fprintf(cmd.OutOrStdout(), "placement %s recorded (%s): %s compacted, placed %s\n", quoted(placementName(p)), words.ShortID(id),
 				ss.u.show(soil.Volume, p.CompactedVolume), placedOn)
 			return err
 		},
@@ -160,7 +161,7 @@ volume reconciliation (tamp qa reconcile).`,
 					st = ss.u.station(p.Stations.From) + " to " + ss.u.station(p.Stations.To)
 				}
 				t.row(placementName(p), p.PlacedOn, st, ss.u.show(soil.Depth, p.Thickness), ss.u.show(soil.Volume, p.CompactedVolume),
-					orDefault(borrowName[p.BorrowSourceID], "-"), shortID(p.ID))
+					orDefault(borrowName[p.BorrowSourceID], "-"), words.ShortID(p.ID))
 			}
 			return t.flush()
 		},
@@ -213,7 +214,7 @@ func newHaul() *cobra.Command {
 			if err != nil {
 				return entryError(cmd, err)
 			}
-			_, err = fmt.Fprintf(cmd.OutOrStdout(), "haul recorded (%s): %d loads of %s loose from %s on %s, %s in all\n", shortID(id), loads,
+			_, err = fmt.Fprintf(cmd.OutOrStdout(), "haul recorded (%s): %d loads of %s loose from %s on %s, %s in all\n", words.ShortID(id), loads,
 				ss.u.show(soil.Volume, h.LooseVolumePerLoad), quoted(b.Name), hauledOn, ss.u.show(soil.Volume, float64(loads)*h.LooseVolumePerLoad))
 			return err
 		},
@@ -262,9 +263,9 @@ func newHaul() *cobra.Command {
 			}
 			t := newTable(cmd.OutOrStdout(), "HAULED", "BORROW SOURCE", "LOADS", "PER LOAD", "LOOSE VOLUME", "PLACEMENT", "ID")
 			for _, h := range hs {
-				t.row(h.HauledOn, orDefault(borrowName[h.BorrowSourceID], shortID(h.BorrowSourceID)), strconv.Itoa(int(h.Loads)),
+				t.row(h.HauledOn, orDefault(borrowName[h.BorrowSourceID], words.ShortID(h.BorrowSourceID)), strconv.Itoa(int(h.Loads)),
 					ss.u.show(soil.Volume, h.LooseVolumePerLoad), ss.u.show(soil.Volume, float64(h.Loads)*h.LooseVolumePerLoad),
-					orDefault(placeName[h.PlacementID], "-"), shortID(h.ID))
+					orDefault(placeName[h.PlacementID], "-"), words.ShortID(h.ID))
 			}
 			return t.flush()
 		},

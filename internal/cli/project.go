@@ -13,6 +13,7 @@ import (
 	"tamp/client"
 	pb "tamp/internal/gen/tamp/v1"
 	"tamp/internal/soil"
+	"tamp/internal/words"
 )
 
 // projectSetting is the store setting that remembers the project chosen
@@ -71,7 +72,7 @@ func (ss *session) who(id string) string {
 	if id == "" {
 		return "-"
 	}
-	return "user " + shortID(id)
+	return "user " + words.ShortID(id)
 }
 
 // close closes the store.

@@ -12,6 +12,7 @@ import (
 	"tamp/client"
 	"tamp/internal/qc"
 	"tamp/internal/soil"
+	"tamp/internal/words"
 )
 
 // closureWords say how a failure was dealt with.
@@ -74,7 +75,7 @@ review by qualified personnel; the project's specifications govern.`,
 				ft := ch.Failed
 				var rs []string
 				for _, r := range ch.Retests {
-					rs = append(rs, shortID(r.ID)+" "+retestWord(r))
+					rs = append(rs, words.ShortID(r.ID)+" "+retestWord(r))
 				}
 				if ch.Closure == client.ClosureOpen {
 					open++
@@ -83,9 +84,9 @@ review by qualified personnel; the project's specifications govern.`,
 				if len(ch.Retests) > 0 {
 					shift = ss.u.show(soil.Length, ch.StationShift)
 				}
-				t.row(shortID(ft.ID), localTime(ft.Taken, ss.loc), ss.u.station(ft.Content.Location.Station),
+				t.row(words.ShortID(ft.ID), localTime(ft.Taken, ss.loc), ss.u.station(ft.Content.Location.Station),
 					ft.Content.Feature+" lift "+strconv.Itoa(int(ft.Content.LiftNumber)), ss.u.show(soil.Percent, ft.Result.RelativeCompaction),
-					orDefault(compactionLimit(ft.Result.Limits), "-"), verdictWhy(ft.Result), orDefault(strings.Join(rs, ", "), "none"), shift,
+					orDefault(words.CompactionLimit(ft.Result.Limits), "-"), verdictWhy(ft.Result), orDefault(strings.Join(rs, ", "), "none"), shift,
 					closureWords[ch.Closure])
 			}
 			if err := t.flush(); err != nil {
@@ -134,7 +135,7 @@ qualified personnel.`,
 			for _, fd := range fs {
 				test := ""
 				if fd.TestID != "" {
-					test = " (test " + shortID(fd.TestID) + ")"
+					test = " (test " + words.ShortID(fd.TestID) + ")"
 				}
 				p.f("%s%s\n  %s\n  entries: %s\n", strings.ToUpper(fd.Title), test, escape(fd.Message), strings.Join(fd.Entries, ", "))
 			}
@@ -577,7 +578,7 @@ swell follow the project's convention, written out below the tables.`,
 				return failf("--reason: say why the failing test is accepted as it stands; the reason stays in its history")
 			}
 			if t.Result.Verdict != client.Fail {
-				return failf("test %s did not fail (%s): only a failure is accepted as an exception", shortID(t.ID), verdictWord(t.Result.Verdict))
+				return failf("test %s did not fail (%s): only a failure is accepted as an exception", words.ShortID(t.ID), verdictWord(t.Result.Verdict))
 			}
 			if err := ss.s.AcceptException(cmd.Context(), ss.project, t.ID, reason); err != nil {
 				return ss.testError(cmd, t, err)
@@ -804,7 +805,7 @@ func (ss *session) lotOut(l client.Lot, spec string) lotJSON {
 		r.Placement, r.PlacementID = placementName(l.Placement), l.Placement.ID
 	}
 	for _, id := range l.TestIDs {
-		r.Tests = append(r.Tests, shortID(id))
+		r.Tests = append(r.Tests, words.ShortID(id))
 	}
 	if m := l.Moisture; m != nil {
 		limit := func(p *float64) num {
@@ -831,9 +832,9 @@ type left struct {
 }
 
 func leftOf(o client.LeftOutTest) left {
-	l := left{Test: shortID(o.TestID), Reason: o.Reason, ReasonText: o.ReasonText}
+	l := left{Test: words.ShortID(o.TestID), Reason: o.Reason, ReasonText: o.ReasonText}
 	if o.ReplacedBy != "" {
-		l.ReplacedBy = shortID(o.ReplacedBy)
+		l.ReplacedBy = words.ShortID(o.ReplacedBy)
 	}
 	return l
 }
@@ -841,9 +842,9 @@ func leftOf(o client.LeftOutTest) left {
 // leftOutLine says in words why a test is not in its lot, and for a
 // reworked failure which retest counts in its place.
 func leftOutLine(o client.LeftOutTest) string {
-	s := fmt.Sprintf("test %s: %s", shortID(o.TestID), orDefault(o.ReasonText, o.Reason))
+	s := fmt.Sprintf("test %s: %s", words.ShortID(o.TestID), orDefault(o.ReasonText, o.Reason))
 	if o.ReplacedBy != "" {
-		s += fmt.Sprintf(" (retest %s counts in its place)", shortID(o.ReplacedBy))
+		s += fmt.Sprintf(" (retest %s counts in its place)", words.ShortID(o.ReplacedBy))
 	}
 	return escape(s)
 }

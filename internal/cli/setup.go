@@ -15,6 +15,7 @@ import (
 
 	"tamp/client"
 	"tamp/internal/soil"
+	"tamp/internal/words"
 )
 
 // pick finds the record a flag names: by id, by one of its names (letter
@@ -66,14 +67,14 @@ func pick[T any](flag, given, what, add string, items []T, id func(T) string, na
 func (ss *session) spec(given string) (client.Spec, error) {
 	return pick("spec", given, "specs", "QA adds one with tamp spec add", ss.s.Specs(ss.project),
 		func(s client.Spec) string { return s.ID }, func(s client.Spec) []string { return []string{s.Name} },
-		func(s client.Spec) string { return quoted(s.Name) + "  " + shortID(s.ID) })
+		func(s client.Spec) string { return quoted(s.Name) + "  " + words.ShortID(s.ID) })
 }
 
 func (ss *session) reference(given string) (client.LabReference, error) {
 	return pick("reference", given, "references", "QA adds one with tamp reference add", ss.s.References(ss.project),
 		func(r client.LabReference) string { return r.ID },
 		func(r client.LabReference) []string { return []string{r.LabSampleID, r.Material, referenceName(r)} },
-		func(r client.LabReference) string { return quoted(referenceName(r)) + "  " + shortID(r.ID) })
+		func(r client.LabReference) string { return quoted(referenceName(r)) + "  " + words.ShortID(r.ID) })
 }
 
 func (ss *session) equipment(flag, given string) (client.EquipmentRecord, error) {
@@ -81,20 +82,20 @@ func (ss *session) equipment(flag, given string) (client.EquipmentRecord, error)
 		func(e client.EquipmentRecord) string { return e.ID },
 		func(e client.EquipmentRecord) []string { return []string{e.SerialNumber, equipmentName(e.Equipment)} },
 		func(e client.EquipmentRecord) string {
-			return quoted(equipmentName(e.Equipment)) + "  " + shortID(e.ID)
+			return quoted(equipmentName(e.Equipment)) + "  " + words.ShortID(e.ID)
 		})
 }
 
 func (ss *session) borrow(given string) (client.BorrowRecord, error) {
 	return pick("borrow", given, "borrow sources", "QA adds one with tamp borrow add", ss.s.BorrowSources(ss.project),
 		func(b client.BorrowRecord) string { return b.ID }, func(b client.BorrowRecord) []string { return []string{b.Name} },
-		func(b client.BorrowRecord) string { return quoted(b.Name) + "  " + shortID(b.ID) })
+		func(b client.BorrowRecord) string { return quoted(b.Name) + "  " + words.ShortID(b.ID) })
 }
 
 func (ss *session) placement(given string) (client.Placement, error) {
 	return pick("placement", given, "placements", "the office records one with tamp placement add", ss.s.Placements(ss.project),
 		func(p client.Placement) string { return p.ID }, func(p client.Placement) []string { return []string{placementName(p)} },
-		func(p client.Placement) string { return quoted(placementName(p)) + "  " + shortID(p.ID) })
+		func(p client.Placement) string { return quoted(placementName(p)) + "  " + words.ShortID(p.ID) })
 }
 
 // referenceName is how a reference is named: its lab sample id and
@@ -294,7 +295,7 @@ spec never re-grades history. The project's specifications govern.`,
 			if err != nil {
 				return entryError(cmd, err)
 			}
-			_, err = fmt.Fprintf(cmd.OutOrStdout(), "spec %s defined (%s); it reaches the server with the next tamp sync\n", quoted(name), shortID(id))
+			_, err = fmt.Fprintf(cmd.OutOrStdout(), "spec %s defined (%s); it reaches the server with the next tamp sync\n", quoted(name), words.ShortID(id))
 			return err
 		},
 	}
@@ -339,7 +340,7 @@ spec never re-grades history. The project's specifications govern.`,
 				if sp.VolumePerTest > 0 {
 					per = ss.u.show(soil.Volume, sp.VolumePerTest)
 				}
-				t.row(sp.Name, orDefault(compactionLimit(lim), "-"), orDefault(moistureLimit(lim), "-"), per, shortID(sp.ID))
+				t.row(sp.Name, orDefault(words.CompactionLimit(lim), "-"), orDefault(words.MoistureLimit(lim), "-"), per, words.ShortID(sp.ID))
 			}
 			return t.flush()
 		},
@@ -421,7 +422,7 @@ Oversize particles are corrected for per test (tamp test record
 				}
 				p := &printer{w: cmd.OutOrStdout()}
 				p.f("reference %s added (%s): maximum dry density %s at %s optimum moisture, %s; %s method %s\n",
-					quoted(referenceName(lr)), shortID(id), ss.u.show(soil.Density, lr.GradingMaxDryDensity),
+					quoted(referenceName(lr)), words.ShortID(id), ss.u.show(soil.Density, lr.GradingMaxDryDensity),
 					ss.u.show(soil.Percent, lr.GradingOptimumMoisture), how, lr.Standard, escape(lr.Method))
 				printFindings(p, "For review:", lr.Flags)
 				return p.err
@@ -484,7 +485,7 @@ Oversize particles are corrected for per test (tamp test record
 					}
 				}
 				t.row(referenceName(r), string(r.Standard)+" "+r.Method, ss.u.show(soil.Density, r.GradingMaxDryDensity),
-					ss.u.show(soil.Percent, r.GradingOptimumMoisture), from, ss.who(r.RecordedBy), shortID(r.ID))
+					ss.u.show(soil.Percent, r.GradingOptimumMoisture), from, ss.who(r.RecordedBy), words.ShortID(r.ID))
 			}
 			return t.flush()
 		},
@@ -544,7 +545,7 @@ use, transport and storage follow the licensee's radiation-safety programme.`,
 				return entryError(cmd, err)
 			}
 			_, err = fmt.Fprintf(cmd.OutOrStdout(), "%s %s registered%s (%s), calibration due %s\n", kindWord(k), quoted(equipmentName(e)), again,
-				shortID(id), orDefault(due, "not given"))
+				words.ShortID(id), orDefault(due, "not given"))
 			return err
 		},
 	}
@@ -590,7 +591,7 @@ use, transport and storage follow the licensee's radiation-safety programme.`,
 					c := e.Counts[n-1]
 					last = fmt.Sprintf("%s density %.0f moisture %.0f %s", c.Date, c.DensityCount, c.MoistureCount, acceptedWord(c.Accepted))
 				}
-				t.row(equipmentName(e.Equipment), kindWord(e.Kind), cal, last, shortID(e.ID))
+				t.row(equipmentName(e.Equipment), kindWord(e.Kind), cal, last, words.ShortID(e.ID))
 			}
 			return t.flush()
 		},
@@ -742,7 +743,7 @@ turns it into loose volume hauled.`,
 			for _, br := range ss.s.BorrowSources(ss.project) {
 				if br.ID == id {
 					_, err = fmt.Fprintf(cmd.OutOrStdout(), "borrow source %s added (%s): bank dry density %s, mean of %d test(s)\n",
-						quoted(name), shortID(id), ss.u.show(soil.Density, br.BankDryDensity), len(b.BankTests))
+						quoted(name), words.ShortID(id), ss.u.show(soil.Density, br.BankDryDensity), len(b.BankTests))
 				}
 			}
 			return err
@@ -790,7 +791,7 @@ turns it into loose volume hauled.`,
 				if b.LooseDryDensity > 0 {
 					loose = ss.u.show(soil.Density, b.LooseDryDensity)
 				}
-				t.row(b.Name, strconv.Itoa(len(b.BankTests)), ss.u.show(soil.Density, b.BankDryDensity), loose, shortID(b.ID))
+				t.row(b.Name, strconv.Itoa(len(b.BankTests)), ss.u.show(soil.Density, b.BankDryDensity), loose, words.ShortID(b.ID))
 			}
 			return t.flush()
 		},

@@ -13,6 +13,7 @@ import (
 	"golang.org/x/term"
 
 	"tamp/client"
+	"tamp/internal/words"
 )
 
 // isTerminal reports whether w is a terminal.
@@ -237,7 +238,7 @@ func printSync(w io.Writer, s *client.Store, r syncJSON) error {
 			if rj.Field != "" {
 				why += ", field " + rj.Field
 			}
-			p.f("    %s %s: %s (%s)\n", escape(rj.Kind), shortID(rj.RecordID), escape(rj.Message), escape(why))
+			p.f("    %s %s: %s (%s)\n", escape(rj.Kind), words.ShortID(rj.RecordID), escape(rj.Message), escape(why))
 		}
 	}
 	for _, id := range r.Conflicts {
@@ -246,7 +247,7 @@ func printSync(w io.Writer, s *client.Store, r syncJSON) error {
 			continue
 		}
 		p.f("  conflict: test %s (%s) was changed on two devices before they synced; both changes are kept and the later\n"+
-			"  stands: check it with tamp test show %s\n", shortID(id), escape(t.Content.Feature), shortID(id))
+			"  stands: check it with tamp test show %s\n", words.ShortID(id), escape(t.Content.Feature), words.ShortID(id))
 	}
 	if r.ClockOffBy != "" {
 		p.f("  this device's clock is %s off the server's: its entries are flagged for review; set the device's date and time\n", r.ClockOffBy)
@@ -362,7 +363,7 @@ func newStatus() *cobra.Command {
 				}
 				for _, id := range ps.Conflicts {
 					fmt.Fprintf(out, "  conflict: test %s was changed on two devices before they synced; both are kept, the later stands (tamp test show %s)\n",
-						shortID(id), shortID(id))
+						words.ShortID(id), words.ShortID(id))
 				}
 				printServerCopy(out, st, now)
 			}

@@ -11,6 +11,7 @@ import (
 
 	"tamp/client"
 	"tamp/internal/soil"
+	"tamp/internal/words"
 )
 
 // day.go: the day's tests, filtered and sorted, and the same list laid out
@@ -59,17 +60,17 @@ type row struct {
 // rowOf lays a test out for a list.
 func (v *view) rowOf(t client.Test) row {
 	res, c := t.Result, t.Content
-	r := row{ID: t.ID, Short: shortID(t.ID), Time: t.Taken.In(v.loc).Format("15:04"), Station: v.u.station(c.Location.Station),
+	r := row{ID: t.ID, Short: words.ShortID(t.ID), Time: t.Taken.In(v.loc).Format("15:04"), Station: v.u.station(c.Location.Station),
 		Offset: v.u.offset(c.Location.Offset), Feature: visible(c.Feature), Lift: c.LiftNumber, Method: methodShort[res.Method],
 		Dry: v.u.show(soil.Density, res.DryDensity), Moisture: v.u.show(soil.Percent, res.Moisture), RC: "-",
-		Limit: cmp.Or(compactionLimit(res.Limits), "-"), Verdict: verdictOf(t), Review: reviewWord(t.ReviewStatus),
+		Limit: cmp.Or(words.CompactionLimit(res.Limits), "-"), Verdict: verdictOf(t), Review: reviewWord(t.ReviewStatus),
 		Returned: t.ReviewStatus == client.Returned, By: v.who(t.Author), Retests: len(t.Retests), Flags: len(res.Flags) + len(t.Flags), Remarks: visible(c.Remarks),
 		station: c.Location.Station, taken: t.Taken}
 	if graded(res) {
 		r.RC = v.u.show(soil.Percent, res.RelativeCompaction)
 	}
 	if t.RetestOf != "" {
-		r.RetestOf, r.RetestID = shortID(t.RetestOf), t.RetestOf
+		r.RetestOf, r.RetestID = words.ShortID(t.RetestOf), t.RetestOf
 	}
 	return r
 }
@@ -331,12 +332,12 @@ func (s *Server) printDay(w http.ResponseWriter, r *http.Request, v *view) error
 		if t.Voided || t.Result.Verdict != client.Fail {
 			continue
 		}
-		n := failureNote{Short: shortID(t.ID), Station: v.u.station(t.Content.Location.Station) + ", " + v.u.offset(t.Content.Location.Offset),
+		n := failureNote{Short: words.ShortID(t.ID), Station: v.u.station(t.Content.Location.Station) + ", " + v.u.offset(t.Content.Location.Offset),
 			Why: gradeOf(t.Result).Why, Review: reviewWord(t.ReviewStatus)}
 		for _, id := range t.Retests {
 			if rt, err := v.st.Test(v.project, id); err == nil {
 				vd := verdictOf(rt)
-				n.Retests = append(n.Retests, shortID(id)+" "+vd.Word+" ("+rt.Day+")")
+				n.Retests = append(n.Retests, words.ShortID(id)+" "+vd.Word+" ("+rt.Day+")")
 			}
 		}
 		p.Failures = append(p.Failures, n)

@@ -12,11 +12,11 @@ import (
 	"tamp/internal/soil"
 )
 
-// format.go shows SI values in the project's units. It repeats, small,
-// what the command line's printing does (internal/cli cannot be imported
-// here): each quantity at the resolution tamp reports it at
-// (soil.System.Places), stations in the trade's notation, offsets with L
-// or R, verdicts and methods in words.
+// format.go shows SI values in the project's units: each quantity at the
+// resolution tamp reports it at (soil.System.Places), stations in the
+// trade's notation, offsets with L or R, verdicts and methods in words.
+// Limits and short ids are written as the command line writes them
+// (package words).
 
 // units shows SI values in a unit system.
 type units struct{ sys soil.System }
@@ -65,22 +65,8 @@ func (u units) name() string {
 }
 
 // station writes a station (m along the alignment) in the trade's
-// notation: hundreds of feet (12+34.50) in US units, kilometres
-// (1+234.50) in SI.
-func (u units) station(m float64) string {
-	v := u.sys.FromSI(soil.Length, m)
-	step, width := 100.0, 5
-	if u.sys == soil.SI {
-		step, width = 1000, 6
-	}
-	sign := ""
-	if v < 0 {
-		sign, v = "-", -v
-	}
-	v = math.Round(v*100) / 100
-	whole := math.Floor(v / step)
-	return fmt.Sprintf("%s%.0f+%0*.2f", sign, whole, width, v-whole*step)
-}
+// notation (soil.System.Station).
+func (u units) station(m float64) string { return u.sys.Station(m) }
 
 // offset writes an offset from the alignment (m, negative to the left)
 // as a distance with L or R.
@@ -92,15 +78,6 @@ func (u units) offset(m float64) string {
 		return u.show(soil.Length, m) + " R"
 	}
 	return u.show(soil.Length, 0)
-}
-
-// shortID is the part of an id tamp shows: its last eight characters, the
-// random part of a UUIDv7.
-func shortID(id string) string {
-	if len(id) <= 8 {
-		return id
-	}
-	return id[len(id)-8:]
 }
 
 // verdict is a verdict as the page shows it: a class for the glyph and the
@@ -177,38 +154,6 @@ var methodShort = map[client.Method]string{
 // nuclear reports whether m is a nuclear gauge method.
 func nuclear(m client.Method) bool {
 	return m == client.NuclearDirect || m == client.NuclearBackscatter
-}
-
-// compactionLimit is a minimum relative compaction as its spec writes it:
-// "min 95 %", or "" for none.
-func compactionLimit(l client.Limits) string {
-	if l.MinCompaction == "" {
-		return ""
-	}
-	return "min " + l.MinCompaction + " %"
-}
-
-// moistureLimit is a moisture window as its spec writes it.
-func moistureLimit(l client.Limits) string {
-	unit := "points of optimum"
-	if l.MoistureBasis == client.PercentOfOptimum {
-		unit = "% of optimum"
-	}
-	signed := func(s string) string {
-		if l.MoistureBasis != client.PercentOfOptimum && !strings.HasPrefix(s, "-") && !strings.HasPrefix(s, "+") {
-			return "+" + s
-		}
-		return s
-	}
-	switch {
-	case l.MoistureLow != "" && l.MoistureHigh != "":
-		return signed(l.MoistureLow) + " to " + signed(l.MoistureHigh) + " " + unit
-	case l.MoistureLow != "":
-		return "at least " + signed(l.MoistureLow) + " " + unit
-	case l.MoistureHigh != "":
-		return "at most " + signed(l.MoistureHigh) + " " + unit
-	}
-	return ""
 }
 
 // moistureAgainstOptimum is a result's moisture against optimum on its

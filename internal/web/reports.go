@@ -9,6 +9,7 @@ import (
 
 	"tamp/client"
 	"tamp/internal/soil"
+	"tamp/internal/words"
 )
 
 // reports.go is the one file that reads the QA reports of package client
@@ -92,9 +93,9 @@ func (s *Server) audit(w http.ResponseWriter, r *http.Request, v *view) error {
 		return err
 	}
 	for _, f := range fs {
-		af := auditFinding{Title: f.Title, Message: visible(f.Message), TestID: f.TestID, Short: shortID(f.TestID)}
+		af := auditFinding{Title: f.Title, Message: visible(f.Message), TestID: f.TestID, Short: words.ShortID(f.TestID)}
 		for _, e := range f.Entries {
-			af.Entries = append(af.Entries, shortID(e))
+			af.Entries = append(af.Entries, words.ShortID(e))
 		}
 		p.Findings = append(p.Findings, af)
 	}
@@ -142,7 +143,7 @@ func (s *Server) frequency(w http.ResponseWriter, r *http.Request, v *view) erro
 	names := v.specNames()
 	var rows []frequencyRow
 	for _, f := range v.st.Frequency(v.project) {
-		fr := frequencyRow{Placement: placementName(f.Placement), Spec: cmp.Or(names[f.SpecID], shortID(f.SpecID)),
+		fr := frequencyRow{Placement: placementName(f.Placement), Spec: cmp.Or(names[f.SpecID], words.ShortID(f.SpecID)),
 			Volume: v.u.show(soil.Volume, f.Placement.CompactedVolume), Tests: f.Taken, Required: f.Required, Shortfall: f.Shortfall, Class: "pass"}
 		for _, ru := range f.Rules {
 			fr.Rules = append(fr.Rules, v.ruleWords(ru))
@@ -195,7 +196,7 @@ func (s *Server) lots(w http.ResponseWriter, r *http.Request, v *view) error {
 	names := v.specNames()
 	var rows []lotRow
 	for _, l := range lots {
-		lr := lotRow{Name: visible(cmp.Or(l.Name, placementName(l.Placement))), Spec: cmp.Or(names[l.SpecID], shortID(l.SpecID)), N: l.N,
+		lr := lotRow{Name: visible(cmp.Or(l.Name, placementName(l.Placement))), Spec: cmp.Or(names[l.SpecID], words.ShortID(l.SpecID)), N: l.N,
 			Mean: "-", StdDev: "-", Limit: "-", Quality: "-", PWL: "-", Acceptance: acceptanceOf(l), Why: visible(l.Why)}
 		if l.N > 0 {
 			lr.Mean, lr.StdDev, lr.Limit = fixed(l.Mean, 1)+" %", fixed(l.StdDev, 2)+" %", fixed(l.LowerLimit, 1)+" %"
@@ -209,9 +210,9 @@ func (s *Server) lots(w http.ResponseWriter, r *http.Request, v *view) error {
 			lr.Moisture = "mean " + mean + ", s " + fixed(m.StdDev, 2) + ", " + fixed(m.PWL, 1) + " % within the window"
 		}
 		for _, x := range l.LeftOut {
-			s := "test " + shortID(x.TestID) + ": " + cmp.Or(leftOutWords[x.Reason], x.Reason)
+			s := "test " + words.ShortID(x.TestID) + ": " + cmp.Or(leftOutWords[x.Reason], x.Reason)
 			if x.ReplacedBy != "" {
-				s += ", by test " + shortID(x.ReplacedBy)
+				s += ", by test " + words.ShortID(x.ReplacedBy)
 			}
 			lr.LeftOut = append(lr.LeftOut, s)
 		}
@@ -313,20 +314,20 @@ func tonnes(u units, kg float64) string {
 
 // ruleWords writes a frequency rule and what it asks of the lift.
 func (v *view) ruleWords(r client.FrequencyRule) string {
-	var words string
+	var rule string
 	switch r.Kind {
 	case client.PerVolume:
-		words = "1 per " + v.u.show(soil.Volume, r.Per)
+		rule = "1 per " + v.u.show(soil.Volume, r.Per)
 	case client.PerArea:
 		f := v.u.sys.FromSI(soil.Length, 1)
-		words = fmt.Sprintf("1 per %.0f %s2", r.Per*f*f, v.u.sys.Unit(soil.Length))
+		rule = fmt.Sprintf("1 per %.0f %s2", r.Per*f*f, v.u.sys.Unit(soil.Length))
 	case client.PerLength:
-		words = "1 per " + v.u.show(soil.Length, r.Per)
+		rule = "1 per " + v.u.show(soil.Length, r.Per)
 	default:
-		words = fmt.Sprintf("%.0f per lift", r.Per)
+		rule = fmt.Sprintf("%.0f per lift", r.Per)
 	}
 	if !r.Applies {
-		return words + ": does not apply (" + r.Why + ")"
+		return rule + ": does not apply (" + r.Why + ")"
 	}
-	return fmt.Sprintf("%s: %d", words, r.Required)
+	return fmt.Sprintf("%s: %d", rule, r.Required)
 }

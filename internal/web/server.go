@@ -17,6 +17,7 @@ import (
 	"tamp/client"
 	"tamp/internal/qc"
 	"tamp/internal/soil"
+	"tamp/internal/words"
 )
 
 // Options configure a Server.
@@ -180,7 +181,7 @@ func (v *view) who(id string) string {
 	if id == "" {
 		return "-"
 	}
-	return "user " + shortID(id)
+	return "user " + words.ShortID(id)
 }
 
 // today is today's date in the project's time zone.

@@ -13,6 +13,7 @@ import (
 
 	"tamp/client"
 	"tamp/internal/soil"
+	"tamp/internal/words"
 )
 
 // testpage.go: one test with its readings, arithmetic, limits, history
@@ -114,7 +115,7 @@ func (s *Server) showTest(w http.ResponseWriter, r *http.Request, v *view, statu
 
 func (v *view) testPage(t client.Test) testPage {
 	c, res := t.Content, t.Result
-	p := testPage{ID: t.ID, Short: shortID(t.ID), Verdict: verdictOf(t), Method: methodNames[res.Method], Review: reviewWord(t.ReviewStatus),
+	p := testPage{ID: t.ID, Short: words.ShortID(t.ID), Verdict: verdictOf(t), Method: methodNames[res.Method], Review: reviewWord(t.ReviewStatus),
 		Flags: append(slices.Clone(res.Flags), t.Flags...), Missing: slices.Clone(t.Missing), Nuclear: nuclear(res.Method)}
 	p.Facts = v.facts(t)
 	p.Readings = v.readingLines(c)
@@ -182,7 +183,7 @@ func (v *view) facts(t client.Test) []line {
 	out = append(out, line{Label: "specification", Value: cmp.Or(spec, "-")}, line{Label: "laboratory reference", Value: cmp.Or(ref, "-")},
 		line{Label: "equipment", Value: cmp.Or(eq, "-")})
 	if t.RetestOf != "" {
-		out = append(out, line{Label: "retest of", Value: "test " + shortID(t.RetestOf), Href: "/test/" + url.PathEscape(t.RetestOf)})
+		out = append(out, line{Label: "retest of", Value: "test " + words.ShortID(t.RetestOf), Href: "/test/" + url.PathEscape(t.RetestOf)})
 	}
 	if c.Remarks != "" {
 		out = append(out, line{Label: "remarks", Value: visible(c.Remarks)})
@@ -197,7 +198,7 @@ func (v *view) names(c client.TestInput) (spec, ref, eq, place string) {
 		if id == "" {
 			return ""
 		}
-		return "(not on this device: " + shortID(id) + ")"
+		return "(not on this device: " + words.ShortID(id) + ")"
 	}
 	spec, ref, eq, place = missing(c.SpecID), missing(c.ReferenceID), missing(c.EquipmentID), missing(c.PlacementID)
 	for _, s := range v.st.Specs(v.project) {
@@ -229,7 +230,7 @@ func (v *view) names(c client.TestInput) (spec, ref, eq, place string) {
 
 // referenceName names a laboratory reference: its material and sample.
 func referenceName(r client.LabReference) string {
-	name := cmp.Or(r.Material, "reference "+shortID(r.ID))
+	name := cmp.Or(r.Material, "reference "+words.ShortID(r.ID))
 	if r.LabSampleID != "" {
 		name += " (" + r.LabSampleID + ")"
 	}
@@ -272,7 +273,7 @@ func (v *view) readingLines(c client.TestInput) []line {
 			out = append(out, q("readings agree within", soil.Density, n.Agreement))
 		}
 		if n.CorrectionID != "" {
-			out = append(out, line{Label: "moisture correction", Value: "applied (" + shortID(n.CorrectionID) + ")"})
+			out = append(out, line{Label: "moisture correction", Value: "applied (" + words.ShortID(n.CorrectionID) + ")"})
 		}
 		if n.OvenMoisture != nil {
 			out = append(out, q("oven-dry moisture", soil.Percent, *n.OvenMoisture))
@@ -393,7 +394,7 @@ func (v *view) limits(res client.Result) []limitRow {
 		return "conforms", "pass"
 	}
 	var out []limitRow
-	if l := compactionLimit(res.Limits); l != "" {
+	if l := words.CompactionLimit(res.Limits); l != "" {
 		word, class := judge(client.ReasonCompactionBelowMinimum)
 		value := "-"
 		if graded(res) {
@@ -401,7 +402,7 @@ func (v *view) limits(res client.Result) []limitRow {
 		}
 		out = append(out, limitRow{What: "relative compaction", Value: value, Limit: l, Conforms: word, Class: class})
 	}
-	if l := moistureLimit(res.Limits); l != "" {
+	if l := words.MoistureLimit(res.Limits); l != "" {
 		word, class := judge(client.ReasonMoistureBelowWindow, client.ReasonMoistureAboveWindow)
 		value := "-"
 		if graded(res) {
@@ -482,7 +483,7 @@ func (v *view) chain(t client.Test) []chainRow {
 			return
 		}
 		seen[x.ID] = true
-		out = append(out, chainRow{ID: x.ID, Short: shortID(x.ID), Taken: localTime(x.Taken, v.loc),
+		out = append(out, chainRow{ID: x.ID, Short: words.ShortID(x.ID), Taken: localTime(x.Taken, v.loc),
 			Where: v.u.station(x.Content.Location.Station) + ", " + v.u.offset(x.Content.Location.Offset), Verdict: verdictOf(x),
 			Review: reviewWord(x.ReviewStatus), Depth: depth, This: x.ID == t.ID})
 		var next []client.Test

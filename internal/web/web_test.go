@@ -25,6 +25,7 @@ import (
 
 	"tamp/client"
 	"tamp/internal/soil"
+	"tamp/internal/words"
 )
 
 // The fixture's units: US customary, with the exact factors of the
@@ -328,7 +329,7 @@ func TestWebReviewRules(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if _, body := get(t, ts.URL+"/day"); !strings.Contains(body, shortID(own.TestID)) {
+	if _, body := get(t, ts.URL+"/day"); !strings.Contains(body, words.ShortID(own.TestID)) {
 		t.Errorf("the day's list does not show the test another opener recorded")
 	}
 	if code := post(t, ts, own.TestID, url.Values{"token": {tok}, "decision": {"approve"}}, same); code != http.StatusForbidden {
@@ -574,8 +575,8 @@ func TestWebAuditFindings(t *testing.T) {
 		t.Fatalf("the audit page lacks the correction finding:\n%s", body)
 	}
 	row := body[i:min(len(body), i+2000)]
-	if !strings.Contains(row, shortID(f.fixed)) || !strings.Contains(row, "soil mass typed as 6.11 lb") || strings.Contains(row, "<script>") {
-		t.Errorf("the finding's row does not name test %s and its reason, escaped:\n%s", shortID(f.fixed), row)
+	if !strings.Contains(row, words.ShortID(f.fixed)) || !strings.Contains(row, "soil mass typed as 6.11 lb") || strings.Contains(row, "<script>") {
+		t.Errorf("the finding's row does not name test %s and its reason, escaped:\n%s", words.ShortID(f.fixed), row)
 	}
 	if !strings.Contains(body, "retest a failure within 48 h, within 32.81 ft of it") {
 		t.Errorf("the audit page does not state the project's retest rules (the defaults: 48 h, 10 m)")
