@@ -168,6 +168,7 @@ type audit struct {
 	within   time.Duration
 	distance float64
 	out      []located
+	chain    retestChain                    // walks a failure's retests, buffers kept
 	loc      *time.Location                 // the project's time zone
 	sys      soil.System                    // the project's units
 	names    map[string]string              // user id -> name, from the ledger's introductions
@@ -244,24 +245,9 @@ func (a *audit) notRetested(t *ledger.Test) {
 // closedByRetest reports whether a retest in t's chain (retests of retests
 // included) passed and counts.
 func (a *audit) closedByRetest(t *ledger.Test) bool {
-	seen := map[string]bool{t.ID: true}
-	queue := []string{t.ID}
-	for len(queue) > 0 {
-		id := queue[0]
-		queue = queue[1:]
-		for _, rid := range a.p.RetestsOf(id) {
-			if seen[rid] {
-				continue
-			}
-			seen[rid] = true
-			r, ok := a.p.Test(rid)
-			if !ok {
-				continue
-			}
-			if counts(r) && r.Result.Verdict == qc.Pass {
-				return true
-			}
-			queue = append(queue, rid)
+	for _, rid := range a.chain.of(a.p, t.ID) {
+		if r, ok := a.p.Test(rid); ok && counts(r) && r.Result.Verdict == qc.Pass {
+			return true
 		}
 	}
 	return false
