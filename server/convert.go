@@ -68,8 +68,13 @@ func (s *Server) storeAppend(ctx context.Context, project string, head ledger.Ch
 }
 
 // storeReferenceData returns the stored entries of reference kinds, in
-// order.
-func (s *Server) storeReferenceData(ctx context.Context, project string) ([]ledger.Entry, error) {
-	es, err := s.opts.Store.ReferenceData(ctx, project)
-	return ledgerEntries(es), err
+// order, as the store gives them (a pull sends them without decoding).
+func (s *Server) storeReferenceData(ctx context.Context, project string) ([]Entry, error) {
+	return s.opts.Store.ReferenceData(ctx, project)
+}
+
+// storeEntries returns up to limit stored entries after seq, in order, as
+// the store gives them (a pull sends them without decoding).
+func (s *Server) storeEntries(ctx context.Context, project string, seq uint64, limit int) ([]Entry, error) {
+	return s.opts.Store.After(ctx, project, seq, limit)
 }

@@ -98,7 +98,7 @@ func (s *Server) pull(req *pb.PullRequest, stream grpc.ServerStreamingServer[pb.
 	}
 	first := true
 	for cursor < head.Seq || first {
-		entries, err := s.storeAfter(ctx, req.GetProjectId(), cursor, min(chunk, int(head.Seq-cursor)))
+		entries, err := s.storeEntries(ctx, req.GetProjectId(), cursor, min(chunk, int(head.Seq-cursor)))
 		if err != nil {
 			return s.internal(ctx, "read ledger", err)
 		}
@@ -112,7 +112,7 @@ func (s *Server) pull(req *pb.PullRequest, stream grpc.ServerStreamingServer[pb.
 		if len(entries) > 0 {
 			last := entries[len(entries)-1]
 			cursor = last.Seq
-			resp.Head = ledger.CheckpointToProto(ledger.Checkpoint{Project: head.Project, Epoch: head.Epoch, Seq: last.Seq, Hash: last.Hash})
+			resp.Head = ledger.CheckpointToProto(ledger.Checkpoint{Project: head.Project, Epoch: head.Epoch, Seq: last.Seq, Hash: ledgerHash(last.Hash)})
 		}
 		if first {
 			resp.Anchor = anchor
@@ -130,7 +130,7 @@ func (s *Server) pull(req *pb.PullRequest, stream grpc.ServerStreamingServer[pb.
 
 // bounded returns the longest prefix of es (at least one entry) whose
 // events fit in maxChunkBytes.
-func bounded(es []ledger.Entry) []ledger.Entry {
+func bounded(es []Entry) []Entry {
 	total := 0
 	for i, e := range es {
 		total += len(e.Event)
@@ -141,29 +141,31 @@ func bounded(es []ledger.Entry) []ledger.Entry {
 	return es
 }
 
-// wire decodes stored entries once each into their wire form, with the keys
-// of the devices that signed them. A stored event that does not decode is
-// an error: leaving it out would break the chain the device verifies. An
-// event device own signed goes as its device sequence number alone, without
-// its hash (the device holds the event and computes the hash; the next hash
-// sent, a later entry's or the chunk's head, confirms it); own empty sends
-// every event.
-func (s *Server) wire(ctx context.Context, es []ledger.Entry, own string) ([]*pb.LedgerEntry, map[string][]byte, error) {
+// wire puts stored entries into their wire form, with the keys of the
+// devices that signed them. The envelopes go as they are stored, split into
+// body and signature but not decoded: the device decodes and verifies each,
+// and the store's row names the signing device. A stored envelope that does
+// not split is an error: leaving it out would break the chain the device
+// verifies. An event device own signed goes as its device sequence number
+// alone, without its hash (the device holds the event and computes the
+// hash; the next hash sent, a later entry's or the chunk's head, confirms
+// it); own empty sends every event.
+func (s *Server) wire(ctx context.Context, es []Entry, own string) ([]*pb.LedgerEntry, map[string][]byte, error) {
 	out := make([]*pb.LedgerEntry, 0, len(es))
 	keys := map[string][]byte{}
 	for _, e := range es {
-		sg, err := ledger.Decode(e.Event)
+		if own != "" && e.DeviceID == own {
+			out = append(out, &pb.LedgerEntry{Sequence: e.Seq, OwnDeviceSeq: e.DeviceSeq, ClockSkewMicros: e.SkewMicros})
+			continue
+		}
+		m, err := ledger.SplitEnvelope(e.Event)
 		if err != nil {
 			return nil, nil, fmt.Errorf("server: stored event %d: %w", e.Seq, err)
 		}
-		if own != "" && sg.Event.Device == own {
-			out = append(out, &pb.LedgerEntry{Sequence: e.Seq, OwnDeviceSeq: sg.Event.DeviceSeq, ClockSkewMicros: e.SkewMicros})
-			continue
-		}
-		out = append(out, &pb.LedgerEntry{Sequence: e.Seq, Event: sg.Proto(), Hash: e.Hash[:], ClockSkewMicros: e.SkewMicros})
-		if _, ok := keys[sg.Event.Device]; !ok {
-			if k, ok := s.key(ctx, sg.Event.Device); ok {
-				keys[sg.Event.Device] = k
+		out = append(out, &pb.LedgerEntry{Sequence: e.Seq, Event: m, Hash: e.Hash[:], ClockSkewMicros: e.SkewMicros})
+		if _, ok := keys[e.DeviceID]; !ok {
+			if k, ok := s.key(ctx, e.DeviceID); ok {
+				keys[e.DeviceID] = k
 			}
 		}
 	}

@@ -108,7 +108,7 @@ func (r *readService) ExportLedger(req *pb.ExportLedgerRequest, stream grpc.Serv
 		return projectErr(r.s, ctx, req.GetProjectId(), err)
 	}
 	for cursor := uint64(0); cursor < head.Seq; {
-		entries, err := r.s.storeAfter(ctx, req.GetProjectId(), cursor, min(r.s.opts.ChunkSize, int(head.Seq-cursor)))
+		entries, err := r.s.storeEntries(ctx, req.GetProjectId(), cursor, min(r.s.opts.ChunkSize, int(head.Seq-cursor)))
 		if err != nil {
 			return r.s.internal(ctx, "export", err)
 		}

@@ -213,6 +213,11 @@ type Entry struct {
 	// appended, when beyond the project's limit (Row.SkewMicros); zero
 	// otherwise. It is not part of the chain.
 	SkewMicros int64
+	// DeviceID and DeviceSeq are the signing device and its number for the
+	// event, as the append's Row gave them: what a pull needs of an entry
+	// without decoding its envelope.
+	DeviceID  string
+	DeviceSeq uint64
 }
 
 // Row is one event appended to a ledger, with its place in the chain.

@@ -66,8 +66,11 @@ type Projection struct {
 
 	events   map[string]*Signed
 	byRecord map[string][]*Event // record id ("" for the project) -> events about it
-	deps     map[string]map[string]bool
-	retests  map[string]map[string]bool // test id -> tests that name it in retest_of
+	// deps names, per record, the tests whose revisions name it: a list,
+	// not a set, since a test adds only what its earlier build had not
+	// named (a set per spec would hold every test of the project).
+	deps    map[string][]string
+	retests map[string]map[string]bool // test id -> tests that name it in retest_of
 
 	setup       *SetUp
 	loc         *time.Location // the set-up's time zone, loaded once; nil for UTC
@@ -148,7 +151,7 @@ func (p *Projection) sortedTests() []*Test {
 func NewProjection(project string) *Projection {
 	return &Projection{
 		project: project, events: map[string]*Signed{}, byRecord: map[string][]*Event{},
-		deps: map[string]map[string]bool{}, retests: map[string]map[string]bool{},
+		deps: map[string][]string{}, retests: map[string]map[string]bool{},
 		specs: map[string]*Spec{}, refs: map[string]*Reference{}, equipment: map[string]*Equipment{},
 		corrections: map[string]*Correction{}, borrow: map[string]*BorrowSource{}, placements: map[string]*Placement{},
 		hauls: map[string]*Haul{}, tests: map[string]*Test{}, devices: map[string]*Device{}, revokedOut: map[string]bool{},
@@ -292,16 +295,6 @@ func (p *Projection) holds(id string) bool {
 	return false
 }
 
-func (p *Projection) addDep(on, test string) {
-	if on == "" {
-		return
-	}
-	if p.deps[on] == nil {
-		p.deps[on] = map[string]bool{}
-	}
-	p.deps[on][test] = true
-}
-
 // recompute rebuilds the record key from its events, as the descriptor
 // of kind says, then the tests that depend on it.
 func (p *Projection) recompute(key string, kind Kind) {
@@ -310,8 +303,16 @@ func (p *Projection) recompute(key string, kind Kind) {
 	if d := descriptorOf(kind); d == nil || !d.rebuild(p, key, evs) {
 		return
 	}
-	for dep := range p.deps[key] {
-		p.recomputeTest(dep, true)
+	deps := p.deps[key]
+	if len(deps) == 0 {
+		return
+	}
+	done := make(map[string]bool, len(deps))
+	for _, dep := range deps {
+		if !done[dep] {
+			done[dep] = true
+			p.recomputeTest(dep, true)
+		}
 	}
 }
 
@@ -341,18 +342,45 @@ func (p *Projection) recomputeTest(id string, cascade bool) {
 		delete(p.tests, id)
 		return
 	}
-	for _, r := range t.Revisions {
-		c := r.Content
-		p.addDep(c.ReferenceID, id)
-		p.addDep(c.SpecID, id)
-		p.addDep(c.EquipmentID, id)
-		p.addDep(c.PlacementID, id)
-		if c.Readings.Nuclear != nil {
-			p.addDep(c.Readings.Nuclear.CorrectionID, id)
-		}
-	}
-	p.addDep(t.RetestOf, id)
+	p.addDeps(p.tests[id], t)
 	p.tests[id] = t
+}
+
+// addDeps notes the records test t names that its earlier build, was, did
+// not: revisions are only ever added to a test, so a rebuild for a review
+// or a void adds nothing.
+func (p *Projection) addDeps(was, t *Test) {
+	if was != nil && len(was.Revisions) == len(t.Revisions) && was.RetestOf == t.RetestOf {
+		return
+	}
+	var buf [16]string
+	noted := buf[:0] // what the earlier build named, then what this adds
+	named := func(x *Test, fn func(string)) {
+		for i := range x.Revisions {
+			c := &x.Revisions[i].Content
+			fn(c.ReferenceID)
+			fn(c.SpecID)
+			fn(c.EquipmentID)
+			fn(c.PlacementID)
+			if c.Readings.Nuclear != nil {
+				fn(c.Readings.Nuclear.CorrectionID)
+			}
+		}
+		fn(x.RetestOf)
+	}
+	if was != nil {
+		named(was, func(id string) {
+			if id != "" && !slices.Contains(noted, id) {
+				noted = append(noted, id)
+			}
+		})
+	}
+	named(t, func(on string) {
+		if on != "" && !slices.Contains(noted, on) {
+			noted = append(noted, on)
+			p.deps[on] = append(p.deps[on], t.ID)
+		}
+	})
 }
 
 // createsRecord reports whether events of kind k create the record they are

@@ -194,6 +194,31 @@ func Decode(envelope []byte) (Signed, error) {
 	return FromEnvelope(&m)
 }
 
+// SplitEnvelope returns the body and signature of stored envelope bytes
+// as they travel, without decoding the body: what a server sends of an
+// entry on a pull (the device decodes and verifies it). It returns a
+// Malformed *Rejection for bytes that are not an envelope.
+func SplitEnvelope(envelope []byte) (*pb.Event, error) {
+	var m pb.Event
+	for b := envelope; len(b) > 0; {
+		num, typ, n := protowire.ConsumeTag(b)
+		if n < 0 || typ != protowire.BytesType || (num != 1 && num != 2) {
+			return nil, reject(Malformed, "", "the stored bytes are not an event envelope")
+		}
+		v, m2 := protowire.ConsumeBytes(b[n:])
+		if m2 < 0 {
+			return nil, reject(Malformed, "", "the stored bytes are not an event envelope")
+		}
+		if num == 1 {
+			m.Body = v
+		} else {
+			m.Signature = v
+		}
+		b = b[n+m2:]
+	}
+	return &m, nil
+}
+
 // FromEnvelope decodes a received envelope's body without verifying its
 // signature.
 func FromEnvelope(m *pb.Event) (Signed, error) {

@@ -1,6 +1,7 @@
 package ledger
 
 import (
+	"bytes"
 	"crypto/ed25519"
 	"errors"
 	"testing"
@@ -260,6 +261,32 @@ func BenchmarkSeal(b *testing.B) {
 	for b.Loop() {
 		if _, err := Seal(e, d.key); err != nil {
 			b.Fatal(err)
+		}
+	}
+}
+
+// SplitEnvelope gives back the body and signature an envelope was made
+// of, without decoding the body, and refuses bytes of another shape.
+func TestSplitEnvelope(t *testing.T) {
+	f := newFixture(t, 31)
+	s := f.emit("ann", f.setUp())
+	m, err := SplitEnvelope(s.Bytes())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !bytes.Equal(m.GetBody(), s.Body) || !bytes.Equal(m.GetSignature(), s.Signature) {
+		t.Fatalf("SplitEnvelope gave body %x and signature %x, want %x and %x", m.GetBody(), m.GetSignature(), s.Body, s.Signature)
+	}
+	if back, err := Decode(s.Bytes()); err != nil || !bytes.Equal(back.Body, m.GetBody()) {
+		t.Fatalf("Decode of the same bytes: %v", err)
+	}
+	for name, b := range map[string][]byte{
+		"truncated":       s.Bytes()[:len(s.Bytes())-3],
+		"varint field":    {0x08, 0x01},
+		"unknown field 3": {0x1a, 0x01, 0x00},
+	} {
+		if _, err := SplitEnvelope(b); err == nil || ReasonOf(err) != Malformed {
+			t.Errorf("SplitEnvelope(%s) = %v, want a Malformed rejection", name, err)
 		}
 	}
 }

@@ -168,6 +168,42 @@ func (p *Projection) buildTest(evs []*Event) *Test {
 	}
 	t.Day = p.Day(t.DeviceTime)
 
+	if len(corrections) == 0 { // most tests: the original stands
+		t.Current, t.Content = t.Revisions[0].EventID, t.Revisions[0].Content
+	} else {
+		p.attach(t, corrections)
+	}
+
+	t.ReviewStatus = Unreviewed
+	for _, e := range evs {
+		switch k := e.Kind.(type) {
+		case *TestVoided:
+			t.Voids = append(t.Voids, Void{EventID: e.ID, Author: e.Author, Reason: k.Reason})
+		case *ExceptionAccepted:
+			t.Exceptions = append(t.Exceptions, Exception{EventID: e.ID, Author: e.Author, Revision: k.Revision, Reason: k.Reason})
+		case *TestReviewed:
+			t.Reviews = append(t.Reviews, Review{EventID: e.ID, Author: e.Author, HLC: e.HLC, Revision: k.Revision, Decision: k.Decision, Comment: k.Comment})
+			if e.Author == t.Author {
+				t.flag(SelfReview, fmt.Sprintf("review %s is by the test's own author", e.ID))
+			}
+			if k.Revision == t.Current { // events are in order, so the last one stands
+				t.ReviewStatus = Approved
+				if k.Decision == Return {
+					t.ReviewStatus = Returned
+				}
+			}
+		}
+	}
+	p.grade(t)
+	slices.SortFunc(t.Flags, func(a, b qc.Finding) int {
+		return cmp.Or(cmp.Compare(a.Code, b.Code), cmp.Compare(a.Message, b.Message))
+	})
+	return t
+}
+
+// attach adds to t the corrections whose base it holds, picks its current
+// revision and flags concurrent revisions and corrections by others.
+func (p *Projection) attach(t *Test, corrections []*Event) {
 	// Attach corrections whose base is held; repeat until none attaches, so
 	// the result does not depend on the order corrections arrived in.
 	attached := map[string]bool{t.Revisions[0].EventID: true}
@@ -218,32 +254,6 @@ func (p *Projection) buildTest(evs []*Event) *Test {
 			t.flag(CorrectedByOther, fmt.Sprintf("revision %s is by %s, not the test's author %s", r.EventID, r.Author, t.Author))
 		}
 	}
-
-	t.ReviewStatus = Unreviewed
-	for _, e := range evs {
-		switch k := e.Kind.(type) {
-		case *TestVoided:
-			t.Voids = append(t.Voids, Void{EventID: e.ID, Author: e.Author, Reason: k.Reason})
-		case *ExceptionAccepted:
-			t.Exceptions = append(t.Exceptions, Exception{EventID: e.ID, Author: e.Author, Revision: k.Revision, Reason: k.Reason})
-		case *TestReviewed:
-			t.Reviews = append(t.Reviews, Review{EventID: e.ID, Author: e.Author, HLC: e.HLC, Revision: k.Revision, Decision: k.Decision, Comment: k.Comment})
-			if e.Author == t.Author {
-				t.flag(SelfReview, fmt.Sprintf("review %s is by the test's own author", e.ID))
-			}
-			if k.Revision == t.Current { // events are in order, so the last one stands
-				t.ReviewStatus = Approved
-				if k.Decision == Return {
-					t.ReviewStatus = Returned
-				}
-			}
-		}
-	}
-	p.grade(t)
-	slices.SortFunc(t.Flags, func(a, b qc.Finding) int {
-		return cmp.Or(cmp.Compare(a.Code, b.Code), cmp.Compare(a.Message, b.Message))
-	})
-	return t
 }
 
 // location is the project's time zone, loaded when the set-up arrived

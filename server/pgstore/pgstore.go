@@ -108,7 +108,7 @@ func (s *Store) After(ctx context.Context, project string, seq uint64, limit int
 	if limit <= 0 {
 		return nil, nil
 	}
-	rows, err := s.pool.Query(ctx, `SELECT seq, envelope, hash, clock_skew_micros FROM ledger WHERE project_id = $1 AND seq > $2
+	rows, err := s.pool.Query(ctx, `SELECT seq, envelope, hash, clock_skew_micros, device_id, device_seq FROM ledger WHERE project_id = $1 AND seq > $2
 		ORDER BY seq LIMIT $3`, project, seq, limit)
 	if err != nil {
 		return nil, fmt.Errorf("pgstore: read %s after %d: %w", project, seq, fault(err))
@@ -122,7 +122,7 @@ func scanEntries(rows pgx.Rows) ([]server.Entry, error) {
 	var h []byte
 	for rows.Next() {
 		var e server.Entry
-		if err := rows.Scan(&e.Seq, &e.Event, &h, &e.SkewMicros); err != nil {
+		if err := rows.Scan(&e.Seq, &e.Event, &h, &e.SkewMicros, &e.DeviceID, &e.DeviceSeq); err != nil {
 			return nil, fmt.Errorf("pgstore: scan entry: %w", fault(err))
 		}
 		copy(e.Hash[:], h)
@@ -238,7 +238,7 @@ func (s *Store) SetEpoch(ctx context.Context, project string, epoch uint64) erro
 }
 
 func (s *Store) ReferenceData(ctx context.Context, project string) ([]server.Entry, error) {
-	rows, err := s.pool.Query(ctx, `SELECT seq, envelope, hash, clock_skew_micros FROM ledger WHERE project_id = $1 AND kind = ANY ($2)
+	rows, err := s.pool.Query(ctx, `SELECT seq, envelope, hash, clock_skew_micros, device_id, device_seq FROM ledger WHERE project_id = $1 AND kind = ANY ($2)
 		ORDER BY seq`, project, referenceKinds)
 	if err != nil {
 		return nil, fmt.Errorf("pgstore: reference data: %w", fault(err))

@@ -145,7 +145,7 @@ func head(ctx context.Context, q queryer, project string) (server.Checkpoint, er
 }
 
 func (s *Store) After(ctx context.Context, project string, seq uint64, limit int) ([]server.Entry, error) {
-	rows, err := s.db.Reader().QueryContext(ctx, `SELECT seq, envelope, hash, clock_skew_micros FROM ledger WHERE project_id = ? AND seq > ? ORDER BY seq LIMIT ?`,
+	rows, err := s.db.Reader().QueryContext(ctx, `SELECT seq, envelope, hash, clock_skew_micros, device_id, device_seq FROM ledger WHERE project_id = ? AND seq > ? ORDER BY seq LIMIT ?`,
 		project, seq, limit)
 	if err != nil {
 		return nil, fmt.Errorf("sqlitestore: read %s after %d: %w", project, seq, err)
@@ -159,7 +159,7 @@ func scanEntries(rows *sql.Rows) ([]server.Entry, error) {
 	for rows.Next() {
 		var e server.Entry
 		var h []byte
-		if err := rows.Scan(&e.Seq, &e.Event, &h, &e.SkewMicros); err != nil {
+		if err := rows.Scan(&e.Seq, &e.Event, &h, &e.SkewMicros, &e.DeviceID, &e.DeviceSeq); err != nil {
 			return nil, fmt.Errorf("sqlitestore: scan entry: %w", err)
 		}
 		copy(e.Hash[:], h)
@@ -249,7 +249,7 @@ func (s *Store) SetEpoch(ctx context.Context, project string, epoch uint64) erro
 // query, with one parameter for the project and one for each kind.
 var (
 	referenceKinds   = referenceKindArgs()
-	referenceDataSQL = `SELECT seq, envelope, hash, clock_skew_micros FROM ledger WHERE project_id = ?
+	referenceDataSQL = `SELECT seq, envelope, hash, clock_skew_micros, device_id, device_seq FROM ledger WHERE project_id = ?
 		AND kind IN (?` + strings.Repeat(", ?", len(referenceKinds)-1) + `) ORDER BY seq`
 )
 

@@ -143,6 +143,9 @@ func sameEntries(t *testing.T, what string, es []server.Entry, rows []server.Row
 			t.Fatalf("%s: entry %d = seq %d hash %s skew %d %q; want seq %d hash %s skew %d %q", what, i,
 				e.Seq, e.Hash, e.SkewMicros, e.Event, r.Seq, r.Hash, r.SkewMicros, r.Envelope)
 		}
+		if e.DeviceID != r.DeviceID || e.DeviceSeq != r.DeviceSeq {
+			t.Fatalf("%s: entry %d is device %q number %d, want %q number %d", what, i, e.DeviceID, e.DeviceSeq, r.DeviceID, r.DeviceSeq)
+		}
 	}
 }
 
