@@ -7,6 +7,7 @@ import (
 	"encoding/json"
 	"fmt"
 	"os"
+	"slices"
 	"testing"
 
 	voi "github.com/oasisprotocol/curve25519-voi/primitives/ed25519"
@@ -102,6 +103,28 @@ func TestVerifyBatchAgreesWithVerify(t *testing.T) {
 			if !oneKeyBatch(d.key.Public().(ed25519.PublicKey), signingContext, evs, idx) {
 				t.Fatalf("seed %d: the one-key check refuses %s's %d good events", seed, name, len(idx))
 			}
+		}
+		// So does the equation over every device's events at once; and it
+		// fails when any one signature is bad (the corruptions below).
+		var groups []keyGroup
+		for _, name := range names {
+			d := f.device(name)
+			g := keyGroup{pub: d.key.Public().(ed25519.PublicKey)}
+			for i, s := range evs {
+				if s.Event.Device == d.id {
+					g.idx = append(g.idx, i)
+				}
+			}
+			groups = append(groups, g)
+		}
+		if !keysBatch(groups, signingContext, evs) {
+			t.Fatalf("seed %d: the many-key check refuses %d good events of %d devices", seed, len(evs), len(groups))
+		}
+		bad := slices.Clone(evs)
+		c := corruptions[int(seed)%(len(corruptions)-1)] // not "unknown device": the groups name the keys
+		c.do(f, &bad[f.rng.IntN(len(bad))])
+		if keysBatch(groups, signingContext, bad) {
+			t.Errorf("seed %d: the many-key check passes a batch with a %s corruption", seed, c.name)
 		}
 		// Corrupt a few events in a seeded way; sometimes none of one device.
 		for k := range 1 + int(seed%4) {
