@@ -110,12 +110,19 @@ func TestCrashSafety(t *testing.T) {
 			t.Fatalf("round %d: integrity_check = %q, %v", round, check, err)
 		}
 		var n int
-		var lastSeq, maxSeq uint64
+		var maxSeq uint64
 		s.db.Reader().QueryRow(`SELECT COUNT(*), COALESCE(MAX(device_seq), 0) FROM events`).Scan(&n, &maxSeq)
-		s.db.Reader().QueryRow(`SELECT last_seq FROM device`).Scan(&lastSeq)
-		if lastSeq != maxSeq {
-			t.Fatalf("round %d: device counter %d, highest stored sequence %d", round, lastSeq, maxSeq)
+		// The next entry follows the highest stored number, whatever the
+		// kill interrupted: no number is reused, none skipped.
+		res, err := s.RecordTest(context.Background(), TestInput{Project: project, Readings: sandCone(101, 12), Feature: "after the kill"})
+		if err != nil {
+			t.Fatalf("round %d: record after kill: %v", round, err)
 		}
+		var next uint64
+		if err := s.db.Reader().QueryRow(`SELECT device_seq FROM events WHERE event_id = ?`, res.EventID).Scan(&next); err != nil || next != maxSeq+1 {
+			t.Fatalf("round %d: the entry after the kill is numbered %d (%v), want %d, after the highest stored", round, next, err, maxSeq+1)
+		}
+		n++
 		for id := range committed {
 			var one int
 			if err := s.db.Reader().QueryRow(`SELECT 1 FROM events WHERE event_id = ?`, id).Scan(&one); err != nil {

@@ -9,11 +9,11 @@ import (
 )
 
 // TestSyncQueryPlans reads SQLite's plans (EXPLAIN QUERY PLAN) of the
-// queries of the events table that a sync runs, on a store file holding
-// entries of two projects in every state a sync leaves them, before and
-// after ANALYZE: each must reach its rows through the index named, and none
-// may read the whole table. A sync's fixed cost then does not grow with the
-// entries the device holds.
+// queries of the events table that a sync and its status run, on a store
+// file holding entries of two projects in every state a sync leaves them,
+// before and after ANALYZE: each must reach its rows through the index
+// named, and none may read the whole table. A sync's fixed cost then does
+// not grow with the entries the device holds.
 func TestSyncQueryPlans(t *testing.T) {
 	ctx := context.Background()
 	s, err := Open(ctx, filepath.Join(t.TempDir(), "device.db"), Options{User: "ines", Durability: DurabilityNormal})
@@ -32,18 +32,21 @@ func TestSyncQueryPlans(t *testing.T) {
 		}
 	}
 	// Most entries synced and seen in the chain, some pulled from other
-	// devices, a few acknowledged but not yet seen, the newest pending.
+	// devices, a few acknowledged but not yet seen, a few refused, a few
+	// with a clock skew, the newest pending.
 	for _, q := range []string{
 		`UPDATE events SET status = 'accepted', confirmed = 1, server_seq = device_seq WHERE device_seq <= 540`,
 		`UPDATE events SET origin = 'remote', device_id = 'another-device' WHERE device_seq <= 300 AND device_seq % 2 = 0`,
 		`UPDATE events SET status = 'accepted', server_seq = device_seq WHERE device_seq > 540 AND device_seq <= 560`,
 		`UPDATE events SET status = 'waiting', waiting_since_micros = 1 WHERE device_seq > 590`,
+		`UPDATE events SET status = 'rejected', reason = 'invalid_field', field = 'readings' WHERE device_seq > 585 AND device_seq <= 590`,
+		`UPDATE events SET clock_skew_micros = 300000000 WHERE device_seq % 97 = 0`,
 	} {
 		if _, err := s.db.Writer().ExecContext(ctx, q); err != nil {
 			t.Fatal(err)
 		}
 	}
-	partial := regexp.MustCompile(`^SCAN events USING (COVERING )?INDEX (events_unconfirmed|events_outbox|events_waiting)\b`)
+	partial := regexp.MustCompile(`^SCAN events USING (COVERING )?INDEX (events_unconfirmed|events_outbox|events_waiting|events_skewed)\b`)
 	cases := []struct {
 		name  string
 		query string
@@ -56,6 +59,13 @@ func TestSyncQueryPlans(t *testing.T) {
 		{"supply", supplyQuery, []any{here, s.DeviceID(), 3, 9}, "device_id=? AND device_seq>? AND device_seq<?"},
 		{"own entries", ownEventsQuery + "?, ?)", []any{s.DeviceID(), here, 7, 8}, "device_seq=?"},
 		{"push everything back", everythingQuery, []any{here}, "(project_id=?)"},
+		{"outbox count", outboxCountQuery, nil, "USING COVERING INDEX events_outbox"},
+		{"rejected", rejectedQuery, nil, "USING INDEX events_outbox"},
+		{"unconfirmed count", unconfirmedCountQuery, []any{here}, "USING INDEX events_unconfirmed"},
+		{"clock skews", clockSkewsQuery, []any{here}, "USING INDEX events_skewed"},
+		// record's counters: the device's last number, the project's latest
+		// hybrid time and the device's previous entry, each a few page reads.
+		{"record counters", recordCountersQuery, []any{here, s.DeviceID()}, "(project_id=?)"},
 	}
 	for _, analyzed := range []bool{false, true} {
 		if analyzed {

@@ -141,10 +141,14 @@ func (s *Store) AuditFindings(ctx context.Context, project string) ([]AuditFindi
 	return out, nil
 }
 
+// clockSkewsQuery reads the project's entries with a clock skew through
+// the partial index of them, events_skewed, not the whole project.
+const clockSkewsQuery = `SELECT event_id, clock_skew_micros FROM events WHERE project_id = ? AND clock_skew_micros != 0`
+
 // clockSkews returns the clock skews the server recorded for the project's
 // entries this device holds, by event id.
 func (s *Store) clockSkews(ctx context.Context, project string) (map[string]int64, error) {
-	rows, err := s.db.Reader().QueryContext(ctx, `SELECT event_id, clock_skew_micros FROM events WHERE project_id = ? AND clock_skew_micros != 0`, project)
+	rows, err := s.db.Reader().QueryContext(ctx, clockSkewsQuery, project)
 	if err != nil {
 		return nil, fmt.Errorf("client: clock skews: %w", err)
 	}

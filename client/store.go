@@ -343,8 +343,30 @@ func (s *Store) recordEntry(ctx context.Context, project string, k ledger.Kind) 
 // recordStatements are record's statements, prepared once on the writer so
 // that each entry does not parse them again.
 type recordStatements struct {
-	counters, insert, update *sql.Stmt
+	counters, insert *sql.Stmt
 }
+
+// recordCountersQuery reads, inside record's transaction, what the next
+// entry's numbers follow, from the store itself (another opener of the same
+// file may have recorded since this one opened it), each through an index
+// in a few page reads:
+//   - the device's last sequence number: the greater of the device row's
+//     (which re-enrolment and a restore's pulled entries move) and the
+//     newest entry's under the device's id (record writes no device row, so
+//     an entry costs one row and one index page fewer);
+//   - the project's latest hybrid time, which the clock observes so that a
+//     second opener's entries stay in order after the first's;
+//   - the link to the device's previous entry in the project, which lets the
+//     server find entries it lacks: entries the server refused are not in
+//     its ledger, so the link skips them (walking the device's entries back
+//     from the newest: a MAX with the status filter would read them all).
+const recordCountersQuery = `SELECT MAX(d.last_seq, COALESCE((SELECT MAX(device_seq) FROM events WHERE device_id = ?2), 0)),
+	d.hlc_wall, d.hlc_logical, COALESCE(l.hlc_wall, 0), COALESCE(l.hlc_logical, 0),
+	COALESCE((SELECT device_seq FROM events WHERE project_id = ?1 AND device_id = ?2 AND status NOT IN ('rejected', 'discarded')
+		ORDER BY device_seq DESC LIMIT 1), 0)
+	FROM device AS d LEFT JOIN (SELECT hlc_wall, hlc_logical FROM events WHERE project_id = ?1
+		ORDER BY hlc_wall DESC, hlc_logical DESC LIMIT 1) AS l
+	WHERE d.id = 1`
 
 // recordStmts returns record's statements, preparing them at the first
 // call. Call with s.mu held.
@@ -352,37 +374,18 @@ func (s *Store) recordStmts(ctx context.Context) (*recordStatements, error) {
 	if s.stmts != nil {
 		return s.stmts, nil
 	}
-	var st recordStatements
-	for _, p := range []struct {
-		to  **sql.Stmt
-		sql string
-	}{
-		// The device's counters, and the link to its previous entry in the
-		// project, which lets the server find entries it lacks: entries the
-		// server refused are not in its ledger, so the link skips them. The
-		// latest such entry is found walking the device's entries back from
-		// the newest (a MAX with the status filter would read them all).
-		{&st.counters, `SELECT last_seq, hlc_wall, hlc_logical,
-			COALESCE((SELECT device_seq FROM events WHERE project_id = ? AND device_id = ? AND status NOT IN ('rejected', 'discarded')
-				ORDER BY device_seq DESC LIMIT 1), 0)
-			FROM device WHERE id = 1`},
-		{&st.insert, `INSERT INTO events (event_id, project_id, device_id, device_seq, kind, record_id,
-			hlc_wall, hlc_logical, body, signature, origin, status, created_micros)
-			VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 'local', 'pending', ?)`},
-		{&st.update, `UPDATE device SET last_seq = ?, hlc_wall = ?, hlc_logical = ? WHERE id = 1`},
-	} {
-		stmt, err := s.db.Writer().PrepareContext(ctx, p.sql)
-		if err != nil {
-			for _, done := range []*sql.Stmt{st.counters, st.insert, st.update} {
-				if done != nil {
-					done.Close()
-				}
-			}
-			return nil, err
-		}
-		*p.to = stmt
+	counters, err := s.db.Writer().PrepareContext(ctx, recordCountersQuery)
+	if err != nil {
+		return nil, err
 	}
-	s.stmts = &st
+	insert, err := s.db.Writer().PrepareContext(ctx, `INSERT INTO events (event_id, project_id, device_id, device_seq, kind, record_id,
+			hlc_wall, hlc_logical, body, signature, origin, status, created_micros)
+			VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 'local', 'pending', ?)`)
+	if err != nil {
+		counters.Close()
+		return nil, err
+	}
+	s.stmts = &recordStatements{counters: counters, insert: insert}
 	return s.stmts, nil
 }
 
@@ -457,12 +460,13 @@ func (s *Store) record(ctx context.Context, project string, k ledger.Kind) (ledg
 	}
 	err = s.db.Tx(ctx, func(tx *sql.Tx) error {
 		var last, prev uint64 // the device's last number, and its last in the project the server may hold
-		var wall int64
-		var logical uint32
-		if err := tx.StmtContext(ctx, st.counters).QueryRowContext(ctx, project, s.deviceID).Scan(&last, &wall, &logical, &prev); err != nil {
+		var device, latest ledger.HLC
+		if err := tx.StmtContext(ctx, st.counters).QueryRowContext(ctx, project, s.deviceID).
+			Scan(&last, &device.Wall, &device.Logical, &latest.Wall, &latest.Logical, &prev); err != nil {
 			return err
 		}
-		s.clock.Observe(ledger.HLC{Wall: wall, Logical: logical})
+		s.clock.Observe(device)
+		s.clock.Observe(latest)
 		now := s.now().UTC().Truncate(time.Microsecond)
 		e = ledger.Event{ID: s.NewID(), Project: project, Author: s.user, Device: s.deviceID, DeviceSeq: max(s.seq, last) + 1, PrevDeviceSeq: prev,
 			HLC: s.clock.Now(), DeviceTime: now, Kind: k}
@@ -480,8 +484,7 @@ func (s *Store) record(ctx context.Context, project string, k ledger.Kind) (ledg
 			e.HLC.Wall, e.HLC.Logical, signed.Body, signed.Signature, now.UnixMicro()); err != nil {
 			return err
 		}
-		_, err = tx.StmtContext(ctx, st.update).ExecContext(ctx, e.DeviceSeq, e.HLC.Wall, e.HLC.Logical)
-		return err
+		return nil
 	})
 	if refusal != nil {
 		return ledger.Signed{}, ledger.Outcome{}, refusal

@@ -392,14 +392,16 @@ const (
 	supplyQuery = `SELECT event_id, body, signature, status = 'accepted', device_seq FROM events
 		WHERE project_id = ? AND device_id = ? AND device_seq > ? AND device_seq <= ? ORDER BY device_seq`
 	// lackingUpdate: after a pull, the acknowledged entries it did not bring
-	// back, through events_unconfirmed.
-	lackingUpdate = `UPDATE events SET server_lacks = 1 WHERE project_id = ? AND confirmed = 0
+	// back, through events_unconfirmed (named: left to itself SQLite may
+	// take the index of project_id and read every entry of the project).
+	lackingUpdate = `UPDATE events INDEXED BY events_unconfirmed SET server_lacks = 1 WHERE project_id = ? AND confirmed = 0
 		AND server_lacks = 0 AND status = 'accepted' AND (server_seq IS NULL OR server_seq > ?)`
 	// outboxStatusQuery: the outbox's size for Status, through the partial
-	// index of local entries, events_outbox. Left to itself SQLite takes
-	// the index of project_id and reads every entry of the project.
+	// index of the local entries not accepted, events_outbox, whose
+	// condition it names. Left to itself SQLite takes the index of
+	// project_id and reads every entry of the project.
 	outboxStatusQuery = `SELECT COUNT(*), COUNT(*) FILTER (WHERE status = 'waiting'), MIN(created_micros) FROM events INDEXED BY events_outbox
-		WHERE origin = 'local' AND status IN ('pending', 'waiting') AND project_id = ?`
+		WHERE origin = 'local' AND status != 'accepted' AND status IN ('pending', 'waiting') AND project_id = ?`
 )
 
 // outbox returns what a push offers the server: the pending and waiting
