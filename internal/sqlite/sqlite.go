@@ -88,9 +88,20 @@ func Open(ctx context.Context, file string, opts Options, migrations fs.FS) (*DB
 		w.Close()
 		return nil, fmt.Errorf("sqlite: open %s: %w", file, err)
 	}
+	before, err := versionIfAny(ctx, w)
+	if err != nil {
+		w.Close()
+		return nil, fmt.Errorf("sqlite: open %s: %w", file, err)
+	}
 	if err := Migrate(ctx, w, migrations, -1); err != nil {
 		w.Close()
 		return nil, err
+	}
+	if after, err := Version(ctx, w); err == nil && before > 0 && after > before {
+		if err := compact(ctx, w); err != nil {
+			w.Close()
+			return nil, err
+		}
 	}
 	r, err := sql.Open("sqlite", DSN(file, opts.Synchronous, opts.BusyTimeout, true))
 	if err != nil {
@@ -99,6 +110,33 @@ func Open(ctx context.Context, file string, opts Options, migrations fs.FS) (*DB
 	}
 	r.SetMaxOpenConns(opts.Readers)
 	return &DB{w: w, r: r, path: file}, nil
+}
+
+// compactShare is the share of a database's pages that, free after an
+// upgrade, makes Open compact the file.
+const compactShare = 4 // a quarter
+
+// compact rewrites the database file without its free pages (VACUUM) when
+// at least a quarter of its pages are free: after an upgrade whose
+// migration rebuilt a table, whose old pages SQLite keeps in the file for
+// reuse, so that a device's store does not stay larger than a new one for
+// months. It runs once, at the upgrade; an up-to-date database is never
+// compacted on open.
+func compact(ctx context.Context, w *sql.DB) error {
+	var pages, free int64
+	if err := w.QueryRowContext(ctx, `PRAGMA page_count`).Scan(&pages); err != nil {
+		return fmt.Errorf("sqlite: page count: %w", err)
+	}
+	if err := w.QueryRowContext(ctx, `PRAGMA freelist_count`).Scan(&free); err != nil {
+		return fmt.Errorf("sqlite: free pages: %w", err)
+	}
+	if pages == 0 || free*compactShare < pages {
+		return nil
+	}
+	if _, err := w.ExecContext(ctx, `VACUUM`); err != nil {
+		return fmt.Errorf("sqlite: compact after the upgrade: %w", err)
+	}
+	return nil
 }
 
 // Writer returns the single writer connection's handle.
@@ -210,6 +248,15 @@ func Migrate(ctx context.Context, w *sql.DB, migrations fs.FS, upTo int) error {
 		}
 	}
 	return nil
+}
+
+// versionIfAny is Version, 0 for a database that has never been migrated.
+func versionIfAny(ctx context.Context, db *sql.DB) (int, error) {
+	var tables int
+	if err := db.QueryRowContext(ctx, `SELECT COUNT(*) FROM sqlite_master WHERE name = 'schema_migrations'`).Scan(&tables); err != nil || tables == 0 {
+		return 0, err
+	}
+	return Version(ctx, db)
 }
 
 // Version returns the database's schema version (0 before any migration).

@@ -4,6 +4,7 @@ import (
 	"context"
 	"database/sql"
 	"errors"
+	"os"
 	"path/filepath"
 	"sync"
 	"testing"
@@ -157,5 +158,98 @@ func TestConcurrentWrites(t *testing.T) {
 	db.Reader().QueryRow(`SELECT COUNT(*) FROM a`).Scan(&n)
 	if n != 200 {
 		t.Errorf("rows = %d, want 200", n)
+	}
+}
+
+// An upgrade whose migration rebuilds a table leaves the old table's pages
+// free in the file; Open compacts the file once, then, and never a file
+// that is up to date.
+func TestOpenCompactsAfterARebuildingUpgrade(t *testing.T) {
+	ctx := context.Background()
+	file := filepath.Join(t.TempDir(), "upgrade.db")
+	v1 := fstest.MapFS{"0001_init.sql": {Data: []byte(`CREATE TABLE a (id TEXT PRIMARY KEY, v BLOB NOT NULL) WITHOUT ROWID;`)}}
+	db, err := Open(ctx, file, Options{}, v1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := db.Writer().ExecContext(ctx, `WITH RECURSIVE n(i) AS (SELECT 1 UNION ALL SELECT i + 1 FROM n WHERE i < 20000)
+		INSERT INTO a SELECT printf('%08d', i), randomblob(300) FROM n`); err != nil {
+		t.Fatal(err)
+	}
+	db.Close()
+	stats := func(db *DB) (pages, free int64) {
+		t.Helper()
+		if err := db.Writer().QueryRow(`PRAGMA page_count`).Scan(&pages); err != nil {
+			t.Fatal(err)
+		}
+		if err := db.Writer().QueryRow(`PRAGMA freelist_count`).Scan(&free); err != nil {
+			t.Fatal(err)
+		}
+		return pages, free
+	}
+	v2 := fstest.MapFS{
+		"0001_init.sql": v1["0001_init.sql"],
+		"0002_rebuild.sql": {Data: []byte(`CREATE TABLE a_new (id TEXT NOT NULL UNIQUE, v BLOB NOT NULL);
+			INSERT INTO a_new SELECT id, v FROM a; DROP TABLE a; ALTER TABLE a_new RENAME TO a;`)},
+	}
+	// What the upgrade leaves without compaction: the migration alone.
+	plain := filepath.Join(t.TempDir(), "plain.db")
+	copyFile(t, file, plain)
+	w, err := sql.Open("sqlite", DSN(plain, Full, time.Second, false))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := Migrate(ctx, w, v2, -1); err != nil {
+		t.Fatal(err)
+	}
+	var plainFree int64
+	if err := w.QueryRow(`PRAGMA freelist_count`).Scan(&plainFree); err != nil {
+		t.Fatal(err)
+	}
+	w.Close()
+
+	db, err = Open(ctx, file, Options{}, v2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	pages, free := stats(db)
+	var rows int
+	if err := db.Reader().QueryRow(`SELECT COUNT(*) FROM a`).Scan(&rows); err != nil || rows != 20000 {
+		t.Fatalf("after the upgrade the table holds %d rows (%v), want 20000", rows, err)
+	}
+	db.Close()
+	if plainFree*4 < pages {
+		t.Fatalf("the rebuild alone left %d free pages; the test needs it to leave many", plainFree)
+	}
+	if free*20 > pages {
+		t.Errorf("after the upgrade %d of %d pages are free; Open should have compacted the file (the migration alone leaves %d free)", free, pages, plainFree)
+	}
+	// An up-to-date file is not compacted: pages freed since stay free.
+	db, err = Open(ctx, file, Options{}, v2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := db.Writer().ExecContext(ctx, `DELETE FROM a WHERE id > '00010000'`); err != nil {
+		t.Fatal(err)
+	}
+	db.Close()
+	db, err = Open(ctx, file, Options{}, v2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer db.Close()
+	if _, free := stats(db); free == 0 {
+		t.Error("opening an up-to-date file compacted it")
+	}
+}
+
+func copyFile(t *testing.T, from, to string) {
+	t.Helper()
+	b, err := os.ReadFile(from)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := os.WriteFile(to, b, 0o600); err != nil {
+		t.Fatal(err)
 	}
 }
