@@ -52,20 +52,117 @@ func counts(t *ledger.Test) bool {
 // NewFinals indexes the retests of tests.
 func NewFinals(tests []*ledger.Test) Finals { return newFinals(slices.Values(tests)) }
 
-// finalsOf indexes the retests of a projection's tests.
-func finalsOf(p *ledger.Projection) Finals { return newFinals(p.AllTests()) }
-
 func newFinals(tests iter.Seq[*ledger.Test]) Finals {
-	f := Finals{replacedBy: map[string]*ledger.Test{}}
+	var retests []*ledger.Test
 	for t := range tests {
-		if t.RetestOf == "" || !counts(t) {
-			continue
+		if t.RetestOf != "" && counts(t) {
+			retests = append(retests, t)
 		}
+	}
+	return finalsFrom(retests)
+}
+
+// finalsFrom indexes the retests that count, each failure to its earliest
+// retest; the map is made to size once, not grown test by test.
+func finalsFrom(retests []*ledger.Test) Finals {
+	f := Finals{replacedBy: make(map[string]*ledger.Test, len(retests))}
+	for _, t := range retests {
 		if r, ok := f.replacedBy[t.RetestOf]; !ok || byTime(t, r) < 0 {
 			f.replacedBy[t.RetestOf] = t
 		}
 	}
 	return f
+}
+
+// finalsPass decides which tests are final in the pass a report reads them
+// in, without a second pass to index the retests first. A failure that
+// counts is final unless a retest that counts replaces it, and that retest
+// may come later in the pass: judge holds such a failure, with what the
+// report needs to place it (at), and decided gives the verdict once the
+// pass is over. A retest mostly follows its failure closely, so note matches
+// it against the last failure met; only the other retests are indexed by
+// the id they retest, at the end, and only when there are any.
+type finalsPass[T any] struct {
+	held   []heldFailure[T]
+	last   *ledger.Test // the last failure that counts met in the pass
+	lastAt int          // its index in held, or -1 when it was not held
+	others []*ledger.Test
+}
+
+// heldFailure is a failure that counts, with the earliest retest that
+// counts of it found so far.
+type heldFailure[T any] struct {
+	t, by *ledger.Test
+	at    T
+}
+
+// note runs for every test of the pass, in scope or not: it matches a
+// retest that counts with its failure.
+func (f *finalsPass[T]) note(t *ledger.Test) {
+	if t.RetestOf != "" && counts(t) {
+		switch {
+		case f.last != nil && t.RetestOf == f.last.ID:
+			if f.lastAt >= 0 {
+				h := &f.held[f.lastAt]
+				if h.by == nil || byTime(t, h.by) < 0 {
+					h.by = t
+				}
+			} // else the failure is not held: the report does not need it
+		default:
+			f.others = append(f.others, t)
+		}
+	}
+	if counts(t) && t.Result.Verdict == qc.Fail {
+		f.last, f.lastAt = t, -1
+	}
+}
+
+// judge returns why t is not final ("" for final) and true, or, for a
+// failure that counts, holds it with at and returns false: decided
+// decides it.
+// It runs after note, for the tests the report keeps.
+func (f *finalsPass[T]) judge(t *ledger.Test, at T) (Reason, bool) {
+	switch {
+	case t.Voided():
+		return VoidedTest, true
+	case t.ReviewStatus == ledger.Returned:
+		return ReturnedByOffice, true
+	case t.Result.Verdict == qc.Pending:
+		return NotGraded, true
+	case t.Result.Verdict != qc.Fail:
+		return "", true
+	}
+	if f.last == t {
+		f.lastAt = len(f.held)
+	}
+	f.held = append(f.held, heldFailure[T]{t: t, at: at})
+	return "", false
+}
+
+// decided yields each held failure, in the order held, with why it is not
+// final ("" for final) and the earliest retest that replaced it.
+func (f *finalsPass[T]) decided() iter.Seq2[*heldFailure[T], Reason] {
+	return func(yield func(*heldFailure[T], Reason) bool) {
+		var rest Finals
+		if len(f.others) > 0 {
+			rest = finalsFrom(f.others)
+		}
+		for i := range f.held {
+			h := &f.held[i]
+			if rest.replacedBy != nil { // mostly there are no others: no lookup
+				if r, ok := rest.replacedBy[h.t.ID]; ok && (h.by == nil || byTime(r, h.by) < 0) {
+					h.by = r
+				}
+			}
+			why := Reason("")
+			if h.by != nil {
+				why = ReworkedAndRetested
+			}
+			if !yield(h, why) {
+				return
+			}
+		}
+	}
 }
 
 // Why returns "" for a final test, or why t is not final and, for a

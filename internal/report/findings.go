@@ -140,8 +140,14 @@ func Findings(p *ledger.Projection, o AuditOptions) []Finding {
 		a.roles[d.UserID] = append(a.roles[d.UserID], d.Roles...)
 	}
 	a.within, a.distance = su.RetestWithinOrDefault(), su.RetestDistanceOrDefault()
+	// One pass over the tests; whether a failure was closed by a retest is
+	// asked once the pass has indexed every retest.
 	for t := range p.AllTests() {
-		a.test(t)
+		a.test(t, a.retests.add(t))
+	}
+	a.retests.done(p)
+	for _, t := range a.open {
+		a.notRetested(t)
 	}
 	a.clockSkews()
 	slices.SortFunc(a.out, func(x, y located) int {
@@ -168,18 +174,31 @@ type audit struct {
 	within   time.Duration
 	distance float64
 	out      []located
-	chain    retestChain                    // walks a failure's retests, buffers kept
+	chain    retestChain // walks a failure's retests, buffers kept
+	retests  retestIndex
+	open     []*ledger.Test                 // failures older than the retest window, unless a retest closed them
 	loc      *time.Location                 // the project's time zone
 	sys      soil.System                    // the project's units
 	names    map[string]string              // user id -> name, from the ledger's introductions
 	roles    map[string][]ledger.RoleChange // user id -> the roles introductions of their devices record
+	// lastUser is the user roleAt looked up last, with their roles.
+	lastUser  string
+	lastRoles []ledger.RoleChange
 }
 
 // roleAt is the user's role at time at, as ledger.Projection.RoleAt gives
 // it, from the roles gathered once for the audit.
 func (a *audit) roleAt(user string, at ledger.HLC) (role, eventID string) {
+	// Reviews come in runs by one person: the last user's roles are kept
+	// at hand rather than looked up for each review.
+	if a.lastRoles == nil || user != a.lastUser {
+		a.lastUser, a.lastRoles = user, a.roles[user]
+		if a.lastRoles == nil {
+			a.lastRoles = []ledger.RoleChange{}
+		}
+	}
 	var best ledger.HLC
-	for _, r := range a.roles[user] {
+	for _, r := range a.lastRoles {
 		if r.HLC.Compare(at) <= 0 && (role == "" || r.HLC.Compare(best) > 0) {
 			role, eventID, best = r.Role, r.EventID, r.HLC
 		}
@@ -191,17 +210,25 @@ func (a *audit) add(at *ledger.Test, code FindingCode, testID, msg string, entri
 	a.out = append(a.out, located{Finding: Finding{Code: code, TestID: testID, Message: msg, Entries: entries}, at: at})
 }
 
-// test runs every rule about one test.
-func (a *audit) test(t *ledger.Test) {
+// test runs every rule about one test; orig is the test it retests when
+// the caller has it at hand.
+func (a *audit) test(t *ledger.Test, orig *ledger.Test) {
 	grades := a.grades(t)
-	a.notRetested(t)
+	if a.overdue(t) {
+		a.open = append(a.open, t)
+	}
 	if t.RetestOf != "" {
-		if orig, ok := a.p.Test(t.RetestOf); ok {
+		if orig == nil {
+			orig, _ = a.p.Test(t.RetestOf)
+		}
+		if orig != nil {
 			a.retest(t, orig)
 		}
 	}
 	a.voidedFailure(t, grades)
-	a.corrections(t, grades)
+	if grades != nil { // a test of one revision has no correction to look at
+		a.corrections(t, grades)
+	}
 	for _, f := range t.Flags {
 		if f.Code == ledger.DeviceResultMismatch {
 			a.add(t, DeviceResultMismatch, t.ID, f.Message, t.Current)
@@ -228,14 +255,22 @@ func (a *audit) grades(t *ledger.Test) map[string]qc.Result {
 	return g
 }
 
-func (a *audit) notRetested(t *ledger.Test) {
+// overdue reports whether t is a failure still open by itself (not a
+// retest, not voided, no exception) longer than the retest window; a
+// retest may yet have closed it (see notRetested).
+func (a *audit) overdue(t *ledger.Test) bool {
 	if t.Result.Verdict != qc.Fail || t.RetestOf != "" || t.Voided() || t.ExceptionAccepted() {
+		return false
+	}
+	return a.o.AsOf.Sub(t.DeviceTime) > a.within
+}
+
+// notRetested finds an overdue failure (see overdue) that no retest closed.
+func (a *audit) notRetested(t *ledger.Test) {
+	if a.closedByRetest(t) {
 		return
 	}
 	age := a.o.AsOf.Sub(t.DeviceTime)
-	if age <= a.within || a.closedByRetest(t) {
-		return
-	}
 	a.add(t, FailureNotRetested, t.ID, fmt.Sprintf(
 		"test %s failed (relative compaction %.1f %%) at %s by its device's clock and is still open %s later, as of %s: no passing retest, no QA exception, not voided; the project's retest window is %s",
 		shortRef(t.ID), t.Result.RelativeCompaction, a.stamp(t.DeviceTime), span(age.Round(time.Minute)), a.stamp(a.o.AsOf), span(a.within)),
@@ -245,8 +280,8 @@ func (a *audit) notRetested(t *ledger.Test) {
 // closedByRetest reports whether a retest in t's chain (retests of retests
 // included) passed and counts.
 func (a *audit) closedByRetest(t *ledger.Test) bool {
-	for _, rid := range a.chain.of(a.p, t.ID) {
-		if r, ok := a.p.Test(rid); ok && counts(r) && r.Result.Verdict == qc.Pass {
+	for _, r := range a.chain.of(&a.retests, t) {
+		if counts(r) && r.Result.Verdict == qc.Pass {
 			return true
 		}
 	}

@@ -109,12 +109,19 @@ func rules(spec *ledger.Spec, pl *ledger.Placement) []Rule {
 // its retest counts once, through the retest; a voided, returned or
 // ungraded test does not count. Sorted by placement, then spec.
 func TestFrequency(p *ledger.Projection) []Frequency {
-	finals := finalsOf(p)
+	// One pass over the tests; a failure is counted once the pass has met
+	// every retest that may replace it.
+	type count struct {
+		specs *specCounts
+		i     int
+	}
+	var finals finalsPass[count]
 	named := map[string]*specCounts{} // placement -> the specs its tests name
 	var last string                   // a placement's tests mostly follow one another in id order
 	var cur *specCounts
 	for t := range p.AllTests() {
-		c := t.Content
+		finals.note(t)
+		c := &t.Content // not a copy: a test's content is large
 		if c.PlacementID == "" || c.SpecID == "" {
 			continue
 		}
@@ -125,8 +132,16 @@ func TestFrequency(p *ledger.Projection) []Frequency {
 			}
 			last = c.PlacementID
 		}
-		why, _ := finals.Why(t) // the spec applies to the placement, final or not
-		cur.add(c.SpecID, why == "")
+		// The spec applies to the placement, final or not.
+		i := cur.add(c.SpecID)
+		if why, ok := finals.judge(t, count{cur, i}); ok && why == "" {
+			(*cur)[i].final++
+		}
+	}
+	for h, why := range finals.decided() {
+		if why == "" {
+			(*h.at.specs)[h.at.i].final++
+		}
 	}
 	var out []Frequency
 	for _, pl := range p.Placements() { // sorted by id, and ids below: the output is sorted
@@ -171,15 +186,13 @@ type specCount struct {
 	final int
 }
 
-func (s *specCounts) add(spec string, final bool) {
-	i := slices.IndexFunc(*s, func(c specCount) bool { return c.spec == spec })
-	if i < 0 {
-		*s = append(*s, specCount{spec: spec})
-		i = len(*s) - 1
+// add notes a test naming spec and returns the spec's index.
+func (s *specCounts) add(spec string) int {
+	if i := slices.IndexFunc(*s, func(c specCount) bool { return c.spec == spec }); i >= 0 {
+		return i
 	}
-	if final {
-		(*s)[i].final++
-	}
+	*s = append(*s, specCount{spec: spec})
+	return len(*s) - 1
 }
 
 func (s specCounts) taken(spec string) int {

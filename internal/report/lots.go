@@ -193,7 +193,6 @@ func Lots(p *ledger.Projection, scope LotScope) ([]Lot, error) {
 	if err := scope.validate(); err != nil {
 		return nil, fmt.Errorf("report: lots: %w", err)
 	}
-	finals := finalsOf(p)
 	type key struct{ placement, spec string }
 	type left struct {
 		t *ledger.Test
@@ -201,10 +200,31 @@ func Lots(p *ledger.Projection, scope LotScope) ([]Lot, error) {
 	}
 	type group struct {
 		pl    *ledger.Placement
+		spec  *ledger.Spec // nil when this replica does not hold it
 		final []*ledger.Test
 		left  []left
+		// values are the final tests' values of the characteristics the
+		// spec sets, gathered as the tests join, while each is at hand,
+		// rather than in a second pass over the lot.
+		values values
+		// unsorted is set when a final test joins out of time order; the
+		// check too is made as tests join.
+		unsorted bool
 	}
+	join := func(g *group, t *ledger.Test) {
+		if n := len(g.final); n > 0 && !g.unsorted && byTime(g.final[n-1], t) > 0 {
+			g.unsorted = true
+		}
+		g.final = append(g.final, t)
+		g.values.add(g.spec, t)
+	}
+	// Lots are alike in size: a new lot has room for as many final tests
+	// as the one before it took, rather than growing test by test.
+	room := 0
 	groups := map[key]*group{}
+	// One pass over the tests; a failure joins its lot or LeftOut once the
+	// pass has met every retest that may replace it.
+	var finals finalsPass[*group]
 	// A lot's tests mostly follow one another in id order: the last
 	// placement and group are kept at hand.
 	var lastPlacement string
@@ -212,7 +232,8 @@ func Lots(p *ledger.Projection, scope LotScope) ([]Lot, error) {
 	var lastKey key
 	var g *group
 	for t := range p.AllTests() {
-		c := t.Content
+		finals.note(t)
+		c := &t.Content // not a copy: a test's content is large
 		if c.SpecID == "" {
 			continue
 		}
@@ -234,24 +255,36 @@ func Lots(p *ledger.Projection, scope LotScope) ([]Lot, error) {
 			k.placement = pl.ID
 		}
 		if g == nil || k != lastKey {
+			if g != nil {
+				room = len(g.final)
+			}
 			if g = groups[k]; g == nil {
-				g = &group{}
+				g = &group{final: make([]*ledger.Test, 0, room)}
 				if k.placement != "" {
 					g.pl = pl
+				}
+				if spec, ok := p.Spec(k.spec); ok {
+					g.spec = spec
+					g.values = newValues(spec, room)
 				}
 				groups[k] = g
 			}
 			lastKey = k
 		}
-		switch why, by := finals.Why(t); {
+		switch why, decided := finals.judge(t, g); {
+		case !decided:
 		case why == "":
-			g.final = append(g.final, t)
+			join(g, t)
 		default:
-			o := LeftOut{TestID: t.ID, Reason: why}
-			if by != nil {
-				o.ReplacedBy = by.ID
-			}
-			g.left = append(g.left, left{t, o})
+			g.left = append(g.left, left{t, LeftOut{TestID: t.ID, Reason: why}})
+		}
+	}
+	// The failures join their lots last, out of order: join notes it.
+	for h, why := range finals.decided() {
+		if why == "" {
+			join(h.at, h.t)
+		} else {
+			h.at.left = append(h.at.left, left{h.t, LeftOut{TestID: h.t.ID, Reason: why, ReplacedBy: h.by.ID}})
 		}
 	}
 	keys := make([]key, 0, len(groups))
@@ -263,7 +296,13 @@ func Lots(p *ledger.Projection, scope LotScope) ([]Lot, error) {
 	name := scope.name()
 	for _, k := range keys {
 		g := groups[k]
-		sortByTime(g.final)
+		if g.unsorted {
+			slices.SortFunc(g.final, byTime)
+			g.values = values{}
+			for _, t := range g.final {
+				g.values.add(g.spec, t)
+			}
+		}
 		slices.SortFunc(g.left, func(a, b left) int { return byTime(a.t, b.t) })
 		l := Lot{Name: name, Feature: scope.Feature, Placement: g.pl, SpecID: k.spec, Tests: g.final}
 		if g.pl != nil {
@@ -275,26 +314,61 @@ func Lots(p *ledger.Projection, scope LotScope) ([]Lot, error) {
 				l.LeftOut = append(l.LeftOut, o.o)
 			}
 		}
-		l.estimate(p)
+		if len(l.Tests) == 0 { // nil for none, as appending to nothing gives
+			l.Tests, g.values = nil, values{}
+		}
+		l.estimate(g.spec, g.values)
 		out = append(out, l)
 	}
 	return out, nil
 }
 
-// values returns room for n values: nil for none, as appending gives.
-func values(n int) []float64 {
-	if n == 0 {
-		return nil
+// values are the values of a lot's final tests, in the order of its
+// tests, for the characteristics its spec sets: relative compaction when
+// the spec sets a minimum, moisture in the spec's basis when it sets a
+// window. Each is nil for none, as appending gives.
+type values struct {
+	compaction, moisture []float64
+}
+
+// newValues returns values with room for n tests under spec.
+func newValues(spec *ledger.Spec, n int) values {
+	var v values
+	if s := spec.QC(); n > 0 {
+		if s.MinCompaction != nil {
+			v.compaction = make([]float64, 0, n)
+		}
+		if s.MoistureLow != nil || s.MoistureHigh != nil {
+			v.moisture = make([]float64, 0, n)
+		}
 	}
-	return make([]float64, 0, n)
+	return v
+}
+
+// add appends the values of t under spec (nil: none).
+func (v *values) add(spec *ledger.Spec, t *ledger.Test) {
+	if spec == nil {
+		return
+	}
+	s := spec.QC()
+	if s.MinCompaction != nil {
+		v.compaction = append(v.compaction, t.Result.RelativeCompaction)
+	}
+	if s.MoistureLow != nil || s.MoistureHigh != nil {
+		m := t.Result.MoistureDeviation
+		if s.MoistureBasis == qc.PercentOfOptimum {
+			m = t.Result.MoisturePercentOfOptimum
+		}
+		v.moisture = append(v.moisture, m)
+	}
 }
 
 // estimate fills the lot's characteristics, their estimates and the
-// acceptance from its final tests and spec.
-func (l *Lot) estimate(p *ledger.Projection) {
+// acceptance from its spec (nil when this replica does not hold it) and
+// the values of its final tests.
+func (l *Lot) estimate(spec *ledger.Spec, v values) {
 	l.Acceptance = NotEstimated
-	spec, ok := p.Spec(l.SpecID)
-	if !ok {
+	if spec == nil {
 		l.Why = "its spec has not reached this replica"
 		return
 	}
@@ -311,20 +385,10 @@ func (l *Lot) estimate(p *ledger.Projection) {
 		return &v
 	}
 	if s.MinCompaction != nil {
-		l.Compaction = &Quality{Lower: limit(s.MinCompaction), Values: values(len(l.Tests))}
-		for _, t := range l.Tests {
-			l.Compaction.Values = append(l.Compaction.Values, t.Result.RelativeCompaction)
-		}
+		l.Compaction = &Quality{Lower: limit(s.MinCompaction), Values: v.compaction}
 	}
 	if s.MoistureLow != nil || s.MoistureHigh != nil {
-		l.Moisture = &Quality{Lower: limit(s.MoistureLow), Upper: limit(s.MoistureHigh), Values: values(len(l.Tests))}
-		for _, t := range l.Tests {
-			v := t.Result.MoistureDeviation
-			if s.MoistureBasis == qc.PercentOfOptimum {
-				v = t.Result.MoisturePercentOfOptimum
-			}
-			l.Moisture.Values = append(l.Moisture.Values, v)
-		}
+		l.Moisture = &Quality{Lower: limit(s.MoistureLow), Upper: limit(s.MoistureHigh), Values: v.moisture}
 	}
 	switch {
 	case l.Compaction == nil && l.Moisture == nil:

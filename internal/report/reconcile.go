@@ -118,26 +118,51 @@ func Reconcile(p *ledger.Projection) ([]Balance, error) {
 	// Final tests' dry densities by placement, in id order. A placement's
 	// tests mostly follow one another in that order, so the last
 	// placement's list is kept at hand.
-	finals := finalsOf(p)
+	// One pass: a failure, which a retest later in the pass may replace,
+	// is held with its place in its placement's list and put there after
+	// the pass if it is final, so that the densities keep id order.
+	type place struct {
+		list *[]float64
+		at   int
+	}
+	var finals finalsPass[place]
 	byPlacement := map[string]*[]float64{}
 	var last string
 	var cur *[]float64
 	for t := range p.AllTests() {
+		finals.note(t)
 		pl := t.Content.PlacementID
 		if pl == "" || !(t.Result.DryDensity > 0) {
 			continue
 		}
-		if why, _ := finals.Why(t); why != "" {
-			continue
-		}
 		if cur == nil || pl != last {
 			if cur = byPlacement[pl]; cur == nil {
-				cur = new([]float64)
+				// Placements are alike in their count of tests: room for
+				// as many as the last one took, rather than growing test
+				// by test.
+				room := 0
+				if cur != nil {
+					room = len(*cur)
+				}
+				list := make([]float64, 0, room)
+				cur = &list
 				byPlacement[pl] = cur
 			}
 			last = pl
 		}
-		*cur = append(*cur, t.Result.DryDensity)
+		if why, decided := finals.judge(t, place{cur, len(*cur)}); decided && why == "" {
+			*cur = append(*cur, t.Result.DryDensity)
+		}
+	}
+	var final []*heldFailure[place]
+	for h, why := range finals.decided() {
+		if why == "" {
+			final = append(final, h)
+		}
+	}
+	// Last held first: a failure put in its place moves none held before it.
+	for _, h := range slices.Backward(final) {
+		*h.at.list = slices.Insert(*h.at.list, h.at.at, h.t.Result.DryDensity)
 	}
 
 	type acc struct {
