@@ -398,7 +398,7 @@ func checkReadings(prefix string, r Readings) *Rejection {
 			mass("cone_correction", s.ConeCorrection), mass("soil_mass", s.SoilMass)); x != nil {
 			return x
 		}
-		in, err := s.Compute()
+		in, err := s.Densities()
 		if err != nil {
 			return nil // Validate refuses it
 		}
@@ -411,7 +411,7 @@ func checkReadings(prefix string, r Readings) *Rejection {
 		if x := first(length("diameter", d.Diameter), length("length", d.Length), mass("soil_mass", d.SoilMass)); x != nil {
 			return x
 		}
-		in, err := d.Compute()
+		in, err := d.Densities()
 		if err != nil {
 			return nil
 		}
@@ -424,7 +424,7 @@ func checkReadings(prefix string, r Readings) *Rejection {
 		if x := first(volume("initial_reading", b.InitialReading), volume("final_reading", b.FinalReading), mass("soil_mass", b.SoilMass)); x != nil {
 			return x
 		}
-		in, err := b.Compute()
+		in, err := b.Densities()
 		if err != nil {
 			return nil
 		}

@@ -38,6 +38,9 @@ type KindDescriptor struct {
 	// makes it.
 	Roles []string
 
+	// refs is Refs as an array with the empty ids in place, which the
+	// projection reads on every apply without allocating.
+	refs func(Kind) refList
 	// validate checks an event of the kind whole and its values possible.
 	validate func(Kind) error
 	// rebuild recomputes the record key from its events (sorted in event
@@ -62,7 +65,7 @@ type kindOf[T any, K interface {
 	validate() error
 }] struct {
 	record     func(K) string
-	refs       func(K) []string // nil for none
+	refs       func(K) refList // nil for none
 	creates    bool
 	reference  bool
 	serverMade bool
@@ -76,6 +79,7 @@ func (s kindOf[T, K]) descriptor() KindDescriptor {
 		New:        func() Kind { return K(new(T)) },
 		Record:     func(k Kind) string { return s.record(k.(K)) },
 		Refs:       func(Kind) []string { return nil },
+		refs:       func(Kind) refList { return refList{} },
 		Creates:    s.creates,
 		Reference:  s.reference,
 		ServerMade: s.serverMade,
@@ -84,15 +88,33 @@ func (s kindOf[T, K]) descriptor() KindDescriptor {
 		rebuild:    s.rebuild,
 	}
 	if s.refs != nil {
-		d.Refs = func(k Kind) []string { return s.refs(k.(K)) }
+		d.refs = func(k Kind) refList { return s.refs(k.(K)) }
+		d.Refs = func(k Kind) []string { r := s.refs(k.(K)); return r.ids() }
 	}
 	return d
 }
 
-// ids returns the non-empty ids of vs.
-func ids(vs ...string) []string {
-	var out []string
-	for _, v := range vs {
+// maxRefs is the most records an event can refer to: a correction names
+// its test, the revision it supersedes and the five records of its content.
+const maxRefs = 7
+
+// refList holds the ids an event refers to, in order, empty where the event
+// names none: an array, so that reading it allocates nothing.
+type refList [maxRefs]string
+
+// ids returns the non-empty ids of r in order, nil for none.
+func (r *refList) ids() []string {
+	n := 0
+	for _, v := range r {
+		if v != "" {
+			n++
+		}
+	}
+	if n == 0 {
+		return nil
+	}
+	out := make([]string, 0, n)
+	for _, v := range r {
 		if v != "" {
 			out = append(out, v)
 		}
@@ -101,12 +123,12 @@ func ids(vs ...string) []string {
 }
 
 // contentRefs are the records a revision of a test refers to.
-func contentRefs(c TestContent) []string {
-	out := ids(c.ReferenceID, c.SpecID, c.EquipmentID, c.PlacementID)
+func contentRefs(c *TestContent) [5]string {
+	var correction string
 	if c.Readings.Nuclear != nil {
-		out = append(out, ids(c.Readings.Nuclear.CorrectionID)...)
+		correction = c.Readings.Nuclear.CorrectionID
 	}
-	return out
+	return [5]string{c.ReferenceID, c.SpecID, c.EquipmentID, c.PlacementID, correction}
 }
 
 // How each kind of record is rebuilt; true: rebuild the tests that depend
@@ -121,12 +143,12 @@ var (
 			}
 		}
 		for id := range p.tests { // units, water and time zone grade every test
-			p.recomputeTest(id, false)
+			p.recomputeTest(id, false, false)
 		}
 		return false
 	}
 	rebuildTest = func(p *Projection, key string, _ []*Event) bool {
-		p.recomputeTest(key, true)
+		p.recomputeTest(key, true, true)
 		return false
 	}
 	rebuildEquipment = func(p *Projection, key string, evs []*Event) bool {
@@ -184,13 +206,13 @@ func describeKinds() []KindDescriptor {
 		}.descriptor(),
 		kindOf[StandardCountRecorded, *StandardCountRecorded]{
 			record:    func(k *StandardCountRecorded) string { return k.EquipmentID },
-			refs:      func(k *StandardCountRecorded) []string { return ids(k.EquipmentID) },
+			refs:      func(k *StandardCountRecorded) refList { return refList{k.EquipmentID} },
 			reference: true, roles: []string{roleInspector}, // the gauge operator's daily check
 			rebuild: rebuildEquipment,
 		}.descriptor(),
 		kindOf[MoistureCorrectionSet, *MoistureCorrectionSet]{
 			record:  func(k *MoistureCorrectionSet) string { return k.ID },
-			refs:    func(k *MoistureCorrectionSet) []string { return ids(k.EquipmentID, k.ReferenceID) },
+			refs:    func(k *MoistureCorrectionSet) refList { return refList{k.EquipmentID, k.ReferenceID} },
 			creates: true, reference: true, roles: []string{roleQA},
 			rebuild: func(p *Projection, key string, evs []*Event) bool {
 				p.corrections = setOrDelete(p.corrections, key, buildCorrection(evs))
@@ -199,7 +221,7 @@ func describeKinds() []KindDescriptor {
 		}.descriptor(),
 		kindOf[BorrowSourceMeasured, *BorrowSourceMeasured]{
 			record:  func(k *BorrowSourceMeasured) string { return k.ID },
-			refs:    func(k *BorrowSourceMeasured) []string { return ids(k.ReferenceID) },
+			refs:    func(k *BorrowSourceMeasured) refList { return refList{k.ReferenceID} },
 			creates: true, roles: []string{roleQA},
 			rebuild: func(p *Projection, key string, evs []*Event) bool {
 				p.borrow = setOrDelete(p.borrow, key, p.buildBorrow(evs))
@@ -208,7 +230,7 @@ func describeKinds() []KindDescriptor {
 		}.descriptor(),
 		kindOf[LiftPlacementRecorded, *LiftPlacementRecorded]{
 			record:  func(k *LiftPlacementRecorded) string { return k.ID },
-			refs:    func(k *LiftPlacementRecorded) []string { return ids(k.BorrowSourceID) },
+			refs:    func(k *LiftPlacementRecorded) refList { return refList{k.BorrowSourceID} },
 			creates: true, roles: []string{roleOffice},
 			rebuild: func(p *Projection, key string, evs []*Event) bool {
 				p.placements = setOrDelete(p.placements, key, buildPlacement(evs))
@@ -217,7 +239,7 @@ func describeKinds() []KindDescriptor {
 		}.descriptor(),
 		kindOf[HaulRecorded, *HaulRecorded]{
 			record:  func(k *HaulRecorded) string { return k.ID },
-			refs:    func(k *HaulRecorded) []string { return ids(k.BorrowSourceID, k.PlacementID) },
+			refs:    func(k *HaulRecorded) refList { return refList{k.BorrowSourceID, k.PlacementID} },
 			creates: true, roles: []string{roleOffice},
 			rebuild: func(p *Projection, key string, evs []*Event) bool {
 				p.hauls = setOrDelete(p.hauls, key, buildHaul(evs))
@@ -225,31 +247,37 @@ func describeKinds() []KindDescriptor {
 			},
 		}.descriptor(),
 		kindOf[TestRecorded, *TestRecorded]{
-			record:  func(k *TestRecorded) string { return k.TestID },
-			refs:    func(k *TestRecorded) []string { return append(contentRefs(k.Content), ids(k.RetestOf)...) },
+			record: func(k *TestRecorded) string { return k.TestID },
+			refs: func(k *TestRecorded) refList {
+				c := contentRefs(&k.Content)
+				return refList{c[0], c[1], c[2], c[3], c[4], k.RetestOf}
+			},
 			creates: true, roles: []string{roleInspector}, rebuild: rebuildTest,
 		}.descriptor(),
 		kindOf[TestCorrected, *TestCorrected]{
-			record:  func(k *TestCorrected) string { return k.TestID },
-			refs:    func(k *TestCorrected) []string { return append(ids(k.TestID, k.Supersedes), contentRefs(k.Content)...) },
+			record: func(k *TestCorrected) string { return k.TestID },
+			refs: func(k *TestCorrected) refList {
+				c := contentRefs(&k.Content)
+				return refList{k.TestID, k.Supersedes, c[0], c[1], c[2], c[3], c[4]}
+			},
 			roles:   []string{roleInspector},
 			rebuild: rebuildTest,
 		}.descriptor(),
 		kindOf[TestVoided, *TestVoided]{
 			record:  func(k *TestVoided) string { return k.TestID },
-			refs:    func(k *TestVoided) []string { return ids(k.TestID) },
+			refs:    func(k *TestVoided) refList { return refList{k.TestID} },
 			roles:   []string{roleInspector},
 			rebuild: rebuildTest,
 		}.descriptor(),
 		kindOf[TestReviewed, *TestReviewed]{
 			record:  func(k *TestReviewed) string { return k.TestID },
-			refs:    func(k *TestReviewed) []string { return ids(k.TestID, k.Revision) },
+			refs:    func(k *TestReviewed) refList { return refList{k.TestID, k.Revision} },
 			roles:   []string{roleOffice, roleQA},
 			rebuild: rebuildTest,
 		}.descriptor(),
 		kindOf[ExceptionAccepted, *ExceptionAccepted]{
 			record:  func(k *ExceptionAccepted) string { return k.TestID },
-			refs:    func(k *ExceptionAccepted) []string { return ids(k.TestID, k.Revision) },
+			refs:    func(k *ExceptionAccepted) refList { return refList{k.TestID, k.Revision} },
 			roles:   []string{roleQA},
 			rebuild: rebuildTest,
 		}.descriptor(),

@@ -69,7 +69,7 @@ type Projection struct {
 	// deps names, per record, the tests whose revisions name it: a list,
 	// not a set, since a test adds only what its earlier build had not
 	// named (a set per spec would hold every test of the project).
-	deps    map[string][]string
+	deps    map[string]depList
 	retests map[string]map[string]bool // test id -> tests that name it in retest_of
 
 	setup       *SetUp
@@ -87,7 +87,8 @@ type Projection struct {
 	// revocation: held, for the chain, but without effect.
 	revokedOut map[string]bool
 
-	byID testOrder // the tests sorted by id, for Tests and Snapshot
+	byID testOrder      // the tests sorted by id, for Tests and Snapshot
+	days map[int]string // the tests' days by date, each kept once (see day)
 }
 
 // testOrder keeps the tests sorted by id between calls of Tests, so that a
@@ -151,10 +152,11 @@ func (p *Projection) sortedTests() []*Test {
 func NewProjection(project string) *Projection {
 	return &Projection{
 		project: project, events: map[string]*Signed{}, byRecord: map[string][]*Event{},
-		deps: map[string][]string{}, retests: map[string]map[string]bool{},
+		deps: map[string]depList{}, retests: map[string]map[string]bool{},
 		specs: map[string]*Spec{}, refs: map[string]*Reference{}, equipment: map[string]*Equipment{},
 		corrections: map[string]*Correction{}, borrow: map[string]*BorrowSource{}, placements: map[string]*Placement{},
 		hauls: map[string]*Haul{}, tests: map[string]*Test{}, devices: map[string]*Device{}, revokedOut: map[string]bool{},
+		days: map[int]string{},
 	}
 }
 
@@ -187,24 +189,26 @@ func (p *Projection) Apply(s Signed) (Outcome, error) { return p.apply(s, true) 
 func (p *Projection) ApplyValidated(s Signed) (Outcome, error) { return p.apply(s, false) }
 
 func (p *Projection) apply(s Signed, validate bool) (Outcome, error) {
-	e := &s.Event
-	if e.Project != p.project {
-		return Outcome{}, reject(WrongProject, "project_id", fmt.Sprintf("the event belongs to project %s, not %s", e.Project, p.project))
+	// s is read by value until the event is held: taking its address would
+	// move it to the heap on every call, beside the copy that is held.
+	if s.Event.Project != p.project {
+		return Outcome{}, reject(WrongProject, "project_id", fmt.Sprintf("the event belongs to project %s, not %s", s.Event.Project, p.project))
 	}
-	if old, ok := p.events[e.ID]; ok {
+	if old, ok := p.events[s.Event.ID]; ok {
 		if bytes.Equal(old.Body, s.Body) {
-			return Outcome{Status: Duplicate, Missing: p.Missing(e)}, nil
+			return Outcome{Status: Duplicate, Missing: p.Missing(&old.Event)}, nil
 		}
-		return Outcome{}, reject(ConflictingID, "event_id", "event "+e.ID+" is already held with other content")
+		return Outcome{}, reject(ConflictingID, "event_id", "event "+s.Event.ID+" is already held with other content")
 	}
 	if validate {
-		if err := Validate(*e); err != nil {
+		if err := Validate(s.Event); err != nil {
 			return Outcome{}, err
 		}
 	}
-	held := s
-	p.events[e.ID] = &held
-	e = &held.Event
+	held := new(Signed)
+	*held = s
+	p.events[s.Event.ID] = held
+	e := &held.Event
 	if p.SignedAfterRevocation(e) != nil {
 		p.revokedOut[e.ID] = true
 		return Outcome{Status: Applied}, nil
@@ -235,21 +239,16 @@ func RecordID(k Kind) string {
 	return ""
 }
 
-// refsOf returns the ids of the records an event refers to (not the one it
-// is about), as its kind's descriptor says.
-func refsOf(e *Event) []string {
-	if d := descriptorOf(e.Kind); d != nil {
-		return d.Refs(e.Kind)
-	}
-	return nil
-}
-
 // Missing returns the records e refers to that this replica does not hold:
 // for revision ids, the revision must be part of its test's history.
 func (p *Projection) Missing(e *Event) []string {
+	d := descriptorOf(e.Kind)
+	if d == nil {
+		return nil
+	}
 	var out []string
-	for _, id := range refsOf(e) {
-		if !p.holds(id) {
+	for _, id := range d.refs(e.Kind) {
+		if id != "" && !p.holds(id) {
 			out = append(out, id)
 		}
 	}
@@ -257,42 +256,49 @@ func (p *Projection) Missing(e *Event) []string {
 }
 
 func (p *Projection) holds(id string) bool {
+	// Any one of the maps answers yes. The records the events most applied
+	// name come first (a test names its reference and spec, a review its
+	// test and revision), so that most ids are found in a few look-ups
+	// rather than after all the others.
+	if _, ok := p.tests[id]; ok {
+		return true
+	}
 	if _, ok := p.specs[id]; ok {
 		return true
 	}
 	if _, ok := p.refs[id]; ok {
 		return true
 	}
+	if s, ok := p.events[id]; ok && p.heldRevision(s) {
+		return true
+	}
 	if _, ok := p.equipment[id]; ok {
-		return true
-	}
-	if _, ok := p.corrections[id]; ok {
-		return true
-	}
-	if _, ok := p.borrow[id]; ok {
 		return true
 	}
 	if _, ok := p.placements[id]; ok {
 		return true
 	}
-	if _, ok := p.tests[id]; ok {
+	if _, ok := p.corrections[id]; ok {
 		return true
 	}
-	if s, ok := p.events[id]; ok { // a revision: held and connected to its test
-		var testID string
-		switch k := s.Event.Kind.(type) {
-		case *TestRecorded:
-			testID = k.TestID
-		case *TestCorrected:
-			testID = k.TestID
-		default:
-			return false
-		}
-		if t, ok := p.tests[testID]; ok {
-			return t.hasRevision(id)
-		}
+	_, ok := p.borrow[id]
+	return ok
+}
+
+// heldRevision reports whether s is a revision of a test that is part of
+// the test's history.
+func (p *Projection) heldRevision(s *Signed) bool {
+	var testID string
+	switch k := s.Event.Kind.(type) {
+	case *TestRecorded:
+		testID = k.TestID
+	case *TestCorrected:
+		testID = k.TestID
+	default:
+		return false
 	}
-	return false
+	t, ok := p.tests[testID]
+	return ok && t.hasRevision(s.Event.ID)
 }
 
 // recompute rebuilds the record key from its events, as the descriptor
@@ -307,13 +313,42 @@ func (p *Projection) recompute(key string, kind Kind) {
 	if len(deps) == 0 {
 		return
 	}
-	done := make(map[string]bool, len(deps))
-	for _, dep := range deps {
-		if !done[dep] {
-			done[dep] = true
-			p.recomputeTest(dep, true)
+	done := make(map[string]bool, deps.len())
+	for _, chunk := range deps {
+		for _, dep := range chunk {
+			if !done[dep] {
+				done[dep] = true
+				p.recomputeTest(dep, true, false)
+			}
 		}
 	}
+}
+
+// depList is a list of test ids in chunks of at most depChunk, so that the
+// list of a record every test names (a spec, a reference) grows without
+// copying the ids it holds each time it outgrows its room. A short list is
+// one chunk that grows as a slice does.
+type depList [][]string
+
+const depChunk = 1024
+
+func (l depList) add(id string) depList {
+	switch n := len(l); {
+	case n == 0:
+		l = append(l, nil)
+	case len(l[n-1]) == depChunk: // a long list: the next chunk whole at once
+		l = append(l, make([]string, 0, depChunk))
+	}
+	l[len(l)-1] = append(l[len(l)-1], id)
+	return l
+}
+
+func (l depList) len() int {
+	n := 0
+	for _, c := range l {
+		n += len(c)
+	}
+	return n
 }
 
 func setOrDelete[T any](m map[string]*T, key string, v *T) map[string]*T {
@@ -328,12 +363,17 @@ func setOrDelete[T any](m map[string]*T, key string, v *T) map[string]*T {
 // recomputeTest rebuilds a test; with cascade, the tests that retest it
 // too, since whether a retest retests a failure depends on the test it
 // names (one level is enough: a test's verdict never depends on its retests).
-func (p *Projection) recomputeTest(id string, cascade bool) {
-	t := p.buildTest(p.byRecord[id])
+// own says the rebuild is for an event about the test itself: every other
+// change that touches a test's grade (a record it names, the set-up, the
+// test it retests) rebuilds it at once, so its earlier grade still holds
+// when its current revision is the same.
+func (p *Projection) recomputeTest(id string, cascade, own bool) {
+	was := p.tests[id]
+	t := p.buildTest(p.byRecord[id], was, own)
 	if cascade {
 		defer func() {
 			for r := range p.retests[id] {
-				p.recomputeTest(r, false)
+				p.recomputeTest(r, false, false)
 			}
 		}()
 	}
@@ -342,7 +382,7 @@ func (p *Projection) recomputeTest(id string, cascade bool) {
 		delete(p.tests, id)
 		return
 	}
-	p.addDeps(p.tests[id], t)
+	p.addDeps(was, t)
 	p.tests[id] = t
 }
 
@@ -378,7 +418,7 @@ func (p *Projection) addDeps(was, t *Test) {
 	named(t, func(on string) {
 		if on != "" && !slices.Contains(noted, on) {
 			noted = append(noted, on)
-			p.deps[on] = append(p.deps[on], t.ID)
+			p.deps[on] = p.deps[on].add(t.ID)
 		}
 	})
 }

@@ -3,6 +3,8 @@ package ledger
 import (
 	"testing"
 
+	"github.com/google/go-cmp/cmp"
+
 	"tamp/internal/qc"
 	"tamp/internal/soil"
 )
@@ -277,5 +279,101 @@ func TestExceptionAccepted(t *testing.T) {
 	if err := Validate(Event{ID: f.id(true), Project: f.project, Author: "qa", Device: "d", DeviceSeq: 1, HLC: HLC{Wall: 1},
 		Kind: &ExceptionAccepted{TestID: fail.TestID, Revision: rec.Event.ID}}); ReasonOf(err) != InvalidField {
 		t.Errorf("exception without a reason: %v", err)
+	}
+}
+
+// A review, a void or an acceptance rebuilds a test but keeps its grade:
+// every flag the grade raises must stay, as on a replica where the review
+// arrived before the test and the test was graded afresh.
+func TestRebuildKeepsGradeFlags(t *testing.T) {
+	f := newFixture(t, 31)
+	spec, ref := f.spec(), f.reference()
+	gauge := &EquipmentRegistered{ID: f.id(true), Kind: NuclearGauge, Model: "MD-9", SerialNumber: "G-2231", CalibrationDue: "2026-06-01"}
+	setup := []Signed{f.emit("office", f.setUp()), f.emit("qa", spec), f.emit("qa", ref), f.emit("office", gauge)}
+
+	var tests []*TestRecorded
+	fail := f.test(ref.ID, spec.ID, 95, 12)
+	pass := f.test(ref.ID, spec.ID, 112, 13)
+	tampered := f.test(ref.ID, spec.ID, 110, 13)
+	tampered.Content.DeviceResults = &Results{WetDensity: 2000, DryDensity: 1800, Moisture: 13, RelativeCompaction: 99, Verdict: qc.Pass}
+	nuclear := f.test(ref.ID, spec.ID, 0, 0)
+	nuclear.Content.EquipmentID = gauge.ID
+	nuclear.Content.Readings = Readings{Nuclear: &NuclearReadings{ProbeDepth: 8 * soil.Inch,
+		Counts: []soil.NuclearReading{{WetDensity: pcf(125), WaterPerVolume: pcf(13)}}}}
+	retest := f.test(ref.ID, spec.ID, 111, 13)
+	retest.RetestOf = pass.TestID
+	dense := f.test(ref.ID, spec.ID, 170, 12) // denser than its solids at the reference's Gs
+	tests = append(tests, fail, pass, tampered, nuclear, retest, dense)
+	var recorded, later []Signed
+	for _, tr := range tests {
+		s := f.emit("ann", tr)
+		recorded = append(recorded, s)
+		later = append(later, f.emit("olga", &TestReviewed{TestID: tr.TestID, Revision: s.Event.ID, Decision: Approve}))
+	}
+	later = append(later, f.emit("ann", &TestVoided{TestID: dense.TestID, Reason: "wrong lift"}),
+		f.emit("qa", &ExceptionAccepted{TestID: fail.TestID, Revision: recorded[0].Event.ID, Reason: "toe berm"}))
+
+	graded := NewProjection(f.project) // the tests graded, then reviewed
+	apply(t, graded, setup...)
+	apply(t, graded, recorded...)
+	before := map[string]*Test{}
+	for _, tr := range tests {
+		before[tr.TestID], _ = graded.Test(tr.TestID)
+	}
+	apply(t, graded, later...)
+	fresh := NewProjection(f.project) // the reviews first: each test graded once, with its reviews
+	apply(t, fresh, later...)
+	apply(t, fresh, setup...)
+	apply(t, fresh, recorded...)
+
+	codes := map[string]bool{}
+	for _, tr := range tests {
+		got, _ := graded.Test(tr.TestID)
+		want, _ := fresh.Test(tr.TestID)
+		if d := cmp.Diff(want, got); d != "" {
+			t.Errorf("test %s reviewed after its grade differs from one graded with its review:\n%s", tr.TestID, d)
+		}
+		if d := cmp.Diff(before[tr.TestID].Result, got.Result); d != "" {
+			t.Errorf("test %s: a review changed the result:\n%s", tr.TestID, d)
+		}
+		for _, fl := range got.Flags {
+			codes[fl.Code] = true
+		}
+	}
+	for _, code := range []string{CannotGrade, GaugeCalibrationLapsed, NoStandardCount, RetestOfPassingTest, DeviceResultMismatch} {
+		if !codes[code] {
+			t.Errorf("no test raised %s: the check does not reach it", code)
+		}
+		if !gradeFlag(code) {
+			t.Errorf("gradeFlag(%s) = false: a rebuild would drop it", code)
+		}
+	}
+	if graded.Digest() != fresh.Digest() {
+		t.Error("the two replicas' states differ")
+	}
+}
+
+// A record named by more tests than one chunk of its dependants holds
+// regrades every one of them when it arrives.
+func TestLateSpecRegradesEveryTest(t *testing.T) {
+	f := newFixture(t, 32)
+	spec, ref := f.spec(), f.reference()
+	p := NewProjection(f.project)
+	apply(t, p, f.emit("office", f.setUp()), f.emit("qa", ref))
+	n := 2*depChunk + 3
+	var ids []string
+	for i := range n {
+		tr := f.test(ref.ID, spec.ID, 104+float64(i%13), 12)
+		ids = append(ids, tr.TestID)
+		apply(t, p, f.emit("ann", tr))
+	}
+	if v := verdictOf(t, p, ids[0]); v != qc.Pending {
+		t.Fatalf("before its spec: verdict %v, want pending", v)
+	}
+	apply(t, p, f.emit("qa", spec))
+	for _, id := range ids {
+		if tt, _ := p.Test(id); tt.Result.Verdict == qc.Pending || len(tt.Missing) > 0 {
+			t.Fatalf("test %s of %d after its spec arrived: verdict %v, missing %v", id, n, tt.Result.Verdict, tt.Missing)
+		}
 	}
 }

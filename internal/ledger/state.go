@@ -163,9 +163,11 @@ func buildReference(evs []*Event) *Reference {
 	return r
 }
 
+// qc returns the reference as package qc grades with it. The procedure
+// points into r, which no one changes once built: a copy would cost every
+// test's grade an allocation.
 func (r *Reference) qc() qc.Reference {
-	proc := r.Procedure
-	return qc.Reference{MaxDryDensity: r.MaxDry, OptimumMoisture: r.Optimum, NotBracketed: !r.Bracketed, Procedure: &proc}
+	return qc.Reference{MaxDryDensity: r.MaxDry, OptimumMoisture: r.Optimum, NotBracketed: !r.Bracketed, Procedure: &r.Procedure}
 }
 
 // Equipment is a registered piece of equipment with its standard counts.
@@ -248,7 +250,7 @@ func (p *Projection) buildBorrow(evs []*Event) *BorrowSource {
 	var sum float64
 	var n int
 	for _, r := range k.BankTests {
-		if res, err := r.Compute(nil); err == nil {
+		if res, err := r.densities(nil); err == nil {
 			sum += res.DryDensity
 			n++
 			b.BankDryDensities = append(b.BankDryDensities, res.DryDensity)

@@ -146,9 +146,13 @@ func (t *Test) flag(code, msg string) {
 }
 
 // buildTest derives a test from all events about it (sorted in event
-// order), or nil when no event recorded it.
-func (p *Projection) buildTest(evs []*Event) *Test {
+// order), or nil when no event recorded it. was is the test's earlier
+// build, or nil: its revisions are shared when they are the same, and with
+// graded (nothing it was graded against has changed since) so is its grade
+// when its current revision is the same.
+func (p *Projection) buildTest(evs []*Event, was *Test, graded bool) *Test {
 	var t *Test
+	var original *Event
 	var corrections []*Event
 	for _, e := range evs {
 		switch k := e.Kind.(type) {
@@ -157,8 +161,8 @@ func (p *Projection) buildTest(evs []*Event) *Test {
 				t.flag(DuplicateTestID, fmt.Sprintf("event %s records the same test id again; the earlier record stands", e.ID))
 				continue
 			}
-			t = &Test{ID: k.TestID, Author: e.Author, Device: e.Device, HLC: e.HLC, DeviceTime: e.DeviceTime, RetestOf: k.RetestOf,
-				Revisions: []Revision{{EventID: e.ID, Author: e.Author, HLC: e.HLC, Content: k.Content}}}
+			original = e
+			t = &Test{ID: k.TestID, Author: e.Author, Device: e.Device, HLC: e.HLC, DeviceTime: e.DeviceTime, RetestOf: k.RetestOf}
 		case *TestCorrected:
 			corrections = append(corrections, e)
 		}
@@ -166,7 +170,15 @@ func (p *Projection) buildTest(evs []*Event) *Test {
 	if t == nil {
 		return nil
 	}
-	t.Day = p.Day(t.DeviceTime)
+	if len(corrections) == 0 && was != nil && len(was.Revisions) == 1 && was.Revisions[0].EventID == original.ID {
+		// A rebuild for a review, a void or an acceptance: the history is
+		// the earlier build's, which no one changes once built.
+		t.Revisions = was.Revisions
+	} else {
+		k := original.Kind.(*TestRecorded)
+		t.Revisions = make([]Revision, 1, 1+len(corrections))
+		t.Revisions[0] = Revision{EventID: original.ID, Author: original.Author, HLC: original.HLC, Content: k.Content}
+	}
 
 	if len(corrections) == 0 { // most tests: the original stands
 		t.Current, t.Content = t.Revisions[0].EventID, t.Revisions[0].Content
@@ -194,7 +206,19 @@ func (p *Projection) buildTest(evs []*Event) *Test {
 			}
 		}
 	}
-	p.grade(t)
+	if graded && was != nil && was.Current == t.Current && was.Revisions[0].EventID == t.Revisions[0].EventID {
+		// The same revision of the same original (so the same content, day
+		// and retest) against the same records: the same grade.
+		t.Day, t.Result, t.Missing = was.Day, was.Result, was.Missing
+		for _, f := range was.Flags {
+			if gradeFlag(f.Code) {
+				t.Flags = append(t.Flags, f)
+			}
+		}
+	} else {
+		t.Day = p.day(t.DeviceTime)
+		p.grade(t)
+	}
 	slices.SortFunc(t.Flags, func(a, b qc.Finding) int {
 		return cmp.Or(cmp.Compare(a.Code, b.Code), cmp.Compare(a.Message, b.Message))
 	})
@@ -294,6 +318,12 @@ type Assessment struct {
 // as a retest of retestOf when that is set. A device calls it to show a
 // result before it records the test.
 func (p *Projection) Assess(c TestContent, day, retestOf string) Assessment {
+	return p.assess(c, day, retestOf, true)
+}
+
+// assess is Assess, with the arithmetic's steps only when steps is set: a
+// test's grade in the projection never shows them.
+func (p *Projection) assess(c TestContent, day, retestOf string, steps bool) Assessment {
 	var a Assessment
 	flag := func(code, msg string) { a.Flags = append(a.Flags, qc.Finding{Code: code, Message: msg}) }
 	var corr *soil.MoistureCorrection
@@ -304,7 +334,7 @@ func (p *Projection) Assess(c TestContent, day, retestOf string) Assessment {
 			a.Missing = append(a.Missing, n.CorrectionID)
 		}
 	}
-	inplace, err := c.Readings.Compute(corr)
+	inplace, err := c.Readings.compute(corr, steps)
 	if err != nil {
 		a.Result = qc.Result{Verdict: qc.Pending}
 		flag(CannotGrade, err.Error())
@@ -365,10 +395,35 @@ func (p *Projection) Assess(c TestContent, day, retestOf string) Assessment {
 // Day returns the date (YYYY-MM-DD) of t in the project's time zone.
 func (p *Projection) Day(t time.Time) string { return t.In(p.location()).Format(time.DateOnly) }
 
+// day is Day for Apply, which keeps one string per date: a project's tests
+// fall on few dates, and each test holds its day. Readers call Day, which
+// changes nothing.
+func (p *Projection) day(t time.Time) string {
+	y, m, d := t.In(p.location()).Date()
+	key := y<<9 | int(m)<<5 | d // month below 16, day below 32
+	if s, ok := p.days[key]; ok {
+		return s
+	}
+	s := p.Day(t)
+	p.days[key] = s
+	return s
+}
+
+// gradeFlag reports whether grade raises flags of code, which a rebuild
+// that keeps the grade keeps (the other flags come from the test's
+// history). Every flag assess or grade raises must be listed.
+func gradeFlag(code string) bool {
+	switch code {
+	case CannotGrade, GaugeCalibrationLapsed, NoStandardCount, RetestOfPassingTest, DeviceResultMismatch:
+		return true
+	}
+	return false
+}
+
 // grade recomputes a test's results from its current revision's readings
 // and flags a device result that disagrees.
 func (p *Projection) grade(t *Test) {
-	a := p.Assess(t.Content, t.Day, t.RetestOf)
+	a := p.assess(t.Content, t.Day, t.RetestOf, false)
 	t.Result, t.Missing = a.Result, a.Missing
 	t.Flags = append(t.Flags, a.Flags...)
 	if d := t.Content.DeviceResults; d != nil {

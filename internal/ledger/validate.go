@@ -315,7 +315,7 @@ func (k *BorrowSourceMeasured) validate() error {
 		return reject(InvalidField, "bank_tests", "at least one in-place test of the bank is required")
 	}
 	for i, r := range k.BankTests {
-		if _, err := r.Compute(nil); err != nil {
+		if _, err := r.densities(nil); err != nil {
 			return prefixed(err, fmt.Sprintf("bank_tests[%d].", i))
 		}
 	}
@@ -370,7 +370,7 @@ func (c *TestContent) validate() error {
 			return err
 		}
 	}
-	if _, err := c.Readings.Compute(nil); err != nil {
+	if _, err := c.Readings.densities(nil); err != nil {
 		return prefixed(err, "readings.")
 	}
 	l := c.Location
@@ -398,6 +398,16 @@ func (c *TestContent) validate() error {
 // returns a *Rejection: InvalidField when no method or more than one is
 // set, ImpossibleReadings when the readings break a rule.
 func (r Readings) Compute(corr *soil.MoistureCorrection) (soil.InPlace, error) {
+	return r.compute(corr, true)
+}
+
+// densities is Compute without the steps, for the checks and grades that
+// never show them.
+func (r Readings) densities(corr *soil.MoistureCorrection) (soil.InPlace, error) {
+	return r.compute(corr, false)
+}
+
+func (r Readings) compute(corr *soil.MoistureCorrection, steps bool) (soil.InPlace, error) {
 	n := 0
 	for _, set := range []bool{r.Nuclear != nil, r.SandCone != nil, r.DriveCylinder != nil, r.RubberBalloon != nil, r.WetDensity != nil} {
 		if set {
@@ -412,19 +422,28 @@ func (r Readings) Compute(corr *soil.MoistureCorrection) (soil.InPlace, error) {
 	switch {
 	case r.Nuclear != nil:
 		nr := r.Nuclear
-		res, err = soil.Nuclear{Backscatter: nr.Backscatter, ProbeDepth: nr.ProbeDepth, Readings: nr.Counts, Agreement: nr.Agreement,
-			Correction: corr, OvenMoisture: nr.OvenMoisture}.Compute()
+		n := soil.Nuclear{Backscatter: nr.Backscatter, ProbeDepth: nr.ProbeDepth, Readings: nr.Counts, Agreement: nr.Agreement,
+			Correction: corr, OvenMoisture: nr.OvenMoisture}
+		res, err = pick(steps, n.Compute, n.Densities)
 	case r.SandCone != nil:
-		res, err = r.SandCone.Compute()
+		res, err = pick(steps, r.SandCone.Compute, r.SandCone.Densities)
 	case r.DriveCylinder != nil:
-		res, err = r.DriveCylinder.Compute()
+		res, err = pick(steps, r.DriveCylinder.Compute, r.DriveCylinder.Densities)
 	case r.RubberBalloon != nil:
-		res, err = r.RubberBalloon.Compute()
+		res, err = pick(steps, r.RubberBalloon.Compute, r.RubberBalloon.Densities)
 	default:
-		res, err = r.WetDensity.Compute()
+		res, err = pick(steps, r.WetDensity.Compute, r.WetDensity.Densities)
 	}
 	if err != nil {
 		return soil.InPlace{}, fieldErr(ImpossibleReadings, "", err)
 	}
 	return res, nil
+}
+
+// pick calls withSteps when the steps are wanted, otherwise bare.
+func pick(steps bool, withSteps, bare func() (soil.InPlace, error)) (soil.InPlace, error) {
+	if steps {
+		return withSteps()
+	}
+	return bare()
 }

@@ -24,8 +24,10 @@
 //
 // # In-place density
 //
-// Each method returns an [InPlace] with wet density, dry density = wet /
-// (1 + w), moisture, and the intermediate [Step]s a reviewer needs:
+// Each method's Compute returns an [InPlace] with wet density, dry density
+// = wet / (1 + w), moisture, and the intermediate [Step]s a reviewer needs;
+// its Densities returns the same without the steps, for a caller that
+// grades a test without showing its arithmetic:
 //
 //   - [Nuclear] (ASTM D6938): direct transmission with the probe lowered
 //     into a punched hole (up to 300 mm / 12 in), or backscatter from the

@@ -50,16 +50,36 @@ type InPlace struct {
 // step list is allocated once.
 const stepRoom = 12
 
-func newSteps(s ...Step) []Step { return append(make([]Step, 0, stepRoom), s...) }
+// steps collects a computation's steps when they are wanted. Compute wants
+// them, to show the arithmetic; Densities does not, since a projection
+// grades every stored test again and would only throw them away.
+type steps struct {
+	list []Step
+	want bool
+}
 
-func finish(r InPlace) (InPlace, error) {
+func newSteps(want bool) steps {
+	if !want {
+		return steps{}
+	}
+	return steps{list: make([]Step, 0, stepRoom), want: true}
+}
+
+func (s *steps) add(st ...Step) {
+	if s.want {
+		s.list = append(s.list, st...)
+	}
+}
+
+func finish(r InPlace, st steps) (InPlace, error) {
 	dry, err := DryDensity(r.WetDensity, r.Moisture)
 	if err != nil {
 		return InPlace{}, err
 	}
 	r.DryDensity = dry
-	r.Steps = append(r.Steps, Step{"wet density", r.WetDensity, Density}, Step{"moisture", r.Moisture, Percent},
+	st.add(Step{"wet density", r.WetDensity, Density}, Step{"moisture", r.Moisture, Percent},
 		Step{"dry density = wet / (1 + w)", dry, Density})
+	r.Steps = st.list
 	return r, nil
 }
 
@@ -100,9 +120,17 @@ type Nuclear struct {
 	OvenMoisture *float64
 }
 
-// Compute returns the wet and dry density and moisture of the test.
-func (n Nuclear) Compute() (InPlace, error) {
-	r := InPlace{Method: NuclearDirect, Steps: newSteps()}
+// Compute returns the wet and dry density and moisture of the test, with
+// the arithmetic's steps.
+func (n Nuclear) Compute() (InPlace, error) { return n.compute(true) }
+
+// Densities is Compute without the steps (Steps nil), for a caller that
+// does not show them.
+func (n Nuclear) Densities() (InPlace, error) { return n.compute(false) }
+
+func (n Nuclear) compute(want bool) (InPlace, error) {
+	r := InPlace{Method: NuclearDirect}
+	st := newSteps(want)
 	if n.Backscatter {
 		r.Method = NuclearBackscatter
 		if n.ProbeDepth != 0 {
@@ -117,7 +145,7 @@ func (n Nuclear) Compute() (InPlace, error) {
 				"must be at most 300 mm (12 in), the deepest direct transmission of ASTM D6938"))
 		}
 		r.ProbeDepth = n.ProbeDepth
-		r.Steps = append(r.Steps, Step{"probe depth", n.ProbeDepth, Depth})
+		st.add(Step{"probe depth", n.ProbeDepth, Depth})
 	}
 	if len(n.Readings) < 1 || len(n.Readings) > 2 {
 		return InPlace{}, fmt.Errorf("soil: nuclear: %w", valid.Fail("readings", float64(len(n.Readings)), "must be one reading or two taken at 90 degrees"))
@@ -144,7 +172,7 @@ func (n Nuclear) Compute() (InPlace, error) {
 		}
 		wet /= 2
 		m /= 2
-		r.Steps = append(r.Steps, Step{"wet density, mean of two readings", wet, Density})
+		st.add(Step{"wet density, mean of two readings", wet, Density})
 	}
 	_, gw, err := NuclearMoisture(wet, m)
 	if err != nil {
@@ -153,7 +181,7 @@ func (n Nuclear) Compute() (InPlace, error) {
 	r.WetDensity = wet
 	r.GaugeMoisture = gw
 	r.Moisture = gw
-	r.Steps = append(r.Steps, Step{"water per volume M", m, Density}, Step{"gauge dry density = wet - M", wet - m, Density},
+	st.add(Step{"water per volume M", m, Density}, Step{"gauge dry density = wet - M", wet - m, Density},
 		Step{"gauge moisture = M / dry", gw, Percent})
 	switch {
 	case n.OvenMoisture != nil:
@@ -162,7 +190,7 @@ func (n Nuclear) Compute() (InPlace, error) {
 		}
 		r.Moisture = *n.OvenMoisture
 		r.MoistureCorrected = true
-		r.Steps = append(r.Steps, Step{"oven moisture used instead", r.Moisture, Percent})
+		st.add(Step{"oven moisture used instead", r.Moisture, Percent})
 	case n.Correction != nil:
 		w, err := n.Correction.Apply(gw)
 		if err != nil {
@@ -170,9 +198,9 @@ func (n Nuclear) Compute() (InPlace, error) {
 		}
 		r.Moisture = w
 		r.MoistureCorrected = true
-		r.Steps = append(r.Steps, Step{"corrected moisture", w, Percent})
+		st.add(Step{"corrected moisture", w, Percent})
 	}
-	return finish(r)
+	return finish(r, st)
 }
 
 // SandCone is a sand-cone test (ASTM D1556, AASHTO T 191). Give either
@@ -189,7 +217,13 @@ type SandCone struct {
 
 // Compute returns the test's densities, with sand used, sand in the hole and
 // the hole's volume as steps.
-func (s SandCone) Compute() (InPlace, error) {
+func (s SandCone) Compute() (InPlace, error) { return s.compute(true) }
+
+// Densities is Compute without the steps (Steps nil), for a caller that
+// does not show them.
+func (s SandCone) Densities() (InPlace, error) { return s.compute(false) }
+
+func (s SandCone) compute(want bool) (InPlace, error) {
 	if err := valid.First(valid.Positive("sand_density", s.SandDensity), valid.NonNegative("cone_correction", s.ConeCorrection),
 		valid.Positive("soil_mass", s.SoilMass), checkMoisture("moisture", s.Moisture),
 		valid.NonNegative("sand_used", s.SandUsed), valid.NonNegative("initial_mass", s.InitialMass),
@@ -197,7 +231,7 @@ func (s SandCone) Compute() (InPlace, error) {
 		return InPlace{}, fmt.Errorf("soil: sand cone: %w", err)
 	}
 	used := s.SandUsed
-	steps := newSteps()
+	st := newSteps(want)
 	switch {
 	case used > 0 && (s.InitialMass != 0 || s.FinalMass != 0):
 		return InPlace{}, fmt.Errorf("soil: sand cone: %w", valid.Fail("sand_used", used, "give sand_used or initial_mass and final_mass, not both"))
@@ -209,17 +243,17 @@ func (s SandCone) Compute() (InPlace, error) {
 			return InPlace{}, fmt.Errorf("soil: sand cone: %w", valid.Fail("final_mass", s.FinalMass, "must be less than initial_mass"))
 		}
 		used = s.InitialMass - s.FinalMass
-		steps = append(steps, Step{"apparatus before", s.InitialMass, Mass}, Step{"apparatus after", s.FinalMass, Mass})
+		st.add(Step{"apparatus before", s.InitialMass, Mass}, Step{"apparatus after", s.FinalMass, Mass})
 	}
 	inHole := used - s.ConeCorrection
 	if inHole <= 0 {
 		return InPlace{}, fmt.Errorf("soil: sand cone: %w", valid.Fail("cone_correction", s.ConeCorrection, "must be less than the sand used"))
 	}
 	vol := inHole / s.SandDensity
-	steps = append(steps, Step{"sand used", used, Mass}, Step{"cone correction", s.ConeCorrection, Mass},
+	st.add(Step{"sand used", used, Mass}, Step{"cone correction", s.ConeCorrection, Mass},
 		Step{"sand in hole = used - cone", inHole, Mass}, Step{"sand bulk density", s.SandDensity, Density},
 		Step{"hole volume = sand in hole / sand density", vol, SmallVolume}, Step{"soil from hole", s.SoilMass, Mass})
-	return finish(InPlace{Method: SandConeMethod, WetDensity: s.SoilMass / vol, Moisture: s.Moisture, Steps: steps})
+	return finish(InPlace{Method: SandConeMethod, WetDensity: s.SoilMass / vol, Moisture: s.Moisture}, st)
 }
 
 // SandCalibration is one bulk-density determination of the test sand: the
@@ -265,14 +299,21 @@ type DriveCylinder struct {
 }
 
 // Compute returns the densities with the cylinder's volume as a step.
-func (d DriveCylinder) Compute() (InPlace, error) {
+func (d DriveCylinder) Compute() (InPlace, error) { return d.compute(true) }
+
+// Densities is Compute without the steps (Steps nil), for a caller that
+// does not show them.
+func (d DriveCylinder) Densities() (InPlace, error) { return d.compute(false) }
+
+func (d DriveCylinder) compute(want bool) (InPlace, error) {
 	if err := valid.First(valid.Positive("diameter", d.Diameter), valid.Positive("length", d.Length),
 		valid.Positive("soil_mass", d.SoilMass), checkMoisture("moisture", d.Moisture)); err != nil {
 		return InPlace{}, fmt.Errorf("soil: drive cylinder: %w", err)
 	}
 	vol := math.Pi * d.Diameter * d.Diameter / 4 * d.Length
-	return finish(InPlace{Method: DriveCylinderMethod, WetDensity: d.SoilMass / vol, Moisture: d.Moisture,
-		Steps: newSteps(Step{"cylinder volume = pi d^2 / 4 x length", vol, SmallVolume}, Step{"soil in cylinder", d.SoilMass, Mass})})
+	st := newSteps(want)
+	st.add(Step{"cylinder volume = pi d^2 / 4 x length", vol, SmallVolume}, Step{"soil in cylinder", d.SoilMass, Mass})
+	return finish(InPlace{Method: DriveCylinderMethod, WetDensity: d.SoilMass / vol, Moisture: d.Moisture}, st)
 }
 
 // RubberBalloon is a rubber-balloon test (ASTM D2167): the apparatus's
@@ -285,7 +326,13 @@ type RubberBalloon struct {
 }
 
 // Compute returns the densities with the hole's volume as a step.
-func (b RubberBalloon) Compute() (InPlace, error) {
+func (b RubberBalloon) Compute() (InPlace, error) { return b.compute(true) }
+
+// Densities is Compute without the steps (Steps nil), for a caller that
+// does not show them.
+func (b RubberBalloon) Densities() (InPlace, error) { return b.compute(false) }
+
+func (b RubberBalloon) compute(want bool) (InPlace, error) {
 	if err := valid.First(valid.NonNegative("initial_reading", b.InitialReading), valid.Positive("final_reading", b.FinalReading),
 		valid.Positive("soil_mass", b.SoilMass), checkMoisture("moisture", b.Moisture)); err != nil {
 		return InPlace{}, fmt.Errorf("soil: rubber balloon: %w", err)
@@ -294,9 +341,10 @@ func (b RubberBalloon) Compute() (InPlace, error) {
 	if vol <= 0 {
 		return InPlace{}, fmt.Errorf("soil: rubber balloon: %w", valid.Fail("final_reading", b.FinalReading, "must exceed initial_reading (zero hole volume)"))
 	}
-	return finish(InPlace{Method: RubberBalloonMethod, WetDensity: b.SoilMass / vol, Moisture: b.Moisture,
-		Steps: newSteps(Step{"initial reading", b.InitialReading, SmallVolume}, Step{"final reading", b.FinalReading, SmallVolume},
-			Step{"hole volume = final - initial", vol, SmallVolume}, Step{"soil from hole", b.SoilMass, Mass})})
+	st := newSteps(want)
+	st.add(Step{"initial reading", b.InitialReading, SmallVolume}, Step{"final reading", b.FinalReading, SmallVolume},
+		Step{"hole volume = final - initial", vol, SmallVolume}, Step{"soil from hole", b.SoilMass, Mass})
+	return finish(InPlace{Method: RubberBalloonMethod, WetDensity: b.SoilMass / vol, Moisture: b.Moisture}, st)
 }
 
 // WetDensityTest is a wet density measured by some other means and entered
@@ -306,10 +354,17 @@ type WetDensityTest struct {
 	Moisture   float64 // percent
 }
 
-// Compute returns the dry density.
-func (t WetDensityTest) Compute() (InPlace, error) {
+// Compute returns the dry density, with the wet density, moisture and dry
+// density as steps.
+func (t WetDensityTest) Compute() (InPlace, error) { return t.compute(true) }
+
+// Densities is Compute without the steps (Steps nil), for a caller that
+// does not show them.
+func (t WetDensityTest) Densities() (InPlace, error) { return t.compute(false) }
+
+func (t WetDensityTest) compute(want bool) (InPlace, error) {
 	if err := valid.First(valid.Positive("wet_density", t.WetDensity), checkMoisture("moisture", t.Moisture)); err != nil {
 		return InPlace{}, fmt.Errorf("soil: wet density: %w", err)
 	}
-	return finish(InPlace{Method: MeasuredWetDensity, WetDensity: t.WetDensity, Moisture: t.Moisture})
+	return finish(InPlace{Method: MeasuredWetDensity, WetDensity: t.WetDensity, Moisture: t.Moisture}, newSteps(want))
 }

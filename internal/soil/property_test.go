@@ -3,6 +3,7 @@ package soil
 import (
 	"math"
 	"math/rand/v2"
+	"reflect"
 	"testing"
 )
 
@@ -64,6 +65,54 @@ func TestPropertyMethodsFinite(t *testing.T) {
 			}
 			if r.DryDensity > r.WetDensity || math.IsNaN(r.DryDensity) || math.IsInf(r.DryDensity, 0) {
 				t.Fatalf("%T: wet %v dry %v", tc, r.WetDensity, r.DryDensity)
+			}
+		}
+	}
+}
+
+// Property: Densities gives what Compute gives, results and errors alike,
+// only without the steps, for valid and invalid inputs of every method.
+func TestPropertyDensitiesIsComputeWithoutSteps(t *testing.T) {
+	type method interface {
+		Compute() (InPlace, error)
+		Densities() (InPlace, error)
+	}
+	rng := rand.New(rand.NewPCG(7, 8))
+	some := func(lo, hi float64) float64 { // now and then out of range, to reach the errors
+		if rng.IntN(8) == 0 {
+			return -rng.Float64() * hi
+		}
+		return lo + rng.Float64()*(hi-lo)
+	}
+	for range 2000 {
+		w := some(0, 40)
+		oven := some(0, 30)
+		two := []NuclearReading{{some(1800, 2200), some(100, 300)}, {some(1800, 2200), some(100, 300)}}
+		tests := []method{
+			SandCone{SandDensity: some(1400, 1600), SandUsed: some(3, 6), ConeCorrection: 1.5, SoilMass: some(2, 5), Moisture: w},
+			SandCone{SandDensity: some(1400, 1600), InitialMass: some(8, 10), FinalMass: some(3, 6), ConeCorrection: some(1, 2), SoilMass: some(2, 5), Moisture: w},
+			DriveCylinder{Diameter: some(0.05, 0.12), Length: some(0.1, 0.15), SoilMass: some(1.5, 2.5), Moisture: w},
+			RubberBalloon{InitialReading: some(0, 1e-3), FinalReading: some(1e-3, 3e-3), SoilMass: some(2, 4), Moisture: w},
+			WetDensityTest{WetDensity: some(1600, 2400), Moisture: w},
+			Nuclear{ProbeDepth: some(0, 0.3), Readings: two[:1]},
+			Nuclear{Backscatter: true, Readings: two, Agreement: some(0, 400), OvenMoisture: &oven},
+			Nuclear{ProbeDepth: 0.2, Readings: two, Agreement: 500, Correction: &MoistureCorrection{Kind: Offset, Value: some(-3, 3)}},
+		}
+		for _, tc := range tests {
+			full, ferr := tc.Compute()
+			bare, berr := tc.Densities()
+			if (ferr == nil) != (berr == nil) || (ferr != nil && ferr.Error() != berr.Error()) {
+				t.Fatalf("%+v: Compute() error %v, Densities() error %v", tc, ferr, berr)
+			}
+			if ferr != nil {
+				continue
+			}
+			if len(full.Steps) == 0 || bare.Steps != nil {
+				t.Fatalf("%+v: Compute() gave %d steps, Densities() %d, want some and none", tc, len(full.Steps), len(bare.Steps))
+			}
+			full.Steps = nil
+			if !reflect.DeepEqual(full, bare) {
+				t.Fatalf("%+v: Densities()=%+v, want %+v", tc, bare, full)
 			}
 		}
 	}
