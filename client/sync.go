@@ -1,7 +1,6 @@
 package client
 
 import (
-	"bytes"
 	"context"
 	"crypto/ed25519"
 	"database/sql"
@@ -988,9 +987,11 @@ func (s *Store) ownEvents(ctx context.Context, project, self string, entries []*
 	s.mu.Lock()
 	v := s.view(project)
 	for n, c := range held {
-		if sg, ok := v.Event(c.id); ok && bytes.Equal(sg.Body, c.body) && bytes.Equal(sg.Signature, c.sig) {
-			out[n] = sg
-			delete(held, n)
+		if e, ok := v.Event(c.id); ok {
+			if _, same := v.HeldAs(c.id, c.body); same {
+				out[n] = ledger.Signed{Event: e, Body: c.body, Signature: c.sig}
+				delete(held, n)
+			}
 		}
 	}
 	s.mu.Unlock()
@@ -1037,8 +1038,8 @@ func (s *Store) applyPulled(ctx context.Context, project string, evs []ledger.Si
 	v := s.view(project)
 	fresh := 0
 	for _, sg := range evs {
-		held, ok := v.Event(sg.Event.ID)
-		if ok && !bytes.Equal(held.Body, sg.Body) {
+		ok, same := v.HeldAs(sg.Event.ID, sg.Body)
+		if ok && !same {
 			return 0, &forkError{fmt.Errorf("event %s from the server differs from the one this device holds", sg.Event.ID)}
 		}
 		if !ok && sg.Event.Device != s.deviceID {

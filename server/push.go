@@ -1,7 +1,6 @@
 package server
 
 import (
-	"bytes"
 	"cmp"
 	"context"
 	"crypto/ed25519"
@@ -213,7 +212,7 @@ func (s *Server) decide(ctx context.Context, p *project, req *pb.PushRequest, it
 			continue
 		}
 		if seq, held := p.seqs[id]; held {
-			if held, ok := p.view.Event(id); !ok || !bytes.Equal(held.Body, it.signed.Body) {
+			if held, same := p.view.HeldAs(id, it.signed.Body); !held || !same {
 				resp.Outcomes = append(resp.Outcomes, rejected(id, &ledger.Rejection{Reason: ledger.ConflictingID, Field: "event_id",
 					Detail: "the ledger holds event " + id + " with other content"}))
 				continue

@@ -1,8 +1,8 @@
 package ledger
 
 import (
-	"bytes"
 	"cmp"
+	"crypto/sha256"
 	"fmt"
 	"slices"
 	"sync"
@@ -64,7 +64,7 @@ type Projection struct {
 	project string
 	now     func() time.Time
 
-	events   map[string]*Signed
+	events   map[string]*heldEvent
 	byRecord map[string][]*Event // record id ("" for the project) -> events about it
 	// deps names, per record, the tests whose revisions name it: a list,
 	// not a set, since a test adds only what its earlier build had not
@@ -151,7 +151,7 @@ func (p *Projection) sortedTests() []*Test {
 // NewProjection returns an empty projection of a project.
 func NewProjection(project string) *Projection {
 	return &Projection{
-		project: project, events: map[string]*Signed{}, byRecord: map[string][]*Event{},
+		project: project, events: map[string]*heldEvent{}, byRecord: map[string][]*Event{},
 		deps: map[string]depList{}, retests: map[string]map[string]bool{},
 		specs: map[string]*Spec{}, refs: map[string]*Reference{}, equipment: map[string]*Equipment{},
 		corrections: map[string]*Correction{}, borrow: map[string]*BorrowSource{}, placements: map[string]*Placement{},
@@ -169,13 +169,33 @@ func (p *Projection) Len() int { return len(p.events) }
 // Has reports whether the event is held.
 func (p *Projection) Has(eventID string) bool { _, ok := p.events[eventID]; return ok }
 
+// heldEvent is an event the projection holds: decoded, with the digest of
+// its signed body in place of the bytes, which the store keeps (a body
+// kept in memory beside its decoded event would double what each event
+// costs the projection).
+type heldEvent struct {
+	Event
+	body [sha256.Size]byte
+}
+
 // Event returns a held event.
-func (p *Projection) Event(eventID string) (Signed, bool) {
-	s, ok := p.events[eventID]
+func (p *Projection) Event(eventID string) (Event, bool) {
+	h, ok := p.events[eventID]
 	if !ok {
-		return Signed{}, false
+		return Event{}, false
 	}
-	return *s, true
+	return h.Event, true
+}
+
+// HeldAs reports whether the event is held and, if so, whether it is held
+// with the signed body body (a different body under a held id is a
+// conflict, or a fork of the ledger).
+func (p *Projection) HeldAs(eventID string, body []byte) (held, same bool) {
+	h, ok := p.events[eventID]
+	if !ok {
+		return false, false
+	}
+	return true, h.body == sha256.Sum256(body)
 }
 
 // Apply adds a verified event to the set. An event already held with the
@@ -195,7 +215,7 @@ func (p *Projection) apply(s Signed, validate bool) (Outcome, error) {
 		return Outcome{}, reject(WrongProject, "project_id", fmt.Sprintf("the event belongs to project %s, not %s", s.Event.Project, p.project))
 	}
 	if old, ok := p.events[s.Event.ID]; ok {
-		if bytes.Equal(old.Body, s.Body) {
+		if old.body == sha256.Sum256(s.Body) {
 			return Outcome{Status: Duplicate, Missing: p.Missing(&old.Event)}, nil
 		}
 		return Outcome{}, reject(ConflictingID, "event_id", "event "+s.Event.ID+" is already held with other content")
@@ -205,8 +225,7 @@ func (p *Projection) apply(s Signed, validate bool) (Outcome, error) {
 			return Outcome{}, err
 		}
 	}
-	held := new(Signed)
-	*held = s
+	held := &heldEvent{Event: s.Event, body: sha256.Sum256(s.Body)}
 	p.events[s.Event.ID] = held
 	e := &held.Event
 	if p.SignedAfterRevocation(e) != nil {
@@ -287,7 +306,7 @@ func (p *Projection) holds(id string) bool {
 
 // heldRevision reports whether s is a revision of a test that is part of
 // the test's history.
-func (p *Projection) heldRevision(s *Signed) bool {
+func (p *Projection) heldRevision(s *heldEvent) bool {
 	var testID string
 	switch k := s.Event.Kind.(type) {
 	case *TestRecorded:

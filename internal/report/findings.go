@@ -424,7 +424,7 @@ func (a *audit) corrections(t *ledger.Test, grades map[string]qc.Result) {
 		}
 		device := " at"
 		if ev, ok := a.p.Event(r.EventID); ok {
-			device = fmt.Sprintf(" at %s by the device's clock,", a.stamp(ev.Event.DeviceTime))
+			device = fmt.Sprintf(" at %s by the device's clock,", a.stamp(ev.DeviceTime))
 		}
 		a.add(t, CorrectionTurnedFailIntoPass, t.ID, fmt.Sprintf(
 			"test %s: the correction by %s%s hybrid time %s, turned a fail (relative compaction %.1f %%) into a pass (%.1f %%); reason given: %q",
@@ -462,7 +462,7 @@ func (a *audit) roleAtEvent(author, eventID string) string {
 	if !ok {
 		return ""
 	}
-	role, _ := a.roleAt(author, ev.Event.HLC)
+	role, _ := a.roleAt(author, ev.HLC)
 	return role
 }
 
@@ -475,11 +475,10 @@ func roleWords(role string) string {
 
 func (a *audit) clockSkews() {
 	for id, skew := range a.o.Skews {
-		s, ok := a.p.Event(id)
+		e, ok := a.p.Event(id)
 		if !ok {
 			continue
 		}
-		e := s.Event
 		var testID string
 		switch k := e.Kind.(type) {
 		case *ledger.TestRecorded:
