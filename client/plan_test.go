@@ -58,6 +58,9 @@ func TestSyncQueryPlans(t *testing.T) {
 		{"outbox status", outboxStatusQuery, []any{here}, "USING INDEX events_outbox"},
 		{"supply", supplyQuery, []any{here, s.DeviceID(), 3, 9}, "device_id=? AND device_seq>? AND device_seq<?"},
 		{"own entries", ownEventsQuery + "?, ?)", []any{s.DeviceID(), here, 7, 8}, "device_seq=?"},
+		// A pull of a day's own entries names them all: a long list of
+		// numbers must still be looked up one by one.
+		{"own entries, many", ownEventsQuery + strings.Repeat("?, ", 49) + "?)", append([]any{s.DeviceID(), here}, seqArgs(50)...), "device_seq=?"},
 		{"push everything back", everythingQuery, []any{here}, "(project_id=?)"},
 		{"outbox count", outboxCountQuery, nil, "USING COVERING INDEX events_outbox"},
 		{"rejected", rejectedQuery, nil, "USING INDEX events_outbox"},
@@ -103,4 +106,13 @@ func TestSyncQueryPlans(t *testing.T) {
 			}
 		}
 	}
+}
+
+// seqArgs returns 1..n as query arguments.
+func seqArgs(n int) []any {
+	out := make([]any, n)
+	for i := range out {
+		out[i] = i + 1
+	}
+	return out
 }

@@ -387,9 +387,11 @@ const (
 	everythingQuery = `SELECT event_id, body, signature, status = 'accepted', device_seq FROM events WHERE project_id = ? AND status NOT IN ('rejected', 'discarded')
 		ORDER BY hlc_wall, hlc_logical, device_id, event_id`
 	// supplyQuery: a device's entries in a range of its sequence numbers,
-	// which the server asked for.
+	// which the server asked for, through the (device_id, device_seq) key;
+	// the project is checked on each row (+project_id keeps SQLite from
+	// reading the project's index instead, every entry of the project).
 	supplyQuery = `SELECT event_id, body, signature, status = 'accepted', device_seq FROM events
-		WHERE project_id = ? AND device_id = ? AND device_seq > ? AND device_seq <= ? ORDER BY device_seq`
+		WHERE +project_id = ? AND device_id = ? AND device_seq > ? AND device_seq <= ? ORDER BY device_seq`
 	// lackingUpdate: after a pull, the acknowledged entries it did not bring
 	// back, through events_unconfirmed (named: left to itself SQLite may
 	// take the index of project_id and read every entry of the project).
@@ -935,8 +937,10 @@ func (s *Store) openChunk(ctx context.Context, project, self string, pub ed25519
 
 // ownEventsQuery finds the copies of the device's own entries the server
 // sent by their device sequence numbers, one lookup each in the
-// (device_id, device_seq) key.
-const ownEventsQuery = `SELECT device_seq, event_id, body, signature FROM events WHERE device_id = ? AND project_id = ? AND device_seq IN (`
+// (device_id, device_seq) key, the project checked on each row: with a
+// long list of numbers SQLite would otherwise read the project's index,
+// every entry of the project (+project_id keeps it from that index).
+const ownEventsQuery = `SELECT device_seq, event_id, body, signature FROM events WHERE device_id = ? AND +project_id = ? AND device_seq IN (`
 
 // ownEvents returns the copies this device holds of the entries of a
 // pulled chunk sent as its device sequence numbers, by sequence number. It
