@@ -203,6 +203,10 @@ type loadedBatch struct {
 	err error
 }
 
+// loadQuery reads the events loadViews applies.
+const loadQuery = `SELECT body, signature FROM events
+	WHERE status NOT IN ('rejected', 'discarded') ORDER BY project_id, hlc_wall, hlc_logical`
+
 // loadViews rebuilds every project's view from the events held, leaving out
 // events the server rejected and those the user discarded. One goroutine
 // reads, decodes and validates the rows while this one applies them, so
@@ -221,8 +225,14 @@ type loadedBatch struct {
 func (s *Store) loadViews(ctx context.Context) error {
 	ctx, cancel := context.WithCancel(ctx)
 	defer cancel()
-	rows, err := s.db.Reader().QueryContext(ctx, `SELECT body, signature FROM events
-		WHERE status NOT IN ('rejected', 'discarded') ORDER BY hlc_wall, hlc_logical, device_id, event_id`)
+	// In the order of the project index, which reads the rows as they lie
+	// and sorts nothing: a view is the same whatever order its events come
+	// in, and hybrid-time order within a project only spares it entries
+	// that wait for records not yet applied. (Ordered by time across
+	// projects, as before, SQLite sorted every row with its bytes in a
+	// temporary tree first: a million events took 16 times as long as a
+	// hundred thousand.)
+	rows, err := s.db.Reader().QueryContext(ctx, loadQuery)
 	if err != nil {
 		return fmt.Errorf("client: load events: %w", err)
 	}
