@@ -78,23 +78,7 @@ func TestSyncQueryPlans(t *testing.T) {
 			}
 		}
 		for _, c := range cases {
-			rows, err := s.db.Reader().QueryContext(ctx, "EXPLAIN QUERY PLAN "+c.query, c.args...)
-			if err != nil {
-				t.Fatalf("%s: %v", c.name, err)
-			}
-			var plan []string
-			for rows.Next() {
-				var id, parent, unused int
-				var detail string
-				if err := rows.Scan(&id, &parent, &unused, &detail); err != nil {
-					t.Fatal(err)
-				}
-				plan = append(plan, detail)
-			}
-			rows.Close()
-			if err := rows.Err(); err != nil {
-				t.Fatal(err)
-			}
+			plan := queryPlan(t, s, c.query, c.args...)
 			found := false
 			for _, d := range plan {
 				if strings.HasPrefix(d, "SCAN events") && !partial.MatchString(d) {
@@ -134,9 +118,19 @@ func TestLoadQueryPlan(t *testing.T) {
 			t.Fatal(err)
 		}
 	}
-	rows, err := s.db.Reader().QueryContext(ctx, "EXPLAIN QUERY PLAN "+loadQuery)
+	plan := queryPlan(t, s, loadQuery)
+	if len(plan) == 0 || slices.ContainsFunc(plan, func(d string) bool { return strings.Contains(d, "TEMP B-TREE") }) {
+		t.Errorf("the load's plan %q sorts the entries", plan)
+	}
+}
+
+// queryPlan returns the lines of SQLite's plan of query (EXPLAIN QUERY
+// PLAN) on s's store.
+func queryPlan(t *testing.T, s *Store, query string, args ...any) []string {
+	t.Helper()
+	rows, err := s.db.Reader().QueryContext(context.Background(), "EXPLAIN QUERY PLAN "+query, args...)
 	if err != nil {
-		t.Fatal(err)
+		t.Fatalf("plan of %q: %v", query, err)
 	}
 	defer rows.Close()
 	var plan []string
@@ -148,7 +142,8 @@ func TestLoadQueryPlan(t *testing.T) {
 		}
 		plan = append(plan, detail)
 	}
-	if len(plan) == 0 || slices.ContainsFunc(plan, func(d string) bool { return strings.Contains(d, "TEMP B-TREE") }) {
-		t.Errorf("the load's plan %q sorts the entries", plan)
+	if err := rows.Err(); err != nil {
+		t.Fatal(err)
 	}
+	return plan
 }
