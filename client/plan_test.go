@@ -103,9 +103,8 @@ func seqArgs(n int) []any {
 }
 
 // Opening a store reads every entry once, in the order of an index: SQLite
-// sorts nothing (a sort of every row with its bytes made a store of a
-// million entries open sixteen times as slowly as one of a hundred
-// thousand).
+// sorts nothing (it sorted every row with its bytes in a temporary tree
+// before returning the first).
 func TestLoadQueryPlan(t *testing.T) {
 	ctx := context.Background()
 	s, err := Open(ctx, filepath.Join(t.TempDir(), "device.db"), Options{User: "ines", Durability: DurabilityNormal})

@@ -230,8 +230,7 @@ func (s *Store) loadViews(ctx context.Context) error {
 	// in, and hybrid-time order within a project only spares it entries
 	// that wait for records not yet applied. (Ordered by time across
 	// projects, as before, SQLite sorted every row with its bytes in a
-	// temporary tree first: a million events took 16 times as long as a
-	// hundred thousand.)
+	// temporary tree before returning the first.)
 	rows, err := s.db.Reader().QueryContext(ctx, loadQuery)
 	if err != nil {
 		return fmt.Errorf("client: load events: %w", err)
