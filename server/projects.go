@@ -224,51 +224,70 @@ type storedChunk struct {
 }
 
 // storedEvents calls fn, in order, with each stored event of a project
-// after seq up to to, decoded and validated. One goroutine reads, decodes
-// and validates chunks of them while this one calls fn, so that loading a
-// project costs about what applying its events costs (on a machine with two
-// cores, reading and decoding come nearly free). Each event is validated as
-// a push validates it: a stored event that breaks a rule is an error, as it
-// always was, not an entry applied without its checks.
+// after seq up to to, decoded and validated. Three goroutines share the
+// work: one reads chunks of entries from the store, one decodes and
+// validates them, and this one calls fn, so that loading a project costs
+// about what its slowest stage costs rather than the three together. Each
+// event is validated as a push validates it: a stored event that breaks a
+// rule is an error, as it always was, not an entry applied without its
+// checks.
 func (s *Server) storedEvents(ctx context.Context, id string, seq, to uint64, fn func(uint64, ledger.Signed) error) error {
 	const chunk = 1000
 	ctx, cancel := context.WithCancel(ctx)
 	defer cancel()
-	chunks := make(chan storedChunk, 2)
-	go func() {
-		defer close(chunks)
-		send := func(c storedChunk) bool {
-			select {
-			case chunks <- c:
-				return true
-			case <-ctx.Done():
-				return false
-			}
-		}
+	type read struct {
+		entries []ledger.Entry
+		err     error
+	}
+	reads := make(chan read, 2)
+	go func() { // reads
+		defer close(reads)
 		for seq < to {
 			entries, err := s.storeAfter(ctx, id, seq, min(chunk, int(to-seq)))
+			if err == nil && len(entries) == 0 {
+				err = fmt.Errorf("server: the store's head of %s is %d, but it holds entries only to %d", id, to, seq)
+			}
+			select {
+			case reads <- read{entries, err}:
+			case <-ctx.Done():
+				return
+			}
 			if err != nil {
-				send(storedChunk{err: err})
 				return
-			}
-			if len(entries) == 0 {
-				send(storedChunk{err: fmt.Errorf("server: the store's head of %s is %d, but it holds entries only to %d", id, to, seq)})
-				return
-			}
-			c := storedChunk{seqs: make([]uint64, 0, len(entries)), evs: make([]ledger.Signed, 0, len(entries))}
-			for _, e := range entries {
-				sg, err := ledger.Decode(e.Event)
-				if err == nil {
-					err = ledger.Validate(sg.Event)
-				}
-				if err != nil {
-					send(storedChunk{err: fmt.Errorf("server: stored event %d of %s: %w", e.Seq, id, err)})
-					return
-				}
-				c.seqs, c.evs = append(c.seqs, e.Seq), append(c.evs, sg)
 			}
 			seq = entries[len(entries)-1].Seq
-			if !send(c) {
+		}
+	}()
+	chunks := make(chan storedChunk, 2)
+	go func() { // decodes and validates
+		defer close(chunks)
+		for r := range reads {
+			c := storedChunk{err: r.err}
+			if r.err == nil {
+				c.seqs, c.evs = make([]uint64, 0, len(r.entries)), make([]ledger.Signed, 0, len(r.entries))
+				for _, e := range r.entries {
+					sg, err := ledger.Decode(e.Event)
+					if err == nil {
+						err = ledger.Validate(sg.Event)
+					}
+					if err != nil {
+						c = storedChunk{err: fmt.Errorf("server: stored event %d of %s: %w", e.Seq, id, err)}
+						break
+					}
+					c.seqs, c.evs = append(c.seqs, e.Seq), append(c.evs, sg)
+				}
+			}
+			select {
+			case chunks <- c:
+			case <-ctx.Done():
+				for range reads { // let the reader see the cancel and close
+				}
+				return
+			}
+			if c.err != nil {
+				cancel()
+				for range reads {
+				}
 				return
 			}
 		}
@@ -280,7 +299,7 @@ func (s *Server) storedEvents(ctx context.Context, id string, seq, to uint64, fn
 		for i, sg := range c.evs {
 			if err := fn(c.seqs[i], sg); err != nil {
 				cancel()
-				for range chunks { // let the reader see the cancel and close
+				for range chunks { // let the others see the cancel and close
 				}
 				return err
 			}
