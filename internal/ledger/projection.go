@@ -99,6 +99,7 @@ type testOrder struct {
 	sorted  []*Test    // never changed once built: a refresh builds anew
 	changed []string   // ids of tests rebuilt or removed since sorted was built
 	stale   bool       // too many changes to merge: sort afresh
+	rows    testRows   // the rows of the order, built when a report first asks (see TestRows)
 }
 
 // touched notes that the test id was rebuilt or removed. It runs under
@@ -119,6 +120,13 @@ func (p *Projection) sortedTests() []*Test {
 	o := &p.byID
 	o.mu.Lock()
 	defer o.mu.Unlock()
+	return p.refreshOrder()
+}
+
+// refreshOrder merges the tests rebuilt since the last call into the order
+// and returns it. The caller holds p.byID.mu.
+func (p *Projection) refreshOrder() []*Test {
+	o := &p.byID
 	switch {
 	case o.stale || (o.sorted == nil && len(p.tests) > 0):
 		o.sorted, o.stale = sorted(p.tests), false

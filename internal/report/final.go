@@ -81,61 +81,64 @@ func finalsFrom(retests []*ledger.Test) Finals {
 // report needs to place it (at), and decided gives the verdict once the
 // pass is over. A retest mostly follows its failure closely, so note matches
 // it against the last failure met; only the other retests are indexed by
-// the id they retest, at the end, and only when there are any.
+// the test they retest, at the end, and only when there are any. It reads
+// the tests' rows (ledger.TestRow), never the tests.
 type finalsPass[T any] struct {
 	held   []heldFailure[T]
 	last   *ledger.Test // the last failure that counts met in the pass
 	lastAt int          // its index in held, or -1 when it was not held
-	others []*ledger.Test
+	others []*ledger.TestRow
 }
 
-// heldFailure is a failure that counts, with the earliest retest that
-// counts of it found so far.
+// heldFailure is a failure that counts (t, with its row), with the
+// earliest retest that counts of it found so far.
 type heldFailure[T any] struct {
-	t, by *ledger.Test
-	at    T
+	t       *ledger.Test
+	row, by *ledger.TestRow
+	at      T
 }
 
 // note runs for every test of the pass, in scope or not: it matches a
 // retest that counts with its failure.
-func (f *finalsPass[T]) note(t *ledger.Test) {
-	if t.RetestOf != "" && counts(t) {
+func (f *finalsPass[T]) note(r *ledger.TestRow) {
+	// A retest of a test this replica does not hold replaces nothing.
+	if r.Retested != nil && r.State.Counts() {
 		switch {
-		case f.last != nil && t.RetestOf == f.last.ID:
+		case r.Retested == f.last:
 			if f.lastAt >= 0 {
 				h := &f.held[f.lastAt]
-				if h.by == nil || byTime(t, h.by) < 0 {
-					h.by = t
+				if h.by == nil || rowTime(r, h.by) < 0 {
+					h.by = r
 				}
 			} // else the failure is not held: the report does not need it
 		default:
-			f.others = append(f.others, t)
+			f.others = append(f.others, r)
 		}
 	}
-	if counts(t) && t.Result.Verdict == qc.Fail {
-		f.last, f.lastAt = t, -1
+	if r.State.Counts() && r.State&ledger.RowFail != 0 {
+		f.last, f.lastAt = r.Test, -1
 	}
 }
 
-// judge returns why t is not final ("" for final) and true, or, for a
-// failure that counts, holds it with at and returns false: decided
-// decides it.
+// judge returns why the row's test is not final ("" for final) and true,
+// or, for a failure that counts, holds it with at and returns false:
+// decided decides it.
 // It runs after note, for the tests the report keeps.
-func (f *finalsPass[T]) judge(t *ledger.Test, at T) (Reason, bool) {
-	switch {
-	case t.Voided():
+func (f *finalsPass[T]) judge(r *ledger.TestRow, at T) (Reason, bool) {
+	switch s := r.State; {
+	case s&ledger.RowVoided != 0:
 		return VoidedTest, true
-	case t.ReviewStatus == ledger.Returned:
+	case s&ledger.RowReturned != 0:
 		return ReturnedByOffice, true
-	case t.Result.Verdict == qc.Pending:
+	case s&ledger.RowPending != 0:
 		return NotGraded, true
-	case t.Result.Verdict != qc.Fail:
+	case s&ledger.RowFail == 0:
 		return "", true
 	}
-	if f.last == t {
+	if f.last == r.Test {
 		f.lastAt = len(f.held)
 	}
-	f.held = append(f.held, heldFailure[T]{t: t, at: at})
+	f.held = append(f.held, heldFailure[T]{t: r.Test, row: r, at: at})
 	return "", false
 }
 
@@ -143,14 +146,19 @@ func (f *finalsPass[T]) judge(t *ledger.Test, at T) (Reason, bool) {
 // final ("" for final) and the earliest retest that replaced it.
 func (f *finalsPass[T]) decided() iter.Seq2[*heldFailure[T], Reason] {
 	return func(yield func(*heldFailure[T], Reason) bool) {
-		var rest Finals
+		var rest map[*ledger.Test]*ledger.TestRow // a failure -> its earliest other retest that counts
 		if len(f.others) > 0 {
-			rest = finalsFrom(f.others)
+			rest = make(map[*ledger.Test]*ledger.TestRow, len(f.others))
+			for _, r := range f.others {
+				if by, ok := rest[r.Retested]; !ok || rowTime(r, by) < 0 {
+					rest[r.Retested] = r
+				}
+			}
 		}
 		for i := range f.held {
 			h := &f.held[i]
-			if rest.replacedBy != nil { // mostly there are no others: no lookup
-				if r, ok := rest.replacedBy[h.t.ID]; ok && (h.by == nil || byTime(r, h.by) < 0) {
+			if rest != nil { // mostly there are no others: no lookup
+				if r, ok := rest[h.t]; ok && (h.by == nil || rowTime(r, h.by) < 0) {
 					h.by = r
 				}
 			}

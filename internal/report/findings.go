@@ -140,14 +140,18 @@ func Findings(p *ledger.Projection, o AuditOptions) []Finding {
 		a.roles[d.UserID] = append(a.roles[d.UserID], d.Roles...)
 	}
 	a.within, a.distance = su.RetestWithinOrDefault(), su.RetestDistanceOrDefault()
-	// One pass over the tests; whether a failure was closed by a retest is
-	// asked once the pass has indexed every retest.
-	for t := range p.AllTests() {
-		a.test(t, a.retests.add(t))
+	// One pass over the tests' rows; whether a failure was closed by a
+	// retest is asked once the pass has indexed every retest.
+	rows := p.TestRows()
+	a.rows, a.reviewers, a.placements = rows, make([]reviewer, rows.NumHandles()), make([]knownPlacement, rows.NumHandles())
+	for i := range rows.Rows {
+		r := &rows.Rows[i]
+		a.retests.add(r)
+		a.test(r)
 	}
-	a.retests.done(p)
-	for _, t := range a.open {
-		a.notRetested(t)
+	a.retests.done(p, rows)
+	for _, r := range a.open {
+		a.notRetested(r)
 	}
 	a.clockSkews()
 	slices.SortFunc(a.out, func(x, y located) int {
@@ -176,14 +180,58 @@ type audit struct {
 	out      []located
 	chain    retestChain // walks a failure's retests, buffers kept
 	retests  retestIndex
-	open     []*ledger.Test                 // failures older than the retest window, unless a retest closed them
+	open     []*ledger.TestRow              // failures older than the retest window, unless a retest closed them
 	loc      *time.Location                 // the project's time zone
 	sys      soil.System                    // the project's units
 	names    map[string]string              // user id -> name, from the ledger's introductions
 	roles    map[string][]ledger.RoleChange // user id -> the roles introductions of their devices record
 	// lastUser is the user roleAt looked up last, with their roles.
-	lastUser  string
-	lastRoles []ledger.RoleChange
+	lastUser   string
+	lastRoles  []ledger.RoleChange
+	rows       ledger.TestRows
+	reviewers  []reviewer       // by the handle of the user (ledger.TestRow.Reviewer)
+	placements []knownPlacement // by handle
+}
+
+// knownPlacement is a placement looked up, nil when not held.
+type knownPlacement struct {
+	pl    *ledger.Placement
+	known bool
+}
+
+// reviewer is when a user's role became office or QA for good.
+type reviewer struct {
+	known bool
+	// from is the time of the role change from which on every one is to
+	// office or QA; never when there is none, or when two of the user's
+	// role changes share a time (which of them holds is then for roleAt).
+	from  ledger.HLC
+	never bool
+}
+
+// reviewsFine reports whether the reviews of r's test are all, by its row,
+// by a user who was office or QA when making them: then reviewers would
+// find nothing. False means they must be looked at.
+func (a *audit) reviewsFine(r *ledger.TestRow) bool {
+	if r.Reviewer == 0 {
+		return false
+	}
+	rv := &a.reviewers[r.Reviewer]
+	if !rv.known {
+		roles := slices.SortedFunc(slices.Values(a.roles[a.rows.ID(r.Reviewer)]), func(x, y ledger.RoleChange) int { return x.HLC.Compare(y.HLC) })
+		rv.known, rv.never = true, true
+		for i := len(roles) - 1; i >= 0 && (roles[i].Role == roleOffice || roles[i].Role == roleQA); i-- {
+			rv.from, rv.never = roles[i].HLC, false
+		}
+		for i := 1; i < len(roles); i++ {
+			if roles[i].HLC == roles[i-1].HLC {
+				rv.never = true
+			}
+		}
+	}
+	// Every review's wall time is at least FirstReview: after from, the
+	// latest role change at or before each review is office or QA.
+	return !rv.never && r.FirstReview > rv.from.Wall
 }
 
 // roleAt is the user's role at time at, as ledger.Projection.RoleAt gives
@@ -210,20 +258,22 @@ func (a *audit) add(at *ledger.Test, code FindingCode, testID, msg string, entri
 	a.out = append(a.out, located{Finding: Finding{Code: code, TestID: testID, Message: msg, Entries: entries}, at: at})
 }
 
-// test runs every rule about one test; orig is the test it retests when
-// the caller has it at hand.
-func (a *audit) test(t *ledger.Test, orig *ledger.Test) {
+// test runs every rule about one test, reading the test itself only when
+// its row says a rule has something to look at: most tests are a pass of
+// one revision, unflagged, reviewed by office or QA if at all.
+func (a *audit) test(r *ledger.TestRow) {
+	const look = ledger.RowFail | ledger.RowRetest | ledger.RowVoided | ledger.RowRevised | ledger.RowFlagged
+	reviews := r.State&ledger.RowReviewed != 0 && !a.reviewsFine(r)
+	if r.State&look == 0 && !reviews {
+		return
+	}
+	t := r.Test
 	grades := a.grades(t)
 	if a.overdue(t) {
-		a.open = append(a.open, t)
+		a.open = append(a.open, r)
 	}
-	if t.RetestOf != "" {
-		if orig == nil {
-			orig, _ = a.p.Test(t.RetestOf)
-		}
-		if orig != nil {
-			a.retest(t, orig)
-		}
+	if r.Retested != nil {
+		a.retest(t, r.Retested, r.Placement)
 	}
 	a.voidedFailure(t, grades)
 	if grades != nil { // a test of one revision has no correction to look at
@@ -234,7 +284,9 @@ func (a *audit) test(t *ledger.Test, orig *ledger.Test) {
 			a.add(t, DeviceResultMismatch, t.ID, f.Message, t.Current)
 		}
 	}
-	a.reviewers(t)
+	if reviews {
+		a.reviewed(t)
+	}
 }
 
 // grades returns the verdict of each revision of a test with more than one
@@ -265,11 +317,13 @@ func (a *audit) overdue(t *ledger.Test) bool {
 	return a.o.AsOf.Sub(t.DeviceTime) > a.within
 }
 
-// notRetested finds an overdue failure (see overdue) that no retest closed.
-func (a *audit) notRetested(t *ledger.Test) {
-	if a.closedByRetest(t) {
+// notRetested finds an overdue failure (see overdue), of the row r, that
+// no retest closed.
+func (a *audit) notRetested(r *ledger.TestRow) {
+	if a.closedByRetest(r) {
 		return
 	}
+	t := r.Test
 	age := a.o.AsOf.Sub(t.DeviceTime)
 	a.add(t, FailureNotRetested, t.ID, fmt.Sprintf(
 		"test %s failed (relative compaction %.1f %%) at %s by its device's clock and is still open %s later, as of %s: no passing retest, no QA exception, not voided; the project's retest window is %s",
@@ -279,9 +333,9 @@ func (a *audit) notRetested(t *ledger.Test) {
 
 // closedByRetest reports whether a retest in t's chain (retests of retests
 // included) passed and counts.
-func (a *audit) closedByRetest(t *ledger.Test) bool {
+func (a *audit) closedByRetest(t *ledger.TestRow) bool {
 	for _, r := range a.chain.of(&a.retests, t) {
-		if counts(r) && r.Result.Verdict == qc.Pass {
+		if r.State.Counts() && r.State&ledger.RowPass != 0 {
 			return true
 		}
 	}
@@ -289,7 +343,8 @@ func (a *audit) closedByRetest(t *ledger.Test) bool {
 }
 
 // retest runs the rules about a retest r of orig.
-func (a *audit) retest(r, orig *ledger.Test) {
+// pr is the handle of r's placement.
+func (a *audit) retest(r, orig *ledger.Test, pr ledger.Handle) {
 	entries := func() []string { return []string{recording(orig), recording(r)} }
 	voided := ""
 	if r.Voided() {
@@ -302,7 +357,13 @@ func (a *audit) retest(r, orig *ledger.Test) {
 				shortRef(r.ID), a.dist(d), shortRef(orig.ID), basis, a.dist(a.distance)), entries()...)
 		}
 	}
-	lr, lo := a.liftOf(r.Content), a.liftOf(orig.Content)
+	// A retest is mostly on its failure's placement: its handle then
+	// serves both.
+	po := pr
+	if orig.Content.PlacementID != r.Content.PlacementID {
+		po, _ = a.rows.Handle(orig.Content.PlacementID)
+	}
+	lr, lo := a.liftOf(&r.Content, pr), a.liftOf(&orig.Content, po)
 	if lr.placement != "" && lo.placement != "" && lr.placement != lo.placement ||
 		lr.feature != "" && lo.feature != "" && lr.feature != lo.feature ||
 		lr.number != 0 && lo.number != 0 && lr.number != lo.number {
@@ -371,13 +432,27 @@ func (l lift) String() string {
 	return strings.Join(parts, ", ")
 }
 
-func (a *audit) liftOf(c ledger.TestContent) lift {
+// liftOf is the lift of content c, whose placement's handle is h.
+func (a *audit) liftOf(c *ledger.TestContent, h ledger.Handle) lift {
 	l := lift{placement: c.PlacementID, feature: c.Feature, number: c.LiftNumber}
-	if pl, ok := a.p.Placement(c.PlacementID); ok && c.PlacementID != "" {
+	if pl := a.placementOf(h); pl != nil {
 		l.feature = cmp.Or(l.feature, pl.Feature)
 		l.number = cmp.Or(l.number, pl.LiftNumber)
 	}
 	return l
+}
+
+// placementOf returns the placement of handle h, nil when none is held:
+// each looked up in the projection once per audit.
+func (a *audit) placementOf(h ledger.Handle) *ledger.Placement {
+	if h == 0 {
+		return nil
+	}
+	if !a.placements[h].known {
+		pl, _ := a.p.Placement(a.rows.ID(h))
+		a.placements[h] = knownPlacement{pl, true}
+	}
+	return a.placements[h].pl
 }
 
 func (a *audit) voidedFailure(t *ledger.Test, grades map[string]qc.Result) {
@@ -433,7 +508,7 @@ func (a *audit) corrections(t *ledger.Test, grades map[string]qc.Result) {
 	}
 }
 
-func (a *audit) reviewers(t *ledger.Test) {
+func (a *audit) reviewed(t *ledger.Test) {
 	for _, rv := range t.Reviews {
 		role, intro := a.roleAt(rv.Author, rv.HLC)
 		if role == roleOffice || role == roleQA {

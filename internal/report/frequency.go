@@ -109,33 +109,30 @@ func rules(spec *ledger.Spec, pl *ledger.Placement) []Rule {
 // its retest counts once, through the retest; a voided, returned or
 // ungraded test does not count. Sorted by placement, then spec.
 func TestFrequency(p *ledger.Projection) []Frequency {
-	// One pass over the tests; a failure is counted once the pass has met
-	// every retest that may replace it.
+	// One pass over the tests' rows; a failure is counted once the pass
+	// has met every retest that may replace it.
 	type count struct {
 		specs *specCounts
 		i     int
 	}
 	var finals finalsPass[count]
-	named := map[string]*specCounts{} // placement -> the specs its tests name
-	var last string                   // a placement's tests mostly follow one another in id order
-	var cur *specCounts
-	for t := range p.AllTests() {
-		finals.note(t)
-		c := &t.Content // not a copy: a test's content is large
-		if c.PlacementID == "" || c.SpecID == "" {
+	rows := p.TestRows()
+	named := make([]*specCounts, rows.NumHandles()) // placement handle -> the specs its tests name
+	for i := range rows.Rows {
+		r := &rows.Rows[i]
+		finals.note(r)
+		if r.Placement == 0 || r.Spec == 0 {
 			continue
 		}
-		if cur == nil || c.PlacementID != last {
-			if cur = named[c.PlacementID]; cur == nil {
-				cur = &specCounts{}
-				named[c.PlacementID] = cur
-			}
-			last = c.PlacementID
+		cur := named[r.Placement]
+		if cur == nil {
+			cur = &specCounts{}
+			named[r.Placement] = cur
 		}
 		// The spec applies to the placement, final or not.
-		i := cur.add(c.SpecID)
-		if why, ok := finals.judge(t, count{cur, i}); ok && why == "" {
-			(*cur)[i].final++
+		k := cur.add(r.Spec)
+		if why, ok := finals.judge(r, count{cur, k}); ok && why == "" {
+			(*cur)[k].final++
 		}
 	}
 	for h, why := range finals.decided() {
@@ -146,12 +143,12 @@ func TestFrequency(p *ledger.Projection) []Frequency {
 	var out []Frequency
 	for _, pl := range p.Placements() { // sorted by id, and ids below: the output is sorted
 		var specs specCounts
-		if sc := named[pl.ID]; sc != nil {
-			specs = *sc
+		if h, ok := rows.Handle(pl.ID); ok && named[h] != nil {
+			specs = *named[h]
 		}
 		ids := make([]string, 0, len(specs)+1)
 		for _, c := range specs {
-			ids = append(ids, c.spec)
+			ids = append(ids, rows.ID(c.spec))
 		}
 		if pl.SpecID != "" && !slices.Contains(ids, pl.SpecID) {
 			ids = append(ids, pl.SpecID)
@@ -166,7 +163,8 @@ func TestFrequency(p *ledger.Projection) []Frequency {
 			if len(rs) == 0 {
 				continue
 			}
-			f := Frequency{Placement: pl, SpecID: id, Rules: rs, Taken: specs.taken(id)}
+			h, _ := rows.Handle(id)
+			f := Frequency{Placement: pl, SpecID: id, Rules: rs, Taken: specs.taken(h)}
 			for _, r := range rs {
 				f.Required = max(f.Required, r.Required)
 			}
@@ -182,12 +180,12 @@ func TestFrequency(p *ledger.Projection) []Frequency {
 type specCounts []specCount
 
 type specCount struct {
-	spec  string
+	spec  ledger.Handle
 	final int
 }
 
 // add notes a test naming spec and returns the spec's index.
-func (s *specCounts) add(spec string) int {
+func (s *specCounts) add(spec ledger.Handle) int {
 	if i := slices.IndexFunc(*s, func(c specCount) bool { return c.spec == spec }); i >= 0 {
 		return i
 	}
@@ -195,7 +193,7 @@ func (s *specCounts) add(spec string) int {
 	return len(*s) - 1
 }
 
-func (s specCounts) taken(spec string) int {
+func (s specCounts) taken(spec ledger.Handle) int {
 	if i := slices.IndexFunc(s, func(c specCount) bool { return c.spec == spec }); i >= 0 {
 		return s[i].final
 	}

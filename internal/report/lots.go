@@ -53,11 +53,15 @@ func (s LotScope) validate() error {
 }
 
 // holds reports whether t, on the placement pl (nil for none), is in the
-// feature scope s.
+// feature scope s. It reads the test only when pl is nil or the scope
+// bounds days: a report asks it of every test of the project.
 func (s LotScope) holds(t *ledger.Test, pl *ledger.Placement) bool {
-	feature, lift := t.Content.Feature, t.Content.LiftNumber
+	var feature string
+	var lift uint32
 	if pl != nil {
 		feature, lift = pl.Feature, pl.LiftNumber
+	} else {
+		feature, lift = t.Content.Feature, t.Content.LiftNumber
 	}
 	switch {
 	case feature != s.Feature:
@@ -193,15 +197,17 @@ func Lots(p *ledger.Projection, scope LotScope) ([]Lot, error) {
 	if err := scope.validate(); err != nil {
 		return nil, fmt.Errorf("report: lots: %w", err)
 	}
-	type key struct{ placement, spec string }
+	type key struct{ placement, spec ledger.Handle }
 	type left struct {
-		t *ledger.Test
+		r *ledger.TestRow
 		o LeftOut
 	}
 	type group struct {
 		pl    *ledger.Placement
 		spec  *ledger.Spec // nil when this replica does not hold it
+		kinds valueKinds   // what the spec sets, looked up once for the lot
 		final []*ledger.Test
+		last  *ledger.TestRow // the final test joined last
 		left  []left
 		// values are the final tests' values of the characteristics the
 		// spec sets, gathered as the tests join, while each is at hand,
@@ -211,48 +217,59 @@ func Lots(p *ledger.Projection, scope LotScope) ([]Lot, error) {
 		// check too is made as tests join.
 		unsorted bool
 	}
-	join := func(g *group, t *ledger.Test) {
-		if n := len(g.final); n > 0 && !g.unsorted && byTime(g.final[n-1], t) > 0 {
+	join := func(g *group, r *ledger.TestRow) {
+		if g.last != nil && !g.unsorted && rowTime(g.last, r) > 0 {
 			g.unsorted = true
 		}
-		g.final = append(g.final, t)
-		g.values.add(g.spec, t)
+		g.final, g.last = append(g.final, r.Test), r
+		g.values.add(g.kinds, r.RelativeCompaction, r.MoistureDeviation, r.MoisturePercentOfOptimum)
 	}
 	// Lots are alike in size: a new lot has room for as many final tests
 	// as the one before it took, rather than growing test by test.
 	room := 0
 	groups := map[key]*group{}
-	// One pass over the tests; a failure joins its lot or LeftOut once the
-	// pass has met every retest that may replace it.
+	// The lots in the order the pass met them: tests and placements take
+	// ids of the same kind, mostly in time order, so that this is mostly
+	// the order of the output already.
+	var keys []key
+	// One pass over the tests' rows; a failure joins its lot or LeftOut
+	// once the pass has met every retest that may replace it.
 	var finals finalsPass[*group]
-	// A lot's tests mostly follow one another in id order: the last
-	// placement and group are kept at hand.
-	var lastPlacement string
-	var pl *ledger.Placement
+	rows := p.TestRows()
+	// The placements by handle, each looked up once: the tests name a
+	// placement by handle (nil: not looked up yet; none: not held).
+	pls := make([]*ledger.Placement, rows.NumHandles())
+	none := &ledger.Placement{}
 	var lastKey key
 	var g *group
-	for t := range p.AllTests() {
-		finals.note(t)
-		c := &t.Content // not a copy: a test's content is large
-		if c.SpecID == "" {
+	for i := range rows.Rows {
+		r := &rows.Rows[i]
+		finals.note(r)
+		if r.Spec == 0 {
 			continue
 		}
-		if c.PlacementID != lastPlacement {
-			lastPlacement, pl = c.PlacementID, nil
-			if c.PlacementID != "" {
-				pl, _ = p.Placement(c.PlacementID)
+		var pl *ledger.Placement
+		if r.Placement != 0 {
+			if pl = pls[r.Placement]; pl == nil {
+				if pl, _ = p.Placement(rows.ID(r.Placement)); pl == nil {
+					pl = none
+				}
+				pls[r.Placement] = pl
+			}
+			if pl == none {
+				pl = nil
 			}
 		}
-		k := key{spec: c.SpecID}
+		k := key{spec: r.Spec}
 		switch {
 		case scope.Feature != "":
-			if !scope.holds(t, pl) {
+			if !scope.holds(r.Test, pl) {
 				continue
 			}
 		case pl == nil:
 			continue
 		default:
-			k.placement = pl.ID
+			k.placement = r.Placement
 		}
 		if g == nil || k != lastKey {
 			if g != nil {
@@ -260,38 +277,40 @@ func Lots(p *ledger.Projection, scope LotScope) ([]Lot, error) {
 			}
 			if g = groups[k]; g == nil {
 				g = &group{final: make([]*ledger.Test, 0, room)}
-				if k.placement != "" {
+				if k.placement != 0 {
 					g.pl = pl
 				}
-				if spec, ok := p.Spec(k.spec); ok {
-					g.spec = spec
-					g.values = newValues(spec, room)
+				if spec, ok := p.Spec(rows.ID(k.spec)); ok {
+					g.spec, g.kinds = spec, kindsOf(spec)
+					g.values = newValues(g.kinds, room)
 				}
 				groups[k] = g
+				keys = append(keys, k)
 			}
 			lastKey = k
 		}
-		switch why, decided := finals.judge(t, g); {
+		switch why, decided := finals.judge(r, g); {
 		case !decided:
 		case why == "":
-			join(g, t)
+			join(g, r)
 		default:
-			g.left = append(g.left, left{t, LeftOut{TestID: t.ID, Reason: why}})
+			g.left = append(g.left, left{r, LeftOut{TestID: r.ID, Reason: why}})
 		}
 	}
 	// The failures join their lots last, out of order: join notes it.
 	for h, why := range finals.decided() {
 		if why == "" {
-			join(h.at, h.t)
+			join(h.at, h.row)
 		} else {
-			h.at.left = append(h.at.left, left{h.t, LeftOut{TestID: h.t.ID, Reason: why, ReplacedBy: h.by.ID}})
+			h.at.left = append(h.at.left, left{h.row, LeftOut{TestID: h.row.ID, Reason: why, ReplacedBy: h.by.ID}})
 		}
 	}
-	keys := make([]key, 0, len(groups))
-	for k := range groups {
-		keys = append(keys, k)
+	byID := func(a, b key) int {
+		return cmp.Or(cmp.Compare(rows.ID(a.placement), rows.ID(b.placement)), cmp.Compare(rows.ID(a.spec), rows.ID(b.spec)))
 	}
-	slices.SortFunc(keys, func(a, b key) int { return cmp.Or(cmp.Compare(a.placement, b.placement), cmp.Compare(a.spec, b.spec)) })
+	if !slices.IsSortedFunc(keys, byID) {
+		slices.SortFunc(keys, byID)
+	}
 	out := make([]Lot, 0, len(keys))
 	name := scope.name()
 	for _, k := range keys {
@@ -300,11 +319,11 @@ func Lots(p *ledger.Projection, scope LotScope) ([]Lot, error) {
 			slices.SortFunc(g.final, byTime)
 			g.values = values{}
 			for _, t := range g.final {
-				g.values.add(g.spec, t)
+				g.values.add(g.kinds, t.Result.RelativeCompaction, t.Result.MoistureDeviation, t.Result.MoisturePercentOfOptimum)
 			}
 		}
-		slices.SortFunc(g.left, func(a, b left) int { return byTime(a.t, b.t) })
-		l := Lot{Name: name, Feature: scope.Feature, Placement: g.pl, SpecID: k.spec, Tests: g.final}
+		slices.SortFunc(g.left, func(a, b left) int { return rowTime(a.r, b.r) })
+		l := Lot{Name: name, Feature: scope.Feature, Placement: g.pl, SpecID: rows.ID(k.spec), Tests: g.final}
 		if g.pl != nil {
 			l.Name, l.Feature = liftName(g.pl), g.pl.Feature
 		}
@@ -331,33 +350,44 @@ type values struct {
 	compaction, moisture []float64
 }
 
-// newValues returns values with room for n tests under spec.
-func newValues(spec *ledger.Spec, n int) values {
+// valueKinds are the characteristics a spec sets: relative compaction
+// when it sets a minimum, moisture when it sets a window, and moisture's
+// basis (as a percent of optimum, or points from it).
+type valueKinds struct {
+	compaction, moisture, ofOptimum bool
+}
+
+// kindsOf returns the characteristics spec sets.
+func kindsOf(spec *ledger.Spec) valueKinds {
+	s := spec.QC()
+	return valueKinds{compaction: s.MinCompaction != nil, moisture: s.MoistureLow != nil || s.MoistureHigh != nil,
+		ofOptimum: s.MoistureBasis == qc.PercentOfOptimum}
+}
+
+// newValues returns values with room for n tests of the kinds k.
+func newValues(k valueKinds, n int) values {
 	var v values
-	if s := spec.QC(); n > 0 {
-		if s.MinCompaction != nil {
+	if n > 0 {
+		if k.compaction {
 			v.compaction = make([]float64, 0, n)
 		}
-		if s.MoistureLow != nil || s.MoistureHigh != nil {
+		if k.moisture {
 			v.moisture = make([]float64, 0, n)
 		}
 	}
 	return v
 }
 
-// add appends the values of t under spec (nil: none).
-func (v *values) add(spec *ledger.Spec, t *ledger.Test) {
-	if spec == nil {
-		return
+// add appends a test's values of the kinds k: its relative compaction,
+// and its moisture deviation or percent of optimum.
+func (v *values) add(k valueKinds, compaction, deviation, ofOptimum float64) {
+	if k.compaction {
+		v.compaction = append(v.compaction, compaction)
 	}
-	s := spec.QC()
-	if s.MinCompaction != nil {
-		v.compaction = append(v.compaction, t.Result.RelativeCompaction)
-	}
-	if s.MoistureLow != nil || s.MoistureHigh != nil {
-		m := t.Result.MoistureDeviation
-		if s.MoistureBasis == qc.PercentOfOptimum {
-			m = t.Result.MoisturePercentOfOptimum
+	if k.moisture {
+		m := deviation
+		if k.ofOptimum {
+			m = ofOptimum
 		}
 		v.moisture = append(v.moisture, m)
 	}

@@ -115,9 +115,8 @@ func Reconcile(p *ledger.Projection) ([]Balance, error) {
 		conv, designs = su.Shrinkage, su.Features
 	}
 
-	// Final tests' dry densities by placement, in id order. A placement's
-	// tests mostly follow one another in that order, so the last
-	// placement's list is kept at hand.
+	// Final tests' dry densities by placement, in id order, in a slice
+	// indexed by the placements' handles (ledger.TestRows).
 	// One pass: a failure, which a retest later in the pass may replace,
 	// is held with its place in its placement's list and put there after
 	// the pass if it is final, so that the densities keep id order.
@@ -126,32 +125,28 @@ func Reconcile(p *ledger.Projection) ([]Balance, error) {
 		at   int
 	}
 	var finals finalsPass[place]
-	byPlacement := map[string]*[]float64{}
-	var last string
-	var cur *[]float64
-	for t := range p.AllTests() {
-		finals.note(t)
-		pl := t.Content.PlacementID
-		if pl == "" || !(t.Result.DryDensity > 0) {
+	rows := p.TestRows()
+	byPlacement := make([]*[]float64, rows.NumHandles()) // by placement handle
+	room := 0
+	for i := range rows.Rows {
+		r := &rows.Rows[i]
+		finals.note(r)
+		pl := r.Placement
+		if pl == 0 || !(r.DryDensity > 0) {
 			continue
 		}
-		if cur == nil || pl != last {
-			if cur = byPlacement[pl]; cur == nil {
-				// Placements are alike in their count of tests: room for
-				// as many as the last one took, rather than growing test
-				// by test.
-				room := 0
-				if cur != nil {
-					room = len(*cur)
-				}
-				list := make([]float64, 0, room)
-				cur = &list
-				byPlacement[pl] = cur
-			}
-			last = pl
+		cur := byPlacement[pl]
+		if cur == nil {
+			// Placements are alike in their count of tests: room for as
+			// many as the most any placement met so far took, rather than
+			// growing test by test.
+			list := make([]float64, 0, room)
+			cur = &list
+			byPlacement[pl] = cur
 		}
-		if why, decided := finals.judge(t, place{cur, len(*cur)}); decided && why == "" {
-			*cur = append(*cur, t.Result.DryDensity)
+		if why, decided := finals.judge(r, place{cur, len(*cur)}); decided && why == "" {
+			*cur = append(*cur, r.DryDensity)
+			room = max(room, len(*cur))
 		}
 	}
 	var final []*heldFailure[place]
@@ -162,7 +157,7 @@ func Reconcile(p *ledger.Projection) ([]Balance, error) {
 	}
 	// Last held first: a failure put in its place moves none held before it.
 	for _, h := range slices.Backward(final) {
-		*h.at.list = slices.Insert(*h.at.list, h.at.at, h.t.Result.DryDensity)
+		*h.at.list = slices.Insert(*h.at.list, h.at.at, h.row.DryDensity)
 	}
 
 	type acc struct {
@@ -172,24 +167,17 @@ func Reconcile(p *ledger.Projection) ([]Balance, error) {
 		untested                 int
 		sources                  map[string]float64 // source id -> compacted volume from it
 	}
-	testsOf := func(pl *ledger.Placement) []float64 {
-		if d := byPlacement[pl.ID]; d != nil {
-			return *d
-		}
-		return nil
-	}
-	add := func(a *acc, pl *ledger.Placement) {
+	add := func(a *acc, pl *ledger.Placement, ds []float64, mean float64) {
 		a.volume += pl.CompactedVolume
 		if a.sources == nil {
 			a.sources = map[string]float64{}
 		}
 		a.sources[pl.BorrowSourceID] += pl.CompactedVolume
-		ds := testsOf(pl)
 		if len(ds) == 0 {
 			a.untested++
 			return
 		}
-		a.weighted += pl.CompactedVolume * stat.Mean(ds, nil)
+		a.weighted += pl.CompactedVolume * mean
 		a.weight += pl.CompactedVolume
 		if a.tests == nil {
 			a.tests = make([]float64, 0, a.n)
@@ -198,10 +186,19 @@ func Reconcile(p *ledger.Projection) ([]Balance, error) {
 	}
 	bySource, byFeature := map[string]*acc{}, map[string]*acc{}
 	placements := p.Placements()
+	// Each placement's final densities and their mean, found once for
+	// both passes and both the source's balance and the feature's.
+	dens, means := make([][]float64, len(placements)), make([]float64, len(placements))
+	for i, pl := range placements {
+		if h, ok := rows.Handle(pl.ID); ok && byPlacement[h] != nil {
+			dens[i] = *byPlacement[h]
+			means[i] = stat.Mean(dens[i], nil)
+		}
+	}
 	// Twice over the placements: first to size each balance's tests, so
 	// that they are gathered in one allocation, then to add them up.
 	for pass := range 2 {
-		for _, pl := range placements {
+		for i, pl := range placements {
 			for _, m := range []struct {
 				to  map[string]*acc
 				key string
@@ -209,13 +206,15 @@ func Reconcile(p *ledger.Projection) ([]Balance, error) {
 				if m.key == "" {
 					continue
 				}
-				if m.to[m.key] == nil {
-					m.to[m.key] = &acc{}
+				a := m.to[m.key]
+				if a == nil {
+					a = &acc{}
+					m.to[m.key] = a
 				}
 				if pass == 0 {
-					m.to[m.key].n += len(testsOf(pl))
+					a.n += len(dens[i])
 				} else {
-					add(m.to[m.key], pl)
+					add(a, pl, dens[i], means[i])
 				}
 			}
 		}

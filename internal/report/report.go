@@ -26,6 +26,15 @@ func byTime(a, b *ledger.Test) int {
 	return cmp.Compare(a.ID, b.ID)
 }
 
+// rowTime orders test rows as byTime orders their tests, without reading
+// the tests.
+func rowTime(a, b *ledger.TestRow) int {
+	if c := a.HLC.Compare(b.HLC); c != 0 {
+		return c
+	}
+	return cmp.Compare(a.ID, b.ID)
+}
+
 // ReviewQueue returns the tests whose current revision awaits the office:
 // not voided, and unreviewed (never reviewed, or returned and since
 // corrected: a review is of a revision, so a correction is reviewed
@@ -34,17 +43,20 @@ func byTime(a, b *ledger.Test) int {
 // Oldest first.
 func ReviewQueue(p *ledger.Projection, day string) []*ledger.Test {
 	var out []*ledger.Test
+	var last *ledger.TestRow
 	sorted := true // checked as the tests are met, not in a second pass
-	for t := range p.AllTests() {
-		if t.ReviewStatus != ledger.Unreviewed || t.Voided() || (day != "" && t.Day != day) {
+	rows := p.TestRows()
+	for i := range rows.Rows {
+		r := &rows.Rows[i]
+		if r.State&(ledger.RowUnreviewed|ledger.RowVoided) != ledger.RowUnreviewed || (day != "" && r.Test.Day != day) {
 			continue
 		}
 		if out == nil {
-			out = make([]*ledger.Test, 0, p.NumTests())
-		} else if sorted && byTime(out[len(out)-1], t) > 0 {
+			out = make([]*ledger.Test, 0, len(rows.Rows))
+		} else if sorted && rowTime(last, r) > 0 {
 			sorted = false
 		}
-		out = append(out, t)
+		out, last = append(out, r.Test), r
 	}
 	if !sorted {
 		slices.SortFunc(out, byTime)
@@ -77,35 +89,40 @@ type Chain struct {
 // RetestAudit returns one chain per failing test that is not itself a
 // retest, oldest first.
 func RetestAudit(p *ledger.Projection) []Chain {
-	// One pass over the tests gathers the failures and indexes the retests.
-	var failed []*ledger.Test
+	// One pass over the tests' rows gathers the failures and indexes the
+	// retests.
+	var failed []*ledger.TestRow
 	var retests retestIndex
-	for t := range p.AllTests() {
-		retests.add(t)
-		if t.Result.Verdict == qc.Fail && t.RetestOf == "" {
-			failed = append(failed, t)
+	rows := p.TestRows()
+	for i := range rows.Rows {
+		r := &rows.Rows[i]
+		retests.add(r)
+		if r.State&(ledger.RowFail|ledger.RowRetest) == ledger.RowFail {
+			failed = append(failed, r)
 		}
 	}
-	retests.done(p)
+	retests.done(p, rows)
 	out := make([]Chain, 0, len(failed))
 	var chain retestChain
-	for _, t := range failed {
+	for _, f := range failed {
+		t := f.Test
 		c := Chain{Failed: t, Closure: Open}
-		c.Retests = append(c.Retests, chain.of(&retests, t)...)
-		slices.SortFunc(c.Retests, byTime)
-		for _, r := range c.Retests {
-			if !r.Voided() {
-				c.StationShift = max(c.StationShift, math.Abs(r.Content.Location.Station-t.Content.Location.Station))
+		rs := chain.of(&retests, f)
+		slices.SortFunc(rs, rowTime)
+		for _, r := range rs {
+			c.Retests = append(c.Retests, r.Test)
+			if r.State&ledger.RowVoided == 0 {
+				c.StationShift = max(c.StationShift, math.Abs(r.Test.Content.Location.Station-t.Content.Location.Station))
 			}
 		}
 		switch {
-		case t.Voided():
+		case f.State&ledger.RowVoided != 0:
 			c.Closure = Withdrawn
-		case t.ExceptionAccepted():
+		case f.State&ledger.RowExceptionAccepted != 0:
 			c.Closure = Excepted
 		default:
-			for _, r := range c.Retests {
-				if !r.Voided() && r.Result.Verdict == qc.Pass {
+			for _, r := range rs {
+				if r.State&(ledger.RowVoided|ledger.RowPass) == ledger.RowPass {
 					c.Closure = Retested
 				}
 			}
@@ -122,99 +139,76 @@ func RetestAudit(p *ledger.Projection) []Chain {
 }
 
 // retestIndex holds the retests of a project's tests, gathered in the pass
-// a report makes over them (add, in id order, then done), so that a chain
-// is walked without a lookup in the projection per link. A retest mostly
-// follows the failure it retests in id order (the same inspector, soon
-// after), so it is filed under that test by pointer, with no id read; the
-// others are filed by the id they name. When a test id was recorded twice
-// the projection alone knows every retest each record names, and the
-// index asks it instead (Projection.RetestsOf).
+// a report makes over their rows (add, in id order, then done), so that a
+// chain is walked without a lookup in the projection per link: a row names
+// the test it retests by pointer (ledger.TestRow.Retested). When a test id
+// was recorded twice the projection alone knows every retest each record
+// names, and the index asks it instead (Projection.RetestsOf).
 type retestIndex struct {
-	last   *ledger.Test      // the last failing test met
-	links  [][2]*ledger.Test // a test and a retest of it that followed it
-	others []*ledger.Test
-	byTest map[*ledger.Test][]*ledger.Test // the links, made to size once the pass is over
-	byID   map[string][]*ledger.Test       // the others, by the id they retest
-	p      *ledger.Projection              // set when a test id was recorded twice
+	links  []*ledger.TestRow                  // the retests of held tests
+	byTest map[*ledger.Test][]*ledger.TestRow // the links by the test retested, made to size once the pass is over
+	p      *ledger.Projection                 // set when a test id was recorded twice
+	rows   map[*ledger.Test]*ledger.TestRow   // then, every test's row
 	dup    bool
 }
 
-// add files t, the next test in id order. When t retests the failure met
-// last, it returns that test, which the caller need not look up.
-func (x *retestIndex) add(t *ledger.Test) (retested *ledger.Test) {
-	if len(t.Flags) > 0 && slices.ContainsFunc(t.Flags, func(f qc.Finding) bool { return f.Code == ledger.DuplicateTestID }) {
+// add files the row r, the next in id order.
+func (x *retestIndex) add(r *ledger.TestRow) {
+	if r.State&ledger.RowFlagged != 0 && slices.ContainsFunc(r.Test.Flags, func(f qc.Finding) bool { return f.Code == ledger.DuplicateTestID }) {
 		x.dup = true
 	}
-	if t.RetestOf != "" {
-		if x.last != nil && t.RetestOf == x.last.ID {
-			retested = x.last
-			x.links = append(x.links, [2]*ledger.Test{x.last, t})
-		} else {
-			x.others = append(x.others, t)
-		}
+	if r.Retested != nil {
+		x.links = append(x.links, r)
 	}
-	if t.Result.Verdict == qc.Fail {
-		x.last = t
-	}
-	return retested
 }
 
-// done ends the pass over p's tests.
-func (x *retestIndex) done(p *ledger.Projection) {
+// done ends the pass over p's tests, whose rows are rows.
+func (x *retestIndex) done(p *ledger.Projection, rows ledger.TestRows) {
 	if x.dup {
-		x.p = p
+		x.p, x.rows = p, make(map[*ledger.Test]*ledger.TestRow, len(rows.Rows))
+		for i := range rows.Rows {
+			x.rows[rows.Rows[i].Test] = &rows.Rows[i]
+		}
 		return
 	}
 	if len(x.links) > 0 {
-		x.byTest = make(map[*ledger.Test][]*ledger.Test, len(x.links))
-		for _, l := range x.links {
-			x.byTest[l[0]] = append(x.byTest[l[0]], l[1])
-		}
-	}
-	if len(x.others) > 0 {
-		x.byID = make(map[string][]*ledger.Test, len(x.others))
-		for _, t := range x.others {
-			x.byID[t.RetestOf] = append(x.byID[t.RetestOf], t)
+		x.byTest = make(map[*ledger.Test][]*ledger.TestRow, len(x.links))
+		for _, r := range x.links {
+			x.byTest[r.Retested] = append(x.byTest[r.Retested], r)
 		}
 	}
 }
 
-// of appends the tests that name t in retest_of to rs, as
+// of appends the rows of the tests that name t in retest_of to rs, as
 // Projection.RetestsOf gives them but for their order.
-func (x *retestIndex) of(rs []*ledger.Test, t *ledger.Test) []*ledger.Test {
+func (x *retestIndex) of(rs []*ledger.TestRow, t *ledger.Test) []*ledger.TestRow {
 	if x.p != nil {
 		for _, id := range x.p.RetestsOf(t.ID) {
 			if r, ok := x.p.Test(id); ok {
-				rs = append(rs, r)
+				rs = append(rs, x.rows[r])
 			}
 		}
 		return rs
 	}
-	if x.byTest != nil {
-		rs = append(rs, x.byTest[t]...)
-	}
-	if x.byID != nil {
-		rs = append(rs, x.byID[t.ID]...)
-	}
-	return rs
+	return append(rs, x.byTest[t]...)
 }
 
 // retestChain walks the retests of a test, retests of retests included,
 // breadth first; it keeps its buffers from one test to the next.
 type retestChain struct {
-	tests []*ledger.Test // the test, then its retests in the order found
-	next  []*ledger.Test
-	seen  map[*ledger.Test]bool
+	tests []*ledger.TestRow // the test, then its retests in the order found
+	next  []*ledger.TestRow
+	seen  map[*ledger.TestRow]bool
 }
 
-// of returns every test in the chain of retests after t, each once, in
-// the order a breadth-first walk finds them. The slice is reused by the
-// next call.
-func (c *retestChain) of(x *retestIndex, t *ledger.Test) []*ledger.Test {
+// of returns the row of every test in the chain of retests after the row
+// t's, each once, in the order a breadth-first walk finds them. The slice
+// is reused by the next call.
+func (c *retestChain) of(x *retestIndex, t *ledger.TestRow) []*ledger.TestRow {
 	c.tests = append(c.tests[:0], t)
 	clear(c.seen)
 	for i := 0; i < len(c.tests); i++ {
-		c.next = x.of(c.next[:0], c.tests[i])
+		c.next = x.of(c.next[:0], c.tests[i].Test)
 		for _, r := range c.next {
 			if !c.has(r) {
 				c.tests = append(c.tests, r)
@@ -226,12 +220,12 @@ func (c *retestChain) of(x *retestIndex, t *ledger.Test) []*ledger.Test {
 
 // has reports whether r is in the chain so far, adding it when not: a look
 // along the chain while it is short, as chains are, and a set beyond.
-func (c *retestChain) has(r *ledger.Test) bool {
+func (c *retestChain) has(r *ledger.TestRow) bool {
 	if len(c.tests) <= 16 {
 		return slices.Contains(c.tests, r)
 	}
 	if c.seen == nil {
-		c.seen = map[*ledger.Test]bool{}
+		c.seen = map[*ledger.TestRow]bool{}
 	}
 	if len(c.seen) == 0 {
 		for _, s := range c.tests {
