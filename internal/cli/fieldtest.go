@@ -89,7 +89,7 @@ func (r *readingFlags) readings(fl *pflag.FlagSet, u units, cur client.Readings)
 	own := readingFlagsOf[m]
 	for _, name := range allReadingFlags {
 		if set(name) && !slices.Contains(own, name) {
-			return cur, failf("--%s does not apply to a %s test; its readings are %s", name, methodNames[m], flagList(own))
+			return cur, failf("--%s does not apply to a %s test; its readings are %s", name, words.Method(m), flagList(own))
 		}
 	}
 	if cur.Method() == "" {
@@ -106,7 +106,7 @@ func (r *readingFlags) readings(fl *pflag.FlagSet, u units, cur client.Readings)
 			missing = append(missing, "--sand-used (or --initial-mass and --final-mass)")
 		}
 		if len(missing) > 0 {
-			return cur, failf("%s: required for a %s test", strings.Join(missing, ", "), methodNames[m])
+			return cur, failf("%s: required for a %s test", strings.Join(missing, ", "), words.Method(m))
 		}
 	}
 	d := func(v float64) float64 { return u.toSI(soil.Density, v) }
@@ -939,7 +939,7 @@ func (ss *session) printTest(cmd *cobra.Command, t client.Test) error {
 	if t.Voided {
 		state = " (VOIDED)"
 	}
-	p.f("Test %s%s: %s, project %s\n", words.ShortID(t.ID), state, methodNames[t.Result.Method], quoted(ss.projectName()))
+	p.f("Test %s%s: %s, project %s\n", words.ShortID(t.ID), state, words.Method(t.Result.Method), quoted(ss.projectName()))
 	p.f("  %-28s %s by %s (id %s)\n", "taken", localTime(t.Taken, ss.loc), escape(ss.who(t.Author)), t.ID)
 	loc := ss.u.station(c.Location.Station) + ", offset " + ss.u.offset(c.Location.Offset)
 	if c.Location.Elevation != 0 {

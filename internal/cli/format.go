@@ -243,16 +243,6 @@ func anyNuclear(ts []client.Test) bool {
 	return false
 }
 
-// methodNames are the methods in words, with their standards.
-var methodNames = map[client.Method]string{
-	client.NuclearDirect:       "nuclear gauge, direct transmission (ASTM D6938)",
-	client.NuclearBackscatter:  "nuclear gauge, backscatter (ASTM D6938)",
-	client.SandConeMethod:      "sand cone (ASTM D1556 / AASHTO T 191)",
-	client.DriveCylinderMethod: "drive cylinder (ASTM D2937)",
-	client.RubberBalloonMethod: "rubber balloon (ASTM D2167)",
-	client.MeasuredWetDensity:  "wet density as measured",
-}
-
 // methodShort are the methods in a word or two, for tables.
 var methodShort = map[client.Method]string{
 	client.NuclearDirect: "nuclear DT", client.NuclearBackscatter: "nuclear BS", client.SandConeMethod: "sand cone",
@@ -290,7 +280,7 @@ func cautionsFor(m client.Method) []string {
 func printResult(w io.Writer, u units, who string, r client.TestResult) error {
 	p := &printer{w: w}
 	res := r.Result
-	p.f("Test %s: %s, %s units\n", who, methodNames[res.Method], u.name())
+	p.f("Test %s: %s, %s units\n", who, words.Method(res.Method), u.name())
 	if len(r.Steps) > 0 {
 		t := newTable(w, "  step", "value", "unit")
 		for _, s := range r.Steps {

@@ -135,16 +135,6 @@ func reviewWord(s client.ReviewStatus) string {
 	return "awaiting review"
 }
 
-// methodNames are the methods in words, with their standards.
-var methodNames = map[client.Method]string{
-	client.NuclearDirect:       "nuclear gauge, direct transmission (ASTM D6938)",
-	client.NuclearBackscatter:  "nuclear gauge, backscatter (ASTM D6938)",
-	client.SandConeMethod:      "sand cone (ASTM D1556 / AASHTO T 191)",
-	client.DriveCylinderMethod: "drive cylinder (ASTM D2937)",
-	client.RubberBalloonMethod: "rubber balloon (ASTM D2167)",
-	client.MeasuredWetDensity:  "wet density as measured",
-}
-
 // methodShort are the methods in a word or two, for tables.
 var methodShort = map[client.Method]string{
 	client.NuclearDirect: "nuclear DT", client.NuclearBackscatter: "nuclear BS", client.SandConeMethod: "sand cone",

@@ -115,7 +115,7 @@ func (s *Server) showTest(w http.ResponseWriter, r *http.Request, v *view, statu
 
 func (v *view) testPage(t client.Test) testPage {
 	c, res := t.Content, t.Result
-	p := testPage{ID: t.ID, Short: words.ShortID(t.ID), Verdict: verdictOf(t), Method: methodNames[res.Method], Review: reviewWord(t.ReviewStatus),
+	p := testPage{ID: t.ID, Short: words.ShortID(t.ID), Verdict: verdictOf(t), Method: words.Method(res.Method), Review: reviewWord(t.ReviewStatus),
 		Flags: append(slices.Clone(res.Flags), t.Flags...), Missing: slices.Clone(t.Missing), Nuclear: nuclear(res.Method)}
 	p.Facts = v.facts(t)
 	p.Readings = v.readingLines(c)

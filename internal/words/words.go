@@ -1,7 +1,8 @@
 // Package words writes what tamp shows people in the same words wherever
 // it shows them: on the command line and on the review page. It holds the
-// writing of limits as a spec writes them and of a record's short id;
-// numbers in a unit system are soil.System's (Show, Station).
+// writing of limits as a spec writes them, of a record's short id and of
+// the test methods; numbers in a unit system are soil.System's (Show,
+// Station).
 package words
 
 import (
@@ -52,3 +53,16 @@ func MoistureLimit(l client.Limits) string {
 	}
 	return ""
 }
+
+// methodNames are the methods in words, with their standards.
+var methodNames = map[client.Method]string{
+	client.NuclearDirect:       "nuclear gauge, direct transmission (ASTM D6938)",
+	client.NuclearBackscatter:  "nuclear gauge, backscatter (ASTM D6938)",
+	client.SandConeMethod:      "sand cone (ASTM D1556 / AASHTO T 191)",
+	client.DriveCylinderMethod: "drive cylinder (ASTM D2937)",
+	client.RubberBalloonMethod: "rubber balloon (ASTM D2167)",
+	client.MeasuredWetDensity:  "wet density as measured",
+}
+
+// Method is a test method in words, with its standard ("" for none).
+func Method(m client.Method) string { return methodNames[m] }
