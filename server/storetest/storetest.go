@@ -339,16 +339,9 @@ func testConcurrentAppends(t *testing.T, s server.Store) {
 			batches[r] = rowsAfter(h, 1+(round+r)%4*10, fmt.Sprintf("r%d-%d", round, r), nil)
 		}
 		errs := make([]error, racers)
-		start := make(chan struct{})
-		var wg sync.WaitGroup
-		for r := range racers {
-			wg.Go(func() {
-				<-start
-				errs[r] = s.Append(ctx, projA, h, batches[r])
-			})
-		}
-		close(start)
-		wg.Wait()
+		race(racers, func(r int) {
+			errs[r] = s.Append(ctx, projA, h, batches[r])
+		})
 		won := -1
 		for r, err := range errs {
 			switch {
@@ -657,27 +650,11 @@ func testConcurrentEnroll(t *testing.T, s server.Store) {
 		const racers = 3
 		errs := make([]error, racers)
 		keys := []ed25519.PublicKey{key(t), key(t), key(t)}
-		start := make(chan struct{})
-		var wg sync.WaitGroup
-		for r := range racers {
-			wg.Go(func() {
-				<-start
-				id := fmt.Sprintf("dev-%d-%d", round, r)
-				_, errs[r] = s.Enroll(ctx, code, server.Device{ID: id, PublicKey: keys[r]}, tokenHash(id), t0)
-			})
-		}
-		close(start)
-		wg.Wait()
-		won := 0
-		for r, err := range errs {
-			switch {
-			case err == nil:
-				won++
-			case !errors.Is(err, server.ErrCodeInvalid):
-				t.Errorf("round %d: racer %d: %v, want ErrCodeInvalid", round, r, err)
-			}
-		}
-		if won != 1 {
+		race(racers, func(r int) {
+			id := fmt.Sprintf("dev-%d-%d", round, r)
+			_, errs[r] = s.Enroll(ctx, code, server.Device{ID: id, PublicKey: keys[r]}, tokenHash(id), t0)
+		})
+		if won := oneWon(t, round, errs, server.ErrCodeInvalid); won != 1 {
 			t.Fatalf("round %d: one code enrolled %d devices, want 1", round, won)
 		}
 	}
@@ -868,17 +845,10 @@ func testConcurrentResolve(t *testing.T, s server.Store) {
 	for round := range 5 {
 		ids := make([]string, racers)
 		errs := make([]error, racers)
-		start := make(chan struct{})
-		var wg sync.WaitGroup
-		for r := range racers {
-			wg.Go(func() {
-				<-start
-				ids[r], errs[r] = s.Invite(ctx, server.Invitation{ID: fmt.Sprintf("inv-%d-%d", round, r), Project: projA, User: "cal",
-					Role: server.Inspector, InvitedBy: "adam", Created: t0.Add(time.Duration(round) * time.Minute)})
-			})
-		}
-		close(start)
-		wg.Wait()
+		race(racers, func(r int) {
+			ids[r], errs[r] = s.Invite(ctx, server.Invitation{ID: fmt.Sprintf("inv-%d-%d", round, r), Project: projA, User: "cal",
+				Role: server.Inspector, InvitedBy: "adam", Created: t0.Add(time.Duration(round) * time.Minute)})
+		})
 		for r := range racers {
 			if errs[r] != nil || ids[r] != ids[0] {
 				t.Fatalf("round %d: racing invitations = %v, %v; want one pending id", round, ids, errs)
@@ -887,25 +857,10 @@ func testConcurrentResolve(t *testing.T, s server.Store) {
 		if invs, err := s.Invitations(ctx, "cal"); err != nil || len(invs) != 1 {
 			t.Fatalf("round %d: pending = %+v, %v; want 1", round, invs, err)
 		}
-		start = make(chan struct{})
-		for r := range racers {
-			wg.Go(func() {
-				<-start
-				_, errs[r] = s.ResolveInvitation(ctx, ids[0], r%2 == 0, t0.Add(time.Hour))
-			})
-		}
-		close(start)
-		wg.Wait()
-		won := 0
-		for r, err := range errs {
-			switch {
-			case err == nil:
-				won++
-			case !errors.Is(err, server.ErrNoInvitation):
-				t.Errorf("round %d: racer %d: %v, want ErrNoInvitation", round, r, err)
-			}
-		}
-		if won != 1 {
+		race(racers, func(r int) {
+			_, errs[r] = s.ResolveInvitation(ctx, ids[0], r%2 == 0, t0.Add(time.Hour))
+		})
+		if won := oneWon(t, round, errs, server.ErrNoInvitation); won != 1 {
 			t.Fatalf("round %d: %d resolutions of one invitation succeeded, want 1", round, won)
 		}
 	}
@@ -956,16 +911,9 @@ func testConcurrentIdentity(t *testing.T, s server.Store) {
 	const racers = 4
 	ids := make([]server.Identity, racers)
 	errs := make([]error, racers)
-	start := make(chan struct{})
-	var wg sync.WaitGroup
-	for r := range racers {
-		wg.Go(func() {
-			<-start
-			ids[r], errs[r] = s.ServerIdentity(ctx, freshIdentity)
-		})
-	}
-	close(start)
-	wg.Wait()
+	race(racers, func(r int) {
+		ids[r], errs[r] = s.ServerIdentity(ctx, freshIdentity)
+	})
 	for r := range racers {
 		if errs[r] != nil {
 			t.Fatalf("racer %d: %v", r, errs[r])
@@ -1059,4 +1007,35 @@ func testProbe(t *testing.T, s server.Store) {
 	if ds, err := s.Devices(ctx, ""); err != nil || len(ds) != 0 {
 		t.Errorf("devices after probes = %v, %v", ds, err)
 	}
+}
+
+// race runs fn(0) to fn(n-1) on their own goroutines, released together,
+// and waits for them all.
+func race(n int, fn func(r int)) {
+	start := make(chan struct{})
+	var wg sync.WaitGroup
+	for r := range n {
+		wg.Go(func() {
+			<-start
+			fn(r)
+		})
+	}
+	close(start)
+	wg.Wait()
+}
+
+// oneWon counts the racers that succeeded, and reports each that failed
+// with anything but loser, the error a racer that lost must get.
+func oneWon(t *testing.T, round int, errs []error, loser error) int {
+	t.Helper()
+	won := 0
+	for r, err := range errs {
+		switch {
+		case err == nil:
+			won++
+		case !errors.Is(err, loser):
+			t.Errorf("round %d: racer %d: %v, want %v", round, r, err, loser)
+		}
+	}
+	return won
 }
