@@ -3,6 +3,8 @@ package ledger
 import (
 	"bytes"
 	"crypto/ed25519"
+	"crypto/sha256"
+	"encoding/hex"
 	"errors"
 	"testing"
 	"time"
@@ -287,6 +289,33 @@ func TestSplitEnvelope(t *testing.T) {
 	} {
 		if _, err := SplitEnvelope(b); err == nil || ReasonOf(err) != Malformed {
 			t.Errorf("SplitEnvelope(%s) = %v, want a Malformed rejection", name, err)
+		}
+	}
+}
+
+// TestSignMatchesStandardLibrary holds the signer Seal uses to the
+// standard library's Ed25519 (RFC 8032 signatures are deterministic: the
+// same key and message give the same bytes), over keys from seeds and
+// messages of every length up to a few hundred bytes, and over RFC 8032's
+// test vector 1 (section 7.1: the empty message; the bytes recalled from
+// memory, and the standard library agrees with them).
+func TestSignMatchesStandardLibrary(t *testing.T) {
+	seed, _ := hex.DecodeString("9d61b19deffd5a60ba844af492ec2cc44449c5697b326919703bac031cae7f60")
+	want, _ := hex.DecodeString("e5564300c360ac729086e2cc806e828a84877f1eb8e5d974d873e065224901555fb8821590a33bacc61e39701cf9b46bd25bf5f0595bbe24655141438e7a100b")
+	if got := sign(ed25519.NewKeyFromSeed(seed), nil); !bytes.Equal(got, want) {
+		t.Fatalf("RFC 8032 vector 1: signature %x, want %x", got, want)
+	}
+	msg := make([]byte, 600)
+	for i := range msg {
+		msg[i] = byte(i*7 + 3)
+	}
+	for k := range 8 {
+		seed := sha256.Sum256([]byte{byte(k)})
+		key := ed25519.NewKeyFromSeed(seed[:])
+		for n := 0; n <= len(msg); n += 37 {
+			if got, want := sign(key, msg[:n]), ed25519.Sign(key, msg[:n]); !bytes.Equal(got, want) {
+				t.Fatalf("key %d, %d-byte message: signature %x, want the standard library's %x", k, n, got, want)
+			}
 		}
 	}
 }
