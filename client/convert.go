@@ -360,13 +360,13 @@ func hlcTime(h ledger.HLC) time.Time { return time.UnixMicro(h.Wall).UTC() }
 func testOf(p *ledger.Projection, t *ledger.Test) Test {
 	project := p.Project()
 	out := Test{ID: t.ID, Project: project, Author: t.Author, Device: t.Device, Taken: t.DeviceTime, Day: t.Day,
-		RetestOf: t.RetestOf, Retests: p.RetestsOf(t.ID), Current: t.Current, Content: inputOf(project, t.Content),
-		Result: resultOf(p, t.Content, t.Result), Unattached: slices.Clone(t.Unattached), Voided: t.Voided(),
+		RetestOf: t.RetestOf, Retests: p.RetestsOf(t.ID), Current: t.Current, Content: inputOf(project, *t.Content),
+		Result: resultOf(p, *t.Content, t.Result), Unattached: slices.Clone(t.Unattached), Voided: t.Voided(),
 		ReviewStatus: ReviewStatus(t.ReviewStatus), ExceptionAccepted: t.ExceptionAccepted(), Flags: findingsOf(t.Flags),
 		Missing: slices.Clone(t.Missing)}
 	for _, r := range t.Revisions {
 		out.Revisions = append(out.Revisions, Revision{EventID: r.EventID, Supersedes: r.Supersedes, Reason: r.Reason,
-			Author: r.Author, Time: hlcTime(r.HLC), Content: inputOf(project, r.Content)})
+			Author: r.Author, Time: hlcTime(r.HLC), Content: inputOf(project, *r.Content)})
 	}
 	for _, v := range t.Voids {
 		out.Voids = append(out.Voids, Void{EventID: v.EventID, Author: v.Author, Reason: v.Reason})

@@ -16,5 +16,5 @@ func (s *Store) Steps(project, testID string) ([]Step, error) {
 	if !ok {
 		return nil, fmt.Errorf("client: steps of test %s: %w", testID, ErrNotFound)
 	}
-	return stepsOf(v.Assess(t.Content, t.Day, t.RetestOf).Steps), nil
+	return stepsOf(v.Assess(*t.Content, t.Day, t.RetestOf).Steps), nil
 }

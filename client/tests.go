@@ -31,7 +31,7 @@ func (s *Store) recordTest(ctx context.Context, project, testID string, c ledger
 
 func (s *Store) result(v *ledger.Projection, testID, eventID string, steps []soil.Step) TestResult {
 	t, _ := v.Test(testID)
-	return TestResult{TestID: testID, EventID: eventID, Result: resultOf(v, t.Content, t.Result), Flags: findingsOf(t.Flags),
+	return TestResult{TestID: testID, EventID: eventID, Result: resultOf(v, *t.Content, t.Result), Flags: findingsOf(t.Flags),
 		Missing: slices.Clone(t.Missing), Steps: stepsOf(steps)}
 }
 
@@ -85,7 +85,7 @@ func (s *Store) CorrectTest(ctx context.Context, project, testID, reason string,
 	if err != nil {
 		return TestResult{}, err
 	}
-	in := inputOf(project, t.Content)
+	in := inputOf(project, *t.Content)
 	edit(&in)
 	c := in.content()
 	v := s.view(project)
@@ -129,7 +129,7 @@ func (s *Store) RecordRetest(ctx context.Context, project, failedID string, in R
 	case t.Result.Verdict != qc.Fail:
 		return TestResult{}, fmt.Errorf("client: retest of %s, whose verdict is %s: %w", failedID, t.Result.Verdict, ErrNotFailing)
 	}
-	c := t.Content
+	c := *t.Content // a copy: the test's content is its event's
 	c.Readings, c.Remarks, c.DeviceResults = in.Readings.ledger(), in.Remarks, nil
 	if in.Location != nil {
 		c.Location = in.Location.ledger()

@@ -3,6 +3,7 @@ package ledger
 import (
 	"fmt"
 	"time"
+	"unique"
 
 	"tamp/internal/earthwork"
 	pb "tamp/internal/gen/tamp/v1"
@@ -105,7 +106,7 @@ func ToProto(e Event) (*pb.EventBody, error) {
 // with UnknownKind when the body holds no kind this version knows.
 func FromProto(b *pb.EventBody) (Event, error) {
 	e := Event{
-		ID: b.GetEventId(), Project: b.GetProjectId(), Author: b.GetAuthorId(), Device: b.GetDeviceId(), DeviceSeq: b.GetDeviceSeq(),
+		ID: b.GetEventId(), Project: intern(b.GetProjectId()), Author: intern(b.GetAuthorId()), Device: intern(b.GetDeviceId()), DeviceSeq: b.GetDeviceSeq(),
 		PrevDeviceSeq: b.GetPrevDeviceSeq(), HLC: HLC{Wall: b.GetHlc().GetWallMicros(), Logical: b.GetHlc().GetLogical()}, DeviceTime: time.UnixMicro(b.GetDeviceTimeMicros()).UTC(),
 		ResignedFrom: b.GetResignedFromDeviceId(),
 	}
@@ -433,10 +434,21 @@ func contentToProto(c TestContent) *pb.TestContent {
 	return out
 }
 
+// intern returns the one copy of s that every decoded event shares. A
+// project's events name the same project, authors, devices, specs,
+// references, placements and features over and over; a replica holding a
+// million tests would otherwise hold a million copies of each.
+func intern(s string) string {
+	if s == "" {
+		return ""
+	}
+	return unique.Make(s).Value()
+}
+
 func contentFromProto(c *pb.TestContent) TestContent {
-	out := TestContent{Readings: readingsFromProto(c.GetReadings()), Location: locationFromProto(c.GetLocation()), PlacementID: c.GetPlacementId(),
-		Feature: c.GetFeature(), LiftNumber: c.GetLiftNumber(), LiftThickness: c.GetLiftThickness(), ReferenceID: c.GetReferenceId(),
-		SpecID: c.GetSpecId(), EquipmentID: c.GetEquipmentId(), Remarks: c.GetRemarks(), DeviceResults: resultsFromProto(c.GetDeviceResults())}
+	out := TestContent{Readings: readingsFromProto(c.GetReadings()), Location: locationFromProto(c.GetLocation()), PlacementID: intern(c.GetPlacementId()),
+		Feature: intern(c.GetFeature()), LiftNumber: c.GetLiftNumber(), LiftThickness: c.GetLiftThickness(), ReferenceID: intern(c.GetReferenceId()),
+		SpecID: intern(c.GetSpecId()), EquipmentID: intern(c.GetEquipmentId()), Remarks: c.GetRemarks(), DeviceResults: resultsFromProto(c.GetDeviceResults())}
 	if o := c.GetOversize(); o != nil {
 		out.Oversize = &soil.Oversize{Percent: o.GetPercent(), BulkGs: o.GetBulkSpecificGravity(), Moisture: o.GetMoisture()}
 	}

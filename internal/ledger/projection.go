@@ -424,7 +424,7 @@ func (p *Projection) addDeps(was, t *Test) {
 	noted := buf[:0] // what the earlier build named, then what this adds
 	named := func(x *Test, fn func(string)) {
 		for i := range x.Revisions {
-			c := &x.Revisions[i].Content
+			c := x.Revisions[i].Content
 			fn(c.ReferenceID)
 			fn(c.SpecID)
 			fn(c.EquipmentID)

@@ -19,7 +19,9 @@ type Revision struct {
 	Reason     string
 	Author     string
 	HLC        HLC
-	Content    TestContent
+	// Content is the revision's event's own content, shared with the held
+	// event: never change it through the pointer.
+	Content *TestContent
 }
 
 // ReviewStatus is where a test's current revision stands with the office.
@@ -94,7 +96,9 @@ type Test struct {
 	Revisions  []Revision
 	Unattached []string `json:",omitempty"`
 	Current    string   // event id of the current revision
-	Content    TestContent
+	// Content is the current revision's, shared with it and its event:
+	// never change it through the pointer.
+	Content *TestContent
 	// Result is recomputed from the current revision's readings against
 	// the reference and spec it names.
 	Result       qc.Result
@@ -177,7 +181,7 @@ func (p *Projection) buildTest(evs []*Event, was *Test, graded bool) *Test {
 	} else {
 		k := original.Kind.(*TestRecorded)
 		t.Revisions = make([]Revision, 1, 1+len(corrections))
-		t.Revisions[0] = Revision{EventID: original.ID, Author: original.Author, HLC: original.HLC, Content: k.Content}
+		t.Revisions[0] = Revision{EventID: original.ID, Author: original.Author, HLC: original.HLC, Content: &k.Content}
 	}
 
 	if len(corrections) == 0 { // most tests: the original stands
@@ -241,7 +245,7 @@ func (p *Projection) attach(t *Test, corrections []*Event) {
 			}
 			attached[e.ID] = true
 			children[k.Supersedes]++
-			t.Revisions = append(t.Revisions, Revision{EventID: e.ID, Supersedes: k.Supersedes, Reason: k.Reason, Author: e.Author, HLC: e.HLC, Content: k.Content})
+			t.Revisions = append(t.Revisions, Revision{EventID: e.ID, Supersedes: k.Supersedes, Reason: k.Reason, Author: e.Author, HLC: e.HLC, Content: &k.Content})
 			progress = true
 		}
 	}
@@ -318,12 +322,12 @@ type Assessment struct {
 // as a retest of retestOf when that is set. A device calls it to show a
 // result before it records the test.
 func (p *Projection) Assess(c TestContent, day, retestOf string) Assessment {
-	return p.assess(c, day, retestOf, true)
+	return p.assess(&c, day, retestOf, true)
 }
 
 // assess is Assess, with the arithmetic's steps only when steps is set: a
 // test's grade in the projection never shows them.
-func (p *Projection) assess(c TestContent, day, retestOf string, steps bool) Assessment {
+func (p *Projection) assess(c *TestContent, day, retestOf string, steps bool) Assessment {
 	var a Assessment
 	flag := func(code, msg string) { a.Flags = append(a.Flags, qc.Finding{Code: code, Message: msg}) }
 	var corr *soil.MoistureCorrection

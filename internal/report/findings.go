@@ -301,7 +301,7 @@ func (a *audit) grades(t *ledger.Test) map[string]qc.Result {
 		if r.EventID == t.Current {
 			g[r.EventID] = t.Result
 		} else {
-			g[r.EventID] = a.p.Assess(r.Content, t.Day, t.RetestOf).Result
+			g[r.EventID] = a.p.Assess(*r.Content, t.Day, t.RetestOf).Result
 		}
 	}
 	return g
@@ -363,7 +363,7 @@ func (a *audit) retest(r, orig *ledger.Test, pr ledger.Handle) {
 	if orig.Content.PlacementID != r.Content.PlacementID {
 		po, _ = a.rows.Handle(orig.Content.PlacementID)
 	}
-	lr, lo := a.liftOf(&r.Content, pr), a.liftOf(&orig.Content, po)
+	lr, lo := a.liftOf(r.Content, pr), a.liftOf(orig.Content, po)
 	if lr.placement != "" && lo.placement != "" && lr.placement != lo.placement ||
 		lr.feature != "" && lo.feature != "" && lr.feature != lo.feature ||
 		lr.number != 0 && lo.number != 0 && lr.number != lo.number {
