@@ -215,8 +215,8 @@ func (s *Server) applyStored(ctx context.Context, p *project, id string, head le
 	return nil
 }
 
-// storedChunk is a run of stored events, decoded and validated, or the
-// error that ended the reading.
+// storedChunk is a run of stored events, decoded, or the error that ended
+// the reading.
 type storedChunk struct {
 	seqs []uint64
 	evs  []ledger.Signed
@@ -224,13 +224,15 @@ type storedChunk struct {
 }
 
 // storedEvents calls fn, in order, with each stored event of a project
-// after seq up to to, decoded and validated. Three goroutines share the
-// work: one reads chunks of entries from the store, one decodes and
-// validates them, and this one calls fn, so that loading a project costs
-// about what its slowest stage costs rather than the three together. Each
-// event is validated as a push validates it: a stored event that breaks a
-// rule is an error, as it always was, not an entry applied without its
-// checks.
+// after seq up to to, decoded. Three goroutines share the work: one reads
+// chunks of entries from the store, one decodes them, and this one calls
+// fn, so that loading a project costs about what its slowest stage costs
+// rather than the three together. Events are not validated again: the
+// ledger holds only events a push validated when it admitted them (a
+// server restored from a copy holds a copy of such a ledger, and what it
+// lost comes back through pushes), and a rule checked anew by a later
+// version could only make the server's state differ from the devices'.
+// An event that does not decode is an error.
 func (s *Server) storedEvents(ctx context.Context, id string, seq, to uint64, fn func(uint64, ledger.Signed) error) error {
 	const chunk = 1000
 	ctx, cancel := context.WithCancel(ctx)
@@ -259,7 +261,7 @@ func (s *Server) storedEvents(ctx context.Context, id string, seq, to uint64, fn
 		}
 	}()
 	chunks := make(chan storedChunk, 2)
-	go func() { // decodes and validates
+	go func() { // decodes (the ledger holds only events it validated when admitting them)
 		defer close(chunks)
 		for r := range reads {
 			c := storedChunk{err: r.err}
@@ -267,9 +269,6 @@ func (s *Server) storedEvents(ctx context.Context, id string, seq, to uint64, fn
 				c.seqs, c.evs = make([]uint64, 0, len(r.entries)), make([]ledger.Signed, 0, len(r.entries))
 				for _, e := range r.entries {
 					sg, err := ledger.Decode(e.Event)
-					if err == nil {
-						err = ledger.Validate(sg.Event)
-					}
 					if err != nil {
 						c = storedChunk{err: fmt.Errorf("server: stored event %d of %s: %w", e.Seq, id, err)}
 						break
