@@ -285,6 +285,10 @@ func (s *Store) loadViews(ctx context.Context) error {
 		}
 		return err
 	}
+	sizes, err := s.storedCounts(ctx)
+	if err != nil {
+		return fail(err)
+	}
 	views := map[string]*ledger.Projection{}
 	var v *ledger.Projection
 	for b := range batches {
@@ -295,10 +299,11 @@ func (s *Store) loadViews(ctx context.Context) error {
 			if v == nil || v.Project() != sg.Event.Project {
 				if v = views[sg.Event.Project]; v == nil {
 					v = ledger.NewProjection(sg.Event.Project)
+					v.Reserve(sizes[sg.Event.Project])
 					views[sg.Event.Project] = v
 				}
 			}
-			if _, err := v.ApplyValidated(sg); err != nil { // the reader validated it
+			if _, err := v.ApplyValidated(sg); err != nil { // the store validated it when it wrote it
 				return fail(fmt.Errorf("client: stored event %s: %w", sg.Event.ID, err))
 			}
 			s.clock.Observe(sg.Event.HLC)
@@ -309,6 +314,30 @@ func (s *Store) loadViews(ctx context.Context) error {
 	}
 	s.views = views
 	return nil
+}
+
+// storedCounts returns the number of events each project holds, read
+// from the project index alone: rejected and discarded entries count too,
+// so each is a bound, which is what Reserve needs.
+func (s *Store) storedCounts(ctx context.Context) (map[string]int, error) {
+	rows, err := s.db.Reader().QueryContext(ctx, `SELECT project_id, COUNT(*) FROM events INDEXED BY events_by_project GROUP BY project_id`)
+	if err != nil {
+		return nil, fmt.Errorf("client: count events: %w", err)
+	}
+	defer rows.Close()
+	counts := map[string]int{}
+	for rows.Next() {
+		var project string
+		var n int
+		if err := rows.Scan(&project, &n); err != nil {
+			return nil, fmt.Errorf("client: count events: %w", err)
+		}
+		counts[project] = n
+	}
+	if err := rows.Err(); err != nil {
+		return nil, fmt.Errorf("client: count events: %w", err)
+	}
+	return counts, nil
 }
 
 // view returns a project's view, creating an empty one. Call with s.mu held.

@@ -80,7 +80,8 @@ func (s *Server) load(ctx context.Context, p *project, id string) error {
 		return err
 	}
 	view := ledger.NewProjection(id)
-	seqs := map[string]uint64{}
+	view.Reserve(int(head.Seq))
+	seqs := make(map[string]uint64, head.Seq)
 	devs := newDeviceSeqs()
 	if err := s.storedEvents(ctx, id, 0, head.Seq, func(seq uint64, sg ledger.Signed) error {
 		if _, err := view.ApplyValidated(sg); err != nil {
