@@ -55,11 +55,7 @@ func Seal(e Event, key ed25519.PrivateKey) (Signed, error) {
 	if len(body) > MaxEventBytes {
 		return Signed{}, reject(Malformed, "", fmt.Sprintf("the event encodes to %d bytes, above the limit of %d", len(body), MaxEventBytes))
 	}
-	var m pb.EventBody
-	if err := proto.Unmarshal(body, &m); err != nil {
-		return Signed{}, fmt.Errorf("ledger: seal %s: decode the body: %w", e.ID, err)
-	}
-	d, err := FromProto(&m)
+	d, err := decodeEvent(body)
 	if err != nil {
 		return Signed{}, fmt.Errorf("ledger: seal %s: decode the body: %w", e.ID, err)
 	}
@@ -256,11 +252,7 @@ func FromEnvelope(m *pb.Event) (Signed, error) {
 	if len(m.GetSignature()) != ed25519.SignatureSize {
 		return Signed{}, reject(BadSignature, "signature", fmt.Sprintf("a signature is %d bytes, not %d", ed25519.SignatureSize, len(m.GetSignature())))
 	}
-	var b pb.EventBody
-	if err := proto.Unmarshal(m.GetBody(), &b); err != nil {
-		return Signed{}, &Rejection{Reason: Malformed, Field: "body", Detail: "the event body does not decode", Err: err}
-	}
-	e, err := FromProto(&b)
+	e, err := decodeEvent(m.GetBody())
 	if err != nil {
 		return Signed{}, err
 	}
