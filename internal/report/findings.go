@@ -101,10 +101,6 @@ type Finding struct {
 	Entries []string
 }
 
-// earthRadius is the mean radius of the Earth, metres (IUGG), that the
-// retest distance between two satellite positions is measured on.
-const earthRadius = 6371008.8
-
 // The roles that review tests.
 const (
 	roleOffice = "office"
@@ -140,14 +136,20 @@ func Findings(p *ledger.Projection, o AuditOptions) []Finding {
 		a.roles[d.UserID] = append(a.roles[d.UserID], d.Roles...)
 	}
 	a.within, a.distance = su.RetestWithinOrDefault(), su.RetestDistanceOrDefault()
+	a.distanceText = a.dist(a.distance)
 	// One pass over the tests' rows; whether a failure was closed by a
 	// retest is asked once the pass has indexed every retest.
 	rows := p.TestRows()
-	a.rows, a.reviewers, a.placements = rows, make([]reviewer, rows.NumHandles()), make([]knownPlacement, rows.NumHandles())
+	a.rows, a.reviewers = rows, make([]reviewer, rows.NumHandles())
 	for i := range rows.Rows {
 		r := &rows.Rows[i]
+		// Most tests are a pass of one revision, unflagged, no retest:
+		// nothing to file or look at, told without a call.
+		if r.State&(lookAt|ledger.RowReviewed) == 0 && r.Retested == nil {
+			continue
+		}
 		a.retests.add(r)
-		a.test(r)
+		a.test(r, &rows.Audit[i])
 	}
 	a.retests.done(p, rows)
 	for _, r := range a.open {
@@ -178,25 +180,21 @@ type audit struct {
 	within   time.Duration
 	distance float64
 	out      []located
-	chain    retestChain // walks a failure's retests, buffers kept
-	retests  retestIndex
-	open     []*ledger.TestRow              // failures older than the retest window, unless a retest closed them
-	loc      *time.Location                 // the project's time zone
-	sys      soil.System                    // the project's units
-	names    map[string]string              // user id -> name, from the ledger's introductions
-	roles    map[string][]ledger.RoleChange // user id -> the roles introductions of their devices record
+	chain    retestChain       // walks a failure's retests, buffers kept
+	direct   []*ledger.TestRow // a failure's own retests, buffer kept
+	// distanceText is the retest distance in words, written once.
+	distanceText string
+	retests      retestIndex
+	open         []*ledger.TestRow              // failures older than the retest window, unless a retest closed them
+	loc          *time.Location                 // the project's time zone
+	sys          soil.System                    // the project's units
+	names        map[string]string              // user id -> name, from the ledger's introductions
+	roles        map[string][]ledger.RoleChange // user id -> the roles introductions of their devices record
 	// lastUser is the user roleAt looked up last, with their roles.
-	lastUser   string
-	lastRoles  []ledger.RoleChange
-	rows       ledger.TestRows
-	reviewers  []reviewer       // by the handle of the user (ledger.TestRow.Reviewer)
-	placements []knownPlacement // by handle
-}
-
-// knownPlacement is a placement looked up, nil when not held.
-type knownPlacement struct {
-	pl    *ledger.Placement
-	known bool
+	lastUser  string
+	lastRoles []ledger.RoleChange
+	rows      ledger.TestRows
+	reviewers []reviewer // by the handle of the user (ledger.AuditRow.Reviewer)
 }
 
 // reviewer is when a user's role became office or QA for good.
@@ -209,10 +207,10 @@ type reviewer struct {
 	never bool
 }
 
-// reviewsFine reports whether the reviews of r's test are all, by its row,
-// by a user who was office or QA when making them: then reviewers would
+// reviewsFine reports whether the reviews of a test are all, by its audit
+// row r, by a user who was office or QA when making them: then reviewers would
 // find nothing. False means they must be looked at.
-func (a *audit) reviewsFine(r *ledger.TestRow) bool {
+func (a *audit) reviewsFine(r *ledger.AuditRow) bool {
 	if r.Reviewer == 0 {
 		return false
 	}
@@ -258,30 +256,39 @@ func (a *audit) add(at *ledger.Test, code FindingCode, testID, msg string, entri
 	a.out = append(a.out, located{Finding: Finding{Code: code, TestID: testID, Message: msg, Entries: entries}, at: at})
 }
 
+// lookAt are the bits of a row whose test a rule looks at, reviews aside.
+const lookAt = ledger.RowFail | ledger.RowRetest | ledger.RowVoided | ledger.RowRevised | ledger.RowFlagged
+
 // test runs every rule about one test, reading the test itself only when
 // its row says a rule has something to look at: most tests are a pass of
 // one revision, unflagged, reviewed by office or QA if at all.
-func (a *audit) test(r *ledger.TestRow) {
-	const look = ledger.RowFail | ledger.RowRetest | ledger.RowVoided | ledger.RowRevised | ledger.RowFlagged
-	reviews := r.State&ledger.RowReviewed != 0 && !a.reviewsFine(r)
-	if r.State&look == 0 && !reviews {
+func (a *audit) test(r *ledger.TestRow, audit *ledger.AuditRow) {
+	reviews := r.State&ledger.RowReviewed != 0 && !a.reviewsFine(audit)
+	if r.State&lookAt == 0 && !reviews {
 		return
 	}
 	t := r.Test
-	grades := a.grades(t)
-	if a.overdue(t) {
+	var grades map[string]qc.Result // nil for a test of one revision, whose only verdict is t.Result's
+	if r.State&ledger.RowRevised != 0 {
+		grades = a.grades(t)
+	}
+	if a.overdue(r, audit) {
 		a.open = append(a.open, r)
 	}
 	if r.Retested != nil {
-		a.retest(t, r.Retested, r.Placement)
+		a.retest(r, audit)
 	}
-	a.voidedFailure(t, grades)
+	if r.State&ledger.RowVoided != 0 {
+		a.voidedFailure(t, grades)
+	}
 	if grades != nil { // a test of one revision has no correction to look at
 		a.corrections(t, grades)
 	}
-	for _, f := range t.Flags {
-		if f.Code == ledger.DeviceResultMismatch {
-			a.add(t, DeviceResultMismatch, t.ID, f.Message, t.Current)
+	if r.State&ledger.RowFlagged != 0 {
+		for _, f := range t.Flags {
+			if f.Code == ledger.DeviceResultMismatch {
+				a.add(t, DeviceResultMismatch, t.ID, f.Message, t.Current)
+			}
 		}
 	}
 	if reviews {
@@ -307,14 +314,19 @@ func (a *audit) grades(t *ledger.Test) map[string]qc.Result {
 	return g
 }
 
-// overdue reports whether t is a failure still open by itself (not a
-// retest, not voided, no exception) longer than the retest window; a
-// retest may yet have closed it (see notRetested).
-func (a *audit) overdue(t *ledger.Test) bool {
-	if t.Result.Verdict != qc.Fail || t.RetestOf != "" || t.Voided() || t.ExceptionAccepted() {
+// overdue reports whether the row's test is a failure still open by itself
+// (not a retest, not voided, no exception) longer than the retest window; a
+// retest may yet have closed it (see notRetested), from the row and its
+// audit row alone.
+func (a *audit) overdue(r *ledger.TestRow, audit *ledger.AuditRow) bool {
+	if r.State&(ledger.RowFail|ledger.RowRetest|ledger.RowVoided|ledger.RowExceptionAccepted) != ledger.RowFail {
 		return false
 	}
-	return a.o.AsOf.Sub(t.DeviceTime) > a.within
+	at := time.Unix(0, audit.DeviceTime)
+	if audit.DeviceTime == ledger.NoDeviceTime {
+		at = r.Test.DeviceTime
+	}
+	return a.o.AsOf.Sub(at) > a.within
 }
 
 // notRetested finds an overdue failure (see overdue), of the row r, that
@@ -334,6 +346,14 @@ func (a *audit) notRetested(r *ledger.TestRow) {
 // closedByRetest reports whether a retest in t's chain (retests of retests
 // included) passed and counts.
 func (a *audit) closedByRetest(t *ledger.TestRow) bool {
+	// Mostly a retest of the failure itself closed it: those first, the
+	// rest of the chain only when none did.
+	a.direct = a.retests.of(a.direct[:0], t.Test)
+	for _, r := range a.direct {
+		if r.State.Counts() && r.State&ledger.RowPass != 0 {
+			return true
+		}
+	}
 	for _, r := range a.chain.of(&a.retests, t) {
 		if r.State.Counts() && r.State&ledger.RowPass != 0 {
 			return true
@@ -342,20 +362,25 @@ func (a *audit) closedByRetest(t *ledger.TestRow) bool {
 	return false
 }
 
-// retest runs the rules about a retest r of orig.
-// pr is the handle of r's placement.
-func (a *audit) retest(r, orig *ledger.Test, pr ledger.Handle) {
+// retest runs the rules about the retest of the row (with its audit row),
+// of the test row.Retested. It reads the two tests only when the rows,
+// which compare them (ledger.RowRetestSameLift and the others), show a
+// rule to look at.
+func (a *audit) retest(row *ledger.TestRow, audit *ledger.AuditRow) {
+	s := row.State
+	away := s&ledger.RowVoided == 0 && audit.RetestDistance > a.distance
+	if !away && s&(ledger.RowRetestSameLift|ledger.RowRetestInOrder|ledger.RowRetestOfPass) == ledger.RowRetestSameLift|ledger.RowRetestInOrder {
+		return
+	}
+	r, orig, pr := row.Test, row.Retested, row.Placement
 	entries := func() []string { return []string{recording(orig), recording(r)} }
 	voided := ""
 	if r.Voided() {
 		voided = " (since voided)"
 	}
-	if !r.Voided() {
-		d, basis := separation(orig.Content.Location, r.Content.Location)
-		if d > a.distance {
-			a.add(r, RetestAwayFromFailure, r.ID, fmt.Sprintf("retest %s is %s from test %s, which it retests (%s), beyond the project's retest distance of %s",
-				shortRef(r.ID), a.dist(d), shortRef(orig.ID), basis, a.dist(a.distance)), entries()...)
-		}
+	if away {
+		a.add(r, RetestAwayFromFailure, r.ID, fmt.Sprintf("retest %s is %s from test %s, which it retests (%s), beyond the project's retest distance of %s",
+			shortRef(r.ID), a.dist(audit.RetestDistance), shortRef(orig.ID), basis(s&ledger.RowRetestSatellite != 0), a.distanceText), entries()...)
 	}
 	// A retest is mostly on its failure's placement: its handle then
 	// serves both.
@@ -387,25 +412,16 @@ func (a *audit) retest(r, orig *ledger.Test, pr ledger.Handle) {
 	}
 }
 
-// separation is the distance between two test locations, metres, and its
-// basis in words.
-func separation(a, b ledger.Location) (float64, string) {
-	if a.Position != nil && b.Position != nil {
-		return greatCircle(*a.Position, *b.Position), "great-circle distance between their satellite positions"
-	}
-	return math.Hypot(a.Station-b.Station, a.Offset-b.Offset), "plan distance from station and offset"
-}
+// greatCircle is the measure of the retest distance between two satellite
+// positions (ledger.GreatCircle), which the rows of the tests hold.
+var greatCircle = ledger.GreatCircle
 
-// greatCircle is the haversine distance between two WGS84 positions on a
-// sphere of the Earth's mean radius, metres: d = 2 R asin(sqrt(sin²(Δφ/2) +
-// cos φ1 cos φ2 sin²(Δλ/2))). Over the few metres between a failure and
-// its retest the sphere is well within a satellite fix's accuracy.
-func greatCircle(a, b ledger.GeoPosition) float64 {
-	rad := math.Pi / 180
-	p1, p2 := a.Latitude*rad, b.Latitude*rad
-	dp, dl := p2-p1, (b.Longitude-a.Longitude)*rad
-	h := math.Pow(math.Sin(dp/2), 2) + math.Cos(p1)*math.Cos(p2)*math.Pow(math.Sin(dl/2), 2)
-	return 2 * earthRadius * math.Asin(math.Sqrt(min(1, h)))
+// basis says in words what a retest distance is measured between.
+func basis(satellite bool) string {
+	if satellite {
+		return "great-circle distance between their satellite positions"
+	}
+	return "plan distance from station and offset"
 }
 
 // lift is the fill a test stands on: its placement, and the feature and
@@ -432,27 +448,11 @@ func (l lift) String() string {
 	return strings.Join(parts, ", ")
 }
 
-// liftOf is the lift of content c, whose placement's handle is h.
+// liftOf is the lift of content c, whose placement's handle is h: what
+// the placement records (zero when not held) fills what c leaves out.
 func (a *audit) liftOf(c *ledger.TestContent, h ledger.Handle) lift {
-	l := lift{placement: c.PlacementID, feature: c.Feature, number: c.LiftNumber}
-	if pl := a.placementOf(h); pl != nil {
-		l.feature = cmp.Or(l.feature, pl.Feature)
-		l.number = cmp.Or(l.number, pl.LiftNumber)
-	}
-	return l
-}
-
-// placementOf returns the placement of handle h, nil when none is held:
-// each looked up in the projection once per audit.
-func (a *audit) placementOf(h ledger.Handle) *ledger.Placement {
-	if h == 0 {
-		return nil
-	}
-	if !a.placements[h].known {
-		pl, _ := a.p.Placement(a.rows.ID(h))
-		a.placements[h] = knownPlacement{pl, true}
-	}
-	return a.placements[h].pl
+	pl := a.rows.Lift(h)
+	return lift{placement: c.PlacementID, feature: cmp.Or(c.Feature, pl.Feature), number: cmp.Or(c.LiftNumber, pl.Number)}
 }
 
 func (a *audit) voidedFailure(t *ledger.Test, grades map[string]qc.Result) {

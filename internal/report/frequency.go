@@ -1,6 +1,7 @@
 package report
 
 import (
+	"cmp"
 	"math"
 	"slices"
 
@@ -59,7 +60,7 @@ type Frequency struct {
 func ceilTests(q, per float64) int { return int(math.Ceil(q/per - 1e-9)) }
 
 // rules applies the frequency rules of spec to the placement pl.
-func rules(spec *ledger.Spec, pl *ledger.Placement) []Rule {
+func rules(spec *ledger.Spec, pl *ledger.PlacementSummary) []Rule {
 	var out []Rule
 	perQuantity := func(kind RuleKind, per, q float64, why string) {
 		if per <= 0 {
@@ -77,7 +78,7 @@ func rules(spec *ledger.Spec, pl *ledger.Placement) []Rule {
 	area, why := pl.Area, ""
 	if area <= 0 {
 		switch st := pl.Stations; {
-		case st == nil:
+		case !pl.HasStations:
 			area, why = 0, "the placement records neither an area nor stations"
 		case st.To-st.From <= 0:
 			area, why = 0, "the placement records no area and its stations give no length"
@@ -89,7 +90,7 @@ func rules(spec *ledger.Spec, pl *ledger.Placement) []Rule {
 	}
 	perQuantity(AreaRule, spec.AreaPerTest, area, why)
 	length, why := 0.0, "the placement records no stations"
-	if st := pl.Stations; st != nil {
+	if st := pl.Stations; pl.HasStations {
 		length, why = st.To-st.From, "the placement's stations give no length"
 	}
 	perQuantity(LengthRule, spec.LengthPerTest, length, why)
@@ -141,30 +142,68 @@ func TestFrequency(p *ledger.Projection) []Frequency {
 		}
 	}
 	var out []Frequency
-	for _, pl := range p.Placements() { // sorted by id, and ids below: the output is sorted
+	placements, handles := rows.Placements() // sorted by id, and specs below: the output is sorted
+	summaries := rows.PlacementSummaries()
+	// The specs by handle, and the spec a placement names without a
+	// handle (no test names it), each looked up once.
+	var lastSpec string
+	var lastHandle ledger.Handle
+	var lastHeld *ledger.Spec
+	var hs []ledger.Handle
+	type specOf struct {
+		id   string
+		spec *ledger.Spec
+		h    ledger.Handle // 0 for a spec no test names
+	}
+	var list []specOf // the specs of a placement, in id order
+	for i, pl := range placements {
 		var specs specCounts
-		if h, ok := rows.Handle(pl.ID); ok && named[h] != nil {
+		if h := handles[i]; h != 0 && named[h] != nil {
 			specs = *named[h]
 		}
-		ids := make([]string, 0, len(specs)+1)
+		hs = hs[:0]
 		for _, c := range specs {
-			ids = append(ids, rows.ID(c.spec))
+			hs = append(hs, c.spec)
 		}
-		if pl.SpecID != "" && !slices.Contains(ids, pl.SpecID) {
-			ids = append(ids, pl.SpecID)
+		// The placement's own spec, unless a test on it names that one.
+		var own *ledger.Spec // when it has no handle
+		sum := &summaries[i]
+		if sum.SpecID != "" {
+			if sum.SpecID != lastSpec {
+				lastSpec, lastHeld = sum.SpecID, nil
+				var ok bool
+				if lastHandle, ok = rows.Handle(sum.SpecID); !ok {
+					lastHeld, _ = p.Spec(sum.SpecID)
+				}
+			}
+			switch {
+			case lastHandle == 0:
+				own = lastHeld
+			case !slices.Contains(hs, lastHandle):
+				hs = append(hs, lastHandle)
+			}
 		}
-		slices.Sort(ids)
-		for _, id := range ids {
-			spec, ok := p.Spec(id)
-			if !ok {
+		// The specs that have handles in id order, and the one without
+		// (which no test names) in its place among them.
+		slices.SortFunc(hs, rows.CompareIDs)
+		list = list[:0]
+		for _, h := range hs {
+			list = append(list, specOf{rows.ID(h), rows.Spec(h), h})
+		}
+		if own != nil {
+			at, _ := slices.BinarySearchFunc(list, sum.SpecID, func(n specOf, id string) int { return cmp.Compare(n.id, id) })
+			list = slices.Insert(list, at, specOf{sum.SpecID, own, 0})
+		}
+		for _, n := range list {
+			spec, id := n.spec, n.id
+			if spec == nil {
 				continue
 			}
-			rs := rules(spec, pl)
+			rs := rules(spec, sum)
 			if len(rs) == 0 {
 				continue
 			}
-			h, _ := rows.Handle(id)
-			f := Frequency{Placement: pl, SpecID: id, Rules: rs, Taken: specs.taken(h)}
+			f := Frequency{Placement: pl, SpecID: id, Rules: rs, Taken: specs.taken(n.h)}
 			for _, r := range rs {
 				f.Required = max(f.Required, r.Required)
 			}

@@ -2,6 +2,7 @@ package report
 
 import (
 	"math"
+	"slices"
 	"testing"
 
 	"tamp/internal/ledger"
@@ -188,5 +189,36 @@ func TestFrequencyCountsFinalTests(t *testing.T) {
 		MaxDryDensity: pcf(118), OptimumMoisture: 12})
 	if f, _ := frequencyOf(TestFrequency(s.p), s.place, s.spec); f.Taken != 3 {
 		t.Errorf("after the reference arrived: taken %d, want 3", f.Taken)
+	}
+}
+
+// A placement's own spec that no test names sits among the specs its
+// tests name in id order, whatever the ids: the report is sorted by
+// placement, then spec, each spec once.
+func TestFrequencySpecsInIDOrder(t *testing.T) {
+	for range 8 {
+		s := newSite(t)
+		rule := func(k *ledger.SpecDefined) { k.VolumePerTest = 100 }
+		own, a, b := s.defined(rule), s.defined(rule), s.defined(rule)
+		pl := s.placed(own, 7, nil)
+		for _, spec := range []string{a, b, a} {
+			c := s.content(118*0.97, 12)
+			c.SpecID, c.PlacementID = spec, pl
+			s.record(c, "")
+		}
+		var got []string
+		for _, f := range TestFrequency(s.p) {
+			if f.Placement.ID == pl {
+				got = append(got, f.SpecID)
+			}
+		}
+		want := []string{own, a, b}
+		slices.Sort(want)
+		if !slices.Equal(got, want) {
+			t.Fatalf("specs of the placement %v, want %v", got, want)
+		}
+		if f, _ := frequencyOf(TestFrequency(s.p), pl, a); f.Taken != 2 {
+			t.Errorf("spec named twice: taken %d, want 2", f.Taken)
+		}
 	}
 }

@@ -52,23 +52,23 @@ func (s LotScope) validate() error {
 	return nil
 }
 
-// holds reports whether t, on the placement pl (nil for none), is in the
-// feature scope s. It reads the test only when pl is nil or the scope
-// bounds days: a report asks it of every test of the project.
-func (s LotScope) holds(t *ledger.Test, pl *ledger.Placement) bool {
-	var feature string
-	var lift uint32
-	if pl != nil {
-		feature, lift = pl.Feature, pl.LiftNumber
-	} else {
-		feature, lift = t.Content.Feature, t.Content.LiftNumber
+// holds reports whether t, on a placement of the lift l (held false for
+// none), is in the feature scope s. It reads the test only when it is on
+// no placement held or the scope bounds days (see holdsLift).
+func (s LotScope) holds(t *ledger.Test, l ledger.Lift, held bool) bool {
+	if !held {
+		l = ledger.Lift{Feature: t.Content.Feature, Number: t.Content.LiftNumber}
 	}
-	switch {
-	case feature != s.Feature:
+	return s.holdsLift(l) && !(s.DayFrom != "" && t.Day < s.DayFrom || s.DayTo != "" && t.Day > s.DayTo)
+}
+
+// holdsLift reports whether the lift l is in the feature scope s, days
+// aside.
+func (s LotScope) holdsLift(l ledger.Lift) bool {
+	switch lift := l.Number; {
+	case l.Feature != s.Feature:
 		return false
 	case (s.LiftFrom != 0 || s.LiftTo != 0) && (lift == 0 || lift < s.LiftFrom || (s.LiftTo != 0 && lift > s.LiftTo)):
-		return false
-	case s.DayFrom != "" && t.Day < s.DayFrom, s.DayTo != "" && t.Day > s.DayTo:
 		return false
 	}
 	return true
@@ -100,14 +100,6 @@ func (s LotScope) name() string {
 		fmt.Fprintf(&b, ", up to %s", to)
 	}
 	return b.String()
-}
-
-// liftName names a one-lift lot: "embankment lift 3".
-func liftName(pl *ledger.Placement) string {
-	if pl.LiftNumber == 0 {
-		return pl.Feature + ", placement " + pl.ID
-	}
-	return pl.Feature + " lift " + strconv.FormatUint(uint64(pl.LiftNumber), 10)
 }
 
 // Acceptance is a lot's outcome against the spec's acceptance limit.
@@ -198,17 +190,15 @@ func Lots(p *ledger.Projection, scope LotScope) ([]Lot, error) {
 		return nil, fmt.Errorf("report: lots: %w", err)
 	}
 	type key struct{ placement, spec ledger.Handle }
-	type left struct {
-		r *ledger.TestRow
-		o LeftOut
-	}
 	type group struct {
 		pl    *ledger.Placement
+		lift  ledger.Lift  // pl's
 		spec  *ledger.Spec // nil when this replica does not hold it
 		kinds valueKinds   // what the spec sets, looked up once for the lot
 		final []*ledger.Test
 		last  *ledger.TestRow // the final test joined last
-		left  []left
+		left  int             // the tests left out of it, gathered in lefts
+		from  int             // the index in byLot past its tests left out, once they are filed
 		// values are the final tests' values of the characteristics the
 		// spec sets, gathered as the tests join, while each is at hand,
 		// rather than in a second pass over the lot.
@@ -217,53 +207,67 @@ func Lots(p *ledger.Projection, scope LotScope) ([]Lot, error) {
 		// check too is made as tests join.
 		unsorted bool
 	}
+	// The lots, in the order the pass met them: tests and placements take
+	// ids of the same kind, mostly in time order, so that this is mostly
+	// the order of the output already. A lot is named by its index here.
+	var groups []group
+	var keys []key
+	// The tests left out, each with the index of its lot, sorted by lot at
+	// the end rather than kept in a list for each.
+	type leftAt struct {
+		at int
+		leftRow
+	}
+	var lefts []leftAt
 	join := func(g *group, r *ledger.TestRow) {
-		if g.last != nil && !g.unsorted && rowTime(g.last, r) > 0 {
+		// rowTime only for tests of one wall time: mostly the walls tell.
+		if g.last != nil && !g.unsorted && g.last.HLC.Wall >= r.HLC.Wall && (g.last.HLC.Wall > r.HLC.Wall || rowTime(g.last, r) > 0) {
 			g.unsorted = true
 		}
 		g.final, g.last = append(g.final, r.Test), r
 		g.values.add(g.kinds, r.RelativeCompaction, r.MoistureDeviation, r.MoisturePercentOfOptimum)
 	}
 	// Lots are alike in size: a new lot has room for as many final tests
-	// as the one before it took, rather than growing test by test.
+	// as the one before it took, rather than growing test by test, carved
+	// from a few large blocks rather than allocated lot by lot.
 	room := 0
-	groups := map[key]*group{}
-	// The lots in the order the pass met them: tests and placements take
-	// ids of the same kind, mostly in time order, so that this is mostly
-	// the order of the output already.
-	var keys []key
+	var tests slab[*ledger.Test]
+	var floats slab[float64]
+	index := map[key]int{}
 	// One pass over the tests' rows; a failure joins its lot or LeftOut
 	// once the pass has met every retest that may replace it.
-	var finals finalsPass[*group]
+	var finals finalsPass[int]
 	rows := p.TestRows()
-	// The placements by handle, each looked up once: the tests name a
-	// placement by handle (nil: not looked up yet; none: not held).
-	pls := make([]*ledger.Placement, rows.NumHandles())
-	none := &ledger.Placement{}
+	if scope.Feature == "" { // about a lot per placement named
+		groups, keys = make([]group, 0, rows.NumHandles()), make([]key, 0, rows.NumHandles())
+	}
 	var lastKey key
-	var g *group
+	// Of the placement of the last row: a placement's tests mostly come
+	// together.
+	lastPlacement := ledger.Handle(0)
+	var pl *ledger.Placement
+	var lift ledger.Lift
+	inScope := scope.Feature != "" && scope.holdsLift(lift) // when the scope bounds no day and pl is held
+	byDay := scope.DayFrom != "" || scope.DayTo != ""
+	at := -1 // the lot of lastKey
 	for i := range rows.Rows {
 		r := &rows.Rows[i]
 		finals.note(r)
 		if r.Spec == 0 {
 			continue
 		}
-		var pl *ledger.Placement
-		if r.Placement != 0 {
-			if pl = pls[r.Placement]; pl == nil {
-				if pl, _ = p.Placement(rows.ID(r.Placement)); pl == nil {
-					pl = none
-				}
-				pls[r.Placement] = pl
-			}
-			if pl == none {
-				pl = nil
-			}
+		if r.Placement != lastPlacement {
+			lastPlacement, pl, lift = r.Placement, rows.Placement(r.Placement), rows.Lift(r.Placement)
+			inScope = scope.Feature != "" && scope.holdsLift(lift)
 		}
 		k := key{spec: r.Spec}
 		switch {
 		case scope.Feature != "":
-			if !scope.holds(r.Test, pl) {
+			if pl == nil || byDay {
+				if !scope.holds(r.Test, lift, pl != nil) {
+					continue
+				}
+			} else if !inScope {
 				continue
 			}
 		case pl == nil:
@@ -271,50 +275,76 @@ func Lots(p *ledger.Projection, scope LotScope) ([]Lot, error) {
 		default:
 			k.placement = r.Placement
 		}
-		if g == nil || k != lastKey {
-			if g != nil {
-				room = len(g.final)
+		if at < 0 || k != lastKey {
+			if at >= 0 {
+				room = len(groups[at].final)
 			}
-			if g = groups[k]; g == nil {
-				g = &group{final: make([]*ledger.Test, 0, room)}
+			var ok bool
+			if at, ok = index[k]; !ok {
+				g := group{final: tests.take(room)}
 				if k.placement != 0 {
-					g.pl = pl
+					g.pl, g.lift = pl, lift
 				}
-				if spec, ok := p.Spec(rows.ID(k.spec)); ok {
+				if spec := rows.Spec(k.spec); spec != nil {
 					g.spec, g.kinds = spec, kindsOf(spec)
-					g.values = newValues(g.kinds, room)
+					g.values = newValues(g.kinds, room, &floats)
 				}
-				groups[k] = g
-				keys = append(keys, k)
+				at = len(groups)
+				index[k] = at
+				groups, keys = append(groups, g), append(keys, k)
 			}
 			lastKey = k
 		}
-		switch why, decided := finals.judge(r, g); {
+		switch why, decided := finals.judge(r, at); {
 		case !decided:
 		case why == "":
-			join(g, r)
+			join(&groups[at], r)
 		default:
-			g.left = append(g.left, left{r, LeftOut{TestID: r.ID, Reason: why}})
+			groups[at].left++
+			lefts = append(lefts, leftAt{at, leftRow{r, LeftOut{TestID: r.ID, Reason: why}}})
 		}
 	}
-	// The failures join their lots last, out of order: join notes it.
+	// The failures join their lots last, out of order: join notes it. Most
+	// of them were reworked and retested, and are left out.
+	lefts = slices.Grow(lefts, len(finals.held))
 	for h, why := range finals.decided() {
+		g := &groups[h.at]
 		if why == "" {
-			join(h.at, h.row)
+			join(g, h.row)
 		} else {
-			h.at.left = append(h.at.left, left{h.row, LeftOut{TestID: h.row.ID, Reason: why, ReplacedBy: h.by.ID}})
+			g.left++
+			lefts = append(lefts, leftAt{h.at, leftRow{h.row, LeftOut{TestID: h.row.ID, Reason: why, ReplacedBy: h.by.ID}}})
 		}
 	}
-	byID := func(a, b key) int {
-		return cmp.Or(cmp.Compare(rows.ID(a.placement), rows.ID(b.placement)), cmp.Compare(rows.ID(a.spec), rows.ID(b.spec)))
+	order := make([]int, len(keys))
+	nLeft := 0
+	for i := range order {
+		order[i] = i
+		groups[i].from = nLeft
+		nLeft += groups[i].left
 	}
-	if !slices.IsSortedFunc(keys, byID) {
-		slices.SortFunc(keys, byID)
+	byLot := make([]leftRow, nLeft)
+	for _, l := range lefts {
+		g := &groups[l.at]
+		byLot[g.from] = l.leftRow
+		g.from++
 	}
-	out := make([]Lot, 0, len(keys))
+	byID := func(a, b int) int {
+		ka, kb := keys[a], keys[b]
+		return cmp.Or(rows.CompareIDs(ka.placement, kb.placement), rows.CompareIDs(ka.spec, kb.spec))
+	}
+	if !slices.IsSortedFunc(order, byID) {
+		slices.SortFunc(order, byID)
+	}
+	out := make([]Lot, len(order))
+	leftOut := make([]LeftOut, 0, nLeft)
+	est := newEstimates(len(order))
 	name := scope.name()
-	for _, k := range keys {
-		g := groups[k]
+	names := liftNames(len(groups), func(i int) (ledger.Lift, string, bool) {
+		return groups[i].lift, rows.ID(keys[i].placement), groups[i].pl != nil
+	})
+	for i, gi := range order {
+		g := &groups[gi]
 		if g.unsorted {
 			slices.SortFunc(g.final, byTime)
 			g.values = values{}
@@ -322,24 +352,87 @@ func Lots(p *ledger.Projection, scope LotScope) ([]Lot, error) {
 				g.values.add(g.kinds, t.Result.RelativeCompaction, t.Result.MoistureDeviation, t.Result.MoisturePercentOfOptimum)
 			}
 		}
-		slices.SortFunc(g.left, func(a, b left) int { return rowTime(a.r, b.r) })
-		l := Lot{Name: name, Feature: scope.Feature, Placement: g.pl, SpecID: rows.ID(k.spec), Tests: g.final}
+		l := &out[i]
+		*l = Lot{Name: name, Feature: scope.Feature, Placement: g.pl, SpecID: rows.ID(keys[gi].spec), Tests: g.final}
 		if g.pl != nil {
-			l.Name, l.Feature = liftName(g.pl), g.pl.Feature
+			l.Name, l.Feature = names[gi], g.lift.Feature
 		}
-		if len(g.left) > 0 {
-			l.LeftOut = make([]LeftOut, 0, len(g.left))
-			for _, o := range g.left {
-				l.LeftOut = append(l.LeftOut, o.o)
+		if g.left > 0 {
+			left := byLot[g.from-g.left : g.from] // from is now past them
+			slices.SortFunc(left, func(a, b leftRow) int { return rowTime(a.r, b.r) })
+			for _, o := range left {
+				leftOut = append(leftOut, o.o)
 			}
+			l.LeftOut = leftOut[len(leftOut)-len(left) : len(leftOut) : len(leftOut)]
 		}
 		if len(l.Tests) == 0 { // nil for none, as appending to nothing gives
 			l.Tests, g.values = nil, values{}
 		}
-		l.estimate(g.spec, g.values)
-		out = append(out, l)
+		l.estimate(g.spec, g.values, &est)
 	}
 	return out, nil
+}
+
+// leftRow is a test left out of its lot, with its row.
+type leftRow struct {
+	r *ledger.TestRow
+	o LeftOut
+}
+
+// liftNames names n one-lift lots, lot i being of the lift and
+// placement id lift(i) gives (held false for a lot of no one lift, which
+// takes no name): "embankment lift 3", or "embankment, placement <id>" for
+// a placement of no lift number. The names share one string.
+func liftNames(n int, lift func(i int) (l ledger.Lift, placement string, held bool)) []string {
+	var b strings.Builder
+	ends, size := make([]int, n), 0
+	for i := range n {
+		if l, _, held := lift(i); held {
+			size += len(l.Feature) + len(" lift 1234") // room for most
+		}
+	}
+	b.Grow(size)
+	for i := range n {
+		if l, id, held := lift(i); held {
+			b.WriteString(l.Feature)
+			if l.Number == 0 {
+				b.WriteString(", placement ")
+				b.WriteString(id)
+			} else {
+				b.WriteString(" lift ")
+				var d [10]byte
+				b.Write(strconv.AppendUint(d[:0], uint64(l.Number), 10))
+			}
+		}
+		ends[i] = b.Len()
+	}
+	all, names := b.String(), make([]string, n)
+	from := 0
+	for i, end := range ends {
+		names[i], from = all[from:end], end
+	}
+	return names
+}
+
+// slab hands out slices carved from large blocks, each with the room asked
+// and no more, so that a slice outgrowing its room moves out on append
+// rather than overwriting the next.
+type slab[T any] struct{ free []T }
+
+// slabBlock is the fewest elements a block holds.
+const slabBlock = 4096
+
+// take returns an empty slice with room for n elements (nil for none).
+func (s *slab[T]) take(n int) []T {
+	if n == 0 {
+		return nil
+	}
+	if len(s.free) < n {
+		s.free = make([]T, max(n, slabBlock))
+	}
+	out := s.free[:0:n]
+	s.free = s.free[n:]
+	return out
 }
 
 // values are the values of a lot's final tests, in the order of its
@@ -364,16 +457,15 @@ func kindsOf(spec *ledger.Spec) valueKinds {
 		ofOptimum: s.MoistureBasis == qc.PercentOfOptimum}
 }
 
-// newValues returns values with room for n tests of the kinds k.
-func newValues(k valueKinds, n int) values {
+// newValues returns values with room for n tests of the kinds k, taken
+// from s.
+func newValues(k valueKinds, n int, s *slab[float64]) values {
 	var v values
-	if n > 0 {
-		if k.compaction {
-			v.compaction = make([]float64, 0, n)
-		}
-		if k.moisture {
-			v.moisture = make([]float64, 0, n)
-		}
+	if k.compaction {
+		v.compaction = s.take(n)
+	}
+	if k.moisture {
+		v.moisture = s.take(n)
 	}
 	return v
 }
@@ -393,10 +485,35 @@ func (v *values) add(k valueKinds, compaction, deviation, ofOptimum float64) {
 	}
 }
 
+// estimates hands out what Lot.estimate makes for a lot, from blocks made
+// for every lot of a report at once.
+type estimates struct {
+	qualities []Quality
+	lots      []qc.Lot
+	limits    []float64
+}
+
+// newEstimates has room for n lots.
+func newEstimates(n int) estimates {
+	return estimates{qualities: make([]Quality, 0, 2*n), lots: make([]qc.Lot, 0, 2*n), limits: make([]float64, 0, 3*n)}
+}
+
+// next appends v to *s and returns a pointer to it; s has room for it, so
+// that no pointer handed out before moves.
+func next[T any](s *[]T, v T) *T {
+	if len(*s) == cap(*s) { // more than asked for: a block of its own
+		p := new(T)
+		*p = v
+		return p
+	}
+	*s = append(*s, v)
+	return &(*s)[len(*s)-1]
+}
+
 // estimate fills the lot's characteristics, their estimates and the
 // acceptance from its spec (nil when this replica does not hold it) and
-// the values of its final tests.
-func (l *Lot) estimate(spec *ledger.Spec, v values) {
+// the values of its final tests, with the room in e.
+func (l *Lot) estimate(spec *ledger.Spec, v values, e *estimates) {
 	l.Acceptance = NotEstimated
 	if spec == nil {
 		l.Why = "its spec has not reached this replica"
@@ -411,14 +528,13 @@ func (l *Lot) estimate(spec *ledger.Spec, v values) {
 		if x == nil {
 			return nil
 		}
-		v := x.Value
-		return &v
+		return next(&e.limits, x.Value)
 	}
 	if s.MinCompaction != nil {
-		l.Compaction = &Quality{Lower: limit(s.MinCompaction), Values: v.compaction}
+		l.Compaction = next(&e.qualities, Quality{Lower: limit(s.MinCompaction), Values: v.compaction})
 	}
 	if s.MoistureLow != nil || s.MoistureHigh != nil {
-		l.Moisture = &Quality{Lower: limit(s.MoistureLow), Upper: limit(s.MoistureHigh), Values: v.moisture}
+		l.Moisture = next(&e.qualities, Quality{Lower: limit(s.MoistureLow), Upper: limit(s.MoistureHigh), Values: v.moisture})
 	}
 	switch {
 	case l.Compaction == nil && l.Moisture == nil:
@@ -441,7 +557,7 @@ func (l *Lot) estimate(spec *ledger.Spec, v values) {
 			failed = append(failed, fmt.Sprintf("%s cannot be estimated (%v)", c.name, err))
 			continue
 		}
-		c.q.PWL = &est
+		c.q.PWL = next(&e.lots, est)
 		// A tolerance so that a PWL equal to the limit but for floating
 		// noise reaches it.
 		if l.AcceptancePWL > 0 && est.PWL < l.AcceptancePWL-1e-9 {

@@ -165,14 +165,13 @@ func Reconcile(p *ledger.Projection) ([]Balance, error) {
 		tests                    []float64
 		n                        int // the final tests of its placements
 		untested                 int
-		sources                  map[string]float64 // source id -> compacted volume from it
+		sources                  []string // the ids of the sources its placements came from, each once
 	}
-	add := func(a *acc, pl *ledger.Placement, ds []float64, mean float64) {
+	add := func(a *acc, pl *ledger.PlacementSummary, ds []float64, mean float64) {
 		a.volume += pl.CompactedVolume
-		if a.sources == nil {
-			a.sources = map[string]float64{}
+		if !slices.Contains(a.sources, pl.BorrowSourceID) {
+			a.sources = append(a.sources, pl.BorrowSourceID)
 		}
-		a.sources[pl.BorrowSourceID] += pl.CompactedVolume
 		if len(ds) == 0 {
 			a.untested++
 			return
@@ -185,46 +184,49 @@ func Reconcile(p *ledger.Projection) ([]Balance, error) {
 		a.tests = append(a.tests, ds...)
 	}
 	bySource, byFeature := map[string]*acc{}, map[string]*acc{}
-	placements := p.Placements()
-	// Each placement's final densities and their mean, found once for
-	// both passes and both the source's balance and the feature's.
+	sourceAcc, featureAcc := lastFew[acc]{m: bySource}, lastFew[acc]{m: byFeature}
+	_, handles := rows.Placements()
+	placements := rows.PlacementSummaries()
+	// Each placement's final densities and their mean, and its balances,
+	// found once for both passes and both the source's balance and the
+	// feature's.
 	dens, means := make([][]float64, len(placements)), make([]float64, len(placements))
-	for i, pl := range placements {
-		if h, ok := rows.Handle(pl.ID); ok && byPlacement[h] != nil {
+	accs := make([][2]*acc, len(placements))
+	for i := range placements {
+		pl := &placements[i]
+		if h := handles[i]; h != 0 && byPlacement[h] != nil {
 			dens[i] = *byPlacement[h]
 			means[i] = stat.Mean(dens[i], nil)
+		}
+		if pl.BorrowSourceID != "" {
+			accs[i][0] = sourceAcc.get(pl.BorrowSourceID)
+		}
+		if pl.Feature != "" {
+			accs[i][1] = featureAcc.get(pl.Feature)
 		}
 	}
 	// Twice over the placements: first to size each balance's tests, so
 	// that they are gathered in one allocation, then to add them up.
 	for pass := range 2 {
-		for i, pl := range placements {
-			for _, m := range []struct {
-				to  map[string]*acc
-				key string
-			}{{bySource, pl.BorrowSourceID}, {byFeature, pl.Feature}} {
-				if m.key == "" {
-					continue
-				}
-				a := m.to[m.key]
-				if a == nil {
-					a = &acc{}
-					m.to[m.key] = a
-				}
-				if pass == 0 {
+		for i := range placements {
+			for _, a := range accs[i] {
+				switch {
+				case a == nil:
+				case pass == 0:
 					a.n += len(dens[i])
-				} else {
-					add(a, pl, dens[i], means[i])
+				default:
+					add(a, &placements[i], dens[i], means[i])
 				}
 			}
 		}
 	}
-	looseBySource, looseByFeature := map[string]float64{}, map[string]float64{}
-	for _, h := range p.Hauls() {
+	looseBySource, looseByFeature := lastFew[float64]{m: map[string]*float64{}}, lastFew[float64]{m: map[string]*float64{}}
+	_, haulPlacements := rows.Hauls()
+	for i, h := range rows.HaulSummaries() {
 		v := float64(h.Loads) * h.LooseVolumePerLoad
-		looseBySource[h.BorrowSourceID] += v
-		if pl, ok := p.Placement(h.PlacementID); ok && h.PlacementID != "" {
-			looseByFeature[pl.Feature] += v
+		*looseBySource.get(h.BorrowSourceID) += v
+		if haulPlacements[i] != nil {
+			*looseByFeature.get(h.Feature) += v
 		}
 	}
 	borrow := p.BorrowSources()
@@ -327,9 +329,7 @@ func Reconcile(p *ledger.Projection) ([]Balance, error) {
 		// the planned source's, or that one's when the design names none.
 		var placedFrom *ledger.BorrowSource
 		if a != nil && len(a.sources) == 1 {
-			for id := range a.sources {
-				placedFrom = sources[id]
-			}
+			placedFrom = sources[a.sources[0]]
 		}
 		bank := placedFrom
 		if designed && d.BorrowSourceID != "" {
@@ -338,7 +338,7 @@ func Reconcile(p *ledger.Projection) ([]Balance, error) {
 				b.Notes = append(b.Notes, fmt.Sprintf("the planned borrow source %s is not on this replica", d.BorrowSourceID))
 			}
 		}
-		b.LooseHauled = looseByFeature[n]
+		b.LooseHauled = looseByFeature.sum(n)
 		if err := balance(&b, placedFrom); err != nil {
 			return nil, err
 		}
@@ -355,7 +355,7 @@ func Reconcile(p *ledger.Projection) ([]Balance, error) {
 	}
 
 	for _, src := range borrow {
-		b := Balance{Scope: SourceScope, ID: src.ID, Name: src.Name, Source: src, Convention: conv, LooseHauled: looseBySource[src.ID]}
+		b := Balance{Scope: SourceScope, ID: src.ID, Name: src.Name, Source: src, Convention: conv, LooseHauled: looseBySource.sum(src.ID)}
 		fill(&b, bySource[src.ID])
 		if err := balance(&b, src); err != nil {
 			return nil, err
@@ -395,6 +395,42 @@ func Reconcile(p *ledger.Projection) ([]Balance, error) {
 	}
 	slices.SortStableFunc(out, func(a, b Balance) int { return cmp.Compare(a.Name, b.Name) })
 	return append(out, features...), nil
+}
+
+// lastFew finds values by key in m, making those it lacks, and keeps the
+// last few keys found at hand: a project has a few sources and features,
+// met in turn, whose keys would otherwise be hashed again at every
+// placement.
+type lastFew[V any] struct {
+	m    map[string]*V
+	keys [4]string
+	vals [4]*V
+	next int
+}
+
+func (c *lastFew[V]) get(key string) *V {
+	for i, k := range c.keys {
+		if c.vals[i] != nil && k == key {
+			return c.vals[i]
+		}
+	}
+	v := c.m[key]
+	if v == nil {
+		v = new(V)
+		c.m[key] = v
+	}
+	c.keys[c.next], c.vals[c.next] = key, v
+	c.next = (c.next + 1) % len(c.keys)
+	return v
+}
+
+// sum is the value of key, zero when there is none.
+func (c *lastFew[V]) sum(key string) V {
+	if v := c.m[key]; v != nil {
+		return *v
+	}
+	var zero V
+	return zero
 }
 
 func (b *Balance) hauledSwell() {

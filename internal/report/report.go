@@ -102,17 +102,23 @@ func RetestAudit(p *ledger.Projection) []Chain {
 		}
 	}
 	retests.done(p, rows)
+	// Oldest first, by the rows: the chains are made in that order.
+	if !slices.IsSortedFunc(failed, rowTime) {
+		slices.SortFunc(failed, rowTime)
+	}
 	out := make([]Chain, 0, len(failed))
 	var chain retestChain
 	for _, f := range failed {
-		t := f.Test
-		c := Chain{Failed: t, Closure: Open}
+		c := Chain{Failed: f.Test, Closure: Open}
 		rs := chain.of(&retests, f)
 		slices.SortFunc(rs, rowTime)
+		if len(rs) > 0 {
+			c.Retests = make([]*ledger.Test, 0, len(rs))
+		}
 		for _, r := range rs {
 			c.Retests = append(c.Retests, r.Test)
 			if r.State&ledger.RowVoided == 0 {
-				c.StationShift = max(c.StationShift, math.Abs(r.Test.Content.Location.Station-t.Content.Location.Station))
+				c.StationShift = max(c.StationShift, math.Abs(r.Station-f.Station))
 			}
 		}
 		switch {
@@ -129,9 +135,6 @@ func RetestAudit(p *ledger.Projection) []Chain {
 		}
 		out = append(out, c)
 	}
-	if !slices.IsSortedFunc(out, func(a, b Chain) int { return byTime(a.Failed, b.Failed) }) {
-		slices.SortFunc(out, func(a, b Chain) int { return byTime(a.Failed, b.Failed) })
-	}
 	if len(out) == 0 {
 		return nil // as appending to nothing gives
 	}
@@ -145,11 +148,16 @@ func RetestAudit(p *ledger.Projection) []Chain {
 // was recorded twice the projection alone knows every retest each record
 // names, and the index asks it instead (Projection.RetestsOf).
 type retestIndex struct {
-	links  []*ledger.TestRow                  // the retests of held tests
-	byTest map[*ledger.Test][]*ledger.TestRow // the links by the test retested, made to size once the pass is over
-	p      *ledger.Projection                 // set when a test id was recorded twice
-	rows   map[*ledger.Test]*ledger.TestRow   // then, every test's row
-	dup    bool
+	links []*ledger.TestRow // the retests of held tests
+	// first is, by the test retested, the index in links of its first
+	// retest, and next[i] that of the retest after links[i] (-1 for
+	// none): the links by test, made to size once the pass is over,
+	// without a list for each.
+	first map[*ledger.Test]int32
+	next  []int32
+	p     *ledger.Projection               // set when a test id was recorded twice
+	rows  map[*ledger.Test]*ledger.TestRow // then, every test's row
+	dup   bool
 }
 
 // add files the row r, the next in id order.
@@ -172,9 +180,14 @@ func (x *retestIndex) done(p *ledger.Projection, rows ledger.TestRows) {
 		return
 	}
 	if len(x.links) > 0 {
-		x.byTest = make(map[*ledger.Test][]*ledger.TestRow, len(x.links))
-		for _, r := range x.links {
-			x.byTest[r.Retested] = append(x.byTest[r.Retested], r)
+		x.first, x.next = make(map[*ledger.Test]int32, len(x.links)), make([]int32, len(x.links))
+		for i := len(x.links) - 1; i >= 0; i-- { // last first: each test's list ends up in pass order
+			t := x.links[i].Retested
+			x.next[i] = -1
+			if j, ok := x.first[t]; ok {
+				x.next[i] = j
+			}
+			x.first[t] = int32(i)
 		}
 	}
 }
@@ -190,7 +203,12 @@ func (x *retestIndex) of(rs []*ledger.TestRow, t *ledger.Test) []*ledger.TestRow
 		}
 		return rs
 	}
-	return append(rs, x.byTest[t]...)
+	i, ok := x.first[t]
+	for ok && i >= 0 {
+		rs = append(rs, x.links[i])
+		i = x.next[i]
+	}
+	return rs
 }
 
 // retestChain walks the retests of a test, retests of retests included,
