@@ -189,55 +189,37 @@ func Lots(p *ledger.Projection, scope LotScope) ([]Lot, error) {
 	if err := scope.validate(); err != nil {
 		return nil, fmt.Errorf("report: lots: %w", err)
 	}
+	// A lot is of a placement and a spec (of no placement in a feature
+	// scope): its placement, lift and spec are looked up by the handles of
+	// its key when they are needed, rather than held for each lot.
 	type key struct{ placement, spec ledger.Handle }
 	type group struct {
-		pl    *ledger.Placement
-		lift  ledger.Lift  // pl's
-		spec  *ledger.Spec // nil when this replica does not hold it
-		kinds valueKinds   // what the spec sets, looked up once for the lot
-		final []*ledger.Test
-		last  *ledger.TestRow // the final test joined last
-		left  int             // the tests left out of it, gathered in lefts
-		from  int             // the index in byLot past its tests left out, once they are filed
-		// values are the final tests' values of the characteristics the
-		// spec sets, gathered as the tests join, while each is at hand,
-		// rather than in a second pass over the lot.
-		values values
-		// unsorted is set when a final test joins out of time order; the
-		// check too is made as tests join.
-		unsorted bool
+		fill lotFill
+		// prev is the lot made before it with the same handle in latest,
+		// -1 for none: the lots are found by the handles that name them,
+		// rather than by a map.
+		prev int32
+		left int32 // the tests left out of it, in lefts
 	}
 	// The lots, in the order the pass met them: tests and placements take
 	// ids of the same kind, mostly in time order, so that this is mostly
 	// the order of the output already. A lot is named by its index here.
 	var groups []group
 	var keys []key
-	// The tests left out, each with the index of its lot, sorted by lot at
-	// the end rather than kept in a list for each.
-	type leftAt struct {
-		at int
-		leftRow
-	}
 	var lefts []leftAt
-	join := func(g *group, r *ledger.TestRow) {
-		// rowTime only for tests of one wall time: mostly the walls tell.
-		if g.last != nil && !g.unsorted && g.last.HLC.Wall >= r.HLC.Wall && (g.last.HLC.Wall > r.HLC.Wall || rowTime(g.last, r) > 0) {
-			g.unsorted = true
-		}
-		g.final, g.last = append(g.final, r.Test), r
-		g.values.add(g.kinds, r.RelativeCompaction, r.MoistureDeviation, r.MoisturePercentOfOptimum)
-	}
 	// Lots are alike in size: a new lot has room for as many final tests
 	// as the one before it took, rather than growing test by test, carved
 	// from a few large blocks rather than allocated lot by lot.
 	room := 0
 	var tests slab[*ledger.Test]
 	var floats slab[float64]
-	index := map[key]int{}
 	// One pass over the tests' rows; a failure joins its lot or LeftOut
 	// once the pass has met every retest that may replace it.
 	var finals finalsPass[int]
 	rows := p.TestRows()
+	// By the placement handle of a one-lift lot, or the spec handle of a
+	// lot of a scope: the last lot made with it, plus one (0 for none).
+	latest := make([]int32, rows.NumHandles())
 	if scope.Feature == "" { // about a lot per placement named
 		groups, keys = make([]group, 0, rows.NumHandles()), make([]key, 0, rows.NumHandles())
 	}
@@ -250,8 +232,23 @@ func Lots(p *ledger.Projection, scope LotScope) ([]Lot, error) {
 	inScope := scope.Feature != "" && scope.holdsLift(lift) // when the scope bounds no day and pl is held
 	byDay := scope.DayFrom != "" || scope.DayTo != ""
 	at := -1 // the lot of lastKey
+	// The fill of lot at, held here while its tests come and written back
+	// when a test of another lot comes, rather than written in groups test
+	// by test.
+	var cur lotFill
+	// fast is set when a test of lastKey's placement and spec is in lot
+	// at without reading it: a test that is final as it stands (neither a
+	// retest nor failed, nor voided, returned or pending) then joins it
+	// straight away, as most do.
+	fast := false
+	const notPlain = ledger.RowFail | ledger.RowVoided | ledger.RowReturned | ledger.RowPending
 	for i := range rows.Rows {
 		r := &rows.Rows[i]
+		if fast && r.Placement == lastPlacement && r.Spec == lastKey.spec && r.Retested == nil && r.State&notPlain == 0 {
+			cur.join(r)
+			continue
+		}
+		fast = false
 		finals.note(r)
 		if r.Spec == 0 {
 			continue
@@ -277,57 +274,52 @@ func Lots(p *ledger.Projection, scope LotScope) ([]Lot, error) {
 		}
 		if at < 0 || k != lastKey {
 			if at >= 0 {
-				room = len(groups[at].final)
+				groups[at].fill, room = cur, len(cur.final)
 			}
-			var ok bool
-			if at, ok = index[k]; !ok {
-				g := group{final: tests.take(room)}
-				if k.placement != 0 {
-					g.pl, g.lift = pl, lift
-				}
+			h := cmp.Or(k.placement, k.spec)
+			at = int(latest[h]) - 1
+			for at >= 0 && keys[at] != k {
+				at = int(groups[at].prev)
+			}
+			if at < 0 {
+				g := group{prev: latest[h] - 1, fill: lotFill{final: tests.take(room)}}
 				if spec := rows.Spec(k.spec); spec != nil {
-					g.spec, g.kinds = spec, kindsOf(spec)
-					g.values = newValues(g.kinds, room, &floats)
+					g.fill.kinds = kindsOf(spec)
+					g.fill.values = newValues(g.fill.kinds, room, &floats)
 				}
 				at = len(groups)
-				index[k] = at
+				latest[h] = int32(at) + 1
 				groups, keys = append(groups, g), append(keys, k)
 			}
-			lastKey = k
+			cur, lastKey = groups[at].fill, k
 		}
+		fast = pl != nil && (scope.Feature == "" || !byDay && inScope)
 		switch why, decided := finals.judge(r, at); {
 		case !decided:
 		case why == "":
-			join(&groups[at], r)
+			cur.join(r)
 		default:
 			groups[at].left++
-			lefts = append(lefts, leftAt{at, leftRow{r, LeftOut{TestID: r.ID, Reason: why}}})
+			lefts = append(lefts, leftAt{row: r, at: int32(at), why: why})
 		}
+	}
+	if at >= 0 {
+		groups[at].fill = cur
 	}
 	// The failures join their lots last, out of order: join notes it. Most
 	// of them were reworked and retested, and are left out.
 	lefts = slices.Grow(lefts, len(finals.held))
 	for h, why := range finals.decided() {
-		g := &groups[h.at]
 		if why == "" {
-			join(g, h.row)
+			groups[h.at].fill.join(h.row)
 		} else {
-			g.left++
-			lefts = append(lefts, leftAt{h.at, leftRow{h.row, LeftOut{TestID: h.row.ID, Reason: why, ReplacedBy: h.by.ID}}})
+			groups[h.at].left++
+			lefts = append(lefts, leftAt{row: h.row, by: h.by, at: int32(h.at), why: why})
 		}
 	}
 	order := make([]int, len(keys))
-	nLeft := 0
 	for i := range order {
 		order[i] = i
-		groups[i].from = nLeft
-		nLeft += groups[i].left
-	}
-	byLot := make([]leftRow, nLeft)
-	for _, l := range lefts {
-		g := &groups[l.at]
-		byLot[g.from] = l.leftRow
-		g.from++
 	}
 	byID := func(a, b int) int {
 		ka, kb := keys[a], keys[b]
@@ -336,47 +328,90 @@ func Lots(p *ledger.Projection, scope LotScope) ([]Lot, error) {
 	if !slices.IsSortedFunc(order, byID) {
 		slices.SortFunc(order, byID)
 	}
+	// The tests left out in the order of the output: by lot, then oldest
+	// first. The pass mostly met them so already.
+	leftOut := make([]LeftOut, len(lefts))
+	if len(lefts) > 0 {
+		rank := make([]int32, len(order)) // a lot's place in the output
+		for i, gi := range order {
+			rank[gi] = int32(i)
+		}
+		byLot := func(a, b leftAt) int { return cmp.Or(cmp.Compare(rank[a.at], rank[b.at]), rowTime(a.row, b.row)) }
+		if !slices.IsSortedFunc(lefts, byLot) {
+			slices.SortFunc(lefts, byLot)
+		}
+		for i, o := range lefts {
+			l := &leftOut[i]
+			l.TestID, l.Reason = o.row.ID, o.why
+			if o.by != nil {
+				l.ReplacedBy = o.by.ID
+			}
+		}
+	}
 	out := make([]Lot, len(order))
-	leftOut := make([]LeftOut, 0, nLeft)
 	est := newEstimates(len(order))
 	name := scope.name()
 	names := liftNames(len(groups), func(i int) (ledger.Lift, string, bool) {
-		return groups[i].lift, rows.ID(keys[i].placement), groups[i].pl != nil
+		h := keys[i].placement
+		return rows.Lift(h), rows.ID(h), rows.Placement(h) != nil
 	})
+	from := 0 // the first of leftOut not yet in a lot
 	for i, gi := range order {
-		g := &groups[gi]
-		if g.unsorted {
-			slices.SortFunc(g.final, byTime)
-			g.values = values{}
-			for _, t := range g.final {
-				g.values.add(g.kinds, t.Result.RelativeCompaction, t.Result.MoistureDeviation, t.Result.MoisturePercentOfOptimum)
+		g, k := &groups[gi], keys[gi]
+		f := &g.fill
+		if f.unsorted {
+			slices.SortFunc(f.final, byTime)
+			f.values = values{}
+			for _, t := range f.final {
+				f.values.add(f.kinds, t.Result.RelativeCompaction, t.Result.MoistureDeviation, t.Result.MoisturePercentOfOptimum)
 			}
 		}
 		l := &out[i]
-		*l = Lot{Name: name, Feature: scope.Feature, Placement: g.pl, SpecID: rows.ID(keys[gi].spec), Tests: g.final}
-		if g.pl != nil {
-			l.Name, l.Feature = names[gi], g.lift.Feature
+		l.Name, l.Feature, l.SpecID, l.Tests = name, scope.Feature, rows.ID(k.spec), f.final
+		if pl := rows.Placement(k.placement); pl != nil {
+			l.Placement, l.Name, l.Feature = pl, names[gi], rows.Lift(k.placement).Feature
 		}
 		if g.left > 0 {
-			left := byLot[g.from-g.left : g.from] // from is now past them
-			slices.SortFunc(left, func(a, b leftRow) int { return rowTime(a.r, b.r) })
-			for _, o := range left {
-				leftOut = append(leftOut, o.o)
-			}
-			l.LeftOut = leftOut[len(leftOut)-len(left) : len(leftOut) : len(leftOut)]
+			to := from + int(g.left)
+			l.LeftOut, from = leftOut[from:to:to], to
 		}
 		if len(l.Tests) == 0 { // nil for none, as appending to nothing gives
-			l.Tests, g.values = nil, values{}
+			l.Tests, f.values = nil, values{}
 		}
-		l.estimate(g.spec, g.values, &est)
+		l.estimate(rows.Spec(k.spec), f.values, &est)
 	}
 	return out, nil
 }
 
-// leftRow is a test left out of its lot, with its row.
-type leftRow struct {
-	r *ledger.TestRow
-	o LeftOut
+// leftAt is a test left out of lot at, with why, and the retest that
+// replaced it (nil for none).
+type leftAt struct {
+	row, by *ledger.TestRow
+	at      int32
+	why     Reason
+}
+
+// lotFill gathers a lot's final tests as they join, with the values of the
+// characteristics its spec sets (kinds), while each test's row is at hand,
+// rather than in a second pass over the lot.
+type lotFill struct {
+	final  []*ledger.Test
+	values values
+	kinds  valueKinds
+	// last is the final test joined last, and unsorted is set when a test
+	// joins out of time order: the check too is made as tests join.
+	last     *ledger.TestRow
+	unsorted bool
+}
+
+// join adds the row's test to the lot's final tests.
+func (f *lotFill) join(r *ledger.TestRow) {
+	// Mostly the walls tell: rowTime only for tests of one wall time.
+	if f.last != nil && f.last.HLC.Wall >= r.HLC.Wall {
+		f.unsorted = f.unsorted || f.last.HLC.Wall > r.HLC.Wall || rowTime(f.last, r) > 0
+	}
+	f.final, f.last = append(f.final, r.Test), r
+	f.values.add(f.kinds, r.RelativeCompaction, r.MoistureDeviation, r.MoisturePercentOfOptimum)
 }
 
 // liftNames names n one-lift lots, lot i being of the lift and
