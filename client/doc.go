@@ -72,11 +72,11 @@
 // Measured on the project's 2-core machine (go test -run XXX -bench
 // RecordTest -benchtime 2000x ./client), recording a test takes:
 //
-//	DurabilityFull       median 0.32 ms, 99th percentile 0.88 ms
-//	DurabilityNormal     median 0.10 ms, 99th percentile 0.76 ms
+//	DurabilityFull       median 0.42 ms, 99th percentile 1.7 ms
+//	DurabilityNormal     median 0.17 ms, 99th percentile 1.0 ms
 //
-// and opening a store of 5,000 tests, which rebuilds its views, about
-// 0.28 s (BenchmarkOpen). Figures on a tablet's flash storage will differ.
+// and opening a store of 100,000 tests, which rebuilds its views, about
+// 0.7 s (BenchmarkOpen). Figures on a tablet's flash storage will differ.
 //
 // # Syncing
 //
